@@ -1,0 +1,451 @@
+"""Vectorised EOS evaluators in pseudo-enthalpy (internal).
+
+An :class:`EOSBatch` holds one or more EOS of the same family as arrays so
+that the structure solver can evaluate many stars of many EOS in one NumPy
+call.  All quantities here are geometrised (G = c = 1, lengths in km):
+pressure ``p``, total energy density ``e`` and rest-mass density ``rho`` are
+in km^-2, the pseudo-enthalpy ``h`` is dimensionless.
+
+The solver asks a batch for a *lane view* (:meth:`EOSBatch.lanes`): one lane
+per star, each lane pointing at the EOS of that star.  A lane view evaluates
+``(p, e, rho, dedh)`` at an array ``h`` of shape ``(n_lanes,)``, where
+``dedh = de/dh = (e + p) / c_s^2``.
+
+Three building blocks cover every family:
+
+* :class:`PolytropePieces` -- a chain of polytropes ``p = K rho^Gamma`` joined
+  continuously (Read et al. 2009), evaluated in closed form in ``h``;
+* :class:`HermiteTable` -- ``ln p``, ``ln e`` and ``ln rho`` tabulated against
+  ``h`` with their exact derivatives, interpolated by cubic Hermite pieces;
+* :class:`UniformDensityBatch` -- the incompressible star.
+
+:class:`CrustAndTable` joins polytrope pieces (the crust) below an enthalpy
+``h_join`` to a table above it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+
+__all__ = [
+    "EOSBatch",
+    "PolytropePieces",
+    "HermiteTable",
+    "CrustAndTable",
+    "UniformDensityBatch",
+    "polytrope_chain",
+]
+
+_FOUR_PI = 4.0 * np.pi
+# Lower clamp of h inside closed-form pieces: keeps ln(rho) finite at the
+# surface (rho ~ h^(1/(Gamma-1)) -> 0) without changing any value that matters.
+_H_TINY = 1e-30
+
+
+class EOSBatch:
+    """Interface of a batch of EOS of one family (internal).
+
+    Attributes
+    ----------
+    n_eos : int
+        Number of EOS in the batch.
+    kinks : ndarray, shape (n_eos, n_kinks)
+        Pseudo-enthalpies where the EOS is not smooth (piece boundaries), in
+        increasing order; padded with ``inf``.
+    h_max : ndarray, shape (n_eos,)
+        Largest pseudo-enthalpy at which the EOS is defined (``inf`` if none).
+    e_surface : ndarray, shape (n_eos,)
+        Energy density at ``h = 0`` in km^-2 (non-zero for self-bound matter;
+        enters the tidal surface correction).
+    """
+
+    n_eos: int
+    kinks: np.ndarray
+    h_max: np.ndarray
+    e_surface: np.ndarray
+
+    def lanes(self, eos_index: np.ndarray):  # pragma: no cover - interface
+        """Return an evaluator with one lane per entry of ``eos_index``."""
+        raise NotImplementedError
+
+    def select(self, eos_index: np.ndarray) -> "EOSBatch":  # pragma: no cover
+        """Return the sub-batch made of the EOS ``eos_index``."""
+        raise NotImplementedError
+
+
+# --------------------------------------------------------------------------
+# Polytrope pieces (closed form in h)
+# --------------------------------------------------------------------------
+
+
+def polytrope_chain(K: np.ndarray, gamma: np.ndarray, rho_bounds: np.ndarray):
+    """Continuity constants of a chain of polytropes.
+
+    Parameters
+    ----------
+    K : ndarray, shape (n_eos, n_pieces)
+        Polytropic constants with ``p = K rho^Gamma`` in any consistent units
+        (the dimensionless combination ``K rho^(Gamma-1)`` is all that is used).
+    gamma : ndarray, shape (n_eos, n_pieces)
+        Adiabatic indices (!= 1).
+    rho_bounds : ndarray, shape (n_eos, n_pieces - 1)
+        Rest-mass densities where piece ``i`` ends and piece ``i + 1`` begins,
+        in the same units as ``K`` uses.
+
+    Returns
+    -------
+    a : ndarray, shape (n_eos, n_pieces)
+        Energy constants with ``e = (1 + a) rho + K rho^Gamma / (Gamma - 1)``
+        (Read et al. 2009, PRD 79, 124032, Eq. 5), ``a[:, 0] = 0``.
+    h_bounds : ndarray, shape (n_eos, n_pieces - 1)
+        Pseudo-enthalpy ``h = ln((e + p) / rho)`` at each boundary.
+    """
+    K = np.asarray(K, float)
+    gamma = np.asarray(gamma, float)
+    rho_bounds = np.asarray(rho_bounds, float)
+    n_eos, n_pieces = K.shape
+    a = np.zeros((n_eos, n_pieces))
+    h_bounds = np.empty((n_eos, n_pieces - 1))
+    for i in range(n_pieces - 1):  # loop over pieces (a handful), not stars
+        rb = rho_bounds[:, i]
+        below = K[:, i] * rb ** (gamma[:, i] - 1.0)  # p / rho on piece i
+        above = K[:, i + 1] * rb ** (gamma[:, i + 1] - 1.0)
+        a[:, i + 1] = a[:, i] + below / (gamma[:, i] - 1.0) - above / (gamma[:, i + 1] - 1.0)
+        h_bounds[:, i] = np.log1p(a[:, i] + below * gamma[:, i] / (gamma[:, i] - 1.0))
+    return a, h_bounds
+
+
+@dataclass(frozen=True)
+class PolytropePieces(EOSBatch):
+    """A chain of polytropes in geometrised units.
+
+    Parameters
+    ----------
+    K : ndarray, shape (n_eos, n_pieces)
+        ``p = K rho^Gamma`` with ``p`` and ``rho`` in km^-2.
+    gamma : ndarray, shape (n_eos, n_pieces)
+    a : ndarray, shape (n_eos, n_pieces)
+        Energy constants from :func:`polytrope_chain`.
+    h_bounds : ndarray, shape (n_eos, n_pieces - 1)
+        Enthalpies of the boundaries between pieces.
+    """
+
+    K: np.ndarray
+    gamma: np.ndarray
+    a: np.ndarray
+    h_bounds: np.ndarray
+
+    @property
+    def n_eos(self) -> int:
+        return self.K.shape[0]
+
+    @property
+    def kinks(self) -> np.ndarray:
+        return self.h_bounds
+
+    @property
+    def h_max(self) -> np.ndarray:
+        return np.full(self.n_eos, np.inf)
+
+    @property
+    def e_surface(self) -> np.ndarray:
+        return np.zeros(self.n_eos)
+
+    def select(self, eos_index):
+        idx = np.asarray(eos_index)
+        return PolytropePieces(self.K[idx], self.gamma[idx], self.a[idx], self.h_bounds[idx])
+
+    @cached_property
+    def piece_table(self) -> np.ndarray:
+        """Per EOS and piece: ``[a, (G-1)/(K G), 1/(G-1), G, K, 1+a]``, shape (n_eos, n_pieces, 6)."""
+        g, K, a = self.gamma, self.K, self.a
+        return np.stack([a, (g - 1.0) / (K * g), 1.0 / (g - 1.0), g, K, 1.0 + a], axis=-1)
+
+    def lanes(self, eos_index):
+        return _PolytropeLanes(self, np.asarray(eos_index, dtype=np.intp))
+
+
+class _PolytropeLanes:
+    """Per-lane evaluation of :class:`PolytropePieces`."""
+
+    def __init__(self, pieces: PolytropePieces, eos_index: np.ndarray):
+        self._table = pieces.piece_table
+        self._eos = eos_index
+        self._hb = pieces.h_bounds[eos_index]
+        self._single_piece = self._hb.shape[1] == 0
+
+    def piece_index(self, h):
+        if self._single_piece:
+            return np.zeros(h.shape, dtype=np.intp)
+        return (h[:, None] >= self._hb).sum(axis=1)
+
+    def eval(self, h, h_loc=None):
+        """Return ``(p, e, rho, dedh)`` at pseudo-enthalpies ``h`` (one per lane).
+
+        ``h_loc`` (default ``h``) selects the piece: at a boundary the caller
+        passes a point slightly inside the interval it integrates over, so
+        that one-sided values are used on each side of a kink.
+        """
+        h = np.maximum(h, _H_TINY)
+        par = self._table[self._eos, self.piece_index(h if h_loc is None else h_loc)]
+        a, coef, inv_g1, g, K, one_a = par.T
+        ln_rho = inv_g1 * np.log(coef * (np.expm1(h) - a))
+        rho = np.exp(ln_rho)
+        p = K * np.exp(g * ln_rho)
+        w = one_a * rho + g * inv_g1 * p  # e + p
+        e = w - p
+        dedh = w * w / (g * p)  # (e + p) / c_s^2 with c_s^2 = Gamma p / (e + p)
+        return p, e, rho, dedh
+
+
+# --------------------------------------------------------------------------
+# Cubic Hermite tables in h
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class HermiteTable(EOSBatch):
+    """``ln p``, ``ln e``, ``ln rho`` against ``h``, cubic Hermite per interval.
+
+    Build it with :meth:`from_samples`.  Every EOS in the batch has the same
+    number of nodes (pad by repeating the last node if needed).
+
+    Parameters
+    ----------
+    h_nodes : ndarray, shape (n_eos, n_nodes)
+        Increasing pseudo-enthalpies of the nodes.
+    coef : ndarray, shape (n_eos, n_nodes - 1, 3, 4)
+        Polynomial coefficients in the local variable ``t in [0, 1]`` of
+        ``ln p``, ``ln e`` and ``ln rho`` on each interval (power basis).
+    kink_h : ndarray, shape (n_eos, n_kinks)
+        Enthalpies of nodes where the first derivative of the EOS jumps.
+    """
+
+    h_nodes: np.ndarray
+    coef: np.ndarray
+    kink_h: np.ndarray
+    e_surface_: np.ndarray
+
+    @classmethod
+    def from_samples(cls, h, p, e, rho, cs2, kink_h=None, e_surface=None, dlnrho_dh=None):
+        """Build the table from node samples and the exact sound speed.
+
+        Parameters
+        ----------
+        h, p, e, rho, cs2 : ndarray, shape (n_eos, n_nodes)
+            Node values in geometrised units; ``cs2`` is the squared sound
+            speed ``dp/de`` at the node.  The derivatives used by the Hermite
+            pieces are ``dln p/dh = (e+p)/p``, ``dln e/dh = (e+p)/(c_s^2 e)``
+            and ``dln rho/dh = 1/c_s^2`` (first law of thermodynamics at T = 0).
+        kink_h : ndarray, shape (n_eos, n_kinks), optional
+            Enthalpies where the sound speed is not smooth.
+        e_surface : ndarray, shape (n_eos,), optional
+            Energy density at ``h = 0`` (defaults to zero).
+        dlnrho_dh : ndarray, shape (n_eos, n_nodes), optional
+            Derivative of ``ln rho`` when the rest-mass density is given
+            separately (defaults to the first-law value ``1 / c_s^2``).
+        """
+        h = np.atleast_2d(np.asarray(h, float))
+        p, e, rho, cs2 = (np.atleast_2d(np.asarray(x, float)) for x in (p, e, rho, cs2))
+        w = e + p
+        f = np.stack([np.log(p), np.log(e), np.log(rho)], axis=-1)  # (n_eos, n, 3)
+        if dlnrho_dh is None:
+            dlnrho_dh = 1.0 / cs2
+        df = np.stack([w / p, w / (cs2 * e), np.atleast_2d(dlnrho_dh)], axis=-1)
+        dh = np.diff(h, axis=1)[..., None]
+        dh_safe = np.where(dh > 0, dh, 1.0)
+        f0, f1 = f[:, :-1], f[:, 1:]
+        d0, d1 = df[:, :-1] * dh_safe, df[:, 1:] * dh_safe
+        # Cubic Hermite in power basis on t = (h - h_k) / (h_{k+1} - h_k).
+        c0 = f0
+        c1 = d0
+        c2 = 3.0 * (f1 - f0) - 2.0 * d0 - d1
+        c3 = 2.0 * (f0 - f1) + d0 + d1
+        coef = np.stack([c0, c1, c2, c3], axis=-1)
+        if kink_h is None:
+            kink_h = np.full((h.shape[0], 0), np.inf)
+        if e_surface is None:
+            e_surface = np.zeros(h.shape[0])
+        return cls(h, coef, np.atleast_2d(np.asarray(kink_h, float)), np.asarray(e_surface, float))
+
+    @property
+    def n_eos(self) -> int:
+        return self.h_nodes.shape[0]
+
+    @property
+    def kinks(self) -> np.ndarray:
+        return self.kink_h
+
+    @property
+    def h_max(self) -> np.ndarray:
+        return self.h_nodes[:, -1]
+
+    @property
+    def h_min(self) -> np.ndarray:
+        return self.h_nodes[:, 0]
+
+    @property
+    def e_surface(self) -> np.ndarray:
+        return self.e_surface_
+
+    def select(self, eos_index):
+        idx = np.asarray(eos_index)
+        return HermiteTable(self.h_nodes[idx], self.coef[idx], self.kink_h[idx], self.e_surface_[idx])
+
+    def lanes(self, eos_index):
+        return _HermiteLanes(self, np.asarray(eos_index))
+
+
+class _HermiteLanes:
+    """Per-lane evaluation of :class:`HermiteTable`.
+
+    The node arrays of all EOS are laid end to end with an offset per EOS so
+    that one ``searchsorted`` finds every lane's interval.
+    """
+
+    def __init__(self, table: HermiteTable, eos_index: np.ndarray):
+        uniq, inverse = np.unique(eos_index, return_inverse=True)
+        h = table.h_nodes[uniq]
+        n_e, n_nodes = h.shape
+        span = float(np.max(h[:, -1] - h[:, 0], initial=0.0)) + 1.0
+        base = h[:, :1]
+        self._offset = (np.arange(n_e) * span)[:, None]
+        flat = ((h - base) + self._offset).ravel()
+        self._flat = flat
+        self._lane_shift = (self._offset[:, 0] - base[:, 0])[inverse]
+        self._lane_first = (np.arange(n_e) * n_nodes)[inverse]
+        self._lane_last = self._lane_first + n_nodes - 2
+        # Per interval: [h_k, 1/dh, 12 coefficients]
+        dh = np.diff(h, axis=1)
+        inv = np.where(dh > 0, 1.0 / np.where(dh > 0, dh, 1.0), 0.0)
+        rows = np.concatenate(
+            [h[:, :-1, None], inv[..., None], table.coef[uniq].reshape(n_e, n_nodes - 1, 12)], axis=-1
+        )
+        # Pad one row per EOS so that flat node k maps to interval row k.
+        pad = np.concatenate([rows[:, -1:, :]], axis=1)
+        self._rows = np.concatenate([rows, pad], axis=1).reshape(n_e * n_nodes, 14)
+
+    def eval(self, h, h_loc=None):
+        loc = h if h_loc is None else h_loc
+        k = np.searchsorted(self._flat, loc + self._lane_shift, side="right") - 1
+        k = np.clip(k, self._lane_first, self._lane_last)
+        r = self._rows[k]
+        t = (h - r[:, 0]) * r[:, 1]
+        c = r[:, 2:].reshape(-1, 3, 4)
+        # Horner for the three functions at once.
+        val = c[:, :, 3] * t[:, None]
+        val += c[:, :, 2]
+        val *= t[:, None]
+        val += c[:, :, 1]
+        val *= t[:, None]
+        val += c[:, :, 0]
+        dlne = (c[:, 1, 1] + t * (2.0 * c[:, 1, 2] + 3.0 * t * c[:, 1, 3])) * r[:, 1]
+        ex = np.exp(val)
+        p, e, rho = ex[:, 0], ex[:, 1], ex[:, 2]
+        return p, e, rho, e * dlne
+
+
+# --------------------------------------------------------------------------
+# Crust (polytrope pieces) joined to a table
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class CrustAndTable(EOSBatch):
+    """Polytrope pieces for ``h < h_join`` and a Hermite table above."""
+
+    crust: PolytropePieces
+    table: HermiteTable
+
+    @property
+    def n_eos(self) -> int:
+        return self.table.n_eos
+
+    @property
+    def h_join(self) -> np.ndarray:
+        return self.table.h_min
+
+    @property
+    def kinks(self) -> np.ndarray:
+        hj = self.h_join[:, None]
+        crust_k = np.where(self.crust.h_bounds < hj, self.crust.h_bounds, np.inf)
+        k = np.concatenate([crust_k, hj, self.table.kinks], axis=1)
+        return np.sort(k, axis=1)
+
+    @property
+    def h_max(self) -> np.ndarray:
+        return self.table.h_max
+
+    @property
+    def e_surface(self) -> np.ndarray:
+        return np.zeros(self.n_eos)
+
+    def select(self, eos_index):
+        return CrustAndTable(self.crust.select(eos_index), self.table.select(eos_index))
+
+    def lanes(self, eos_index):
+        return _CrustTableLanes(self, np.asarray(eos_index))
+
+
+class _CrustTableLanes:
+    def __init__(self, batch: CrustAndTable, eos_index):
+        self._crust = batch.crust.lanes(eos_index)
+        self._table = batch.table.lanes(eos_index)
+        self._h_join = batch.h_join[eos_index]
+
+    def eval(self, h, h_loc=None):
+        loc = h if h_loc is None else h_loc
+        below = loc < self._h_join
+        if not below.any():
+            return self._table.eval(h, loc)
+        if below.all():
+            return self._crust.eval(h, loc)
+        lo = self._crust.eval(np.minimum(h, self._h_join), np.minimum(loc, self._h_join))
+        hi = self._table.eval(np.maximum(h, self._h_join), np.maximum(loc, self._h_join))
+        return tuple(np.where(below, x, y) for x, y in zip(lo, hi))
+
+
+# --------------------------------------------------------------------------
+# Uniform density
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class UniformDensityBatch(EOSBatch):
+    """Incompressible matter: ``e = e0``, ``p = e0 (exp(h) - 1)``, ``rho = e0``."""
+
+    e0: np.ndarray
+
+    @property
+    def n_eos(self) -> int:
+        return self.e0.shape[0]
+
+    @property
+    def kinks(self) -> np.ndarray:
+        return np.full((self.n_eos, 0), np.inf)
+
+    @property
+    def h_max(self) -> np.ndarray:
+        return np.full(self.n_eos, np.inf)
+
+    @property
+    def e_surface(self) -> np.ndarray:
+        return self.e0
+
+    def select(self, eos_index):
+        return UniformDensityBatch(self.e0[np.asarray(eos_index)])
+
+    def lanes(self, eos_index):
+        return _UniformLanes(self.e0[np.asarray(eos_index)])
+
+
+class _UniformLanes:
+    def __init__(self, e0):
+        self._e0 = e0
+
+    def eval(self, h, h_loc=None):
+        p = self._e0 * np.expm1(h)
+        return p, self._e0.copy(), self._e0.copy(), np.zeros_like(h)

@@ -1,0 +1,189 @@
+"""Result objects of the structure solver (frozen dataclasses, astronomers' units)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = ["Stars", "MaximumMass", "StarSequence", "StarProfile", "STATUS_MESSAGES"]
+
+#: Status codes of a sequence solve.  A failed solve is a status, not an
+#: exception: grids store the code and the message for each point.
+STATUS_MESSAGES = {
+    0: "Stable branch solved up to the maximum mass.",
+    1: "No maximum of M(h_c) below the largest central enthalpy tried.",
+    2: "The EOS table ends before the maximum mass is reached.",
+    3: "Structure integration failed for too many stars.",
+}
+
+
+@dataclass(frozen=True)
+class Stars:
+    """Properties of a set of stars (one entry per star).
+
+    Attributes
+    ----------
+    mass_msun : ndarray
+        Gravitational mass in solar masses (IAU 2015 nominal GM_sun).
+    radius_km : ndarray
+        Circumferential radius in km.
+    compactness : ndarray
+        ``GM / (R c^2)``.
+    k2 : ndarray
+        Quadrupolar tidal Love number.
+    tidal_deformability : ndarray
+        Dimensionless ``Lambda = (2/3) k2 / C^5``.
+    moment_of_inertia_1e45_g_cm2 : ndarray
+        Slow-rotation moment of inertia in 1e45 g cm^2.
+    baryon_mass_msun : ndarray
+        Baryon (rest) mass in solar masses.
+    central_pseudo_enthalpy : ndarray
+        ``h_c`` (dimensionless).
+    central_pressure_dyn_cm2 : ndarray
+    central_energy_density_g_cm3 : ndarray
+        Central energy density divided by c^2.
+    central_rest_mass_density_g_cm3 : ndarray
+    central_sound_speed_sq : ndarray
+        Squared sound speed at the centre, in units of c^2.
+    """
+
+    mass_msun: np.ndarray
+    radius_km: np.ndarray
+    compactness: np.ndarray
+    k2: np.ndarray
+    tidal_deformability: np.ndarray
+    moment_of_inertia_1e45_g_cm2: np.ndarray
+    baryon_mass_msun: np.ndarray
+    central_pseudo_enthalpy: np.ndarray
+    central_pressure_dyn_cm2: np.ndarray
+    central_energy_density_g_cm3: np.ndarray
+    central_rest_mass_density_g_cm3: np.ndarray
+    central_sound_speed_sq: np.ndarray
+
+    def __len__(self) -> int:
+        return int(np.size(self.mass_msun))
+
+    @property
+    def moment_of_inertia_over_m3(self) -> np.ndarray:
+        """Dimensionless ``I / M^3`` (G = c = 1)."""
+        from ..units import MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2, MSUN_KM
+
+        i_km3 = self.moment_of_inertia_1e45_g_cm2 / MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2
+        return i_km3 / (self.mass_msun * MSUN_KM) ** 3
+
+    def as_dict(self) -> dict:
+        """Field name -> array, for tables and JSON."""
+        return {k: getattr(self, k) for k in self.__dataclass_fields__}
+
+
+@dataclass(frozen=True)
+class MaximumMass:
+    """The heaviest stable star (first maximum of M along the sequence).
+
+    Attributes
+    ----------
+    star : Stars
+        The maximum-mass star (arrays of length 1).
+    max_sound_speed_sq : float
+        Largest ``c_s^2`` of the EOS between the surface and the centre of
+        the maximum-mass star.  Above 1 the EOS is acausal below M_max.
+    """
+
+    star: Stars
+    max_sound_speed_sq: float
+
+    @property
+    def mass_msun(self) -> float:
+        return float(self.star.mass_msun[0])
+
+    @property
+    def radius_km(self) -> float:
+        return float(self.star.radius_km[0])
+
+    @property
+    def central_pressure_dyn_cm2(self) -> float:
+        return float(self.star.central_pressure_dyn_cm2[0])
+
+    @property
+    def acausal(self) -> bool:
+        """True if the sound speed exceeds light speed below M_max."""
+        return bool(self.max_sound_speed_sq > 1.0)
+
+
+@dataclass(frozen=True)
+class StarSequence:
+    """The stable branch of one EOS.
+
+    Attributes
+    ----------
+    family : str
+    parameters : dict
+    status : int
+        0 on success; see :data:`STATUS_MESSAGES`.
+    message : str
+    branch : Stars
+        Stars along the stable branch in increasing central pressure, from
+        below 0.5 Msun (where the EOS allows) up to the maximum mass.
+    mass_max : MaximumMass or None
+    twin_mass_max_msun : float
+        Maximum of a second stable branch (twin stars) beyond the first
+        maximum, located at scan resolution; NaN if there is none.
+    at_mass : Stars or None
+        Exact solves at the requested masses (NaN above M_max).
+    nfev : int
+        Right-hand-side evaluations (each over all stars of a pass).
+    """
+
+    family: str
+    parameters: dict
+    status: int
+    message: str
+    branch: Stars
+    mass_max: MaximumMass | None
+    twin_mass_max_msun: float = float("nan")
+    at_mass: Stars | None = None
+    nfev: int = 0
+    eos: object = field(default=None, repr=False, compare=False)
+
+    @property
+    def success(self) -> bool:
+        return self.status == 0
+
+    def at_masses(self, masses) -> Stars:
+        """Exact solves at the given masses (Msun); NaN above M_max."""
+        from ._sequence import solve_at_masses
+
+        return solve_at_masses(self, masses)
+
+
+@dataclass(frozen=True)
+class StarProfile:
+    """Interior of one star, at the integration nodes from centre to surface.
+
+    Attributes
+    ----------
+    radius_km : ndarray
+        Circumferential radius ``r``.
+    mass_msun : ndarray
+        Enclosed gravitational mass ``m(r)``.
+    pressure_dyn_cm2, energy_density_g_cm3, rest_mass_density_g_cm3 : ndarray
+    pseudo_enthalpy : ndarray
+    alpha : ndarray
+        Metric function with ``g_tt = -exp(2 alpha)``; matches the exterior
+        Schwarzschild metric, ``alpha(R) = ln(1 - 2M/R) / 2``.
+    y : ndarray
+        Tidal variable ``y = r H'/H`` (before the surface density-jump term).
+    star : Stars
+        Global properties of the star.
+    """
+
+    radius_km: np.ndarray
+    mass_msun: np.ndarray
+    pressure_dyn_cm2: np.ndarray
+    energy_density_g_cm3: np.ndarray
+    rest_mass_density_g_cm3: np.ndarray
+    pseudo_enthalpy: np.ndarray
+    alpha: np.ndarray
+    y: np.ndarray
+    star: Stars
