@@ -16,7 +16,7 @@ Three building blocks cover every family:
 * :class:`PolytropePieces` -- a chain of polytropes ``p = K rho^Gamma`` joined
   continuously (Read et al. 2009), evaluated in closed form in ``h``;
 * :class:`HermiteTable` -- ``ln p``, ``ln e`` and ``ln rho`` tabulated against
-  ``h`` with their exact derivatives, interpolated by cubic Hermite pieces;
+  ``h`` with their exact derivatives, interpolated by quintic Hermite pieces;
 * :class:`UniformDensityBatch` -- the incompressible star.
 
 :class:`CrustAndTable` joins polytrope pieces (the crust) below an enthalpy
@@ -174,13 +174,17 @@ class _PolytropeLanes:
     def __init__(self, pieces: PolytropePieces, eos_index: np.ndarray):
         self._table = pieces.piece_table
         self._eos = eos_index
-        self._hb = pieces.h_bounds[eos_index]
-        self._single_piece = self._hb.shape[1] == 0
+        self._single_piece = pieces.h_bounds.shape[1] == 0
+        # One EOS for every lane (a single sequence): a sorted search is cheaper.
+        self._shared = eos_index.size > 0 and bool(np.all(eos_index == eos_index[0]))
+        self._hb = pieces.h_bounds[eos_index[0]] if self._shared else pieces.h_bounds[eos_index]
 
     def piece_index(self, h):
         if self._single_piece:
             return np.zeros(h.shape, dtype=np.intp)
-        return (h[:, None] >= self._hb).sum(axis=1)
+        if self._shared:
+            return np.searchsorted(self._hb, h, side="right")
+        return np.add.reduce(h[:, None] >= self._hb, axis=1)
 
     def eval(self, h, h_loc=None):
         """Return ``(p, e, rho, dedh)`` at pseudo-enthalpies ``h`` (one per lane).
@@ -206,22 +210,36 @@ class _PolytropeLanes:
 # --------------------------------------------------------------------------
 
 
+def _one_sided(x, n_nodes):
+    """Per-interval (left end, right end) values from per-node or per-interval input."""
+    x = np.asarray(x, float)
+    if x.ndim == 3 and x.shape[-1] == 2 and x.shape[1] == n_nodes - 1:
+        return x[..., 0], x[..., 1]
+    x = np.atleast_2d(x)
+    return x[:, :-1], x[:, 1:]
+
+
 @dataclass(frozen=True)
 class HermiteTable(EOSBatch):
-    """``ln p``, ``ln e``, ``ln rho`` against ``h``, cubic Hermite per interval.
+    """``ln p``, ``ln e``, ``ln rho`` against ``h``, quintic Hermite per interval.
 
-    Build it with :meth:`from_samples`.  Every EOS in the batch has the same
-    number of nodes (pad by repeating the last node if needed).
+    Each interval carries the values and the first and second derivatives
+    (exact, from the thermodynamics) at both ends, so the interpolant is twice
+    continuously differentiable wherever the EOS is; the high-order
+    integrator then keeps its order between the nodes.  Build it with
+    :meth:`from_samples`.
 
     Parameters
     ----------
     h_nodes : ndarray, shape (n_eos, n_nodes)
         Increasing pseudo-enthalpies of the nodes.
-    coef : ndarray, shape (n_eos, n_nodes - 1, 3, 4)
-        Polynomial coefficients in the local variable ``t in [0, 1]`` of
-        ``ln p``, ``ln e`` and ``ln rho`` on each interval (power basis).
+    coef : ndarray, shape (n_eos, n_nodes - 1, 3, 6)
+        Power-basis coefficients in ``t in [0, 1]`` of ``ln p``, ``ln e`` and
+        ``ln rho`` on each interval.
     kink_h : ndarray, shape (n_eos, n_kinks)
-        Enthalpies of nodes where the first derivative of the EOS jumps.
+        Enthalpies of nodes where the EOS is not smooth.
+    e_surface_ : ndarray, shape (n_eos,)
+        Energy density at ``h = 0``.
     """
 
     h_nodes: np.ndarray
@@ -230,41 +248,74 @@ class HermiteTable(EOSBatch):
     e_surface_: np.ndarray
 
     @classmethod
-    def from_samples(cls, h, p, e, rho, cs2, kink_h=None, e_surface=None, dlnrho_dh=None):
-        """Build the table from node samples and the exact sound speed.
+    def from_samples(cls, h, p, e, rho, cs2, dcs2_dh, kink_h=None, e_surface=None, lnrho_derivs=None):
+        """Build the table from node samples and exact derivatives.
 
         Parameters
         ----------
         h, p, e, rho, cs2 : ndarray, shape (n_eos, n_nodes)
-            Node values in geometrised units; ``cs2`` is the squared sound
-            speed ``dp/de`` at the node.  The derivatives used by the Hermite
-            pieces are ``dln p/dh = (e+p)/p``, ``dln e/dh = (e+p)/(c_s^2 e)``
-            and ``dln rho/dh = 1/c_s^2`` (first law of thermodynamics at T = 0).
+            Node values in geometrised units; ``cs2 = dp/de``.
+        dcs2_dh : ndarray, shape (n_eos, n_nodes) or (n_eos, n_nodes - 1, 2)
+            ``d c_s^2 / dh`` per node, or per interval at its (left, right)
+            ends where it jumps at nodes.
         kink_h : ndarray, shape (n_eos, n_kinks), optional
-            Enthalpies where the sound speed is not smooth.
+            Enthalpies where the EOS is not smooth (must be nodes).
         e_surface : ndarray, shape (n_eos,), optional
             Energy density at ``h = 0`` (defaults to zero).
-        dlnrho_dh : ndarray, shape (n_eos, n_nodes), optional
-            Derivative of ``ln rho`` when the rest-mass density is given
-            separately (defaults to the first-law value ``1 / c_s^2``).
+        lnrho_derivs : tuple, optional
+            ``(d ln rho/dh, d^2 ln rho/dh^2)`` when the rest-mass density is
+            given separately (the second per node or per interval ends); by default the first law gives ``1 / c_s^2`` and
+            ``-(d c_s^2/dh) / c_s^4``.
+
+        Notes
+        -----
+        With ``w = e + p`` and ``q = d c_s^2 / dh`` (``dw/dh = w (1 + 1/c_s^2)``):
+        ``(ln p)' = w/p``, ``(ln p)'' = (w/p)(1 + 1/c_s^2) - (w/p)^2``,
+        ``(ln e)' = w/(c_s^2 e)``,
+        ``(ln e)'' = (ln e)' (1 + 1/c_s^2 - q/c_s^2 - (ln e)')``.
         """
         h = np.atleast_2d(np.asarray(h, float))
         p, e, rho, cs2 = (np.atleast_2d(np.asarray(x, float)) for x in (p, e, rho, cs2))
+        n = h.shape[1]
         w = e + p
-        f = np.stack([np.log(p), np.log(e), np.log(rho)], axis=-1)  # (n_eos, n, 3)
-        if dlnrho_dh is None:
-            dlnrho_dh = 1.0 / cs2
-        df = np.stack([w / p, w / (cs2 * e), np.atleast_2d(dlnrho_dh)], axis=-1)
+        L1p = w / p
+        L2p = L1p * (1.0 + 1.0 / cs2) - L1p * L1p
+        L1e = w / (cs2 * e)
+        f = np.stack([np.log(p), np.log(e), np.log(rho)], axis=-1)
+        q_lo, q_hi = _one_sided(dcs2_dh, n)
+        if lnrho_derivs is not None:
+            r2_lo, r2_hi = _one_sided(lnrho_derivs[1], n)
+
+        def second(sl, q, r2):
+            c2 = cs2[:, sl]
+            l2e = L1e[:, sl] * (1.0 + 1.0 / c2 - q / c2 - L1e[:, sl])
+            l2r = -q / (c2 * c2) if r2 is None else r2
+            return np.stack([L2p[:, sl], l2e, l2r], axis=-1)
+
+        if lnrho_derivs is None:
+            l1r = 1.0 / cs2
+        else:
+            l1r = np.atleast_2d(lnrho_derivs[0])
+        df = np.stack([L1p, L1e, l1r], axis=-1)
+        s_lo = second(slice(0, n - 1), q_lo, None if lnrho_derivs is None else r2_lo)
+        s_hi = second(slice(1, n), q_hi, None if lnrho_derivs is None else r2_hi)
         dh = np.diff(h, axis=1)[..., None]
-        dh_safe = np.where(dh > 0, dh, 1.0)
+        dh = np.where(dh > 0, dh, 0.0)
         f0, f1 = f[:, :-1], f[:, 1:]
-        d0, d1 = df[:, :-1] * dh_safe, df[:, 1:] * dh_safe
-        # Cubic Hermite in power basis on t = (h - h_k) / (h_{k+1} - h_k).
-        c0 = f0
-        c1 = d0
-        c2 = 3.0 * (f1 - f0) - 2.0 * d0 - d1
-        c3 = 2.0 * (f0 - f1) + d0 + d1
-        coef = np.stack([c0, c1, c2, c3], axis=-1)
+        d0, d1 = df[:, :-1] * dh, df[:, 1:] * dh
+        s0, s1 = s_lo * dh * dh, s_hi * dh * dh
+        df10 = f1 - f0
+        coef = np.stack(
+            [
+                f0,
+                d0,
+                0.5 * s0,
+                10.0 * df10 - 6.0 * d0 - 4.0 * d1 - 0.5 * (3.0 * s0 - s1),
+                -15.0 * df10 + 8.0 * d0 + 7.0 * d1 + 0.5 * (3.0 * s0 - 2.0 * s1),
+                6.0 * df10 - 3.0 * d0 - 3.0 * d1 - 0.5 * (s0 - s1),
+            ],
+            axis=-1,
+        )
         if kink_h is None:
             kink_h = np.full((h.shape[0], 0), np.inf)
         if e_surface is None:
@@ -299,6 +350,9 @@ class HermiteTable(EOSBatch):
         return _HermiteLanes(self, np.asarray(eos_index))
 
 
+_NCOEF = 6
+
+
 class _HermiteLanes:
     """Per-lane evaluation of :class:`HermiteTable`.
 
@@ -312,40 +366,39 @@ class _HermiteLanes:
         n_e, n_nodes = h.shape
         span = float(np.max(h[:, -1] - h[:, 0], initial=0.0)) + 1.0
         base = h[:, :1]
-        self._offset = (np.arange(n_e) * span)[:, None]
-        flat = ((h - base) + self._offset).ravel()
-        self._flat = flat
-        self._lane_shift = (self._offset[:, 0] - base[:, 0])[inverse]
+        offset = (np.arange(n_e) * span)[:, None]
+        self._flat = ((h - base) + offset).ravel()
+        self._lane_shift = (offset[:, 0] - base[:, 0])[inverse]
         self._lane_first = (np.arange(n_e) * n_nodes)[inverse]
         self._lane_last = self._lane_first + n_nodes - 2
-        # Per interval: [h_k, 1/dh, 12 coefficients]
+        # Per interval: [h_k, 1/dh, 3 x 6 coefficients]; one padding row per
+        # EOS so that flat node k maps to interval row k.
         dh = np.diff(h, axis=1)
         inv = np.where(dh > 0, 1.0 / np.where(dh > 0, dh, 1.0), 0.0)
+        ncol = 3 * _NCOEF
         rows = np.concatenate(
-            [h[:, :-1, None], inv[..., None], table.coef[uniq].reshape(n_e, n_nodes - 1, 12)], axis=-1
+            [h[:, :-1, None], inv[..., None], table.coef[uniq].reshape(n_e, n_nodes - 1, ncol)], axis=-1
         )
-        # Pad one row per EOS so that flat node k maps to interval row k.
-        pad = np.concatenate([rows[:, -1:, :]], axis=1)
-        self._rows = np.concatenate([rows, pad], axis=1).reshape(n_e * n_nodes, 14)
+        self._rows = np.concatenate([rows, rows[:, -1:, :]], axis=1).reshape(n_e * n_nodes, ncol + 2)
 
     def eval(self, h, h_loc=None):
         loc = h if h_loc is None else h_loc
         k = np.searchsorted(self._flat, loc + self._lane_shift, side="right") - 1
         k = np.clip(k, self._lane_first, self._lane_last)
         r = self._rows[k]
-        t = (h - r[:, 0]) * r[:, 1]
-        c = r[:, 2:].reshape(-1, 3, 4)
-        # Horner for the three functions at once.
-        val = c[:, :, 3] * t[:, None]
-        val += c[:, :, 2]
-        val *= t[:, None]
-        val += c[:, :, 1]
-        val *= t[:, None]
+        t = ((h - r[:, 0]) * r[:, 1])[:, None]
+        c = r[:, 2:].reshape(-1, 3, _NCOEF)
+        val = c[:, :, 5] * t
+        for j in range(4, 0, -1):
+            val += c[:, :, j]
+            val *= t
         val += c[:, :, 0]
-        dlne = (c[:, 1, 1] + t * (2.0 * c[:, 1, 2] + 3.0 * t * c[:, 1, 3])) * r[:, 1]
+        ce = c[:, 1]
+        tt = t[:, 0]
+        dlne = (ce[:, 1] + tt * (2.0 * ce[:, 2] + tt * (3.0 * ce[:, 3] + tt * (4.0 * ce[:, 4] + tt * 5.0 * ce[:, 5]))))
         ex = np.exp(val)
         p, e, rho = ex[:, 0], ex[:, 1], ex[:, 2]
-        return p, e, rho, e * dlne
+        return p, e, rho, e * dlne * r[:, 1]
 
 
 # --------------------------------------------------------------------------

@@ -73,8 +73,8 @@ class Spectral(EOSFamily):
     ``x = ln(p / p0)``, where ``p0`` is the crust pressure at the join density
     (half saturation density).  The energy density follows from the first law,
     ``d(e / rho)/dx = p / (Gamma rho)`` and ``d ln rho / dx = 1 / Gamma``
-    (Lindblom 2010, Eqs. 4-8), integrated on 1024 cells up to
-    ``x_max = 12``.  Parameter sets for which ``Gamma(x)`` leaves
+    (Lindblom 2010), integrated on 1024 cells up to ``x_max = 10``
+    (``p`` about 1.2e37 dyn/cm^2, above the centre of any maximum-mass star).  Parameter sets for which ``Gamma(x)`` leaves
     [0.6, 4.5] below ``x_max`` are rejected, a common practice in
     gravitational-wave analyses.
 
@@ -86,14 +86,16 @@ class Spectral(EOSFamily):
     name = "spectral"
     description = "Spectral adiabatic index (Lindblom 2010) above half saturation density"
     reference = "Lindblom 2010, PRD 82, 103011"
-    # Box from memory of gravitational-wave analyses of the spectral EOS.
+    # Demo box: our choice, narrower than the priors of gravitational-wave
+    # analyses so that most of it satisfies the Gamma(x) range below (about
+    # 18 % of a Sobol sample does; wider boxes are mostly rejected).
     parameters = (
-        Parameter("gamma0", "1", "constant coefficient of ln Gamma(x)", (-5.0, 5.0), (0.2, 2.0)),
-        Parameter("gamma1", "1", "linear coefficient of ln Gamma(x)", (-5.0, 5.0), (-1.6, 1.7)),
-        Parameter("gamma2", "1", "quadratic coefficient of ln Gamma(x)", (-2.0, 2.0), (-0.6, 0.6)),
-        Parameter("gamma3", "1", "cubic coefficient of ln Gamma(x)", (-0.5, 0.5), (-0.02, 0.02)),
+        Parameter("gamma0", "1", "constant coefficient of ln Gamma(x)", (-5.0, 5.0), (0.5, 1.2)),
+        Parameter("gamma1", "1", "linear coefficient of ln Gamma(x)", (-5.0, 5.0), (-0.2, 0.4)),
+        Parameter("gamma2", "1", "quadratic coefficient of ln Gamma(x)", (-2.0, 2.0), (-0.05, 0.03)),
+        Parameter("gamma3", "1", "cubic coefficient of ln Gamma(x)", (-0.5, 0.5), (-0.002, 0.002)),
     )
-    x_max = 12.0
+    x_max = 10.0
     n_cells = 1024
     gamma_range = (0.6, 4.5)
 
@@ -144,79 +146,91 @@ class Spectral(EOSFamily):
         w = e + p
         h = np.log(w / rho)
         cs2 = gam * p / w
-        table = HermiteTable.from_samples(h, p, e, rho, cs2)
+        # d ln c_s^2 / dh = (d ln Gamma/dx + 1) dx/dh - d ln w/dh, dx/dh = w/p
+        dcs2 = cs2 * ((dgam_over_gam + 1.0) * (w / p) - 1.0 - 1.0 / cs2)
+        table = HermiteTable.from_samples(h, p, e, rho, cs2, dcs2)
         return CrustAndTable(crust, table)
 
 
 class SoundSpeed(EOSFamily):
-    """Piecewise-linear squared sound speed in log density, above the crust.
+    """Piecewise-linear squared sound speed in the baryon chemical potential.
 
-    ``c_s^2`` is linear in ``ln rho`` between fixed nodes at
-    ``rho / rho_sat = 1, 2, 3, 5, 8`` (``rho_sat`` = 2.7e14 g/cm^3), rises
-    linearly from the crust value at half saturation to the first node, and
-    stays constant above the last node.  With every node in (0, 1] the EOS is
-    causal by construction, which is why values above 1 are rejected.  The
-    first law gives ``h(ln rho) = h_join + int c_s^2 d ln rho`` in closed form
-    and ``p = p_join + int c_s^2 (e + p) d ln rho``.
+    ``c_s^2`` is linear in ``ln mu`` (equivalently in the pseudo-enthalpy,
+    ``mu = m_n exp(h)``) between fixed nodes at ``mu = 1000, 1100, 1300, 1600,
+    2000 MeV``; it rises linearly from the crust value at half saturation
+    density to the first node and stays constant above the last one, up to
+    ``mu = 4000 MeV``.  With every node in (0, 1] the EOS is causal by
+    construction, so values above 1 are rejected.  The first law gives
+    ``d ln rho / dh = 1 / c_s^2`` (closed form on each segment), ``e + p = rho
+    exp(h)`` and ``p = p_join + int (e + p) dh`` (quadrature).  Nodes in the
+    chemical potential keep ``c_s^2(h)`` smooth between nodes; nodes in the
+    density would make ``c_s^2`` grow like ``sqrt(h - h_join)`` above a soft
+    crust, which is slow to integrate accurately.
     """
 
     name = "sound-speed"
-    description = "Piecewise-linear c_s^2 in ln(rho) at 1, 2, 3, 5, 8 saturation densities"
+    description = "Piecewise-linear c_s^2 in ln(mu_B) at mu_B = 1000, 1100, 1300, 1600, 2000 MeV"
     reference = "common practice (sound-speed parametrisations of dense matter)"
-    node_density_over_sat = (1.0, 2.0, 3.0, 5.0, 8.0)
-    rho_max_over_sat = 30.0
+    node_mu_mev = (1000.0, 1100.0, 1300.0, 1600.0, 2000.0)
+    mu_max_mev = 4000.0
     cells_per_segment = 160
     parameters = tuple(
         Parameter(
             f"cs2_{i + 1}",
             "c^2",
-            f"squared sound speed at {r:g} rho_sat",
+            f"squared sound speed at mu_B = {mu:g} MeV",
             (0.0, 1.0),
-            (0.02, 0.15) if i == 0 else (0.05, 0.95),
+            (0.02, 0.2) if i == 0 else (0.05, 0.95),
             (True, False),
         )
-        for i, r in enumerate((1.0, 2.0, 3.0, 5.0, 8.0))
+        for i, mu in enumerate((1000.0, 1100.0, 1300.0, 1600.0, 2000.0))
     )
 
     def _build(self, theta):
         theta = np.atleast_2d(theta)
         n = len(theta)
         crust, p_j, e_j, rho_j, h_j, cs2_j = _crust_state_at(RHO_JOIN_CGS, n)
-        rho_sat = RHO_SATURATION_G_CM3 * DENSITY_CGS_TO_GEOM
-        t_nodes = np.log(
-            np.concatenate([[RHO_JOIN_CGS / RHO_SATURATION_G_CM3], self.node_density_over_sat, [self.rho_max_over_sat]])
-            * rho_sat
-        )
+        h_nodes = np.log(np.array((*self.node_mu_mev, self.mu_max_mev)) / NEUTRON_MASS_MEV)  # (6,)
+        edges = np.concatenate([h_j[:, None], np.broadcast_to(h_nodes, (n, h_nodes.size))], axis=1)  # (n, 7)
         c_nodes = np.concatenate([cs2_j[:, None], theta, theta[:, -1:]], axis=1)  # (n, 7)
         m = self.cells_per_segment
-        # Cells never straddle a node: each segment gets its own uniform sub-grid.
         frac = np.linspace(0.0, 1.0, m + 1)[:-1]
-        t = np.concatenate(
-            [t_nodes[k] + frac * (t_nodes[k + 1] - t_nodes[k]) for k in range(len(t_nodes) - 1)] + [t_nodes[-1:]]
+        n_seg = edges.shape[1] - 1
+        h = np.concatenate(
+            [(edges[:, k, None] + frac * (edges[:, k + 1] - edges[:, k])[:, None]) for k in range(n_seg)]
+            + [edges[:, -1:]],
+            axis=1,
         )
-        seg = np.minimum(np.searchsorted(t_nodes, t, side="right") - 1, len(t_nodes) - 2)
-        slope = (c_nodes[:, 1:] - c_nodes[:, :-1]) / np.diff(t_nodes)  # (n, 6)
-        cs2 = c_nodes[:, seg] + slope[:, seg] * (t - t_nodes[seg])
-        cs2[:, -1] = c_nodes[:, -1]
-        tt = np.broadcast_to(t, cs2.shape)
-        # h is exact: trapezoid on a linear integrand.
-        h = h_j[:, None] + np.concatenate(
-            [np.zeros((n, 1)), np.cumsum(0.5 * np.diff(t) * (cs2[:, 1:] + cs2[:, :-1]), axis=1)], axis=1
+        seg = np.minimum(np.arange(h.shape[1]) // m, n_seg - 1)  # segment of each node (last: final)
+        slope = np.diff(c_nodes, axis=1) / np.diff(edges, axis=1)  # d c_s^2 / dh per segment, (n, 6)
+        rows = np.arange(n)[:, None]
+        h0 = edges[rows, seg]
+        c0 = c_nodes[rows, seg]
+        b = slope[rows, seg]
+        cs2 = c0 + b * (h - h0)
+        # ln rho: int dh / (c0 + b (h - h0)) on each segment, accumulated.
+        with np.errstate(divide="ignore", invalid="ignore"):
+            seg_int = np.where(np.abs(b) > 1e-12, np.log(cs2 / c0) / b, (h - h0) / c0)
+        full = np.where(
+            np.abs(slope) > 1e-12,
+            np.log(c_nodes[:, 1:] / c_nodes[:, :-1]) / np.where(np.abs(slope) > 1e-12, slope, 1.0),
+            np.diff(edges, axis=1) / c_nodes[:, :-1],
         )
-        rho = np.exp(tt)
+        before = np.concatenate([np.zeros((n, 1)), np.cumsum(full, axis=1)], axis=1)[rows, seg]
+        rho = rho_j[:, None] * np.exp(before + seg_int)
         w = rho * np.exp(h)
-        # p' = c^2 w with (c^2 w)' = slope w + c^2 (1 + c^2) w; the slope is per cell.
-        cell_slope = slope[:, seg[:-1]]
-        fa, fb = cs2[:, :-1] * w[:, :-1], cs2[:, 1:] * w[:, 1:]
-        da = cell_slope * w[:, :-1] + cs2[:, :-1] * (1.0 + cs2[:, :-1]) * w[:, :-1]
-        db = cell_slope * w[:, 1:] + cs2[:, 1:] * (1.0 + cs2[:, 1:]) * w[:, 1:]
-        p = p_j[:, None] + cumulative_corrected_trapezoid(
-            np.stack([fa, fb], -1), np.stack([da, db], -1), tt
-        )
+        # p' = w with w' = w (1 + 1/c_s^2): corrected trapezoid per cell.
+        p = p_j[:, None] + cumulative_corrected_trapezoid(w, w * (1.0 + 1.0 / cs2), h)
         e = w - p
-        kinks = h[:, np.arange(1, len(t_nodes) - 1) * m]
-        table = HermiteTable.from_samples(h, p, e, rho, cs2, kink_h=kinks)
+        kinks = h[:, np.arange(1, n_seg) * m]
+        cell_slope = b[:, :-1]
+        dcs2 = np.stack([cell_slope, cell_slope], axis=-1)
+        table = HermiteTable.from_samples(h, p, e, rho, cs2, dcs2, kink_h=kinks)
         return CrustAndTable(crust, table)
+
+
+#: Neutron mass in MeV (CODATA 2018), for mu_B = m_n exp(h).
+NEUTRON_MASS_MEV = 939.56542052
 
 
 register_family(Spectral())

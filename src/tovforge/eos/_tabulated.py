@@ -237,8 +237,17 @@ def read_table(path, columns: str | None = None, units: str | None = None) -> Ta
 
 
 def table_batch(data: TableData, cells: int = 2048) -> HermiteTable:
-    """Turn validated rows into a :class:`HermiteTable` in geometrised units."""
+    """Turn validated rows into a :class:`HermiteTable` in geometrised units.
+
+    ``ln e`` is a PCHIP function ``F`` of ``ln p`` (Fritsch & Carlson 1980,
+    SIAM J. Numer. Anal. 17, 238), resampled on about ``cells`` intervals that
+    never straddle a row of the file.  With ``w = e + p``:
+    ``c_s^2 = (p/e) / F'``, ``dh = p / w d ln p`` and
+    ``d ln c_s^2 / d ln p = 1 - F' - F''/F'``.
+    """
     from scipy.interpolate import PchipInterpolator
+
+    from ._core_tables import cumulative_corrected_trapezoid
 
     lp = np.log(data.pressure_dyn_cm2 * PRESSURE_CGS_TO_GEOM)
     le = np.log(data.energy_density_g_cm3 * DENSITY_CGS_TO_GEOM)
@@ -247,29 +256,41 @@ def table_batch(data: TableData, cells: int = 2048) -> HermiteTable:
     n_rows = len(lp)
     sub = max(1, math.ceil(cells / (n_rows - 1)))
     frac = np.arange(sub) / sub
-    x = np.concatenate([lp[:-1, None] + frac * np.diff(lp)[:, None]]).ravel()
-    x = np.append(x, lp[-1])
+    x = np.append((lp[:-1, None] + frac * np.diff(lp)[:, None]).ravel(), lp[-1])
+    dx = np.diff(x)
+    x_lo, x_hi = x[:-1] + 1e-9 * dx, x[1:] - 1e-9 * dx  # one-sided second derivatives
     p, e = np.exp(x), np.exp(F(x))
-    Fp, Fpp = dF(x), d2F(x)
+    Fp = dF(x)
     w = e + p
     cs2 = (p / e) / Fp
     q = p / w
     dq = p * e * (1.0 - Fp) / (w * w)
-    from ._core_tables import cumulative_corrected_trapezoid
-
     h = cumulative_corrected_trapezoid(q, dq, x)
+
+    def dcs2_dh(xx, idx):
+        fp = dF(xx)
+        return cs2[idx] * (1.0 - fp - d2F(xx) / fp) * (w[idx] / p[idx])
+
+    dcs2 = np.stack([dcs2_dh(x_lo, slice(0, -1)), dcs2_dh(x_hi, slice(1, None))], axis=-1)
+    lnrho_derivs = None
     if data.rest_mass_density_g_cm3 is not None:
         G = PchipInterpolator(lp, np.log(data.rest_mass_density_g_cm3 * DENSITY_CGS_TO_GEOM))
+        dG, d2G = G.derivative(), G.derivative(2)
         rho = np.exp(G(x))
-        dlnrho_dh = G.derivative()(x) * w / p
+        L1p = w / p
+        L2p = L1p * (1.0 + 1.0 / cs2) - L1p * L1p
+        d1 = dG(x) * L1p
+        d2_lo = d2G(x_lo) * L1p[:-1] ** 2 + dG(x[:-1]) * L2p[:-1]
+        d2_hi = d2G(x_hi) * L1p[1:] ** 2 + dG(x[1:]) * L2p[1:]
+        lnrho_derivs = (d1[None], np.stack([d2_lo, d2_hi], axis=-1)[None])
     else:
         r = e * Fp / w
         dw = e * Fp + p
-        dr = (e * Fp * Fp + e * Fpp) / w - e * Fp * dw / (w * w)
+        dr = (e * Fp * Fp + e * d2F(x)) / w - e * Fp * dw / (w * w)
         rho = e[0] * np.exp(cumulative_corrected_trapezoid(r, dr, x))
-        dlnrho_dh = 1.0 / cs2
     return HermiteTable.from_samples(
-        h[None], p[None], e[None], rho[None], cs2[None], e_surface=np.array([e[0]]), dlnrho_dh=dlnrho_dh[None]
+        h[None], p[None], e[None], rho[None], cs2[None], dcs2[None], e_surface=np.array([e[0]]),
+        lnrho_derivs=lnrho_derivs,
     )
 
 

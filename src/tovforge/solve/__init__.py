@@ -17,6 +17,7 @@ from ._sequence import (
     solve_sequence,
     solve_sequences,
 )
+from ._star import central_enthalpy, solve_star
 from ._structure import StepSettings, SurfaceValues, integrate_stars
 
 __all__ = [
@@ -29,7 +30,9 @@ __all__ = [
     "Stars",
     "StepSettings",
     "SurfaceValues",
+    "central_enthalpy",
     "integrate_stars",
+    "solve_star",
     "love_k2",
     "max_sound_speed_sq",
     "solve_at_masses",

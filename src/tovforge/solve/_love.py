@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["love_k2", "tidal_deformability"]
+__all__ = ["love_k2", "tidal_deformability", "k2_series", "k2_closed_form"]
 
 # Below this compactness the closed form loses digits to cancellation (its
 # denominator is O(C^5) built from O(1) terms); use the series there.
@@ -31,6 +31,28 @@ def _denominator_series_coefficients(y):
     return coeffs
 
 
+def _numerator(C, y):
+    return 1.6 * (1.0 - 2.0 * C) ** 2 * (2.0 + 2.0 * C * (y - 1.0) - y)
+
+
+def k2_series(C, y):
+    """k2 from the power series of the denominator in C (accurate for C < 0.2)."""
+    den = np.zeros(np.broadcast(C, y).shape)
+    for d in reversed(_denominator_series_coefficients(y)):
+        den = den * C + d
+    return _numerator(C, y) / den
+
+
+def k2_closed_form(C, y):
+    """k2 from the closed form of Hinderer (2008); loses digits as C^-5 for small C."""
+    den = (
+        2.0 * C * (6.0 - 3.0 * y + 3.0 * C * (5.0 * y - 8.0))
+        + 4.0 * C**3 * (13.0 - 11.0 * y + C * (3.0 * y - 2.0) + 2.0 * C**2 * (1.0 + y))
+        + 3.0 * (1.0 - 2.0 * C) ** 2 * (2.0 - y + 2.0 * C * (y - 1.0)) * np.log1p(-2.0 * C)
+    )
+    return _numerator(C, y) * C**5 / den
+
+
 def love_k2(compactness, y):
     """Quadrupolar tidal Love number k2.
 
@@ -49,27 +71,13 @@ def love_k2(compactness, y):
         (36 terms), which avoids the cancellation of the closed form; the
         leading term is the Newtonian ``(2 - y) / (2 (y + 3))``.
     """
-    C = np.asarray(compactness, float)
-    y = np.asarray(y, float)
-    C, y = np.broadcast_arrays(C, y)
-    num = 1.6 * (1.0 - 2.0 * C) ** 2 * (2.0 + 2.0 * C * (y - 1.0) - y)
+    C, y = np.broadcast_arrays(np.asarray(compactness, float), np.asarray(y, float))
     out = np.empty(C.shape)
     small = C < _C_SERIES
     if np.any(small):
-        Cs, ys = C[small], y[small]
-        den = np.zeros(Cs.shape)
-        for d in reversed(_denominator_series_coefficients(ys)):
-            den = den * Cs + d
-        out[small] = num[small] / den
-    big = ~small
-    if np.any(big):
-        Cb, yb = C[big], y[big]
-        den = (
-            2.0 * Cb * (6.0 - 3.0 * yb + 3.0 * Cb * (5.0 * yb - 8.0))
-            + 4.0 * Cb**3 * (13.0 - 11.0 * yb + Cb * (3.0 * yb - 2.0) + 2.0 * Cb**2 * (1.0 + yb))
-            + 3.0 * (1.0 - 2.0 * Cb) ** 2 * (2.0 - yb + 2.0 * Cb * (yb - 1.0)) * np.log1p(-2.0 * Cb)
-        )
-        out[big] = num[big] * Cb**5 / den
+        out[small] = k2_series(C[small], y[small])
+    if np.any(~small):
+        out[~small] = k2_closed_form(C[~small], y[~small])
     return out
 
 

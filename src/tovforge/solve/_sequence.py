@@ -74,7 +74,7 @@ class SequenceSettings:
     h_high: float = 3.0
     low_mass_msun: float = 0.3
     n_cluster: int = 7
-    scan_steps: StepSettings = field(default_factory=lambda: StepSettings(n_steps=20))
+    scan_steps: StepSettings = field(default_factory=lambda: StepSettings(n_steps=10, steps_per_kink=2))
     steps: StepSettings = field(default_factory=StepSettings)
     max_refinements: int = 3
 
@@ -107,6 +107,8 @@ class SequenceBatch:
     at_mass : Stars or None
         Fields of shape (n_eos, n_masses), NaN above M_max.
     nfev : int
+    at_u : Stars or None
+        Fields of shape (n_eos, n_u): exact stars at the ``u_nodes``.
     """
 
     status: np.ndarray
@@ -116,6 +118,7 @@ class SequenceBatch:
     twin_mass_max_msun: np.ndarray
     at_mass: Stars | None
     nfev: int
+    at_u: Stars | None = None
 
 
 # ---------------------------------------------------------------------------
@@ -215,18 +218,30 @@ def _first_maximum(M):
     return ipk, start
 
 
-def _twin_maximum(M, ipk):
-    """Largest mass of a second rising branch after the first maximum (NaN if none)."""
+def _twin_maximum(M, R, ipk):
+    """Maximum mass of a second stable branch after the first maximum (NaN if none).
+
+    Beyond the first maximum, M(h_c) can rise again for two reasons: a second
+    stable branch (twin stars) or the unstable spiral towards infinite
+    density.  At an extremum of M a radial mode changes stability; it regains
+    stability where the mass-radius curve turns clockwise (Bardeen, Thorne &
+    Meltzer 1966, ApJ 145, 505), i.e. at a minimum of M passed with the
+    radius still decreasing.  Only then is the rising part a stable branch.
+    """
     out = np.full(M.shape[0], np.nan)
-    for r in np.flatnonzero(ipk >= 0):
-        tail = M[r, ipk[r] + 1 :]
-        tail = tail[np.isfinite(tail)]
-        if tail.size < 3:
-            continue
-        d = np.diff(tail)
-        if np.any(d > 0):  # rises again after falling: a second branch
-            k = np.argmax(d > 0)
-            out[r] = np.max(tail[k:])
+    for r in np.flatnonzero(ipk >= 0):  # bookkeeping per EOS
+        m, rad = M[r], R[r]
+        n = m.size
+        for j in range(ipk[r] + 1, n - 1):
+            if not (np.isfinite(m[j - 1]) and np.isfinite(m[j]) and np.isfinite(m[j + 1])):
+                break
+            if m[j] <= m[j - 1] and m[j] < m[j + 1]:  # local minimum
+                if rad[j + 1] < rad[j - 1]:  # clockwise turn: stability regained
+                    k = j + 1
+                    while k + 1 < n and np.isfinite(m[k + 1]) and m[k + 1] > m[k]:
+                        k += 1
+                    out[r] = m[k]
+                break
     return out
 
 
@@ -288,7 +303,7 @@ def _lagrange_rows(x, y, xq, lo, hi):
 
 
 def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSettings | None = None,
-                    exact_maximum: bool | None = None) -> SequenceBatch:
+                    exact_maximum: bool | None = None, u_nodes=None) -> SequenceBatch:
     """Stable branches, maximum masses and mass queries of many EOS at once.
 
     Parameters
@@ -301,6 +316,10 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     masses : array_like, shape (n_masses,) or (n_eos, n_masses), optional
         Gravitational masses in Msun at which to solve exactly.
     settings : SequenceSettings, optional
+    u_nodes : array_like, shape (n_u,), optional
+        Values of the sequence coordinate ``u = sqrt(1 - M / M_max)`` in
+        [0, 1) at which to solve exactly (masses ``M_max (1 - u^2)``); the
+        results are in ``SequenceBatch.at_u``.
     exact_maximum : bool, optional
         Solve the maximum-mass star exactly (otherwise its radius, Love number
         and moment of inertia are interpolated through the cluster around the
@@ -327,7 +346,7 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     nfev += nf
     M_scan = sv["mass"].reshape(n_eos, -1)
     ipk, start = _first_maximum(M_scan)
-    twin = _twin_maximum(M_scan, ipk) / MSUN_KM
+    twin = _twin_maximum(M_scan, sv["radius"].reshape(n_eos, -1), ipk) / MSUN_KM
     n_finite = np.isfinite(M_scan).sum(axis=1)
     status[ipk < 0] = np.where(batch.h_max[ipk < 0] < settings.h_high, 2, 1)
     status[n_finite < settings.n_scan // 2] = 3
@@ -369,7 +388,7 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     width = w.copy()
     zstar = np.zeros(n_eos)
     coef = np.zeros((settings.n_cluster, n_eos))
-    cluster_vals = {}
+    cluster_vals = {k: np.full((n_eos, settings.n_cluster), np.nan) for k in (*_SV_KEYS, "ln_h")}
     todo = ok.copy()
     branch_sv = None
     kinks_ln = np.log(np.where(np.isfinite(batch.kinks) & (batch.kinks > 0), batch.kinks, 1e300))
@@ -393,9 +412,7 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
             branch_sv = ({k: v[ncl:].reshape(rb.size, n_stars) for k, v in svc.items()}, rb)
         Mc = svc["mass"][:ncl].reshape(rr.size, settings.n_cluster)
         for k in _SV_KEYS:
-            cluster_vals.setdefault(k, np.full((n_eos, settings.n_cluster), np.nan))
             cluster_vals[k][rr] = svc[k][:ncl].reshape(rr.size, settings.n_cluster)
-        cluster_vals.setdefault("ln_h", np.full((n_eos, settings.n_cluster), np.nan))
         cluster_vals["ln_h"][rr] = ln_cl
         cf = vinv @ Mc.T  # Chebyshev coefficients, (n_cluster, n_rows)
         coef[:, rr] = cf
@@ -456,11 +473,21 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
 
     # -- 3. maximum-mass star and mass queries ---------------------------------
     n_q = 0
-    q_masses = None
+    q_parts = []
+    n_fixed = 0
     if masses is not None:
-        q_masses = np.asarray(masses, float) * MSUN_KM
-        if q_masses.ndim == 1:
-            q_masses = np.broadcast_to(q_masses, (n_eos, q_masses.size))
+        qm = np.asarray(masses, float) * MSUN_KM
+        if qm.ndim == 1:
+            qm = np.broadcast_to(qm, (n_eos, qm.size))
+        q_parts.append(qm)
+        n_fixed = qm.shape[1]
+    n_u = 0
+    if u_nodes is not None:
+        u_arr = np.asarray(u_nodes, float).ravel()
+        q_parts.append(m_max[:, None] * (1.0 - u_arr[None, :] ** 2))
+        n_u = u_arr.size
+    q_masses = np.concatenate(q_parts, axis=1) if q_parts else None
+    if q_masses is not None:
         n_q = q_masses.shape[1]
     rows_ok = np.flatnonzero(ok)
     if exact_maximum is None:
@@ -532,7 +559,11 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
                    {k: v.ravel() for k, v in q_out.items()}, shape=(n_eos, n_q)),
             hasq,
         )
-    return SequenceBatch(status, branch, mass_max, cs2max, np.where(ok, twin, np.nan), at_mass, nfev)
+    at_u = None
+    if at_mass is not None and n_u:
+        at_u = Stars(**{k: v[:, n_fixed:] for k, v in at_mass.as_dict().items()})
+        at_mass = Stars(**{k: v[:, :n_fixed] for k, v in at_mass.as_dict().items()}) if n_fixed else None
+    return SequenceBatch(status, branch, mass_max, cs2max, np.where(ok, twin, np.nan), at_mass, nfev, at_u)
 
 
 def _mask_stars(stars: Stars, keep) -> Stars:

@@ -60,7 +60,11 @@ class StepSettings:
     Attributes
     ----------
     n_steps : int
-        Runge-Kutta steps per star (12 right-hand-side evaluations each).
+        Runge-Kutta steps per star (12 right-hand-side evaluations each),
+        before the allowance for kinks.
+    steps_per_kink : int
+        Extra steps per EOS kink (the batch's largest kink count is used), so
+        that piecewise EOS with many pieces keep their accuracy.
     centre_offset : float
         The integration starts at ``h_c (1 - centre_offset)`` from a series
         solution about the centre.
@@ -71,7 +75,8 @@ class StepSettings:
         grading towards the surface.
     """
 
-    n_steps: int = 32
+    n_steps: int = 16
+    steps_per_kink: int = 3
     centre_offset: float = 1e-3
     surface_scale: float = 4e-3
     centre_weight: float = 0.55
@@ -122,7 +127,7 @@ class SurfaceValues:
     states: np.ndarray | None = None
 
 
-def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None):
+def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None, n_steps_total=None):
     """Integration nodes from ``h_c (1 - offset)`` down to 0 for each star.
 
     Steps are spread uniformly in the stretched coordinate
@@ -147,13 +152,20 @@ def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None):
     batch, eos_index : EOSBatch and ndarray, optional
         The EOS of each star, for the energy-density term (omitted if None).
 
+    n_steps_total : int, optional
+        Steps per star (default ``settings.n_steps``).
+
     Returns
     -------
     ndarray, shape (n_steps + 1, n)
         Node enthalpies in integration order (decreasing; last row is 0).
     """
     n = settings.n_steps
+    if n_steps_total is not None:
+        n = n_steps_total
     a = settings.surface_scale
+    # For very light stars the whole star sits below the surface scale: shrink it.
+    a = np.minimum(a, 0.25 * np.asarray(h_c, float))[:, None]
     c = settings.centre_weight
     h_c = np.asarray(h_c, float)
     n_lanes = h_c.size
@@ -161,13 +173,18 @@ def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None):
     h_start = h_c * (1.0 - settings.centre_offset)
     kinks = np.asarray(kinks, float).reshape(n_lanes, -1)
     valid = (kinks > 0.0) & (kinks < h_start[:, None] * (1.0 - 1e-9))
-    # Fine reference grid: geometric in h towards the surface, geometric in
-    # h_c - h towards the centre, and the kinks themselves.
+    # Fine reference grid: a few points inside every segment between kinks
+    # (clustered towards the segment ends, geometric towards the surface in
+    # the outermost one), points geometric in h_c - h towards the centre, and
+    # the kinks themselves.
+    edges = np.sort(np.where(valid, kinks, h_start[:, None]), axis=1)
+    edges = np.concatenate([np.zeros((n_lanes, 1)), edges, h_start[:, None]], axis=1)
+    lo, width = edges[:, :-1], np.diff(edges, axis=1)
+    inner = lo[:, :, None] + width[:, :, None] * _SEGMENT_FRACTIONS[None, None, :]
+    inner[:, 0, :] = edges[:, 1:2] * _SURFACE_FRACTIONS[None, :]
     centre = np.geomspace(1.0, 1.0 / settings.centre_offset, _N_FINE_CENTRE)
     fine = np.concatenate(
-        [h_start[:, None] * _FINE_FRACTIONS, hc - (hc - h_start[:, None]) * centre,
-         np.where(valid, kinks, 0.0), np.zeros((n_lanes, 1)), h_start[:, None]],
-        axis=1,
+        [inner.reshape(n_lanes, -1), hc - (hc - h_start[:, None]) * centre, edges], axis=1
     )
     fine = np.sort(np.clip(fine, 0.0, h_start[:, None]), axis=1)
     t = np.log1p(fine / a) * settings.surface_weight + c * np.log(hc / (hc - fine))
@@ -223,9 +240,11 @@ def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None):
     return h[:, ::-1].T.copy()
 
 
-# Fractions of h_start for the fine grid of node_grid (geometric towards 0),
-# and fractions of (h_c - h_start) ... h_c for its centre part.
-_FINE_FRACTIONS = np.geomspace(1e-4, 1.0, 24)
+# Fine grid of node_grid: interior fractions of each segment between kinks
+# (Chebyshev-like, so denser near the ends), of the outermost segment
+# (geometric towards the surface), and points towards the centre.
+_SEGMENT_FRACTIONS = 0.5 - 0.5 * np.cos(np.pi * np.arange(1, 6) / 6)
+_SURFACE_FRACTIONS = np.geomspace(1e-4, 0.7, 5)
 _N_FINE_CENTRE = 10
 
 
@@ -277,6 +296,16 @@ def _rhs(h, Y, lanes, out, h_loc=None):
     out[1:] *= gp
 
 
+def _rhs_sigma(sigma, Y, lanes, out, sigma_loc):
+    """d/d sigma = 2 sigma d/dh, with sigma = sqrt(h) kept away from 0."""
+    sigma = np.maximum(sigma, _SIGMA_TINY)
+    _rhs(sigma * sigma, Y, lanes, out, sigma_loc * sigma_loc)
+    out *= 2.0 * sigma
+
+
+_SIGMA_TINY = 1e-15
+
+
 def integrate_stars(batch, eos_index, h_c, settings: StepSettings = StepSettings(), record: bool = False):
     """Integrate one star per lane and return surface values.
 
@@ -297,27 +326,33 @@ def integrate_stars(batch, eos_index, h_c, settings: StepSettings = StepSettings
     h_c = np.asarray(h_c, float)
     lanes = batch.lanes(eos_index)
     kinks = batch.kinks[eos_index]
-    H = node_grid(h_c, kinks, settings, batch, eos_index)
+    n_kinks = int((np.isfinite(kinks) & (kinks > 0)).sum(axis=1).max(initial=0))
+    n_steps = settings.n_steps + settings.steps_per_kink * n_kinks
+    H = node_grid(h_c, kinks, settings, batch, eos_index, n_steps)
     Y = _centre_series(h_c, h_c - H[0], lanes)
     nfev = 1
     n_lanes = h_c.size
     n_stages = len(_STAGE_ROWS)
     K = np.empty((n_stages, 5, n_lanes))
     K_flat = K.reshape(n_stages, 5 * n_lanes)
-    record_states = np.empty((settings.n_steps + 1, 5, n_lanes)) if record else None
+    record_states = np.empty((n_steps + 1, 5, n_lanes)) if record else None
     if record:
         record_states[0] = Y
-    dH = np.diff(H, axis=0)
+    # Integrate in sigma = sqrt(h): near the surface the EOS behaves like a
+    # power of h (rho ~ h^(1/(Gamma-1)); de/dh ~ h^(-1/2) for Gamma = 3), which
+    # is smoother, or no longer singular, in sqrt(h).
+    S = np.sqrt(H)
+    dS = np.diff(S, axis=0)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        for i in range(settings.n_steps):
-            h0 = H[i]
-            dh = dH[i]
-            _rhs(h0, Y, lanes, K[0], h0 + _STAGE_ROWS[0][2] * dh)
+        for i in range(n_steps):
+            s0 = S[i]
+            ds = dS[i]
+            _rhs_sigma(s0, Y, lanes, K[0], s0 + _STAGE_ROWS[0][2] * ds)
             for jstage in range(1, n_stages):
                 arow, cj, cloc = _STAGE_ROWS[jstage]
-                Ys = Y + np.dot(arow, K_flat[:jstage]).reshape(5, n_lanes) * dh
-                _rhs(h0 + cj * dh, Ys, lanes, K[jstage], h0 + cloc * dh)
-            Y = Y + np.dot(_B, K_flat).reshape(5, n_lanes) * dh
+                Ys = Y + np.dot(arow, K_flat[:jstage]).reshape(5, n_lanes) * ds
+                _rhs_sigma(s0 + cj * ds, Ys, lanes, K[jstage], s0 + cloc * ds)
+            Y = Y + np.dot(_B, K_flat).reshape(5, n_lanes) * ds
             nfev += n_stages
             if record:
                 record_states[i + 1] = Y

@@ -1,0 +1,36 @@
+# Set-up and everyday commands.  Everything runs inside .venv, created on demand.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed-stamp
+
+.PHONY: demo test test-all bench install clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+$(STAMP): $(BIN)/python pyproject.toml
+	$(BIN)/python -m pip install --quiet -e ".[test]"
+	touch $(STAMP)
+
+install: $(STAMP)
+
+## make demo: install, then run the demo pipeline and print what each stage does
+demo: $(STAMP)
+	$(BIN)/tovforge solve piecewise-polytrope log_p1=34.384 gamma1=3.005 gamma2=2.988 gamma3=2.851 --masses 1.0,1.4,2.0 --stars 40
+
+## make test: install with test extras and run the test suite (slow tests excluded)
+test: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+## make test-all: every test, the slow ones included
+test-all: $(STAMP)
+	$(BIN)/python -m pytest -q -m "slow or not slow"
+
+## make bench: speed and accuracy benchmarks on this machine
+bench: $(STAMP)
+	$(BIN)/tovforge bench
+
+clean:
+	rm -rf $(VENV) build src/*.egg-info .pytest_cache .hypothesis
