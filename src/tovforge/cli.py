@@ -27,6 +27,13 @@ app = typer.Typer(
 )
 
 
+def _register_subcommands() -> None:
+    """Attach the command groups of the stages (each lives next to its stage)."""
+    from .grid._cli import grid_app
+
+    app.add_typer(grid_app, name="grid")
+
+
 def _fail(message: str) -> None:
     typer.echo(f"error: {message}", err=True)
     raise typer.Exit(code=2)
@@ -355,6 +362,22 @@ def _summary_text(seq) -> str:
         lines.append(f"stable branch ({len(seq.branch)} stars, increasing central pressure):")
         lines.append(_format_table(seq.branch))
     return "\n".join(lines)
+
+
+@app.command("bench")
+def bench_cmd(
+    quick: Annotated[bool, typer.Option("--quick", help="Fewer repetitions (a smoke run).")] = False,
+    only: Annotated[
+        Optional[str], typer.Option("--only", help="Comma-separated sections to run (default: all).")
+    ] = None,
+):
+    """Measure speed and accuracy on this machine (prints ratios measured side by side)."""
+    from ._bench import run_benchmarks
+
+    _run(lambda: run_benchmarks(quick=quick, only=only.split(",") if only else None, echo=typer.echo))
+
+
+_register_subcommands()
 
 
 def main():  # entry point of the console script
