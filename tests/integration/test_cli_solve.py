@@ -1,0 +1,92 @@
+"""The `tovforge solve` and `tovforge families` commands."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from helpers import READ2009
+from tovforge.cli import app
+
+runner = CliRunner()
+SLY = [f"{k}={v}" for k, v in READ2009["SLy"].items()]
+
+
+def test_families_lists_parameters_and_boxes():
+    res = runner.invoke(app, ["families"])
+    assert res.exit_code == 0
+    for word in ("piecewise-polytrope", "log_p1", "spectral", "sound-speed", "table", "uniform-density"):
+        assert word in res.output
+
+
+def test_json_output_has_the_documented_keys():
+    res = runner.invoke(app, ["solve", "piecewise-polytrope", *SLY, "--masses", "1.4,2.0,3.0", "--json", "--stars", "20"])
+    assert res.exit_code == 0, res.output
+    lines = [ln for ln in res.stdout.splitlines() if ln.strip()]
+    assert len(lines) == 1  # exactly one JSON object on stdout
+    out = json.loads(lines[0])
+    assert set(out) >= {"family", "parameters", "mass_max", "at_mass", "sequence"}
+    assert set(out["mass_max"]) == {"mass_msun", "radius_km", "central_pressure_dyn_cm2", "max_sound_speed_sq"}
+    assert set(out["sequence"]) == {"mass_msun", "radius_km", "tidal_deformability", "k2",
+                                    "moment_of_inertia_1e45_g_cm2", "baryon_mass_msun", "central_pressure_dyn_cm2"}
+    assert out["at_mass"][0]["mass_msun"] == pytest.approx(1.4)
+    assert out["at_mass"][2]["radius_km"] is None  # above M_max: null, not a crash
+    assert "exceed M_max" in res.stderr
+    assert out["mass_max"]["mass_msun"] == pytest.approx(2.05, abs=0.02)
+
+
+def test_table_and_profile(tmp_path):
+    path = tmp_path / "seq.csv"
+    res = runner.invoke(app, ["solve", "piecewise-polytrope", *SLY, "--stars", "12", "--table", str(path),
+                              "--profile", "1.4"])
+    assert res.exit_code == 0, res.output
+    assert "M_max" in res.stdout and "interior of the 1.4 Msun star" in res.stdout
+    data = np.genfromtxt(path, delimiter=",", skip_header=2)
+    header = path.read_text().splitlines()[1]
+    assert header.startswith("M [Msun],R [km]")
+    assert np.all(np.diff(data[:, 0]) > 0)
+
+
+@pytest.mark.parametrize(
+    "args, words",
+    [
+        (["solve", "piecewise", "a=1"], ["Unknown EOS family 'piecewise'"]),
+        (["solve", "piecewise-polytrope", *SLY[:3]], ["needs parameter 'gamma3'"]),
+        (["solve", "piecewise-polytrope", *SLY, "gamma4=2"], ["no parameter 'gamma4'"]),
+        (["solve", "piecewise-polytrope", "log_p1=34.4", "gamma1=0.9", "gamma2=3", "gamma3=3"],
+         ["'gamma1'", "(1, 10]", "0.9"]),
+        (["solve", "piecewise-polytrope", "log_p1=nan", "gamma1=3", "gamma2=3", "gamma3=3"], ["'log_p1'", "nan"]),
+        (["solve", "piecewise-polytrope", "log_p1=abc", "gamma1=3", "gamma2=3", "gamma3=3"], ["'log_p1'", "abc"]),
+        (["solve", "piecewise-polytrope", *SLY, "--masses", "1.4,x"], ["--masses"]),
+        (["solve", "table", "path=/nonexistent/eos.csv"], ["cannot read EOS table"]),
+    ],
+)
+def test_bad_input_is_one_line_and_exit_2(args, words):
+    res = runner.invoke(app, args)
+    assert res.exit_code == 2
+    err = res.stderr.strip()
+    assert len(err.splitlines()) == 1 and err.startswith("error:")
+    assert "Traceback" not in res.output
+    for w in words:
+        assert w in err
+
+
+def test_malformed_table_names_the_line(tmp_path):
+    path = tmp_path / "eos.csv"
+    path.write_text("# pressure[dyn/cm^2], energy_density[g/cm^3]\n1,1\n2,2\n1.5,3\n4,4\n")
+    res = runner.invoke(app, ["solve", "table", f"path={path}"])
+    assert res.exit_code == 2
+    assert f"{path}:4:" in res.stderr
+
+
+def test_console_script_runs_as_a_process():
+    """The installed entry point gives the same exit code and one stderr line."""
+    proc = subprocess.run([sys.executable, "-m", "tovforge.cli", "solve", "polytrope", "K=-1", "gamma=2"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert proc.stderr.count("\n") == 1 and "'K'" in proc.stderr
