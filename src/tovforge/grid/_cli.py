@@ -1,8 +1,68 @@
-"""``tovforge grid ...`` commands."""
+"""``tovforge grid ...`` commands: a thin front over :mod:`tovforge.grid`."""
 
 from __future__ import annotations
+
+import warnings
+from pathlib import Path
+from typing import Annotated, Optional
 
 import typer
 
 grid_app = typer.Typer(help="Build, resume and inspect grids of exact solves over an EOS parameter box.",
                        no_args_is_help=True)
+
+
+def _helpers():
+    # imported late: tovforge.cli imports this module while it is being set up
+    from ..cli import _fail, _run
+
+    return _run, _fail
+
+
+@grid_app.command("run")
+def run_cmd(
+    spec: Annotated[Path, typer.Argument(help="Grid spec (TOML; see grids/*.toml).", dir_okay=False)],
+    out: Annotated[Path, typer.Option("--out", help="HDF5 file to write (finished chunks go to OUT.parts/).",
+                                      dir_okay=False)],
+    workers: Annotated[
+        Optional[int], typer.Option("--workers", min=1, help="Parallel workers (default: all cores).")
+    ] = None,
+    scheduler: Annotated[
+        Optional[str],
+        typer.Option("--scheduler", help="dask.distributed scheduler address (e.g. tcp://host:8786): run on "
+                                         "that cluster through joblib's Dask backend."),
+    ] = None,
+    overwrite: Annotated[
+        bool, typer.Option("--overwrite", help="Replace an output (or unfinished chunks) made from another spec.")
+    ] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
+):
+    """Solve every point of SPEC and write one HDF5 grid; rerun the same command to resume after a crash."""
+    from . import load_spec, parts_folder, run_grid
+
+    _run, _ = _helpers()
+
+    def work():
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            s = load_spec(spec)
+        for w in caught:
+            typer.echo(f"warning: {w.message}", err=True)
+        return run_grid(s, out, workers=workers, scheduler=scheduler, overwrite=overwrite, progress=not quiet)
+
+    try:
+        summary = _run(work)
+    except KeyboardInterrupt:
+        typer.echo(f"\ninterrupted: finished chunks are kept in {parts_folder(out)}; rerun the same command "
+                   "to resume.", err=True)
+        raise typer.Exit(code=130) from None
+    typer.echo(summary.text())
+
+
+@grid_app.command("info")
+def info_cmd(path: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)]):
+    """Counts by status, parameter coverage, output ranges and provenance of a grid file."""
+    from . import describe_grid
+
+    _run, _ = _helpers()
+    typer.echo(_run(lambda: describe_grid(path)))

@@ -1,0 +1,354 @@
+"""Running a grid: chunks in parallel, each saved atomically, then one file.
+
+Work layout for an output path ``P``::
+
+    P.parts/manifest.json      spec hash, design hash, tovforge version
+    P.parts/chunk-000012.h5    one file per finished chunk
+    P                          written once every chunk exists; P.parts is then removed
+
+A run looks at ``P.parts`` first and solves only the chunks that have no
+file there, so rerunning the same command after a crash, Ctrl-C or SIGKILL
+resumes.  Chunk boundaries, the design and the batch of EOS each chunk is
+solved in depend on the spec alone, and the solver is deterministic, so the
+assembled file equals that of an uninterrupted run dataset for dataset.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import platform
+import shutil
+import sys
+import time
+import warnings
+from dataclasses import asdict, dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..errors import InputError
+from ._design import design_points
+from ._solve import ChunkResult, solve_chunk
+from ._store import FORMAT, atomic_path, read_chunk, write_chunk, write_grid
+
+__all__ = ["RunSummary", "run_grid", "parts_folder"]
+
+_MANIFEST_FORMAT = "tovforge-grid-parts"
+
+
+@dataclass(frozen=True)
+class RunSummary:
+    """What a call of :func:`run_grid` did.
+
+    Attributes
+    ----------
+    path : Path
+        The grid file.
+    n_points, n_chunks : int
+    chunks_reused : int
+        Chunks found finished on disk (not recomputed).
+    chunks_solved : int
+        Chunks solved by this call.
+    status_counts : dict of int to int
+        Points per status code.
+    content_sha256 : str
+    seconds : float
+        Wall time of this call.
+    already_complete : bool
+        The output existed (same spec) and nothing was done.
+    """
+
+    path: Path
+    n_points: int
+    n_chunks: int
+    chunks_reused: int
+    chunks_solved: int
+    status_counts: dict
+    content_sha256: str
+    seconds: float
+    already_complete: bool = False
+
+    def text(self) -> str:
+        if self.already_complete:
+            head = f"{self.path}: already complete ({self.n_points} points); nothing to do."
+        else:
+            head = (f"{self.path}: {self.n_points} points in {self.n_chunks} chunks "
+                    f"({self.chunks_solved} solved now, {self.chunks_reused} resumed) in {self.seconds:.1f} s.")
+        from ._solve import STATUS_NAMES
+
+        counts = ", ".join(f"{STATUS_NAMES.get(k, k)}: {v}" for k, v in sorted(self.status_counts.items()))
+        return f"{head}\nstatus: {counts}\ncontent sha256: {self.content_sha256}"
+
+
+def parts_folder(out: Path) -> Path:
+    """The work folder of output ``out``: ``out`` + ``.parts``."""
+    out = Path(out)
+    return out.with_name(out.name + ".parts")
+
+
+def _chunk_path(parts: Path, k: int) -> Path:
+    return parts / f"chunk-{k:06d}.h5"
+
+
+def _theta_sha256(theta: np.ndarray) -> str:
+    return hashlib.sha256(np.ascontiguousarray(theta, np.float64).tobytes()).hexdigest()
+
+
+def _utc_now() -> str:
+    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+class _Progress:
+    """A one-line progress bar on stderr: points done, rate and ETA.
+
+    On a terminal the line is redrawn in place; otherwise (logs, CI) a line
+    is printed at most every ``log_every`` seconds.
+    """
+
+    def __init__(self, total: int, done: int, label: str, stream=None, enabled: bool = True,
+                 log_every: float = 10.0):
+        self.total, self.done, self.label = total, done, label
+        self.stream = stream if stream is not None else sys.stderr
+        self.enabled = enabled
+        self.tty = enabled and hasattr(self.stream, "isatty") and self.stream.isatty()
+        self.t0 = time.monotonic()
+        self.start_done = done
+        self.log_every = log_every
+        self.last = -math.inf
+        self.show(force=True)
+
+    def _line(self) -> str:
+        frac = self.done / self.total if self.total else 1.0
+        width = 24
+        bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
+        elapsed = time.monotonic() - self.t0
+        new = self.done - self.start_done
+        rate = new / elapsed if elapsed > 0 and new else 0.0
+        eta = (self.total - self.done) / rate if rate else math.nan
+        eta_s = "--:--" if not math.isfinite(eta) else f"{int(eta // 60):d}:{int(eta % 60):02d}"
+        return (f"{self.label} [{bar}] {self.done}/{self.total} EOS {100 * frac:5.1f}%  "
+                f"{rate:7.1f} EOS/s  ETA {eta_s}")
+
+    def show(self, force: bool = False) -> None:
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if self.tty:
+            self.stream.write("\r" + self._line())
+            self.stream.flush()
+        elif force or now - self.last >= self.log_every or self.done == self.total:
+            self.stream.write(self._line() + "\n")
+            self.stream.flush()
+            self.last = now
+
+    def update(self, n: int) -> None:
+        self.done += n
+        self.show()
+
+    def close(self) -> None:
+        if self.enabled and self.tty:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def _solve_task(spec, k: int, theta: np.ndarray) -> tuple[int, ChunkResult]:
+    """One unit of work (runs in a worker): solve chunk ``k``."""
+    return k, solve_chunk(spec, theta)
+
+
+def _execute(spec, theta, todo, workers: int | None, scheduler: str | None):
+    """Yield ``(k, ChunkResult)`` as chunks finish, in any order."""
+    import joblib
+
+    tasks = (joblib.delayed(_solve_task)(spec, k, theta[slice(*spec.chunk_bounds(k))]) for k in todo)
+    if scheduler is None:
+        n_jobs = workers if workers else -1  # -1: all cores
+        # each task is already a batch of EOS: dispatch one at a time
+        yield from joblib.Parallel(n_jobs=n_jobs, batch_size=1, return_as="generator_unordered")(tasks)
+        return
+    from dask.distributed import Client
+
+    try:
+        client = Client(scheduler, timeout="20s", set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(f"--scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
+    try:
+        with joblib.parallel_config(backend="dask", client=client):
+            n_jobs = workers if workers else -1
+            yield from joblib.Parallel(n_jobs=n_jobs, batch_size=1, return_as="generator_unordered")(tasks)
+    finally:
+        client.close()
+
+
+def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
+    """True if ``out`` is already the finished grid of ``spec``; raise if it is something else."""
+    if not out.exists():
+        return False
+    import h5py
+
+    found = None
+    try:
+        with h5py.File(out, "r") as h5:
+            if h5.attrs.get("format") == FORMAT:
+                found = str(h5.attrs.get("spec_sha256"))
+    except OSError:
+        pass
+    if overwrite:
+        return False
+    if found == spec.sha256:
+        return True
+    what = "is not a tovforge grid file" if found is None else f"was made from a different spec ({found[:12]}...)"
+    raise InputError(f"{out} exists and {what}; pass --overwrite to replace it.")
+
+
+def _prepare_parts(parts: Path, spec, theta_hash: str, overwrite: bool) -> dict:
+    manifest_path = parts / "manifest.json"
+    expected = {"format": _MANIFEST_FORMAT, "spec_sha256": spec.sha256, "design_sha256": theta_hash,
+                "tovforge_version": __version__, "n_chunks": spec.n_chunks}
+    if parts.exists():
+        try:
+            manifest = json.loads(manifest_path.read_text())
+        except (OSError, ValueError):
+            manifest = None
+        same = manifest is not None and all(manifest.get(k) == v for k, v in expected.items())
+        if same and not overwrite:
+            return manifest
+        if not overwrite:
+            why = ("holds no readable manifest" if manifest is None else
+                   "holds chunks of a different spec, design or tovforge version")
+            raise InputError(f"{parts} {why}; pass --overwrite to discard them, or choose another --out.")
+        shutil.rmtree(parts)
+    parts.mkdir(parents=True)
+    manifest = {**expected, "started_utc": _utc_now(), "spec": json.loads(spec.to_json())}
+    tmp = atomic_path(manifest_path)
+    tmp.write_text(json.dumps(manifest, indent=1))
+    os.replace(tmp, manifest_path)
+    return manifest
+
+
+def _finished_chunks(parts: Path, spec) -> set[int]:
+    """Chunks with a valid file in ``parts``; removes leftovers of killed writes."""
+    for stale in parts.glob(".*.tmp"):
+        stale.unlink(missing_ok=True)
+    done = set()
+    for k in range(spec.n_chunks):
+        path = _chunk_path(parts, k)
+        if not path.exists():
+            continue
+        try:
+            read_chunk(path, spec, k)
+        except (OSError, ValueError, KeyError):
+            warnings.warn(f"{path} is unreadable or foreign; chunk {k} will be solved again.", stacklevel=3)
+            path.unlink()
+            continue
+        done.add(k)
+    return done
+
+
+def _assemble(parts: Path, spec) -> tuple[np.ndarray, ChunkResult]:
+    thetas, results = [], []
+    for k in range(spec.n_chunks):
+        theta, res = read_chunk(_chunk_path(parts, k), spec, k)
+        thetas.append(theta)
+        results.append(res)
+    merged = ChunkResult(
+        status=np.concatenate([r.status for r in results]),
+        reason=[s for r in results for s in r.reason],
+        scalars={k: np.concatenate([r.scalars[k] for r in results]) for k in results[0].scalars},
+        curves={k: np.concatenate([r.curves[k] for r in results]) for k in results[0].curves},
+        at_mass={k: np.concatenate([r.at_mass[k] for r in results]) for k in results[0].at_mass},
+    )
+    return np.concatenate(thetas), merged
+
+
+def _provenance(spec, manifest: dict) -> dict:
+    import h5py
+    import scipy
+
+    settings = spec.solver.sequence_settings()
+    return {
+        "tovforge_version": __version__,
+        "python_version": platform.python_version(),
+        "numpy_version": np.__version__,
+        "scipy_version": scipy.__version__,
+        "h5py_version": h5py.__version__,
+        "created_utc": _utc_now(),
+        "started_utc": manifest.get("started_utc", ""),
+        "solver_settings_json": json.dumps({**asdict(settings), "branch_stars": spec.solver.branch_stars,
+                                            "mass_rtol": spec.solver.mass_rtol}, sort_keys=True),
+        "design_sha256": manifest["design_sha256"],
+    }
+
+
+def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
+             progress: bool = True, stream=None) -> RunSummary:
+    """Solve every point of a grid spec and write the grid file ``out``.
+
+    Parameters
+    ----------
+    spec : GridSpec
+    out : path-like
+        The HDF5 file to write.  Finished chunks are kept in ``out.parts``
+        until the file is assembled.
+    workers : int, optional
+        Parallel workers (default: all cores; with ``scheduler``, all the
+        cluster's workers).
+    scheduler : str, optional
+        Address of a dask.distributed scheduler (``tcp://host:8786``): run
+        through joblib's Dask backend on that cluster.
+    overwrite : bool
+        Replace an existing output (or work folder) made from another spec.
+        Without it, such an output is refused.
+    progress : bool
+        Show a progress bar on ``stream`` (default stderr).
+
+    Returns
+    -------
+    RunSummary
+
+    Raises
+    ------
+    tovforge.errors.InputError
+        If ``out`` holds another grid (and not ``overwrite``), or the
+        scheduler cannot be reached.
+    """
+    t0 = time.monotonic()
+    out = Path(out)
+    if workers is not None and workers < 1:
+        raise InputError(f"--workers must be at least 1. Got {workers}.")
+    if not out.parent.exists():
+        raise InputError(f"{out.parent}: no such folder for the output.")
+    if _check_existing_output(out, spec, overwrite):
+        import h5py
+
+        with h5py.File(out, "r") as h5:
+            codes = h5["status/code"][...]
+            digest = str(h5.attrs["content_sha256"])
+        counts = {int(c): int(n) for c, n in zip(*np.unique(codes, return_counts=True))}
+        return RunSummary(out, spec.n_points, spec.n_chunks, spec.n_chunks, 0, counts, digest,
+                          time.monotonic() - t0, already_complete=True)
+    theta = design_points(spec)
+    parts = parts_folder(out)
+    manifest = _prepare_parts(parts, spec, _theta_sha256(theta), overwrite)
+    done = _finished_chunks(parts, spec)
+    todo = [k for k in range(spec.n_chunks) if k not in done]
+    n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
+    bar = _Progress(spec.n_points, int(n_done), out.name, stream=stream, enabled=progress)
+    try:
+        for k, result in _execute(spec, theta, todo, workers, scheduler):
+            start, stop = spec.chunk_bounds(k)
+            write_chunk(_chunk_path(parts, k), spec, k, theta[start:stop], result)
+            bar.update(stop - start)
+    finally:
+        bar.close()
+    theta_all, merged = _assemble(parts, spec)
+    digest = write_grid(out, spec, theta_all, merged, _provenance(spec, manifest))
+    shutil.rmtree(parts)
+    counts = {int(c): int(n) for c, n in zip(*np.unique(merged.status, return_counts=True))}
+    return RunSummary(out, spec.n_points, spec.n_chunks, len(done), len(todo), counts, digest,
+                      time.monotonic() - t0)

@@ -1,0 +1,352 @@
+"""Solving the points of one chunk: statuses, reasons and outputs.
+
+A chunk's valid points are solved in one vectorised call; if that call
+raises, the points are solved one at a time so that one bad point cannot take
+its chunk mates down with it.
+
+Node and fixed-mass stars
+-------------------------
+Every star at a u node (mass ``M_max (1 - u^2)``) or at a fixed mass is
+located by a bracketed root search on the exact integrator, vectorised over
+all stars of the chunk: the branch stars of :func:`tovforge.solve.solve_sequences`
+bracket the target, and the Illinois variant of regula falsi (Dowell &
+Jarratt 1971, BIT 11, 168) runs on ``g(ln h_c) = u(M(h_c)) - u_target`` until
+the mass is within ``mass_rtol`` of the target.  In ``u`` the branch is
+smooth through the maximum (``u`` is proportional to ``ln h_c* - ln h_c`` there,
+where ``M`` itself is flat), so the search converges in a few passes even
+for the nodes next to ``M_max``.  The stored ``mass_msun`` of a node star is
+the mass of the star actually solved.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..units import MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2, MSUN_KM
+
+__all__ = ["STATUS_NAMES", "ChunkResult", "solve_chunk", "stars_at_masses"]
+
+#: Status codes stored for every grid point.
+STATUS_NAMES = {
+    0: "ok",
+    1: "invalid parameters",
+    2: "M_max below the floor",
+    3: "no maximum mass",
+    4: "solver failure",
+}
+# solver status (tovforge.solve.STATUS_MESSAGES) -> grid status
+_FROM_SOLVER = {1: 3, 2: 3, 3: 4}
+
+
+@dataclass(frozen=True)
+class ChunkResult:
+    """Outputs of the points of one chunk.
+
+    Attributes
+    ----------
+    status : ndarray of int8, shape (n,)
+        Codes of :data:`STATUS_NAMES`.
+    reason : list of str
+        Empty for status 0, otherwise one line naming the cause.
+    scalars : dict of str to ndarray, shape (n,)
+    curves : dict of str to ndarray, shape (n, n_u)
+    at_mass : dict of str to ndarray, shape (n, n_masses)
+    """
+
+    status: np.ndarray
+    reason: list
+    scalars: dict
+    curves: dict
+    at_mass: dict
+
+
+def _field_values(sv) -> dict:
+    """Surface values (geometrised) to the stored units."""
+    return {
+        "mass_msun": sv.mass / MSUN_KM,
+        "radius_km": sv.radius,
+        "tidal_deformability": sv.tidal_deformability,
+        "k2": sv.k2,
+        "moment_of_inertia_1e45_g_cm2": sv.moment_of_inertia * MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2,
+        "baryon_mass_msun": sv.baryon_mass / MSUN_KM,
+    }
+
+
+_STAR_FIELDS = ("mass_msun", "radius_km", "tidal_deformability", "k2", "moment_of_inertia_1e45_g_cm2",
+                "baryon_mass_msun")
+
+
+def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes: int = 60) -> tuple[dict, np.ndarray, np.ndarray]:
+    """Exact stars of the stable branch at given masses (see the module notes).
+
+    Parameters
+    ----------
+    batch : EOSBatch
+    seq : SequenceBatch
+        From ``solve_sequences(batch, ..., exact_maximum=True)``.
+    targets : ndarray, shape (n_eos, n_q)
+        Gravitational masses in Msun.
+    steps : StepSettings
+    rtol : float
+        Relative tolerance on the mass.
+    max_passes : int
+        Cap on the passes of the root search.
+
+    Returns
+    -------
+    values : dict of str to ndarray, shape (n_eos, n_q)
+        ``mass_msun``, ``radius_km``, ``tidal_deformability``, ``k2``,
+        ``moment_of_inertia_1e45_g_cm2``, ``baryon_mass_msun``.  NaN above
+        M_max, below the lightest branch star, and for rows that failed.
+    below_branch : ndarray of bool, shape (n_eos, n_q)
+        Targets at or below M_max that lie below the lightest branch star.
+    not_found : ndarray of bool, shape (n_eos, n_q)
+        Targets on the branch where the search did not reach ``rtol``
+        (nor 1e-8: the size of the tiny jumps of the discrete solution).
+    """
+    from ..solve import integrate_stars
+
+    targets = np.asarray(targets, float)
+    n_eos, n_q = targets.shape
+    out = {k: np.full((n_eos, n_q), np.nan) for k in _STAR_FIELDS}
+    m_max = np.asarray(seq.mass_max.mass_msun, float)
+    ok = (np.asarray(seq.status) == 0) & np.isfinite(m_max)
+    x_b = np.log(seq.branch.central_pseudo_enthalpy)  # (n_eos, w), a finite prefix then NaN
+    with np.errstate(invalid="ignore", divide="ignore"):
+        u_b = np.sqrt(np.clip(1.0 - seq.branch.mass_msun / m_max[:, None], 0.0, None))
+        u_t = np.sqrt(1.0 - targets / m_max[:, None])  # NaN above M_max
+    u_b = np.where(np.isfinite(x_b), u_b, np.nan)
+    top = ok[:, None] & np.isfinite(u_t)
+    below = top & (u_t > np.nanmax(np.where(np.isfinite(u_b), u_b, -np.inf), axis=1)[:, None])
+    # u = 0 is the maximum-mass star itself (solved exactly by the sequence solver)
+    at_max = top & ~below & (u_t == 0.0)
+    mm = seq.mass_max
+    for k in _STAR_FIELDS:
+        src = m_max if k == "mass_msun" else getattr(mm, k)
+        out[k] = np.where(at_max, np.asarray(src, float)[:, None], out[k])
+    todo = top & ~below & ~at_max
+    ii, jj = np.nonzero(todo)
+    not_found = np.zeros((n_eos, n_q), dtype=bool)
+    if ii.size == 0:
+        return out, below, not_found
+    # bracket: the last branch star with u >= target and the next one (u < target)
+    ub, xr = u_b[ii], x_b[ii]
+    lane = np.arange(ii.size)
+    ut, tgt = u_t[ii, jj], targets[ii, jj]
+    ge = np.isfinite(ub) & (ub >= ut[:, None])
+    k_lo = ub.shape[1] - 1 - np.argmax(ge[:, ::-1], axis=1)
+    xa, xb = xr[lane, k_lo], xr[lane, k_lo + 1]
+    # first guess and slope: cubic through four branch stars around the bracket, x as a function of u
+    last = np.isfinite(ub).sum(axis=1) - 1
+    j0 = np.clip(k_lo - 1, 0, np.maximum(last - 3, 0))
+    idx = np.minimum(j0[:, None] + np.arange(4), last[:, None])
+    x, dxdu = _cubic_at(ub[lane[:, None], idx], xr[lane[:, None], idx], ut)
+    slope = 1.0 / dxdu  # dg/dx for the first Newton step
+    x_prev, g_prev = np.full(ii.size, np.nan), np.full(ii.size, np.nan)
+    live = np.ones(ii.size, dtype=bool)
+    best = {k: np.full(ii.size, np.nan) for k in _STAR_FIELDS}
+    for _ in range(max_passes):
+        act = np.flatnonzero(live)
+        if act.size == 0:
+            break
+        # safeguard: a proposal outside the bracket is replaced by bisection
+        inside = np.isfinite(x[act]) & (x[act] > xa[act]) & (x[act] < xb[act])
+        x[act] = np.where(inside, x[act], 0.5 * (xa[act] + xb[act]))
+        sv = integrate_stars(batch, ii[act], np.exp(x[act]), steps)
+        vals = _field_values(sv)
+        for k in _STAR_FIELDS:
+            best[k][act] = vals[k]
+        with np.errstate(invalid="ignore"):
+            g = np.sqrt(np.clip(1.0 - vals["mass_msun"] / m_max[ii[act]], 0.0, None)) - ut[act]
+        done = np.abs(vals["mass_msun"] / tgt[act] - 1.0) <= rtol
+        failed = ~np.isfinite(g)
+        light = g > 0  # lighter than the target: x is the new lower end of the bracket
+        xa[act[light]] = x[act][light]
+        xb[act[~light & ~failed]] = x[act][~light & ~failed]
+        # next proposal: secant through the last two stars (Newton with the cubic's slope after the first)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sec = (g - g_prev[act]) / (x[act] - x_prev[act])
+            s_act = np.where(np.isfinite(sec) & (sec != 0), sec, slope[act])
+            x_next = x[act] - g / s_act
+        x_prev[act], g_prev[act] = x[act], g
+        x[act] = x_next
+        tight = (xb[act] - xa[act]) <= 4e-16 * np.maximum(np.abs(xa[act]), 1.0)
+        live[act[done | failed | tight]] = False
+    # accept what the search reached only if it is within the tolerance (or the bracket collapsed onto a
+    # discontinuity of the discrete solution smaller than a part in 1e8)
+    good = np.abs(best["mass_msun"] / tgt - 1.0) <= max(rtol, 1e-8)
+    for k in _STAR_FIELDS:
+        out[k][ii, jj] = np.where(good, best[k], np.nan)
+    not_found[ii, jj] = ~good
+    return out, below, not_found
+
+
+def _cubic_at(u, x, ut):
+    """Value and derivative at ``ut`` of the cubic through four points ``(u, x)`` per row."""
+    val = np.zeros(ut.size)
+    der = np.zeros(ut.size)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for a in range(4):
+            num, dnum, den = np.ones(ut.size), np.zeros(ut.size), np.ones(ut.size)
+            for b in range(4):
+                if b != a:
+                    f = ut - u[:, b]
+                    dnum = dnum * f + num
+                    num = num * f
+                    den = den * (u[:, a] - u[:, b])
+            val += x[:, a] * num / den
+            der += x[:, a] * dnum / den
+    return val, der
+
+
+def _solve_valid(family, theta, spec) -> dict:
+    """Vectorised solve of valid rows: raw arrays for :func:`solve_chunk`."""
+    from ..solve import solve_sequences
+
+    settings = spec.solver.sequence_settings()
+    batch = family.build(theta)
+    seq = solve_sequences(batch, n_stars=spec.solver.branch_stars, settings=settings, exact_maximum=True)
+    m_max = np.asarray(seq.mass_max.mass_msun, float)
+    u = np.asarray(spec.outputs.u_nodes, float)
+    masses = np.asarray(spec.outputs.masses_msun, float)
+    targets = np.concatenate([np.broadcast_to(masses, (len(theta), masses.size)),
+                              m_max[:, None] * (1.0 - u[None, :] ** 2)], axis=1)
+    vals, below, not_found = stars_at_masses(batch, seq, targets, settings.steps, rtol=spec.solver.mass_rtol)
+    n_m = masses.size
+    return {
+        "solver_status": np.asarray(seq.status),
+        "mass_max_msun": m_max,
+        "radius_at_mass_max_km": np.asarray(seq.mass_max.radius_km, float),
+        "central_pressure_at_mass_max_dyn_cm2": np.asarray(seq.mass_max.central_pressure_dyn_cm2, float),
+        "max_sound_speed_sq": np.asarray(seq.max_sound_speed_sq, float),
+        "twin_mass_max_msun": np.asarray(seq.twin_mass_max_msun, float),
+        "at_mass": {k: v[:, :n_m] for k, v in vals.items()},
+        "curves": {k: v[:, n_m:] for k, v in vals.items()},
+        "curve_below_branch": below[:, n_m:],
+        "not_found_mass": np.where(not_found, targets, np.nan),
+    }
+
+
+def _exception_text(exc: Exception) -> str:
+    text = str(exc).strip().splitlines()
+    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
+
+
+def _merge_rows(parts: list) -> dict | None:
+    """Stack per-row raw dicts; ``None`` entries (rows that raised) become NaN rows."""
+    template = next((p for p in parts if p is not None), None)
+    if template is None:
+        return None
+
+    def fill(value):
+        if value.dtype == bool:
+            return np.zeros_like(value)
+        if value.dtype.kind in "iu":
+            return np.full_like(value, -1)
+        return np.full_like(value, np.nan)
+
+    merged = {}
+    for key, value in template.items():
+        if isinstance(value, dict):
+            merged[key] = {k: np.concatenate([p[key][k] if p is not None else fill(v) for p in parts])
+                           for k, v in value.items()}
+        else:
+            merged[key] = np.concatenate([p[key] if p is not None else fill(value) for p in parts])
+    return merged
+
+
+def _solve_rows(family, theta, spec):
+    """Solve ``theta`` in one call; if it raises, one row at a time.
+
+    Returns the raw dict (rows that raised are NaN; ``None`` if all raised)
+    and the exception text of each row ('' where none).
+    """
+    try:
+        return _solve_valid(family, theta, spec), [""] * len(theta)
+    except Exception as exc:  # noqa: BLE001 - a failed batch is retried point by point
+        if len(theta) == 1:
+            return None, [_exception_text(exc)]
+    parts, errors = [], []
+    for row in theta:
+        try:
+            parts.append(_solve_valid(family, row[None, :], spec))
+            errors.append("")
+        except Exception as exc:  # noqa: BLE001 - a point's exception becomes its status
+            parts.append(None)
+            errors.append(_exception_text(exc))
+    return _merge_rows(parts), errors
+
+
+def solve_chunk(spec, theta: np.ndarray) -> ChunkResult:
+    """Statuses, reasons and outputs of the points ``theta`` of one chunk.
+
+    Parameters
+    ----------
+    spec : GridSpec
+    theta : ndarray, shape (n, n_parameters)
+
+    Returns
+    -------
+    ChunkResult
+        Never raises for a bad point: invalid parameters, a missing maximum,
+        M_max below the floor and solver exceptions become statuses.
+    """
+    from .. import eos
+    from ..solve import STATUS_MESSAGES
+
+    family = eos.get_family(spec.family)
+    theta = np.atleast_2d(np.asarray(theta, float))
+    n = len(theta)
+    o = spec.outputs
+    status = np.zeros(n, dtype=np.int8)
+    reason = [""] * n
+    scalars = {k: np.full(n, np.nan) for k in o.scalars}
+    curves = {k: np.full((n, len(o.u_nodes)), np.nan) for k in o.curves}
+    at_mass = {k: np.full((n, len(o.masses_msun)), np.nan) for k in o.at_mass}
+
+    messages = family.validate_rows(theta)
+    for i, msg in enumerate(messages):
+        if msg:
+            status[i], reason[i] = 1, msg
+    rows = np.flatnonzero(status == 0)
+    if rows.size:
+        raw, errors = _solve_rows(family, theta[rows], spec)
+        for r, err in zip(rows, errors):
+            if err:
+                status[r], reason[r] = 4, f"solver raised {err}"
+        if raw is not None:
+            floor = spec.mass_max_floor_msun
+            derived = {
+                "causality_margin": 1.0 - raw["max_sound_speed_sq"],
+                "mass_max_margin_msun": raw["mass_max_msun"] - floor,
+            }
+            for k in o.scalars:
+                scalars[k][rows] = derived[k] if k in derived else raw[k]
+            for k in o.curves:
+                curves[k][rows] = raw["curves"][k]
+            for k in o.at_mass:
+                at_mass[k][rows] = raw["at_mass"][k]
+            u = np.asarray(o.u_nodes)
+            for pos, r in enumerate(rows):
+                if status[r]:
+                    continue
+                code = int(raw["solver_status"][pos])
+                m_max = raw["mass_max_msun"][pos]
+                if code:
+                    status[r], reason[r] = _FROM_SOLVER[code], STATUS_MESSAGES[code]
+                elif raw["curve_below_branch"][pos].any():
+                    lowest = u[raw["curve_below_branch"][pos]].max()
+                    status[r] = 4
+                    reason[r] = (f"the stable branch starts above the node u = {lowest:.4g} "
+                                 f"(M = {m_max * (1 - lowest**2):.4g} Msun); lower solver.low_mass_msun.")
+                elif np.isfinite(raw["not_found_mass"][pos]).any():
+                    miss = raw["not_found_mass"][pos]
+                    status[r] = 4
+                    reason[r] = (f"no exact star found at M = {miss[np.isfinite(miss)][0]:.6g} Msun "
+                                 f"within solver.mass_rtol = {spec.solver.mass_rtol:g}.")
+                elif m_max < floor:
+                    status[r] = 2
+                    reason[r] = f"M_max = {m_max:.4f} Msun is below the floor mass_max_floor_msun = {floor:g} Msun."
+    return ChunkResult(status, reason, scalars, curves, at_mass)
