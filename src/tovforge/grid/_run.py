@@ -161,28 +161,37 @@ def _solve_task(spec, k: int, theta: np.ndarray) -> tuple[int, ChunkResult]:
     return k, solve_chunk(spec, theta)
 
 
-def _execute(spec, theta, todo, workers: int | None, scheduler: str | None):
-    """Yield ``(k, ChunkResult)`` as chunks finish, in any order."""
-    import joblib
+#: How long to wait for a Dask scheduler to answer.
+CONNECT_TIMEOUT = "20s"
 
-    tasks = (joblib.delayed(_solve_task)(spec, k, theta[slice(*spec.chunk_bounds(k))]) for k in todo)
-    if scheduler is None:
-        n_jobs = workers if workers else -1  # -1: all cores
-        # each task is already a batch of EOS: dispatch one at a time
-        yield from joblib.Parallel(n_jobs=n_jobs, batch_size=1, return_as="generator_unordered")(tasks)
-        return
+
+def _connect(scheduler: str):
+    """A dask.distributed client of the scheduler at ``scheduler`` (one-line error if unreachable)."""
     from dask.distributed import Client
 
     try:
-        client = Client(scheduler, timeout="20s", set_as_default=False)
+        return Client(scheduler, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"--scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
-    try:
-        with joblib.parallel_config(backend="dask", client=client):
-            n_jobs = workers if workers else -1
-            yield from joblib.Parallel(n_jobs=n_jobs, batch_size=1, return_as="generator_unordered")(tasks)
-    finally:
-        client.close()
+
+
+def _execute(spec, theta, todo, workers: int | None, client):
+    """Yield ``(k, ChunkResult)`` as chunks finish, in any order.
+
+    Locally joblib's default (loky) backend; with a dask.distributed
+    ``client``, joblib's Dask backend on that cluster.
+    """
+    import joblib
+
+    tasks = (joblib.delayed(_solve_task)(spec, k, theta[slice(*spec.chunk_bounds(k))]) for k in todo)
+    n_jobs = workers if workers else -1  # -1: every core (or every worker of the cluster)
+    # each task is already a batch of EOS: dispatch them one at a time
+    options = dict(n_jobs=n_jobs, batch_size=1, return_as="generator_unordered")
+    if client is None:
+        yield from joblib.Parallel(**options)(tasks)
+        return
+    with joblib.parallel_config(backend="dask", client=client):  # the backend is chosen when Parallel is made
+        yield from joblib.Parallel(**options)(tasks)
 
 
 def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
@@ -333,19 +342,24 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
         return RunSummary(out, spec.n_points, spec.n_chunks, spec.n_chunks, 0, counts, digest,
                           time.monotonic() - t0, already_complete=True)
     theta = design_points(spec)
-    parts = parts_folder(out)
-    manifest = _prepare_parts(parts, spec, _theta_sha256(theta), overwrite)
-    done = _finished_chunks(parts, spec)
-    todo = [k for k in range(spec.n_chunks) if k not in done]
-    n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
-    bar = _Progress(spec.n_points, int(n_done), out.name, stream=stream, enabled=progress)
+    client = _connect(scheduler) if scheduler is not None else None
     try:
-        for k, result in _execute(spec, theta, todo, workers, scheduler):
-            start, stop = spec.chunk_bounds(k)
-            write_chunk(_chunk_path(parts, k), spec, k, theta[start:stop], result)
-            bar.update(stop - start)
+        parts = parts_folder(out)
+        manifest = _prepare_parts(parts, spec, _theta_sha256(theta), overwrite)
+        done = _finished_chunks(parts, spec)
+        todo = [k for k in range(spec.n_chunks) if k not in done]
+        n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
+        bar = _Progress(spec.n_points, int(n_done), out.name, stream=stream, enabled=progress)
+        try:
+            for k, result in _execute(spec, theta, todo, workers, client):
+                start, stop = spec.chunk_bounds(k)
+                write_chunk(_chunk_path(parts, k), spec, k, theta[start:stop], result)
+                bar.update(stop - start)
+        finally:
+            bar.close()
     finally:
-        bar.close()
+        if client is not None:
+            client.close()
     theta_all, merged = _assemble(parts, spec)
     digest = write_grid(out, spec, theta_all, merged, _provenance(spec, manifest))
     shutil.rmtree(parts)

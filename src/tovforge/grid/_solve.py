@@ -334,19 +334,23 @@ def solve_chunk(spec, theta: np.ndarray) -> ChunkResult:
                     continue
                 code = int(raw["solver_status"][pos])
                 m_max = raw["mass_max_msun"][pos]
+                below = raw["curve_below_branch"][pos]
+                gap = ""
+                if below.any():
+                    lowest = u[below].max()
+                    gap = (f"the stable branch starts above the node u = {lowest:.4g} "
+                           f"(M = {m_max * (1 - lowest**2):.4g} Msun); lower solver.low_mass_msun")
                 if code:
                     status[r], reason[r] = _FROM_SOLVER[code], STATUS_MESSAGES[code]
-                elif raw["curve_below_branch"][pos].any():
-                    lowest = u[raw["curve_below_branch"][pos]].max()
-                    status[r] = 4
-                    reason[r] = (f"the stable branch starts above the node u = {lowest:.4g} "
-                                 f"(M = {m_max * (1 - lowest**2):.4g} Msun); lower solver.low_mass_msun.")
+                elif m_max < floor:  # rejected anyway: the floor is the reason, whatever else is missing
+                    status[r] = 2
+                    reason[r] = f"M_max = {m_max:.4f} Msun is below the floor mass_max_floor_msun = {floor:g} Msun"
+                    reason[r] += f"; {gap} (NaN there)." if gap else "."
+                elif gap:
+                    status[r], reason[r] = 4, gap + "."
                 elif np.isfinite(raw["not_found_mass"][pos]).any():
                     miss = raw["not_found_mass"][pos]
                     status[r] = 4
                     reason[r] = (f"no exact star found at M = {miss[np.isfinite(miss)][0]:.6g} Msun "
                                  f"within solver.mass_rtol = {spec.solver.mass_rtol:g}.")
-                elif m_max < floor:
-                    status[r] = 2
-                    reason[r] = f"M_max = {m_max:.4f} Msun is below the floor mass_max_floor_msun = {floor:g} Msun."
     return ChunkResult(status, reason, scalars, curves, at_mass)
