@@ -4,7 +4,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-stamp
 
-.PHONY: demo test test-all bench install clean
+.PHONY: demo test test-all bench grids install clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -31,6 +31,12 @@ test-all: $(STAMP)
 ## make bench: speed and accuracy benchmarks on this machine
 bench: $(STAMP)
 	$(BIN)/tovforge bench
+
+## make grids: regenerate the demo grids grids/*.h5 from grids/*.toml (if interrupted, run it again to resume)
+GRIDS := demo-train demo-holdout
+grids: $(STAMP)
+	rm -f $(GRIDS:%=grids/%.h5)
+	for g in $(GRIDS); do $(BIN)/tovforge grid run grids/$$g.toml --out grids/$$g.h5 --overwrite || exit $$?; done
 
 clean:
 	rm -rf $(VENV) build src/*.egg-info .pytest_cache .hypothesis

@@ -33,7 +33,8 @@ def run_cmd(
                                          "that cluster through joblib's Dask backend."),
     ] = None,
     overwrite: Annotated[
-        bool, typer.Option("--overwrite", help="Replace an output (or unfinished chunks) made from another spec.")
+        bool, typer.Option("--overwrite", help="Replace an output, and discard unfinished chunks, made from another "
+                                     "spec (those of the same spec are kept: the run resumes).")
     ] = False,
     quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
 ):

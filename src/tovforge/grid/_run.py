@@ -207,10 +207,10 @@ def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
                 found = str(h5.attrs.get("spec_sha256"))
     except OSError:
         pass
-    if overwrite:
-        return False
     if found == spec.sha256:
         return True
+    if overwrite:
+        return False
     what = "is not a tovforge grid file" if found is None else f"was made from a different spec ({found[:12]}...)"
     raise InputError(f"{out} exists and {what}; pass --overwrite to replace it.")
 
@@ -225,8 +225,8 @@ def _prepare_parts(parts: Path, spec, theta_hash: str, overwrite: bool) -> dict:
         except (OSError, ValueError):
             manifest = None
         same = manifest is not None and all(manifest.get(k) == v for k, v in expected.items())
-        if same and not overwrite:
-            return manifest
+        if same:
+            return manifest  # resume
         if not overwrite:
             why = ("holds no readable manifest" if manifest is None else
                    "holds chunks of a different spec, design or tovforge version")
@@ -311,8 +311,10 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
         Address of a dask.distributed scheduler (``tcp://host:8786``): run
         through joblib's Dask backend on that cluster.
     overwrite : bool
-        Replace an existing output (or work folder) made from another spec.
-        Without it, such an output is refused.
+        Replace an output file, and discard unfinished chunks, made from
+        another spec (or another tovforge version).  Without it, they are
+        refused.  An output or chunks of the same spec are never discarded:
+        the run is then complete already, or resumes.
     progress : bool
         Show a progress bar on ``stream`` (default stderr).
 
