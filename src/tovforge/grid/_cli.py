@@ -44,12 +44,12 @@ def run_cmd(
     _run, _ = _helpers()
 
     def work():
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
+        with warnings.catch_warnings():
+            # warnings (a box past the allowed range, a damaged chunk file) as one line each, when they happen
+            warnings.simplefilter("always", UserWarning)
+            warnings.showwarning = lambda message, *args, **kwargs: typer.echo(f"warning: {message}", err=True)
             s = load_spec(spec)
-        for w in caught:
-            typer.echo(f"warning: {w.message}", err=True)
-        return run_grid(s, out, workers=workers, scheduler=scheduler, overwrite=overwrite, progress=not quiet)
+            return run_grid(s, out, workers=workers, scheduler=scheduler, overwrite=overwrite, progress=not quiet)
 
     try:
         summary = _run(work)

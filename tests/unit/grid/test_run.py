@@ -104,8 +104,9 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path, monkeypatch):
     parts = parts_folder(out)
     finished = sorted(int(p.stem.split("-")[1]) for p in parts.glob("chunk-*.h5"))
     assert finished == sorted(calls) and len(finished) == 2 and not out.exists()
-    # a temporary file left by a write that was killed is ignored and removed
+    # a temporary file left by a write that was killed is ignored and removed; a damaged chunk file is redone
     (parts / f".chunk-{3:06d}.h5.999.tmp").write_bytes(b"half a file")
+    (parts / f"chunk-{3:06d}.h5").write_bytes(b"not HDF5")
 
     calls.clear()
 
@@ -114,7 +115,8 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path, monkeypatch):
         return real(spec_, k, theta)
 
     monkeypatch.setattr(grid_run, "_solve_task", counting)
-    summary = run_grid(spec, out, workers=1, progress=False)
+    with pytest.warns(UserWarning, match=r"chunk-000003\.h5 is unreadable or foreign; chunk 3 will be solved again"):
+        summary = run_grid(spec, out, workers=1, progress=False)
     assert sorted(calls) == sorted(set(range(spec.n_chunks)) - set(finished))
     assert summary.chunks_reused == 2 and summary.chunks_solved == spec.n_chunks - 2
     assert_same_datasets(out, ref)
