@@ -78,7 +78,8 @@ _STAR_FIELDS = ("mass_msun", "radius_km", "tidal_deformability", "k2", "moment_o
                 "baryon_mass_msun")
 
 
-def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes: int = 60) -> tuple[dict, np.ndarray, np.ndarray]:
+def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11,
+                    max_passes: int = 60) -> tuple[dict, np.ndarray, np.ndarray]:
     """Exact stars of the stable branch at given masses (see the module notes).
 
     Parameters
@@ -103,8 +104,8 @@ def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes:
     below_branch : ndarray of bool, shape (n_eos, n_q)
         Targets at or below M_max that lie below the lightest branch star.
     not_found : ndarray of bool, shape (n_eos, n_q)
-        Targets on the branch where the search did not reach ``rtol``
-        (nor 1e-8: the size of the tiny jumps of the discrete solution).
+        Targets on the branch where the search ended farther than
+        ``max(rtol, 1e-8)`` from the target mass.
     """
     from ..solve import integrate_stars
 
@@ -174,8 +175,8 @@ def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes:
         x[act] = x_next
         tight = (xb[act] - xa[act]) <= 4e-16 * np.maximum(np.abs(xa[act]), 1.0)
         live[act[done | failed | tight]] = False
-    # accept what the search reached only if it is within the tolerance (or the bracket collapsed onto a
-    # discontinuity of the discrete solution smaller than a part in 1e8)
+    # The search stops short of rtol only if the bracket collapses (M(h_c) of the discrete solver jumps
+    # there) or the passes run out; such a star is kept if within 1e-8, with its own mass stored.
     good = np.abs(best["mass_msun"] / tgt - 1.0) <= max(rtol, 1e-8)
     for k in _STAR_FIELDS:
         out[k][ii, jj] = np.where(good, best[k], np.nan)
