@@ -78,7 +78,7 @@ def bench_grid(quick: bool = False, echo=print) -> None:
              f"{rate / cores:>12.1f}{cores / rate * 1e3:>13.2f}")
     base = _baseline_seconds_per_eos(spec, theta, 1 if quick else 2)
     n_stars = len(spec.outputs.u_nodes) + len(spec.outputs.masses_msun)
-    echo(f"{f'SciPy baseline, {n_stars} stars + M_max per EOS (1 core)':<44}{base:>10.2f}{1 / base:>10.2f}"
+    echo(f"{f'SciPy baseline, {n_stars} stars + M_max (1 core)':<44}{base:>10.2f}{1 / base:>10.2f}"
          f"{1 / base:>12.2f}{base * 1e3:>13.0f}")
     echo("")
     echo(f"10^4 points on {cores} cores: {_TARGET / rate:.0f} s "
