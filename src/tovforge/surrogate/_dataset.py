@@ -1,0 +1,103 @@
+"""Turning a grid file into training (or held-out) data."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+
+from ..errors import InputError
+from ._fit import SCALARS, TrainingData
+
+__all__ = ["read_training_data", "USED_STATUSES"]
+
+#: Grid points used for training: solved (0) and solved-below-the-floor (2), so
+#: that the M_max margin is emulated smoothly across the floor.
+USED_STATUSES = (0, 2)
+
+
+def _read(path):
+    from ..grid import read_grid
+
+    try:
+        return read_grid(path)
+    except InputError:
+        raise
+    except (OSError, KeyError, ValueError) as exc:
+        raise InputError(f"{path}: cannot read grid file ({exc}).") from None
+
+
+def read_training_data(path, family: str | None = None) -> TrainingData:
+    """Read a grid file and keep the rows a surrogate can learn from.
+
+    Rows with status 0 or 2 whose curves are complete are kept.  Scalars and
+    curves are transformed to the modelled quantities: ``log10`` of the central
+    pressure at M_max, and the natural logs of Lambda and of I.
+
+    Raises
+    ------
+    InputError
+        If the file is not a readable grid, lacks an output the surrogates
+        need, or (with ``family``) belongs to another family.
+    """
+    g = _read(path)
+    if family is not None and g.family != family:
+        raise InputError(f"{path}: grid of family {g.family!r}, but the model is of family {family!r}.")
+    need_s = ("mass_max_msun", "central_pressure_at_mass_max_dyn_cm2", "max_sound_speed_sq")
+    need_c = ("radius_km", "tidal_deformability", "moment_of_inertia_1e45_g_cm2")
+    for k in need_s:
+        if k not in g.scalars:
+            raise InputError(f"{path}: grid lacks scalar {k!r}; add it to [outputs] scalars of the spec.")
+    for k in need_c:
+        if k not in g.curves:
+            raise InputError(f"{path}: grid lacks curve {k!r}; add it to [outputs] curves of the spec.")
+    status = np.asarray(g.status)
+    curves = {
+        "radius_km": g.curves["radius_km"],
+        "log_tidal_deformability": np.log(g.curves["tidal_deformability"]),
+        "log_moment_of_inertia": np.log(g.curves["moment_of_inertia_1e45_g_cm2"]),
+    }
+    scalars = {
+        "mass_max_msun": g.scalars["mass_max_msun"],
+        "log10_central_pressure_at_mass_max": np.log10(g.scalars["central_pressure_at_mass_max_dyn_cm2"]),
+        "max_sound_speed_sq": g.scalars["max_sound_speed_sq"],
+    }
+    keep = np.isin(status, USED_STATUSES)
+    for v in list(curves.values()) + list(scalars.values()):
+        keep &= np.all(np.isfinite(v.reshape(len(status), -1)), axis=1)
+    if keep.sum() < 8:
+        raise InputError(f"{path}: only {int(keep.sum())} usable points (status 0 or 2 with complete curves).")
+    attrs = dict(g.attrs)
+    spec = json.loads(attrs.get("spec_json", "{}")) if isinstance(attrs.get("spec_json"), str) else {}
+    regular = None
+    design = spec.get("design", {}) if isinstance(spec, dict) else {}
+    if design.get("method") == "regular" and keep.all():
+        ppa = design.get("points_per_axis")
+        if isinstance(ppa, dict):
+            regular = tuple(int(ppa[n]) for n in g.parameter_names)
+        elif ppa is not None:
+            regular = tuple([int(ppa)] * len(g.parameter_names))
+    provenance = {
+        "grid_path": str(path),
+        "grid_content_sha256": attrs.get("content_sha256", ""),
+        "grid_spec_sha256": attrs.get("spec_sha256", ""),
+        "grid_description": attrs.get("description", ""),
+        "grid_points": int(len(status)),
+        "grid_points_used": int(keep.sum()),
+    }
+    return TrainingData(
+        family=g.family,
+        parameter_names=tuple(g.parameter_names),
+        parameter_units=tuple(g.parameter_units),
+        bounds=np.asarray(g.box, float),
+        theta=np.asarray(g.parameters, float)[keep],
+        scalars={k: np.asarray(v, float)[keep] for k, v in scalars.items()},
+        u_nodes=np.asarray(g.u_nodes, float),
+        curves={k: np.asarray(v, float)[keep] for k, v in curves.items()},
+        mass_floor_msun=float(attrs.get("mass_max_floor_msun", 0.5)),
+        regular_shape=regular,
+        provenance=provenance,
+    )
+
+
+assert SCALARS == ("mass_max_msun", "log10_central_pressure_at_mass_max", "max_sound_speed_sq")

@@ -1,0 +1,322 @@
+"""Training: Gaussian processes, polyharmonic RBF and tensor-product splines on grid data."""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+from scipy.interpolate import CubicSpline
+
+from ..errors import InputError
+from . import _runtime as rt
+
+__all__ = ["TrainingData", "GPSettings", "fit_gp", "fit_rbf", "fit_tensor", "spline_cardinal_coefficients",
+           "trend_powers"]
+
+#: Outputs modelled, in this order: three scalars, then the node curves.
+SCALARS = ("mass_max_msun", "log10_central_pressure_at_mass_max", "max_sound_speed_sq")
+
+
+@dataclass(frozen=True)
+class TrainingData:
+    """Exact solves ready for training.
+
+    Attributes
+    ----------
+    family : str
+    parameter_names, parameter_units : tuple of str
+    bounds : ndarray (d, 2)
+        The box the design covers (the model's domain).
+    theta : ndarray (n, d)
+    scalars : dict of ndarray (n,)
+        ``mass_max_msun``, ``log10_central_pressure_at_mass_max``, ``max_sound_speed_sq``.
+    u_nodes : ndarray (n_u,)
+    curves : dict of ndarray (n, n_u)
+        ``radius_km``, ``log_tidal_deformability``, ``log_moment_of_inertia`` at the nodes.
+    mass_floor_msun : float
+    regular_shape : tuple or None
+        Points per axis when the design is a complete regular grid (rows in C order).
+    provenance : dict
+    """
+
+    family: str
+    parameter_names: tuple
+    parameter_units: tuple
+    bounds: np.ndarray
+    theta: np.ndarray
+    scalars: dict
+    u_nodes: np.ndarray
+    curves: dict
+    mass_floor_msun: float = 0.5
+    regular_shape: tuple | None = None
+    provenance: dict = field(default_factory=dict)
+
+    def output_matrix(self) -> tuple[np.ndarray, dict, np.ndarray]:
+        """Outputs as one matrix (n, n_out), the index of each scalar and curve slices."""
+        cols = [self.scalars[k][:, None] for k in SCALARS]
+        index = {k: i for i, k in enumerate(SCALARS)}
+        slices = []
+        start = len(SCALARS)
+        for name in rt.CURVES:
+            c = self.curves[name]
+            cols.append(c)
+            slices.append((start, start + c.shape[1]))
+            start += c.shape[1]
+        return np.hstack(cols), index, np.array(slices, dtype=np.int64)
+
+
+@dataclass(frozen=True)
+class GPSettings:
+    """Hyperparameter search of the Gaussian processes.
+
+    Attributes
+    ----------
+    n_subset : int
+        Points used to optimise the hyperparameters (a space-filling subset of
+        the design when it is larger); the final fit uses every point.
+    n_restarts : int
+        Extra optimiser starts from random hyperparameters (scikit-learn).
+    trend_degree : int
+        Degree of the polynomial trend fitted by least squares before the GP.
+    noise_bounds : tuple
+        Bounds of the white-noise variance (standardised units): a small nugget.
+    seed : int
+    """
+
+    n_subset: int = 1024
+    n_restarts: int = 2
+    trend_degree: int = 2
+    noise_bounds: tuple = (1e-10, 1e-6)
+    seed: int = 0
+
+
+def trend_powers(d: int, degree: int) -> np.ndarray:
+    """Exponents of all monomials of total degree <= ``degree`` in ``d`` variables."""
+    out = [np.zeros(d, dtype=np.int64)]
+    for deg in range(1, degree + 1):
+        def rec(prefix, left, i):
+            if i == d - 1:
+                yield prefix + [left]
+                return
+            for p in range(left, -1, -1):
+                yield from rec(prefix + [p], left - p, i + 1)
+        out += [np.array(p) for p in rec([], deg, 0)]
+    return np.array(out, dtype=np.int64)
+
+
+def spline_cardinal_coefficients(u_nodes: np.ndarray) -> np.ndarray:
+    """Cubic-spline coefficients (4, n_u - 1, n_u) of the cardinal functions on the nodes.
+
+    The not-a-knot spline through node values ``v`` is the linear combination
+    of these with weights ``v`` (SciPy's CubicSpline, applied to the identity).
+    """
+    cs = CubicSpline(u_nodes, np.eye(len(u_nodes)), axis=0)
+    return np.ascontiguousarray(cs.c)
+
+
+def _common_arrays(data: TrainingData, Y: np.ndarray, slices) -> dict:
+    lo, hi = data.bounds[:, 0].astype(float), data.bounds[:, 1].astype(float)
+    return {
+        "lo": lo,
+        "hi": hi,
+        "out_mean": Y.mean(axis=0),
+        "out_scale": np.where(Y.std(axis=0) > 0, Y.std(axis=0), 1.0),
+        "u_nodes": np.asarray(data.u_nodes, float),
+        "spline_c": spline_cardinal_coefficients(np.asarray(data.u_nodes, float)),
+        "curve_slices": slices,
+    }
+
+
+def _trend_matrix(x, powers):
+    F, _ = rt._trend(np, {"trend_powers": powers}, x, False)
+    return F
+
+
+def _groups(index, slices, n_out):
+    """Kernel groups: one per scalar, one per curve (contiguous output blocks)."""
+    bounds = [0]
+    for i in range(len(index)):
+        bounds.append(i + 1)
+    for a, b in slices:
+        if bounds[-1] != a:
+            bounds.append(a)
+        bounds.append(int(b))
+    assert bounds[-1] == n_out
+    return np.array(bounds, dtype=np.int64)
+
+
+def _space_filling_subset(x, n, seed):
+    """Greedy farthest-point subset of ``n`` rows (deterministic for a seed)."""
+    if len(x) <= n:
+        return np.arange(len(x))
+    rng = np.random.default_rng(seed)
+    chosen = [int(rng.integers(len(x)))]
+    d2 = np.sum((x - x[chosen[0]]) ** 2, axis=1)
+    for _ in range(n - 1):
+        i = int(np.argmax(d2))
+        chosen.append(i)
+        d2 = np.minimum(d2, np.sum((x - x[i]) ** 2, axis=1))
+    return np.array(sorted(chosen))
+
+
+def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
+    """Fit Gaussian processes: polynomial trend plus one Matern-5/2 kernel per output group.
+
+    Each scalar output has its own kernel; all nodes of a curve share one
+    kernel (so one kernel evaluation serves a whole curve).  Hyperparameters
+    (amplitude, one length scale per parameter, a small nugget) maximise the
+    marginal likelihood on a space-filling subset, with restarts
+    (scikit-learn's GaussianProcessRegressor); the weights then solve the
+    full system by Cholesky (Rasmussen & Williams 2006, Alg. 2.1).
+
+    Returns
+    -------
+    meta_extra : dict, arrays : dict
+    """
+    from sklearn.exceptions import ConvergenceWarning
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+    Y, index, slices = data.output_matrix()
+    arrays = _common_arrays(data, Y, slices)
+    x = (data.theta - arrays["lo"]) / (arrays["hi"] - arrays["lo"])
+    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    powers = trend_powers(x.shape[1], settings.trend_degree)
+    F = _trend_matrix(x, powers)
+    coef, *_ = np.linalg.lstsq(F, Z, rcond=None)
+    resid = Z - F @ coef
+    rscale = np.where(resid.std(axis=0) > 0, resid.std(axis=0), 1.0)
+    R = resid / rscale
+    bounds = _groups(index, slices, Z.shape[1])
+    sub = _space_filling_subset(x, settings.n_subset, settings.seed)
+    n_g = len(bounds) - 1
+    d = x.shape[1]
+    length = np.empty((n_g, d))
+    amp2 = np.empty(n_g)
+    noise = np.empty(n_g)
+    alpha = np.empty_like(R)
+    timings = []
+    boundary_hits = []
+    for g in range(n_g):
+        a, b = bounds[g], bounds[g + 1]
+        t0 = time.perf_counter()
+        kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5),
+                                                           length_scale_bounds=(1e-3, 1e3), nu=2.5) \
+            + WhiteKernel(1e-8, settings.noise_bounds)
+        gpr = GaussianProcessRegressor(kernel, n_restarts_optimizer=settings.n_restarts,
+                                       random_state=settings.seed, normalize_y=False)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", ConvergenceWarning)
+            gpr.fit(x[sub], R[sub, a:b])
+        for w in caught:
+            boundary_hits.append(f"group {g}: {w.message}")
+        k = gpr.kernel_
+        amp2[g] = k.k1.k1.constant_value
+        length[g] = np.atleast_1d(k.k1.k2.length_scale)
+        noise[g] = k.k2.noise_level
+        K = _matern_matrix(x, length[g], amp2[g])
+        K[np.diag_indices_from(K)] += noise[g] + 1e-10 * amp2[g]
+        try:
+            cf = scipy.linalg.cho_factor(K, lower=True, check_finite=False)
+        except np.linalg.LinAlgError:
+            raise np.linalg.LinAlgError(
+                f"GP kernel of output group {g} on {len(x)} points is not positive definite; "
+                "remove duplicate parameter rows or raise the nugget bounds.") from None
+        alpha[:, a:b] = scipy.linalg.cho_solve(cf, R[:, a:b], check_finite=False)
+        timings.append(time.perf_counter() - t0)
+        if log:
+            log(f"  GP group {g + 1}/{n_g} (outputs {a}..{b - 1}): length scales "
+                f"{np.array2string(length[g], precision=3)}, amplitude {np.sqrt(amp2[g]):.3g}, "
+                f"nugget {noise[g]:.2g}, {timings[-1]:.1f} s")
+    arrays.update(trend_powers=powers, trend_coef=coef * 1.0, X=x, alpha=alpha, group_bounds=bounds,
+                  length=length, amp2=amp2, noise=noise, resid_scale=rscale)
+    # the trend and the GP act on standardised outputs; the residual was scaled by rscale
+    arrays["trend_coef"] = coef
+    arrays["alpha"] = alpha * rscale
+    extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts,
+                    "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
+                    "group_bounds": bounds.tolist(), "fit_seconds": timings,
+                    "optimizer_warnings": boundary_hits}}
+    return index, extra, arrays
+
+
+def _matern_matrix(x, length, amp2):
+    diff = (x[:, None, :] - x[None, :, :]) / length
+    r = np.sqrt(np.sum(diff * diff, axis=-1))
+    return amp2 * (1.0 + rt.SQRT5 * r + (5.0 / 3.0) * r * r) * np.exp(-rt.SQRT5 * r)
+
+
+def fit_rbf(data: TrainingData, degree: int = 2, log=None):
+    """Interpolate with the polyharmonic kernel r^5 plus a polynomial of ``degree``.
+
+    Solves the symmetric saddle-point system ``[[Phi, P], [P^T, 0]] [a; c] =
+    [Z; 0]`` (conditionally positive definite of order 3, hence degree >= 2;
+    as in SciPy's RBFInterpolator with kernel='quintic').
+    """
+    if degree < 2:
+        raise InputError("the r^5 kernel needs a polynomial of degree >= 2.")
+    Y, index, slices = data.output_matrix()
+    arrays = _common_arrays(data, Y, slices)
+    x = (data.theta - arrays["lo"]) / (arrays["hi"] - arrays["lo"])
+    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    powers = trend_powers(x.shape[1], degree)
+    P = _trend_matrix(x, powers)
+    phi, _ = rt._polyharmonic(np, x, x, False)
+    n, t = P.shape
+    A = np.zeros((n + t, n + t))
+    A[:n, :n] = phi
+    A[:n, n:] = P
+    A[n:, :n] = P.T
+    rhs = np.vstack([Z, np.zeros((t, Z.shape[1]))])
+    t0 = time.perf_counter()
+    sol = scipy.linalg.solve(A, rhs, assume_a="sym", check_finite=False)
+    if log:
+        log(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
+    arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
+    return index, {"rbf": {"kernel": "r^5", "degree": degree}}, arrays
+
+
+def fit_tensor(data: TrainingData, log=None):
+    """Tensor-product cubic interpolating splines on a complete regular grid.
+
+    The coefficients come from interpolating along one axis after another
+    with SciPy's ``make_interp_spline`` (not-a-knot cubic B-splines).
+    """
+    from scipy.interpolate import make_interp_spline
+
+    if data.regular_shape is None:
+        raise InputError("tensor-product splines need a regular design; this grid is scattered (use kind rbf).")
+    Y, index, slices = data.output_matrix()
+    arrays = _common_arrays(data, Y, slices)
+    shape = tuple(int(s) for s in data.regular_shape)
+    if min(shape) < 4:
+        raise InputError(f"cubic tensor splines need at least 4 points per axis; the grid has {shape}.")
+    x = (data.theta - arrays["lo"]) / (arrays["hi"] - arrays["lo"])
+    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    coef = Z.reshape(*shape, Z.shape[1])
+    axes_values = []
+    knots = []
+    for i, s in enumerate(shape):
+        idx = [0] * len(shape)
+        sl = []
+        for j in range(len(shape)):
+            sl.append(slice(None) if j == i else 0)
+        xi = x.reshape(*shape, x.shape[1])[tuple(sl) + (i,)]
+        axes_values.append(xi)
+        spl = make_interp_spline(xi, np.moveaxis(coef, i, 0), k=3, axis=0)
+        coef = np.moveaxis(spl.c, 0, i)
+        knots.append(spl.t)
+        del idx
+    kmax = max(len(k) for k in knots)
+    knot_arr = np.full((len(shape), kmax), np.nan)
+    for i, k in enumerate(knots):
+        knot_arr[i, : len(k)] = k
+    arrays.update(trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, Z.shape[1])),
+                  knots=knot_arr, n_knots=np.array([len(k) for k in knots]), coef=coef.reshape(-1, Z.shape[1]),
+                  coef_shape=np.array(shape))
+    if log:
+        log(f"  tensor-product cubic splines on a {' x '.join(map(str, shape))} grid")
+    return index, {"tensor": {"shape": list(shape)}}, arrays

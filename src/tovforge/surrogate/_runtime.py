@@ -1,0 +1,340 @@
+"""Prediction arithmetic of every surrogate, with NumPy (or any array-API namespace) only.
+
+This module is the single implementation of how a trained surrogate turns
+parameters into predictions.  The library's models call it, and the exporter
+copies its source verbatim into each standalone evaluator, so the two cannot
+drift apart.  It must therefore import nothing but ``math``; the array
+namespace ``xp`` is passed in (NumPy, or the namespace of the caller's arrays).
+
+A model is a dict ``m`` of arrays and a few numbers:
+
+``lo, hi`` (d,)
+    Parameter box; inputs are mapped to ``x = (theta - lo) / (hi - lo)``.
+``out_mean, out_scale`` (n_out,)
+    Outputs are standardised: ``y = out_mean + out_scale * z``.
+``trend_powers`` (n_terms, d), ``trend_coef`` (n_terms, n_out)
+    Polynomial trend in ``x``, fitted by least squares.
+``kind``
+    ``"gp"``: ``X`` (n, d), ``alpha`` (n, n_out), ``group_bounds`` (n_groups + 1,):
+    outputs ``group_bounds[g]:group_bounds[g+1]`` share kernel ``g`` with
+    ``length`` (n_groups, d), ``amp2``, ``noise`` (n_groups,) and
+    ``resid_scale`` (n_out,); Matern-5/2 kernels with one length scale per
+    parameter, on the residual of the trend.
+    ``"rbf"``: ``X`` (n, d), ``alpha`` (n, n_out); the polyharmonic kernel r^5.
+    ``"tensor"``: ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened, n_out),
+    ``coef_shape`` (d,); tensor-product cubic B-splines.
+``u_nodes`` (n_u,), ``spline_c`` (4, n_u - 1, n_u)
+    Nodes of the sequence coordinate ``u = sqrt(1 - M/M_max)`` and the
+    cubic-spline cardinal coefficients: the not-a-knot cubic spline through
+    node values ``v`` is ``sum_p spline_c[p, j] . v (u - u_j)^(3 - p)`` on
+    interval ``j``.
+"""
+
+import math
+
+SQRT5 = math.sqrt(5.0)
+MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 nominal)
+
+
+def unit_inputs(xp, m, theta):
+    """Map parameters to the unit cube; returns ``(x, inside)``."""
+    x = (theta - m["lo"]) / (m["hi"] - m["lo"])
+    inside = xp.all((x >= 0.0) & (x <= 1.0), axis=-1)
+    return x, inside
+
+
+def _trend(xp, m, x, grad):
+    """Polynomial trend terms (n, n_terms) and, if asked, their x-derivatives (n, n_terms, d)."""
+    powers = m["trend_powers"]
+    n_terms, d = powers.shape
+    cols = []
+    dcols = []
+    for t in range(n_terms):
+        term = xp.ones(x.shape[0], dtype=x.dtype)
+        for i in range(d):
+            p = int(powers[t, i])
+            if p:
+                term = term * x[:, i] ** p
+        cols.append(term)
+        if grad:
+            dd = []
+            for i in range(d):
+                p = int(powers[t, i])
+                if p == 0:
+                    dd.append(xp.zeros(x.shape[0], dtype=x.dtype))
+                    continue
+                g = p * x[:, i] ** (p - 1)
+                for j in range(d):
+                    q = int(powers[t, j])
+                    if j != i and q:
+                        g = g * x[:, j] ** q
+                dd.append(g)
+            dcols.append(xp.stack(dd, axis=-1))
+    F = xp.stack(cols, axis=-1)
+    dF = xp.stack(dcols, axis=1) if grad else None
+    return F, dF
+
+
+def _matern(xp, x, X, length, amp2, grad):
+    """Matern-5/2 kernel rows k(x, X) (n, N) and optionally dk/dx (n, N, d)."""
+    diff = (x[:, None, :] - X[None, :, :]) / length
+    r = xp.sqrt(xp.sum(diff * diff, axis=-1))
+    e = xp.exp(-SQRT5 * r)
+    k = amp2 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * e
+    dk = None
+    if grad:
+        # dk/dx_i = -amp2 (5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
+        dk = (-amp2 * (5.0 / 3.0)) * ((1.0 + SQRT5 * r) * e)[:, :, None] * (diff / length)
+    return k, dk
+
+
+def _polyharmonic(xp, x, X, grad):
+    """r^5 rows (n, N) and optionally their x-derivatives (n, N, d)."""
+    diff = x[:, None, :] - X[None, :, :]
+    r2 = xp.sum(diff * diff, axis=-1)
+    r = xp.sqrt(r2)
+    phi = r2 * r2 * r
+    dphi = (5.0 * r2 * r)[:, :, None] * diff if grad else None
+    return phi, dphi
+
+
+def _bspline_basis(xp, t, n_coef, x, deg=3):
+    """Cubic B-spline basis values (n, n_coef) and derivatives at points x (n,), knots t (n_coef + 4,)."""
+    # Cox-de Boor recursion, vectorised over points; a loop over degree and knots only.
+    n_knots = n_coef + deg + 1
+    xc = xp.clip(x, t[deg], t[n_coef] - 1e-12 * (t[n_coef] - t[deg]))
+    B = []
+    for j in range(n_knots - 1):
+        B.append(xp.where((xc >= t[j]) & (xc < t[j + 1]), 1.0, 0.0))
+    dB = None
+    for k in range(1, deg + 1):
+        newB = []
+        if k == deg:
+            dB = []
+        for j in range(n_knots - 1 - k):
+            left_den = t[j + k] - t[j]
+            right_den = t[j + k + 1] - t[j + 1]
+            left = (xc - t[j]) / left_den * B[j] if left_den > 0 else 0.0 * xc
+            right = (t[j + k + 1] - xc) / right_den * B[j + 1] if right_den > 0 else 0.0 * xc
+            newB.append(left + right)
+            if k == deg:
+                dl = k / left_den * B[j] if left_den > 0 else 0.0 * xc
+                dr = k / right_den * B[j + 1] if right_den > 0 else 0.0 * xc
+                dB.append(dl - dr)
+        B = newB
+    return xp.stack(B, axis=-1), xp.stack(dB, axis=-1)
+
+
+def _bmm(xp, a, b):
+    """(n, p, q) batched times (q, r) -> (n, p, r) without einsum (array-API friendly)."""
+    return xp.matmul(a, b)
+
+
+def standardised_outputs(xp, m, x, grad=False):
+    """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d)."""
+    F, dF = _trend(xp, m, x, grad)
+    z = F @ m["trend_coef"]
+    # dF (n, t, d) -> (n, d, t) @ (t, o) -> (n, d, o) -> (n, o, d)
+    dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
+    kind = m["kind"]
+    if kind == "gp":
+        parts, dparts = [], []
+        for g in range(m["length"].shape[0]):
+            a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+            k, dk = _matern(xp, x, m["X"], m["length"][g], m["amp2"][g], grad)
+            alpha = m["alpha"][:, a:b]
+            parts.append(k @ alpha)
+            if grad:  # dk (n, N, d) -> (n, d, N) @ (N, o) -> (n, d, o)
+                dparts.append(xp.permute_dims(_bmm(xp, xp.permute_dims(dk, (0, 2, 1)), alpha), (0, 2, 1)))
+        z = z + xp.concat(parts, axis=-1)
+        if grad:
+            dz = dz + xp.concat(dparts, axis=1)
+    elif kind == "rbf":
+        phi, dphi = _polyharmonic(xp, x, m["X"], grad)
+        z = z + phi @ m["alpha"]
+        if grad:
+            dz = dz + xp.permute_dims(_bmm(xp, xp.permute_dims(dphi, (0, 2, 1)), m["alpha"]), (0, 2, 1))
+    elif kind == "tensor":
+        d = x.shape[1]
+        shape = [int(s) for s in m["coef_shape"]]
+        coef = m["coef"]  # (prod(shape), n_out)
+        bases = []
+        for i in range(d):
+            nk = int(m["n_knots"][i])
+            bases.append(_bspline_basis(xp, m["knots"][i, :nk], shape[i], x[:, i]))
+        z = z + _tensor_contract(xp, coef, shape, [b for b, _ in bases])
+        if grad:
+            parts = []
+            for i in range(d):
+                bl = [bases[j][1] if j == i else bases[j][0] for j in range(d)]
+                parts.append(_tensor_contract(xp, coef, shape, bl))
+            dz = dz + xp.stack(parts, axis=-1)
+    return z, dz
+
+
+def _tensor_contract(xp, coef, shape, bases):
+    """sum over all axes of coef[i1..id, o] * B1[n, i1] * ... * Bd[n, id] -> (n, n_out)."""
+    n_out = coef.shape[-1]
+    n = bases[0].shape[0]
+    rest = 1
+    for s in shape[1:]:
+        rest *= s
+    cur = bases[0] @ xp.reshape(coef, (shape[0], rest * n_out))  # (n, rest * n_out)
+    for i in range(1, len(shape)):
+        rest //= shape[i]
+        cur = xp.reshape(cur, (n, shape[i], rest * n_out))
+        cur = xp.sum(bases[i][:, :, None] * cur, axis=1)
+    return xp.reshape(cur, (n, n_out))
+
+
+def gp_local_std(xp, m, x, n_neighbours=48):
+    """Predictive standard deviation of the GP part, in output units (n, n_out).
+
+    The exact posterior variance needs the n-by-n kernel inverse, too large to
+    ship; instead each prediction conditions on its nearest training points
+    in the kernel's metric (a nearest-neighbour GP; Vecchia 1988, JRSS B 50,
+    297; Datta et al. 2016, JASA 111, 800).  Conditioning on fewer points can
+    only raise the variance, so this errs on the cautious side.
+    """
+    X = m["X"]
+    K = min(n_neighbours, X.shape[0])
+    parts = []
+    for g in range(m["length"].shape[0]):
+        a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+        length = m["length"][g]
+        amp2 = m["amp2"][g]
+        diff = (x[:, None, :] - X[None, :, :]) / length
+        d2 = xp.sum(diff * diff, axis=-1)
+        nn = xp.argsort(d2, axis=1)[:, :K]
+        Xn = xp.take(X, xp.reshape(nn, (-1,)), axis=0)
+        Xn = xp.reshape(Xn, (x.shape[0], K, X.shape[1])) / length
+        dd = Xn[:, :, None, :] - Xn[:, None, :, :]
+        r = xp.sqrt(xp.sum(dd * dd, axis=-1))
+        Kmat = amp2 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * xp.exp(-SQRT5 * r)
+        Kmat = Kmat + (m["noise"][g] + 1e-10 * amp2) * xp.eye(K, dtype=x.dtype)
+        rk = xp.sqrt(xp.take_along_axis(d2, nn, axis=1))
+        kv = amp2 * (1.0 + SQRT5 * rk + (5.0 / 3.0) * rk * rk) * xp.exp(-SQRT5 * rk)
+        sol = xp.linalg.solve(Kmat, kv[:, :, None])[:, :, 0]
+        var = amp2 - xp.sum(kv * sol, axis=-1)
+        var = xp.where(var > 0.0, var, 0.0)
+        parts.append(xp.sqrt(var)[:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
+    return xp.concat(parts, axis=-1)
+
+
+def spline_in_u(xp, m, values, u):
+    """Evaluate node curves at sequence coordinates.
+
+    ``values`` (n, n_u) node values per row; ``u`` (n, q).  Returns the values
+    (n, q), d/du (n, q) and the weights (n, q, n_u) of the node values (for
+    gradients and error propagation).  Outside [0, u_max] gives NaN.
+    """
+    un = m["u_nodes"]
+    C = m["spline_c"]  # (4, n_u - 1, n_u)
+    n_int = un.shape[0] - 1
+    flat = xp.reshape(u, (-1,))
+    safe = xp.where(flat == flat, flat, 0.0)  # NaN-safe lookup
+    j = xp.clip(xp.searchsorted(un, safe, side="right") - 1, 0, n_int - 1)
+    t = xp.reshape(safe - xp.take(un, j, axis=0), u.shape + (1,))
+    c0, c1, c2, c3 = (xp.reshape(xp.take(C[p], j, axis=0), u.shape + (un.shape[0],)) for p in range(4))
+    w = ((c0 * t + c1) * t + c2) * t + c3
+    dw = (3.0 * c0 * t + 2.0 * c1) * t + c2
+    val = xp.sum(w * values[:, None, :], axis=-1)
+    der = xp.sum(dw * values[:, None, :], axis=-1)
+    ok = (u >= 0.0) & (u <= un[-1])
+    nan = float("nan")
+    return xp.where(ok, val, nan), xp.where(ok, der, nan), w
+
+
+# ---------------------------------------------------------------------------
+# Predictions in physical units, and queries at given masses
+# ---------------------------------------------------------------------------
+
+CURVES = ("radius_km", "log_tidal_deformability", "log_moment_of_inertia")
+
+
+def outputs(xp, m, theta, grad=False):
+    """All outputs at parameters ``theta`` (n, d): node values and scalars.
+
+    Returns ``y`` (n, n_out) in the model's output units (NaN outside the
+    box), ``inside`` (n,), and ``dy/dtheta`` (n, n_out, d) if ``grad``.
+    """
+    x, inside = unit_inputs(xp, m, theta)
+    z, dz = standardised_outputs(xp, m, x, grad)
+    y = m["out_mean"] + m["out_scale"] * z
+    nan = float("nan")
+    y = xp.where(inside[:, None], y, nan)
+    dy = None
+    if grad:
+        dy = (m["out_scale"][:, None] * dz) / (m["hi"] - m["lo"])
+        dy = xp.where(inside[:, None, None], dy, nan)
+    return y, inside, dy
+
+
+def output_std(xp, m, theta):
+    """Predictive standard deviation of every output (GP models; zeros otherwise)."""
+    x, inside = unit_inputs(xp, m, theta)
+    if m["kind"] != "gp":
+        return xp.zeros((x.shape[0], m["out_mean"].shape[0]), dtype=x.dtype)
+    s = gp_local_std(xp, m, x)
+    return xp.where(inside[:, None], s, float("nan"))
+
+
+def _curve_slice(m, name):
+    k = CURVES.index(name)
+    return int(m["curve_slices"][k, 0]), int(m["curve_slices"][k, 1])
+
+
+def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
+    """A curve quantity at gravitational masses, through u = sqrt(1 - M / M_max).
+
+    ``theta`` (n, d); ``mass`` broadcastable to (n, q) in Msun.  ``quantity``
+    is ``radius_km``, ``tidal_deformability``, ``moment_of_inertia`` or ``k2``.
+    Returns ``(value, grad, std)``: value (n, q) with NaN above M_max, below the
+    emulated range or outside the box; grad (n, q, d) and std (n, q) or None.
+    """
+    y, inside, dy = outputs(xp, m, theta, grad)
+    n = y.shape[0]
+    mass = xp.asarray(mass, dtype=y.dtype) if not hasattr(mass, "shape") else mass
+    mass = xp.broadcast_to(xp.reshape(mass, (1, -1)) if mass.ndim < 2 else mass, (n, mass.shape[-1] if mass.ndim else 1))
+    im = int(m["i_mass_max"])
+    mmax = y[:, im][:, None]
+    ratio = mass / mmax
+    ok = (mass > 0.0) & (ratio <= 1.0)
+    u = xp.sqrt(xp.where(ok, 1.0 - ratio, float("nan")))
+    if quantity == "k2":
+        R, dR, sR = at_mass(xp, m, theta, mass, "radius_km", grad, std)
+        L, dL, sL = at_mass(xp, m, theta, mass, "tidal_deformability", grad, std)
+        c5 = (mass * MSUN_KM / R) ** 5
+        val = 1.5 * L * c5
+        g = None
+        if grad:
+            # d ln k2 = d ln Lambda - 5 d ln R
+            g = val[:, :, None] * (dL / L[:, :, None] - 5.0 * dR / R[:, :, None])
+        s = None
+        if std:
+            s = val * xp.sqrt((sL / L) ** 2 + (5.0 * sR / R) ** 2)
+        return val, g, s
+    name = {"radius_km": "radius_km", "tidal_deformability": "log_tidal_deformability",
+            "moment_of_inertia": "log_moment_of_inertia"}[quantity]
+    a, b = _curve_slice(m, name)
+    val, der, w = spline_in_u(xp, m, y[:, a:b], u)
+    g = None
+    if grad:
+        # d/dtheta = sum_k w_k dy_k/dtheta + (dv/du) (du/dM_max) dM_max/dtheta,
+        # with du/dM_max = M / (2 u M_max^2).
+        dnodes = xp.matmul(w, dy[:, a:b, :])  # (n, q, d)
+        dudm = mass / (2.0 * u * mmax * mmax)
+        g = dnodes + (der * dudm)[:, :, None] * dy[:, im, :][:, None, :]
+    s = None
+    if std:
+        sd = output_std(xp, m, theta)
+        dudm = mass / (2.0 * u * mmax * mmax)
+        s_nodes = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
+        s = xp.sqrt(s_nodes**2 + (der * dudm * sd[:, im][:, None]) ** 2)
+    if name.startswith("log_"):
+        val = xp.exp(val)
+        if grad:
+            g = val[:, :, None] * g
+        if std:
+            s = val * s
+    return val, g, s
