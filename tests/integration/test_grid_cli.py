@@ -163,10 +163,9 @@ def test_stored_values_equal_a_direct_solve(tmp_path, theta):
         np.testing.assert_allclose(values[0, 1:], ref, rtol=1e-7, err_msg=name)
 
 
-@pytest.mark.xfail(strict=True, reason="`tovforge solve --masses` mislabels stars just below M_max when an EOS "
-                                       "kink lies in the cluster around the maximum (solver issue; the grid "
-                                       "locates those stars by its own bracketed search)")
 def test_direct_solve_near_the_maximum_with_a_kink_in_the_cluster(tmp_path):
+    """Regression: mass queries just below M_max with an EOS kink inside the cluster around the
+    maximum once returned a different star labelled with the requested mass (found by the grid work)."""
     g, d = _grid_vs_solve(tmp_path, np.array([34.9, 2.3, 3.6, 1.8]))
     n_m = g.masses_msun.size
     ref = np.array([s["radius_km"] for s in d["at_mass"][n_m:]], float)

@@ -196,12 +196,15 @@ class _PolytropeLanes:
         h = np.maximum(h, _H_TINY)
         par = self._table[self._eos, self.piece_index(h if h_loc is None else h_loc)]
         a, coef, inv_g1, g, K, one_a = par.T
-        ln_rho = inv_g1 * np.log(coef * (np.expm1(h) - a))
-        rho = np.exp(ln_rho)
-        p = K * np.exp(g * ln_rho)
-        w = one_a * rho + g * inv_g1 * p  # e + p
-        e = w - p
-        dedh = w * w / (g * p)  # (e + p) / c_s^2 with c_s^2 = Gamma p / (e + p)
+        # Near the surface of a stiff polytrope (Gamma > 2) de/dh diverges like
+        # rho^(2 - Gamma) and may overflow: a property of the EOS, not an error.
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore", under="ignore"):
+            ln_rho = inv_g1 * np.log(coef * (np.expm1(h) - a))
+            rho = np.exp(ln_rho)
+            p = K * np.exp(g * ln_rho)
+            w = one_a * rho + g * inv_g1 * p  # e + p
+            e = w - p
+            dedh = w * w / (g * p)  # (e + p) / c_s^2 with c_s^2 = Gamma p / (e + p)
         return p, e, rho, dedh
 
 
