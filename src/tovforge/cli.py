@@ -30,8 +30,11 @@ app = typer.Typer(
 def _register_subcommands() -> None:
     """Attach the command groups of the stages (each lives next to its stage)."""
     from .grid._cli import grid_app
+    from .surrogate._cli import check_cmd, train_cmd
 
     app.add_typer(grid_app, name="grid")
+    app.command("train")(train_cmd)
+    app.command("check")(check_cmd)
 
 
 def _fail(message: str) -> None:

@@ -1,0 +1,51 @@
+"""``tovforge train``, ``tovforge check`` and ``tovforge grid refine``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+
+def _run(fn):
+    from ..cli import _run as run
+
+    return run(fn)
+
+
+def train_cmd(
+    grid: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)],
+    out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
+    kind: Annotated[str, typer.Option("--kind", help="gp (Gaussian process) or spline.")] = "gp",
+    subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 1024,
+    restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 2,
+):
+    """Train a surrogate on a grid and save it."""
+    from . import GPSettings, train
+
+    def work():
+        model = train(grid, kind, GPSettings(n_subset=subset, n_restarts=restarts), log=typer.echo)
+        model.save(out)
+        return model
+
+    model = _run(work)
+    typer.echo(f"trained {model.kind} on {model.meta['training']['n_train']} points in "
+               f"{model.meta['training']['seconds']:.1f} s; saved to {out}")
+
+
+def check_cmd(
+    model: Annotated[Path, typer.Argument(help="Model folder written by `tovforge train`.", file_okay=False)],
+    holdout: Annotated[Path, typer.Option("--holdout", help="Grid of held-out exact solves.", dir_okay=False)],
+    report: Annotated[
+        Optional[Path], typer.Option("--report", help="Folder for report.json, report.md and PNG figures.")
+    ] = None,
+):
+    """Compare a surrogate with held-out exact solves; print the error table."""
+    from . import load
+    from ._check import check
+
+    res = _run(lambda: check(load(model), holdout, report))
+    typer.echo(res.table())
+    if report is not None:
+        typer.echo(f"report written to {report}/report.md")
