@@ -1,0 +1,183 @@
+"""Sequence tables: the stable branch of one EOS, star by star."""
+
+from __future__ import annotations
+
+import json
+import time
+import warnings
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from ._quantities import provenance
+from ._write import Column, TableSummary, TableWriter, table_format
+
+__all__ = ["SEQUENCE_COLUMNS", "sequence_table", "central_enthalpies"]
+
+#: Columns of a sequence table: (column, unit, description, field of tovforge.solve.Stars).
+SEQUENCE_COLUMNS = (
+    Column("mass", "Msun", "gravitational mass"),
+    Column("radius", "km", "circumferential radius"),
+    Column("compactness", "1", "GM / (R c^2)"),
+    Column("k2", "1", "quadrupolar tidal Love number"),
+    Column("lambda", "1", "dimensionless tidal deformability Lambda = (2/3) k2 / C^5"),
+    Column("inertia", "1e45 g cm^2", "slow-rotation moment of inertia"),
+    Column("inertia_over_m3", "1", "I / M^3 in G = c = 1"),
+    Column("baryon_mass", "Msun", "baryon (rest) mass"),
+    Column("central_pressure", "dyn/cm^2", "central pressure"),
+    Column("central_energy_density", "g/cm^3", "central energy density divided by c^2"),
+    Column("central_density", "g/cm^3", "central rest-mass density"),
+    Column("central_sound_speed_sq", "c^2", "squared sound speed at the centre"),
+    Column("central_pseudo_enthalpy", "1", "central pseudo-enthalpy h_c"),
+)
+_FIELDS = {
+    "mass": "mass_msun", "radius": "radius_km", "compactness": "compactness", "k2": "k2",
+    "lambda": "tidal_deformability", "inertia": "moment_of_inertia_1e45_g_cm2",
+    "inertia_over_m3": "moment_of_inertia_over_m3", "baryon_mass": "baryon_mass_msun",
+    "central_pressure": "central_pressure_dyn_cm2", "central_energy_density": "central_energy_density_g_cm3",
+    "central_density": "central_rest_mass_density_g_cm3", "central_sound_speed_sq": "central_sound_speed_sq",
+    "central_pseudo_enthalpy": "central_pseudo_enthalpy",
+}
+
+
+def _stars_block(stars) -> dict:
+    return {c: np.asarray(getattr(stars, f), float) for c, f in _FIELDS.items()}
+
+
+def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.ndarray:
+    """Central pseudo-enthalpies at which ``eos`` has the given pressures.
+
+    Vectorised bisection in ``ln h`` on ``[h_lo, h_hi]`` (the pressure grows
+    monotonically with ``h``), run to the resolution of doubles.
+
+    Parameters
+    ----------
+    eos : tovforge.eos.EOS
+    pressures_dyn_cm2 : ndarray, shape (n,)
+        Targets between ``p(h_lo)`` and ``p(h_hi)``.
+    h_lo, h_hi : float
+        Bracket.
+
+    Returns
+    -------
+    ndarray, shape (n,)
+    """
+    target = np.asarray(pressures_dyn_cm2, float)
+    lo = np.full(target.shape, np.log(h_lo))
+    hi = np.full(target.shape, np.log(h_hi))
+    for _ in range(64):  # the bracket shrinks below one ulp of ln h well within 64 halvings
+        mid = 0.5 * (lo + hi)
+        below = eos.evaluate(np.exp(mid)).pressure_dyn_cm2 < target
+        lo = np.where(below, mid, lo)
+        hi = np.where(below, hi, mid)
+    return np.exp(0.5 * (lo + hi))
+
+
+def _stars_at_enthalpies(eos, h_c, steps):
+    # the solver's own surface-to-Stars conversion, so every column matches `tovforge solve`
+    from ..solve._sequence import _solve, _stars
+
+    idx = np.zeros(h_c.size, dtype=np.intp)
+    sv, _ = _solve(eos.batch, idx, h_c, steps)
+    return _stars(eos.batch, idx, h_c, sv)
+
+
+def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
+                   command: str | None = None) -> TableSummary:
+    """Write the stable branch of one EOS as a table.
+
+    Parameters
+    ----------
+    out : path-like
+        ``.csv``, ``.h5`` or ``.npz``.
+    eos : tovforge.eos.EOS
+    points : int, optional
+        Number of stars, at central pressures spaced evenly in ``ln p_c``
+        from the lightest star (about ``min_mass_msun``) to the maximum-mass
+        star, both included.  Ignored when ``masses`` are given.
+    masses : array_like, optional
+        Gravitational masses in Msun: one exact star per mass (NaN rows above
+        M_max or below the lightest star the EOS supports); adds a
+        ``target_mass`` column.
+    min_mass_msun : float
+        Lightest star of the ``points`` mode (the solver's branch start).
+    command : str, optional
+        Command line recorded in the provenance (default ``sys.argv``).
+
+    Returns
+    -------
+    TableSummary
+
+    Raises
+    ------
+    InputError
+        If the EOS has no maximum mass (nothing to tabulate) or the options
+        are out of range.
+    """
+    from ..solve import SequenceSettings, solve_sequence
+
+    t0 = time.monotonic()
+    table_format(out)
+    settings = SequenceSettings(low_mass_msun=float(min_mass_msun))
+    notes = []
+    if masses is not None:
+        masses = np.asarray(masses, float).ravel()
+        if masses.size == 0 or not np.all(np.isfinite(masses) & (masses > 0)):
+            raise InputError("--masses must be positive numbers (Msun).")
+        # start the branch below the lightest request, so that light stars are found too
+        settings = replace(settings, low_mass_msun=min(settings.low_mass_msun, 0.9 * float(masses.min())))
+    elif points is None or not 2 <= int(points) <= 100_000:
+        raise InputError(f"--points must be an integer in [2, 100000]. Got {points}.")
+    if not 0 < min_mass_msun < 3:
+        raise InputError(f"--min-mass must be in (0, 3) Msun. Got {min_mass_msun:g}.")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # masses above M_max become a note below
+        seq = solve_sequence(eos, n_stars=16, masses=masses, settings=settings)
+    if not seq.success:
+        raise InputError(f"{eos.family.name} {_params_text(eos)}: no stable branch to tabulate ({seq.message})")
+    mm = seq.mass_max
+    if masses is None:
+        h_lo = float(seq.branch.central_pseudo_enthalpy[0])
+        h_hi = float(mm.star.central_pseudo_enthalpy[0])
+        p_lo = float(seq.branch.central_pressure_dyn_cm2[0])
+        p_hi = mm.central_pressure_dyn_cm2
+        p = np.exp(np.linspace(np.log(p_lo), np.log(p_hi), int(points)))
+        h_c = central_enthalpies(eos, p[1:-1], h_lo, h_hi)
+        h_c = np.concatenate([[h_lo], h_c, [h_hi]])  # the end stars exactly, not re-found
+        block = _stars_block(_stars_at_enthalpies(eos, h_c, settings.steps))
+        columns = list(SEQUENCE_COLUMNS)
+        mode = "points"
+    else:
+        block = _stars_block(seq.at_mass)
+        block["target_mass"] = masses
+        columns = [Column("target_mass", "Msun", "requested gravitational mass"), *SEQUENCE_COLUMNS]
+        mode = "masses"
+        missing = masses[~np.isfinite(block["mass"])]
+        if missing.size:
+            notes.append(f"no stable star at {', '.join(f'{m:g}' for m in missing)} Msun "
+                         f"(M_max = {mm.mass_msun:.4f} Msun; lightest branch star "
+                         f"{float(seq.branch.mass_msun[0]):.3g} Msun): NaN rows.")
+    meta = provenance(
+        command,
+        kind="sequence",
+        mode=mode,
+        family=eos.family.name,
+        parameters_json=json.dumps(dict(eos.parameters)),
+        mass_max_msun=mm.mass_msun,
+        radius_at_mass_max_km=mm.radius_km,
+        max_sound_speed_sq=mm.max_sound_speed_sq,
+        twin_mass_max_msun=float(seq.twin_mass_max_msun),
+        stable_branch="connected branch of increasing central pressure up to the first maximum of M",
+        solver_settings_json=json.dumps({"n_steps": settings.steps.n_steps,
+                                         "steps_per_kink": settings.steps.steps_per_kink,
+                                         "mass_rtol": settings.mass_rtol}),
+    )
+    with TableWriter(out, columns, meta) as w:
+        w.append(block)
+    return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0, tuple(notes))
+
+
+def _params_text(eos) -> str:
+    return " ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}" for k, v in eos.parameters.items())
