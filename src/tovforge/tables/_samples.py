@@ -107,7 +107,7 @@ def _read_csv(path: Path, parameter_names, ignore):
         for i, ln in enumerate(data):
             fields = ln.split(",")
             if len(fields) != len(names):
-                bad.append((i + 1, f"wrong number of fields: {len(fields)}, expected {len(names)}"))
+                bad.append((i + 1, f"wrong number of fields: {len(fields)} fields, expected {len(names)}"))
                 continue
             try:
                 table[i] = [float(fields[c]) for c in cols]
@@ -213,7 +213,8 @@ def skipped_text(skipped, n_rows: int, source, out) -> str:
     parts = []
     for kind, items in groups.items():
         rows = ", ".join(str(r) for r, _ in items[:8]) + (f" and {len(items) - 8} more" if len(items) > 8 else "")
-        parts.append(f"{kind} in row{'s' if len(items) > 1 else ''} {rows} (row {items[0][0]}: {items[0][1]})")
+        first = f"row {items[0][0]}: {items[0][1]}" if len(items) > 1 else items[0][1]
+        parts.append(f"{kind} in row{'s' if len(items) > 1 else ''} {rows} ({first})")
     k = len(skipped)
     return (f"{source}: {k} of {n_rows} rows left out (data rows counted from 1): {'; '.join(parts)}; "
             f"the other {n_rows - k} rows are in {out}.")
