@@ -34,6 +34,32 @@ import math
 
 SQRT5 = math.sqrt(5.0)
 MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 nominal)
+#: Kernel models evaluate at most this many (query, training point) pairs at a
+#: time: the temporaries then stay in cache and memory stays bounded for any batch.
+PAIRS_PER_CHUNK = 1 << 16
+
+
+def _column_differences(xp, x, X):
+    """``x_i - X_i`` for each parameter i, as d arrays of shape (n, N).
+
+    One contiguous (n, N) array per parameter: reductions over a short trailing
+    axis of length d are several times slower in NumPy, and the sum of squares
+    accumulated in parameter order equals ``sum(diff**2, axis=-1)`` bit for bit.
+    """
+    return [x[:, i : i + 1] - X[:, i] for i in range(X.shape[1])]
+
+
+def _chunked(xp, fn, x, n_train, *args):
+    """Apply ``fn(xp, x_chunk, *args)`` to row chunks of ``x`` and join the results.
+
+    ``fn`` returns a tuple of arrays (or None) with the query rows on axis 0.
+    """
+    step = max(1, PAIRS_PER_CHUNK // max(1, n_train))
+    n = x.shape[0]
+    if n <= step:
+        return fn(xp, x, *args)
+    pieces = [fn(xp, x[s : s + step], *args) for s in range(0, n, step)]
+    return tuple(None if p[0] is None else xp.concat(list(p), axis=0) for p in zip(*pieces))
 
 
 def unit_inputs(xp, m, theta):
@@ -75,26 +101,44 @@ def _trend(xp, m, x, grad):
     return F, dF
 
 
-def _matern(xp, x, X, length, amp2, grad):
-    """Matern-5/2 kernel rows k(x, X) (n, N) and optionally dk/dx (n, N, d)."""
-    diff = (x[:, None, :] - X[None, :, :]) / length
-    r = xp.sqrt(xp.sum(diff * diff, axis=-1))
+def _matern(xp, diffs, length, amp2, grad):
+    """Matern-5/2 kernel rows k(x, X) (n, N) from the column differences ``diffs``.
+
+    With ``grad``, also the d arrays (n, N) of dk/dx_i.
+    """
+    scaled = [diffs[i] / length[i] for i in range(len(diffs))]
+    r2 = scaled[0] * scaled[0]
+    for s in scaled[1:]:
+        r2 = r2 + s * s
+    r = xp.sqrt(r2)
     e = xp.exp(-SQRT5 * r)
     k = amp2 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * e
     dk = None
     if grad:
         # dk/dx_i = -amp2 (5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
-        dk = (-amp2 * (5.0 / 3.0)) * ((1.0 + SQRT5 * r) * e)[:, :, None] * (diff / length)
+        c = (-amp2 * (5.0 / 3.0)) * ((1.0 + SQRT5 * r) * e)
+        dk = [c * (scaled[i] / length[i]) for i in range(len(diffs))]
     return k, dk
 
 
 def _polyharmonic(xp, x, X, grad):
     """r^5 rows (n, N) and optionally their x-derivatives (n, N, d)."""
-    diff = x[:, None, :] - X[None, :, :]
-    r2 = xp.sum(diff * diff, axis=-1)
+    diffs = _column_differences(xp, x, X)
+    phi, dphi = _polyharmonic_columns(xp, diffs, grad)
+    return phi, (xp.stack(dphi, axis=-1) if grad else None)
+
+
+def _polyharmonic_columns(xp, diffs, grad):
+    """r^5 rows (n, N) from column differences; with ``grad`` the d arrays d(r^5)/dx_i."""
+    r2 = diffs[0] * diffs[0]
+    for s in diffs[1:]:
+        r2 = r2 + s * s
     r = xp.sqrt(r2)
     phi = r2 * r2 * r
-    dphi = (5.0 * r2 * r)[:, :, None] * diff if grad else None
+    dphi = None
+    if grad:
+        c = 5.0 * r2 * r
+        dphi = [c * s for s in diffs]
     return phi, dphi
 
 
@@ -105,7 +149,7 @@ def _bspline_basis(xp, t, n_coef, x, deg=3):
     xc = xp.clip(x, t[deg], t[n_coef] - 1e-12 * (t[n_coef] - t[deg]))
     B = []
     for j in range(n_knots - 1):
-        B.append(xp.where((xc >= t[j]) & (xc < t[j + 1]), 1.0, 0.0))
+        B.append(xp.astype((xc >= t[j]) & (xc < t[j + 1]), xc.dtype))
     dB = None
     for k in range(1, deg + 1):
         newB = []
@@ -137,23 +181,11 @@ def standardised_outputs(xp, m, x, grad=False):
     # dF (n, t, d) -> (n, d, t) @ (t, o) -> (n, d, o) -> (n, o, d)
     dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
     kind = m["kind"]
-    if kind == "gp":
-        parts, dparts = [], []
-        for g in range(m["length"].shape[0]):
-            a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
-            k, dk = _matern(xp, x, m["X"], m["length"][g], m["amp2"][g], grad)
-            alpha = m["alpha"][:, a:b]
-            parts.append(k @ alpha)
-            if grad:  # dk (n, N, d) -> (n, d, N) @ (N, o) -> (n, d, o)
-                dparts.append(xp.permute_dims(_bmm(xp, xp.permute_dims(dk, (0, 2, 1)), alpha), (0, 2, 1)))
-        z = z + xp.concat(parts, axis=-1)
+    if kind in ("gp", "rbf"):
+        kz, kdz = _chunked(xp, _kernel_part, x, m["X"].shape[0], m, grad)
+        z = z + kz
         if grad:
-            dz = dz + xp.concat(dparts, axis=1)
-    elif kind == "rbf":
-        phi, dphi = _polyharmonic(xp, x, m["X"], grad)
-        z = z + phi @ m["alpha"]
-        if grad:
-            dz = dz + xp.permute_dims(_bmm(xp, xp.permute_dims(dphi, (0, 2, 1)), m["alpha"]), (0, 2, 1))
+            dz = dz + kdz
     elif kind == "tensor":
         d = x.shape[1]
         shape = [int(s) for s in m["coef_shape"]]
@@ -170,6 +202,27 @@ def standardised_outputs(xp, m, x, grad=False):
                 parts.append(_tensor_contract(xp, coef, shape, bl))
             dz = dz + xp.stack(parts, axis=-1)
     return z, dz
+
+
+def _kernel_part(xp, x, m, grad):
+    """Kernel sum of a GP or RBF model at rows x (n, d): (n, n_out) and (n, n_out, d).
+
+    The column differences to the training points are formed once and shared
+    by every kernel group (the groups share the points, not the length scales).
+    """
+    diffs = _column_differences(xp, x, m["X"])
+    if m["kind"] == "rbf":
+        phi, dphi = _polyharmonic_columns(xp, diffs, grad)
+        return phi @ m["alpha"], (xp.stack([c @ m["alpha"] for c in dphi], axis=-1) if grad else None)
+    parts, dparts = [], []
+    for g in range(m["length"].shape[0]):
+        a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+        k, dk = _matern(xp, diffs, m["length"][g], m["amp2"][g], grad)
+        alpha = m["alpha"][:, a:b]
+        parts.append(k @ alpha)
+        if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
+            dparts.append(xp.stack([c @ alpha for c in dk], axis=-1))
+    return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
 
 
 def _tensor_contract(xp, coef, shape, bases):
@@ -196,15 +249,22 @@ def gp_local_std(xp, m, x, n_neighbours=48):
     297; Datta et al. 2016, JASA 111, 800).  Conditioning on fewer points can
     only raise the variance, so this errs on the cautious side.
     """
+    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours)[0]
+
+
+def _gp_local_std_rows(xp, x, m, n_neighbours):
     X = m["X"]
     K = min(n_neighbours, X.shape[0])
+    diffs = _column_differences(xp, x, X)
     parts = []
     for g in range(m["length"].shape[0]):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
         length = m["length"][g]
         amp2 = m["amp2"][g]
-        diff = (x[:, None, :] - X[None, :, :]) / length
-        d2 = xp.sum(diff * diff, axis=-1)
+        scaled = [diffs[i] / length[i] for i in range(len(diffs))]
+        d2 = scaled[0] * scaled[0]
+        for s in scaled[1:]:
+            d2 = d2 + s * s
         nn = xp.argsort(d2, axis=1)[:, :K]
         Xn = xp.take(X, xp.reshape(nn, (-1,)), axis=0)
         Xn = xp.reshape(Xn, (x.shape[0], K, X.shape[1])) / length
@@ -218,7 +278,7 @@ def gp_local_std(xp, m, x, n_neighbours=48):
         var = amp2 - xp.sum(kv * sol, axis=-1)
         var = xp.where(var > 0.0, var, 0.0)
         parts.append(xp.sqrt(var)[:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
-    return xp.concat(parts, axis=-1)
+    return (xp.concat(parts, axis=-1),)
 
 
 def spline_in_u(xp, m, values, u):
@@ -293,6 +353,17 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
     emulated range or outside the box; grad (n, q, d) and std (n, q) or None.
     """
     y, inside, dy = outputs(xp, m, theta, grad)
+    sd = output_std(xp, m, theta) if std else None
+    return curve_at_mass(xp, m, y, dy, sd, mass, quantity)
+
+
+def curve_at_mass(xp, m, y, dy, sd, mass, quantity):
+    """:func:`at_mass` from outputs already evaluated (several queries, one model evaluation).
+
+    ``y`` (n, n_out) and ``dy`` (n, n_out, d) or None from :func:`outputs`;
+    ``sd`` (n, n_out) or None from :func:`output_std`.
+    """
+    grad, std = dy is not None, sd is not None
     n = y.shape[0]
     mass = xp.asarray(mass, dtype=y.dtype) if not hasattr(mass, "shape") else mass
     mass = xp.broadcast_to(xp.reshape(mass, (1, -1)) if mass.ndim < 2 else mass, (n, mass.shape[-1] if mass.ndim else 1))
@@ -302,8 +373,8 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
     ok = (mass > 0.0) & (ratio <= 1.0)
     u = xp.sqrt(xp.where(ok, 1.0 - ratio, float("nan")))
     if quantity == "k2":
-        R, dR, sR = at_mass(xp, m, theta, mass, "radius_km", grad, std)
-        L, dL, sL = at_mass(xp, m, theta, mass, "tidal_deformability", grad, std)
+        R, dR, sR = curve_at_mass(xp, m, y, dy, sd, mass, "radius_km")
+        L, dL, sL = curve_at_mass(xp, m, y, dy, sd, mass, "tidal_deformability")
         c5 = (mass * MSUN_KM / R) ** 5
         val = 1.5 * L * c5
         g = None
@@ -327,7 +398,6 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
         g = dnodes + (der * dudm)[:, :, None] * dy[:, im, :][:, None, :]
     s = None
     if std:
-        sd = output_std(xp, m, theta)
         dudm = mass / (2.0 * u * mmax * mmax)
         s_nodes = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
         s = xp.sqrt(s_nodes**2 + (der * dudm * sd[:, im][:, None]) ** 2)
