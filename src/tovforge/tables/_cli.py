@@ -6,7 +6,6 @@ input are one line on stderr with exit code 2 (``tovforge.cli._run``).
 
 from __future__ import annotations
 
-import math
 import shlex
 import sys
 from pathlib import Path
@@ -42,13 +41,14 @@ def _floats(text: str, option: str) -> list[float]:
 
 
 def _number(text: str, what: str) -> float:
+    """One finite number (the CLI's own number parsing, with its messages)."""
     try:
-        v = float(text)
-    except ValueError:
-        raise InputError(f"{what}: {text!r} is not a number.") from None
-    if not math.isfinite(v):
-        raise InputError(f"{what}: the value must be finite. Got {text!r}.")
-    return v
+        values = _floats(text, what)
+    except InputError:
+        values = []
+    if len(values) != 1:
+        raise InputError(f"{what}: expected one finite number, got {text!r}.")
+    return values[0]
 
 
 def parse_axis(item: str):
@@ -128,7 +128,7 @@ def sequence_cmd(
     out: Annotated[Path, typer.Option("--out", help=_OUT_HELP, dir_okay=False)] = ...,
     points: Annotated[
         Optional[int], typer.Option("--points", help="Stars at central pressures evenly spaced in ln p_c, from the "
-                                                     "lightest star to the maximum-mass star [default: 100].")
+                                                     "lightest star to the maximum-mass star (default 100).")
     ] = None,
     masses: Annotated[
         Optional[str], typer.Option("--masses", help="Comma-separated masses in Msun instead: one exact star each.")
@@ -229,8 +229,8 @@ def samples_cmd(
         str, typer.Option("--quantities", help="Comma-separated (see `tovforge table box --help`).")
     ] = "mass_max,radius,lambda,inertia",
     band: Annotated[
-        Optional[Path], typer.Option("--band", help="Median and 90 % band per mass [default: OUT with .band "
-                                                    "before the extension].", dir_okay=False)
+        Optional[Path], typer.Option("--band", help="Median and 90 % band per mass (default: OUT with .band "
+                                                    "before the extension).", dir_okay=False)
     ] = None,
     plot: Annotated[Optional[Path], typer.Option("--plot", help="PNG of the M-R band.", dir_okay=False)] = None,
     ignore: Annotated[
