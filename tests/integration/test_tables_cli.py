@@ -197,3 +197,17 @@ def test_console_script_reports_bad_input_on_one_line(tmp_path):
     assert proc.returncode == 2
     assert proc.stderr.startswith("error: --quantities: unknown quantity 'nope'") and proc.stderr.count("\n") == 1
     assert "Traceback" not in proc.stderr + proc.stdout
+
+
+def test_helpful_refusals(tmp_path, model_dir):
+    res = runner.invoke(app, ["table", "box", "piecewise-polytrope", "--axis", "gamma1=2:4:3", "--out",
+                              str(tmp_path / "b.csv")])
+    _one_line_error(res, "for exact solves write --exact piecewise-polytrope")
+    (tmp_path / "pandas.csv").write_text(",log_p1,gamma1,gamma2,gamma3\n0,34.4,3,3,3\n")
+    res = runner.invoke(app, ["table", "samples", str(model_dir), "--samples", str(tmp_path / "pandas.csv"),
+                              "--out", str(tmp_path / "o.csv")])
+    _one_line_error(res, "column 1 has no name (an index column?")
+    _samples_csv(tmp_path / "post.csv")
+    res = runner.invoke(app, ["table", "samples", str(model_dir), "--samples", str(tmp_path / "post.csv"),
+                              "--ignore", "weight", "--out", str(tmp_path / "post.csv")])
+    _one_line_error(res, "would be overwritten")

@@ -194,6 +194,11 @@ def box_cmd(
     def work():
         if (model is None) == (exact is None):
             raise InputError("give a MODEL folder or --exact FAMILY (one of them).")
+        if model is not None and not model.exists():
+            from .. import eos
+
+            if str(model) in eos.families():
+                raise InputError(f"{model}: no such model folder; for exact solves write --exact {model}.")
         if exact is None and (workers is not None or scheduler is not None or keep_grid):
             raise InputError("--workers, --scheduler and --keep-grid apply to --exact only.")
         axes = [parse_axis(a) for a in axis or []]

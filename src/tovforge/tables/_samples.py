@@ -67,6 +67,9 @@ class Samples:
 
 
 def _check_names(path, names, parameter_names, ignore):
+    if "" in names:
+        raise InputError(f"{path}: column {names.index('') + 1} has no name (an index column? save the file "
+                         "without it, e.g. pandas' to_csv(..., index=False)).")
     dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
         raise InputError(f"{path}: column {dup[0]!r} appears twice.")
@@ -279,6 +282,8 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
         raise InputError(f"--plot {plot}: the plot is written as PNG; give a file name ending in .png.")
     if Path(band).resolve() == Path(out).resolve():
         raise InputError(f"--band {band}: the band table needs a file of its own, not --out.")
+    if Path(samples).resolve() in (Path(out).resolve(), Path(band).resolve()):
+        raise InputError(f"{samples}: the samples file would be overwritten; choose another --out or --band.")
     names = model.parameter_names
     data = read_samples(samples, names, ignore, bounds=model.bounds)
     sigma = bool(sigma and model.kind == "gp")
