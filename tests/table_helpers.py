@@ -24,6 +24,6 @@ def tiny_model(kind: str = "spline"):
     """A spline (RBF) model on 256 points, or a GP on 96 points (a few seconds)."""
     data = surrogate.read_training_data(DEMO_TRAIN)
     if kind == "gp":
-        settings = surrogate.GPSettings(n_subset=96, n_restarts=0, n_jobs=1)
+        settings = surrogate.GPSettings(n_subset=96, n_restarts=0)
         return surrogate.train_on(_first_rows(data, 96), "gp", settings)
     return surrogate.train_on(_first_rows(data, 256), "spline")
