@@ -1,0 +1,165 @@
+"""Exported evaluators against the in-library models: values, sigma, gradients, shapes and the domain guard."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from conftest import KINDS, box_points
+
+from tovforge.export._codegen import max_rel_diff
+
+QUERIES = ("radius", "tidal_deformability", "moment_of_inertia", "k2")
+MASSES = np.array([1.0, 1.25, 1.4, 1.8, 2.1])
+RTOL = 1e-10  # the issue's bound; both sides run the same runtime, so only BLAS rounding differs
+
+
+def _close(got, want, what):
+    d = max_rel_diff(got, want)
+    assert d <= RTOL, f"{what}: relative difference {d:.2e}"
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_every_query_equals_the_library(kind, models, exported):
+    model, (mod, _) = models[kind], exported[kind]
+    theta = box_points(model, 200, seed=11)
+    theta[:3] = model.bounds[:, 0] - 0.05  # outside: NaN on both sides
+    gp = kind == "gp"
+    for got, want, what in [
+        (mod.mass_max(theta, return_grad=True, return_std=True), model.mass_max(theta, True, True), "mass_max"),
+        *[(getattr(mod, q)(theta, MASSES, return_grad=True, return_std=True),
+           getattr(model, q)(theta, MASSES, return_grad=True, return_std=True), q) for q in QUERIES],
+        (mod.curve(theta, n=64), model.curve(theta, n=64), "curve"),
+    ]:
+        for i, (g, w) in enumerate(zip(got, want)):
+            _close(g, w, f"{what}[{i}]")
+    p, ref = mod.predict(theta), model.predict(theta, return_std=gp)
+    for field in ref.__dataclass_fields__:
+        if field != "std":
+            _close(p[field], getattr(ref, field), field)
+    if gp:
+        assert p["std"].keys() == ref.std.keys()
+        for k, v in ref.std.items():
+            assert np.all(v[3:] > 0), k  # a real sigma, not zeros
+            _close(p["std"][k], v, f"std {k}")
+    else:
+        assert p["std"] is None
+    assert set(mod.OUTPUTS) == set(p) - {"std"}
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_one_theta_equals_a_row_of_many(kind, models, exported):
+    model, (mod, _) = models[kind], exported[kind]
+    theta = box_points(model, 5, seed=12, inner=0.1)
+    for i in range(len(theta)):
+        assert mod.mass_max(theta[i]).shape == ()
+        assert float(mod.mass_max(theta[i])) == pytest.approx(float(mod.mass_max(theta)[i]), rel=1e-12)
+        r1, g1 = mod.radius(theta[i], 1.3, return_grad=True)
+        assert r1.shape == () and g1.shape == (4,)
+        rn, gn = mod.radius(theta, 1.3, return_grad=True)
+        assert float(r1) == pytest.approx(float(rn[i]), rel=1e-12, nan_ok=True)
+        _close(g1, gn[i], "gradient of one theta")  # BLAS sums a lone row in another order
+
+
+@pytest.mark.parametrize(
+    "theta_shape, mass, shape",
+    [((4,), 1.4, ()), ((4,), [1.2, 1.4], (2,)), ((6, 4), 1.4, (6,)), ((6, 4), [1.2, 1.4, 1.6], (6, 3)),
+     ((6, 4), np.full((6, 1), 1.3), (6, 1)), ((6, 4), np.full((1, 2), 1.3), (6, 2))],
+)
+def test_result_shapes(theta_shape, mass, shape, models, exported):
+    mod = exported["gp"][0]
+    theta = np.broadcast_to(box_points(models["gp"], 1, seed=1, inner=0.2)[0], theta_shape)
+    v, g, s = mod.tidal_deformability(theta, mass, return_grad=True, return_std=True)
+    assert v.shape == shape and s.shape == shape and g.shape == shape + (4,)
+    m, c, L = mod.curve(theta, n=7)
+    assert m.shape == c.shape == L.shape == theta_shape[:-1] + (7,)
+    assert mod.in_domain(theta).shape == theta_shape[:-1]
+
+
+def test_one_mass_per_theta_is_the_diagonal_of_the_outer_product(models, exported):
+    mod = exported["gp"][0]
+    theta = box_points(models["gp"], 6, seed=2, inner=0.1)
+    masses = np.linspace(1.1, 1.6, 6)
+    np.testing.assert_array_equal(mod.radius(theta, masses[:, None])[:, 0], np.diag(mod.radius(theta, masses)))
+
+
+@pytest.mark.parametrize("theta, mass, match", [
+    (np.zeros(3), 1.4, r"theta must have shape \(4,\) or \(n, 4\)"),
+    (np.zeros((2, 2, 4)), 1.4, r"theta must have shape"),
+    (np.zeros((3, 4)), np.zeros((2, 2)), r"mass must be a scalar, shape \(q,\) .* \(n = 3\); got shape \(2, 2\)"),
+])
+def test_bad_shapes_are_named(theta, mass, match, exported):
+    with pytest.raises(ValueError, match=match):
+        exported["rbf"][0].radius(theta, mass)
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_outside_the_box_and_off_the_branch_give_nan_or_raise(kind, models, exported):
+    model, (mod, _) = models[kind], exported[kind]
+    lo, hi = model.bounds[:, 0], model.bounds[:, 1]
+    inside = box_points(model, 4, seed=3, inner=0.1)
+    outside = inside.copy()
+    outside[:, 1] = hi[1] + 0.01 * (hi[1] - lo[1])
+    assert mod.in_domain(inside).all() and not mod.in_domain(outside).any()
+    assert not bool(mod.in_domain(np.array([np.nan, *inside[0, 1:]])))
+    assert np.isnan(mod.mass_max(outside)).all()
+    assert np.isnan(mod.radius(outside, 1.2)).all()
+    assert np.isnan(mod.curve(outside, n=5)[1]).all()
+    assert mod.predict(outside)["out_of_box"].all() and np.isnan(mod.predict(outside)["radius_km"]).all()
+    with pytest.raises(ValueError, match=rf"theta row 0: the 'gamma1' parameter must be in \[{lo[1]}, {hi[1]}\]"):
+        mod.radius(outside, 1.2, strict=True)
+    for fn in (mod.mass_max, mod.predict, lambda t, **kw: mod.curve(t, n=5, **kw)):
+        with pytest.raises(ValueError, match="trained box"):
+            fn(outside, strict=True)
+    mm = mod.mass_max(inside)
+    above = mm[:, None] * (1.0 + 1e-9)
+    lowest = mm[:, None] * (1.0 - 0.85**2)
+    for q in QUERIES:
+        fn = getattr(mod, q)
+        assert np.isnan(fn(inside, above)).all(), q
+        assert np.isnan(fn(inside, 0.99 * lowest)).all(), q
+        assert np.isfinite(fn(inside, mm[:, None] * (1.0 - 1e-9))).all(), q  # just below M_max is defined
+        assert np.isfinite(fn(inside, 1.01 * lowest)).all(), q
+        with pytest.raises(ValueError, match=r"theta row 0: mass .* outside the emulated stable branch"):
+            fn(inside, above, strict=True)
+    finite = mod.radius(inside, mm[:, None] * 0.8, strict=True)  # strict passes on valid queries
+    assert np.isfinite(finite).all()
+
+
+def _central_differences(fn, theta, step):
+    out = []
+    for i in range(theta.shape[1]):
+        e = np.zeros(theta.shape[1])
+        e[i] = step[i]
+        out.append((fn(theta + e) - fn(theta - e)) / (2.0 * step[i]))
+    return np.stack(out, axis=-1)
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_gradients_agree_with_central_differences(kind, models, exported):
+    model, (mod, _) = models[kind], exported[kind]
+    theta = box_points(model, 12, seed=4, inner=0.05)
+    step = 1e-5 * (model.bounds[:, 1] - model.bounds[:, 0])
+    # truncation ~ step^2 f''' and rounding ~ 1e-16 f / step: both far below 1e-6 of the gradient scale
+    mm = mod.mass_max(theta)
+    masses = mm[:, None] * np.array([0.4, 0.7, 0.95])  # on the branch; a step moves M_max by ~1e-5 only
+    checks = [("mass_max", lambda t: mod.mass_max(t), mod.mass_max(theta, return_grad=True)[1])]
+    for q in QUERIES:
+        fn = getattr(mod, q)
+        checks.append((q, lambda t, fn=fn: fn(t, masses), fn(theta, masses, return_grad=True)[1]))
+    for name, fn, analytic in checks:
+        fd = _central_differences(fn, theta, step)
+        assert np.isfinite(analytic).all(), name
+        scale = np.max(np.abs(fd), axis=tuple(range(fd.ndim - 1)))  # per parameter
+        err = np.max(np.abs(analytic - fd), axis=tuple(range(fd.ndim - 1))) / scale
+        assert np.all(err < 1e-6), f"{name}: relative gradient errors {err}"
+
+
+def test_numpy_1_shim_gives_the_same_numbers(models, exported, monkeypatch):
+    """The stand-in namespace used under NumPy 1.x (no concat, permute_dims, astype) changes nothing."""
+    mod = exported["gp"][0]
+    theta = box_points(models["gp"], 20, seed=5)
+    want = mod.radius(theta, MASSES, return_grad=True, return_std=True)
+    monkeypatch.setattr(mod, "_NUMPY", mod._NumPy1())
+    got = mod.radius(theta, MASSES, return_grad=True, return_std=True)
+    for g, w in zip(got, want):
+        np.testing.assert_array_equal(g, w)

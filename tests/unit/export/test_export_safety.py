@@ -1,0 +1,216 @@
+"""What an exported file imports, how it refuses damaged numbers, and why metadata cannot become code."""
+
+from __future__ import annotations
+
+import ast
+import json
+import re
+import subprocess
+import sys
+import textwrap
+
+import numpy as np
+import pytest
+from conftest import KINDS, import_file
+from typer.testing import CliRunner
+
+from tovforge.cli import app
+from tovforge.export import ExportError, export_model
+from tovforge.surrogate import Surrogate
+
+BLOCKING_RUN = textwrap.dedent(r'''
+    import importlib.abc, json, sys
+    BLOCKED = ("scipy", "sklearn", "joblib", "tovforge", "h5py", "matplotlib", "dask", "typer")
+
+    class Refuse(importlib.abc.MetaPathFinder):
+        def find_spec(self, name, path=None, target=None):
+            if name.split(".")[0] in BLOCKED:
+                raise ImportError(f"blocked import of {name}")
+            return None
+
+    sys.meta_path.insert(0, Refuse())
+    before = set(sys.modules)
+    import importlib.util
+    spec = importlib.util.spec_from_file_location("evaluator", sys.argv[1])
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    import numpy as np
+    lo, hi = np.array(mod.BOUNDS).T
+    theta = lo + (hi - lo) * np.linspace(0.2, 0.8, 5)[:, None]
+    out = {
+        "mass_max": mod.mass_max(theta).tolist(),
+        "radius": mod.radius(theta, 1.3, return_grad=True)[0].tolist(),
+        "curve": mod.curve(theta[0], n=8)[1].tolist(),
+        "sigma": None if mod.KIND != "gp" else mod.predict(theta)["std"]["radius_km"].tolist(),
+    }
+    new = {m.split(".")[0] for m in set(sys.modules) - before}
+    out["foreign_modules"] = sorted(m for m in new if m not in sys.stdlib_module_names and m not in ("numpy", "evaluator"))
+    print(json.dumps(out))
+''')
+
+
+def test_the_blocking_finder_really_blocks(tmp_path):
+    """The test below is only worth something if the finder stops a forbidden import."""
+    probe = tmp_path / "uses_scipy.py"
+    probe.write_text("import scipy\nimport numpy as np\nBOUNDS = ((0.0, 1.0),)\n")
+    r = subprocess.run([sys.executable, "-c", BLOCKING_RUN, str(probe)], capture_output=True, text=True)
+    assert r.returncode != 0 and "blocked import of scipy" in r.stderr
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_runs_with_scipy_sklearn_joblib_and_tovforge_blocked(kind, exported, models):
+    mod, path = exported[kind]
+    r = subprocess.run([sys.executable, "-c", BLOCKING_RUN, str(path)], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    assert out["foreign_modules"] == []
+    lo, hi = models[kind].bounds.T
+    theta = lo + (hi - lo) * np.linspace(0.2, 0.8, 5)[:, None]
+    np.testing.assert_allclose(out["mass_max"], models[kind].mass_max(theta), rtol=1e-12)
+    np.testing.assert_allclose(out["radius"], models[kind].radius(theta, 1.3)[:, 0], rtol=1e-12)
+    assert np.isfinite(out["curve"]).all()
+    if kind == "gp":
+        assert np.all(np.asarray(out["sigma"]) > 0)
+
+
+def _payload_lines(src: str) -> tuple[int, int]:
+    lines = src.splitlines()
+    start = lines.index("_PAYLOAD = (") + 1
+    return start, lines
+
+
+def test_only_numpy_and_the_standard_library_are_imported(exported):
+    src = exported["gp"][1].read_text()
+    imports = set()
+    for node in ast.walk(ast.parse(src)):
+        if isinstance(node, ast.Import):
+            imports |= {a.name.split(".")[0] for a in node.names}
+        elif isinstance(node, ast.ImportFrom):
+            imports.add((node.module or "").split(".")[0])
+    assert imports == {"base64", "hashlib", "io", "math", "zlib", "numpy", "array_api_compat"}
+    # array_api_compat: imported only when a caller passes a tensor of a library without the standard's hook
+    assert src.count("import array_api_compat") == 1
+    flags = [k.value for k in ast.walk(ast.parse(src)) if isinstance(k, ast.keyword) and k.arg == "allow_pickle"]
+    assert flags and all(isinstance(v, ast.Constant) and v.value is False for v in flags)
+
+
+def _tampered(path, tmp_path, edit):
+    src = path.read_text()
+    bad = tmp_path / "tampered.py"
+    bad.write_text(edit(src))
+    return bad
+
+
+def _flip_payload_char(src: str) -> str:
+    start, lines = _payload_lines(src)
+    line = lines[start + 3]
+    i = line.index('"') + 10
+    lines[start + 3] = line[:i] + ("A" if line[i] != "A" else "B") + line[i + 1 :]
+    return "\n".join(lines) + "\n"
+
+
+@pytest.mark.parametrize("edit, match", [
+    (_flip_payload_char, r"damaged or were altered: their sha256 is [0-9a-f]{64}, but the header records"),
+    (lambda s: s.replace('_PAYLOAD = (\n    "', '_PAYLOAD = (\n    "*', 1), r"damaged \(not base64"),
+    (lambda s: re.sub(r"PAYLOAD_SHA256 = '([0-9a-f])", lambda m: "PAYLOAD_SHA256 = '" + ("0" if m[1] != "0" else "1"),
+                      s, count=1), r"damaged or were altered"),
+])
+def test_tampered_payload_fails_at_import(edit, match, exported, tmp_path):
+    bad = _tampered(exported["rbf"][1], tmp_path, edit)
+    with pytest.raises(ImportError, match=match) as info:
+        import_file(bad)
+    assert "export the model again" in str(info.value)
+
+
+NASTY = [
+    'x"""\nimport os; os._exit(3)\n"""',
+    "x'''\n__import__('os')._exit(4)\n'''",
+    '\\"; __import__("os")._exit(5); "',
+    "line\nbreak # comment\r\n\t\\u0041 \\",
+    'r"""',
+    "\\",
+]
+
+
+@pytest.mark.parametrize("nasty", NASTY)
+def test_metadata_strings_are_written_inertly(nasty, models, tmp_path):
+    m = models["rbf"]
+    meta = json.loads(json.dumps(m.meta))
+    meta["family"] = nasty
+    meta["parameter_units"] = [nasty, "1", "1", '"""']
+    meta["training"]["grid_description"] = nasty
+    meta["training"]["grid_path"] = nasty
+    evil = Surrogate(meta, m.arrays)
+    report = _report_for(evil, nasty)
+    path = tmp_path / "nasty.py"
+    export_model(evil, path, report, namespaces=("numpy",))
+    # in a subprocess: an injected os._exit would show as its exit code
+    r = subprocess.run([sys.executable, "-c", "import importlib.util,sys; s=importlib.util.spec_from_file_location("
+                        "'e', sys.argv[1]); m=importlib.util.module_from_spec(s); s.loader.exec_module(m); "
+                        "print(m.FAMILY == sys.argv[2] and m.UNITS[0] == sys.argv[2])", str(path), nasty],
+                       capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.strip() == "True"
+    mod = import_file(path)
+    assert mod.PROVENANCE["training"]["grid_description"] == nasty
+    assert nasty in mod.CHECK["errors"] and mod.CHECK["holdout"]["path"] == nasty
+    assert mod.__doc__.count(json.dumps(nasty)[1:-1]) >= 3  # shown escaped in the header
+
+
+def _report_for(model, name):
+    stats = {k: 0.001 for k in ("abs_median", "abs_p95", "abs_max", "rel_median", "rel_p95", "rel_max")}
+    return {"format": "tovforge-check", "created_utc": "2026-01-01T00:00:00+00:00", "tovforge_version": name,
+            "model": {"kind": model.kind, "n_train": model.meta["training"]["n_train"],
+                      "training_grid_sha256": model.meta["training"].get("grid_content_sha256", "")},
+            "holdout": {"path": name, "content_sha256": name, "n_points": 1, "n_used": 1,
+                        "n_star_comparisons": 1, "mass_rule": name},
+            "errors": {name: dict(stats, n=1), "mass_max_msun": dict(stats, abs_p95=float("nan"), n=1)},
+            "targets": {}, "calibration": {}}
+
+
+@pytest.mark.parametrize("where, value, match", [
+    ("parameter", 'a"); __import__("os")._exit(9); ("', "parameter name"),
+    ("parameter", "two words", "parameter name"),
+    ("output", "x\ny", "output name"),
+])
+def test_names_that_are_not_identifiers_are_refused(where, value, match, models, tmp_path):
+    m = models["rbf"]
+    meta = json.loads(json.dumps(m.meta))
+    if where == "parameter":
+        meta["parameters"][1] = value
+    else:
+        meta["outputs"]["index"][value] = 1
+    with pytest.raises(ExportError, match=match):
+        export_model(Surrogate(meta, m.arrays), tmp_path / "x.py", namespaces=("numpy",))
+    assert not (tmp_path / "x.py").exists()
+
+
+@pytest.mark.parametrize("name", ["my-model.py", "1model.py", "model.txt", "os.system.py"])
+def test_output_file_must_be_an_importable_module_name(name, models, tmp_path):
+    with pytest.raises(ExportError, match="stem must be a Python identifier"):
+        export_model(models["rbf"], tmp_path / name, namespaces=("numpy",))
+
+
+def test_report_of_another_model_is_refused(models, tmp_path):
+    report = _report_for(models["gp"], "x")
+    with pytest.raises(ExportError, match="the report was made for another model: its kind is 'gp'"):
+        export_model(models["rbf"], tmp_path / "m.py", report, namespaces=("numpy",))
+
+
+def test_cli_exports_and_reports_bad_input_in_one_line(models, tmp_path):
+    folder = models["tensor"].save(tmp_path / "model")
+    runner = CliRunner()
+    res = runner.invoke(app, ["export", str(folder), "--out", str(tmp_path / "spline_demo.py"), "--namespaces", "numpy"])
+    assert res.exit_code == 0, res.output
+    assert "wrote" in res.output and (tmp_path / "spline_demo.py").is_file()
+    mod = import_file(tmp_path / "spline_demo.py")
+    theta = models["tensor"].bounds.mean(axis=1)
+    assert float(mod.mass_max(theta)) == pytest.approx(float(models["tensor"].mass_max(theta)[0]), rel=1e-12)
+    res = runner.invoke(app, ["export", str(folder), "--out", str(tmp_path / "bad-name.py"), "--namespaces", "numpy"])
+    assert res.exit_code == 2
+    assert "stem must be a Python identifier" in res.output and "Traceback" not in res.output
+    res = runner.invoke(app, ["export", str(folder), "--out", str(tmp_path / "ok.py"), "--namespaces", "numpy,cupy"])
+    assert res.exit_code == 2 and "unknown namespace 'cupy'" in res.output
+    res = runner.invoke(app, ["export", str(folder), "--out", str(tmp_path / "ok.py"), "--report",
+                              str(tmp_path / "missing.json"), "--namespaces", "numpy"])
+    assert res.exit_code == 2 and "no such report" in res.output
