@@ -30,10 +30,11 @@ app = typer.Typer(
 def _register_subcommands() -> None:
     """Attach the command groups of the stages (each lives next to its stage)."""
     from .grid._cli import grid_app
-    from .surrogate._cli import check_cmd, train_cmd
+    from .surrogate._cli import check_cmd, refine_cmd, train_cmd
     from .export._cli import export_cmd
     from .tables._cli import table_app
 
+    grid_app.command("refine")(refine_cmd)
     app.add_typer(grid_app, name="grid")
     app.add_typer(table_app, name="table")
     app.command("train")(train_cmd)

@@ -144,6 +144,7 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRes
         "targets": {},
         "calibration": {},
         "worst": [],
+        "learning_curve": list(model.meta.get("learning_curve", [])),
     }
     report["errors"]["mass_max_msun"] = error_stats(mm, mm_exact)
     rmax_idx = 0  # u = 0 node is the maximum-mass star

@@ -49,3 +49,31 @@ def check_cmd(
     typer.echo(res.table())
     if report is not None:
         typer.echo(f"report written to {report}/report.md")
+
+
+def refine_cmd(
+    model: Annotated[Path, typer.Argument(help="GP model folder written by `tovforge train`.", file_okay=False)],
+    budget: Annotated[int, typer.Option("--budget", min=1, help="Exact solves to add.")],
+    out: Annotated[
+        Optional[Path], typer.Option("--out", help="Folder of the retrained model (default: MODEL-refined).")
+    ] = None,
+    holdout: Annotated[
+        Optional[Path], typer.Option("--holdout", help="Held-out grid: print error against training size.")
+    ] = None,
+    candidates: Annotated[int, typer.Option("--candidates", min=16, help="Sobol candidates to score.")] = 8192,
+    seed: Annotated[int, typer.Option("--seed", help="Seed of the candidate design.")] = 0,
+    workers: Annotated[Optional[int], typer.Option("--workers", min=1, help="Parallel workers.")] = None,
+):
+    """Add exact solves where the GP's sigma is largest, retrain, and print the learning curve."""
+    from . import load
+    from ._refine import refine
+
+    target = out if out is not None else model.with_name(model.name + "-refined")
+    res = _run(lambda: refine(load(model), budget, target, holdout=holdout, n_candidates=candidates, seed=seed,
+                              workers=workers, log=typer.echo))
+    typer.echo(f"added {len(res.added)} exact solves ({res.points_path}); retrained model in {target}")
+    if res.learning_curve:
+        typer.echo(f"{'training points':>16}{'M_max p95 [Msun]':>18}{'R p95 [m]':>11}{'Lambda p95':>12}")
+        for row in res.learning_curve:
+            typer.echo(f"{row['n_train']:>16}{row['mass_max_p95']:>18.4g}{row['radius_p95_km'] * 1000:>11.2f}"
+                       f"{row['lambda_rel_p95']:>12.3%}")

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import time
-import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -84,6 +83,12 @@ class GPSettings:
     noise_bounds : tuple
         Bounds of the white-noise variance (standardised units): a small nugget.
     seed : int
+    curve_groups : int
+        Kernels per curve: the nodes of a curve are split into this many
+        contiguous blocks of ``u``, each with its own hyperparameters (the
+        smoothness in the parameters changes along the branch).
+    n_jobs : int
+        Parallel workers for the kernel groups (joblib; -1: all cores).
     """
 
     n_subset: int = 1024
@@ -91,6 +96,8 @@ class GPSettings:
     trend_degree: int = 2
     noise_bounds: tuple = (1e-10, 1e-6)
     seed: int = 0
+    curve_groups: int = 3
+    n_jobs: int = -1
 
 
 def trend_powers(d: int, degree: int) -> np.ndarray:
@@ -135,17 +142,51 @@ def _trend_matrix(x, powers):
     return F
 
 
-def _groups(index, slices, n_out):
-    """Kernel groups: one per scalar, one per curve (contiguous output blocks)."""
+def _groups(index, slices, n_out, curve_groups=1):
+    """Kernel groups: one per scalar and ``curve_groups`` per curve (contiguous output blocks)."""
     bounds = [0]
     for i in range(len(index)):
         bounds.append(i + 1)
     for a, b in slices:
         if bounds[-1] != a:
-            bounds.append(a)
-        bounds.append(int(b))
+            bounds.append(int(a))
+        edges = np.linspace(a, b, curve_groups + 1).round().astype(int)
+        bounds.extend(int(e) for e in edges[1:])
     assert bounds[-1] == n_out
     return np.array(bounds, dtype=np.int64)
+
+
+def _fit_group(x, R, sub, settings, d):
+    """Hyperparameters (on the subset) and weights (on all points) of one kernel group."""
+    import warnings
+
+    from sklearn.exceptions import ConvergenceWarning
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+    t0 = time.perf_counter()
+    kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5),
+                                                       length_scale_bounds=(1e-3, 1e3), nu=2.5) \
+        + WhiteKernel(1e-8, settings.noise_bounds)
+    gpr = GaussianProcessRegressor(kernel, n_restarts_optimizer=settings.n_restarts,
+                                   random_state=settings.seed, normalize_y=False)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ConvergenceWarning)
+        gpr.fit(x[sub], R[sub])
+    k = gpr.kernel_
+    amp2 = float(k.k1.k1.constant_value)
+    length = np.atleast_1d(k.k1.k2.length_scale).astype(float)
+    noise = float(k.k2.noise_level)
+    K = _matern_matrix(x, length, amp2)
+    K[np.diag_indices_from(K)] += noise + 1e-10 * amp2
+    try:
+        cf = scipy.linalg.cho_factor(K, lower=True, check_finite=False)
+    except np.linalg.LinAlgError:
+        raise np.linalg.LinAlgError(
+            f"GP kernel on {len(x)} points is not positive definite; "
+            "remove duplicate parameter rows or raise the nugget bounds.") from None
+    alpha = scipy.linalg.cho_solve(cf, R, check_finite=False)
+    return length, amp2, noise, alpha, time.perf_counter() - t0, [str(w.message) for w in caught]
 
 
 def _space_filling_subset(x, n, seed):
@@ -165,8 +206,10 @@ def _space_filling_subset(x, n, seed):
 def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     """Fit Gaussian processes: polynomial trend plus one Matern-5/2 kernel per output group.
 
-    Each scalar output has its own kernel; all nodes of a curve share one
-    kernel (so one kernel evaluation serves a whole curve).  Hyperparameters
+    Each scalar output has its own kernel; the nodes of a curve are split
+    into ``curve_groups`` blocks along ``u`` that share a kernel each (one
+    kernel evaluation serves a whole block).  The groups are fitted in
+    parallel (joblib).  Hyperparameters
     (amplitude, one length scale per parameter, a small nugget) maximise the
     marginal likelihood on a space-filling subset, with restarts
     (scikit-learn's GaussianProcessRegressor); the weights then solve the
@@ -176,10 +219,6 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     -------
     meta_extra : dict, arrays : dict
     """
-    from sklearn.exceptions import ConvergenceWarning
-    from sklearn.gaussian_process import GaussianProcessRegressor
-    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
-
     Y, index, slices = data.output_matrix()
     arrays = _common_arrays(data, Y, slices)
     x = (data.theta - arrays["lo"]) / (arrays["hi"] - arrays["lo"])
@@ -190,53 +229,32 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     resid = Z - F @ coef
     rscale = np.where(resid.std(axis=0) > 0, resid.std(axis=0), 1.0)
     R = resid / rscale
-    bounds = _groups(index, slices, Z.shape[1])
+    bounds = _groups(index, slices, Z.shape[1], settings.curve_groups)
     sub = _space_filling_subset(x, settings.n_subset, settings.seed)
     n_g = len(bounds) - 1
     d = x.shape[1]
-    length = np.empty((n_g, d))
-    amp2 = np.empty(n_g)
-    noise = np.empty(n_g)
-    alpha = np.empty_like(R)
-    timings = []
-    boundary_hits = []
-    for g in range(n_g):
-        a, b = bounds[g], bounds[g + 1]
-        t0 = time.perf_counter()
-        kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5),
-                                                           length_scale_bounds=(1e-3, 1e3), nu=2.5) \
-            + WhiteKernel(1e-8, settings.noise_bounds)
-        gpr = GaussianProcessRegressor(kernel, n_restarts_optimizer=settings.n_restarts,
-                                       random_state=settings.seed, normalize_y=False)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", ConvergenceWarning)
-            gpr.fit(x[sub], R[sub, a:b])
-        for w in caught:
-            boundary_hits.append(f"group {g}: {w.message}")
-        k = gpr.kernel_
-        amp2[g] = k.k1.k1.constant_value
-        length[g] = np.atleast_1d(k.k1.k2.length_scale)
-        noise[g] = k.k2.noise_level
-        K = _matern_matrix(x, length[g], amp2[g])
-        K[np.diag_indices_from(K)] += noise[g] + 1e-10 * amp2[g]
-        try:
-            cf = scipy.linalg.cho_factor(K, lower=True, check_finite=False)
-        except np.linalg.LinAlgError:
-            raise np.linalg.LinAlgError(
-                f"GP kernel of output group {g} on {len(x)} points is not positive definite; "
-                "remove duplicate parameter rows or raise the nugget bounds.") from None
-        alpha[:, a:b] = scipy.linalg.cho_solve(cf, R[:, a:b], check_finite=False)
-        timings.append(time.perf_counter() - t0)
-        if log:
-            log(f"  GP group {g + 1}/{n_g} (outputs {a}..{b - 1}): length scales "
-                f"{np.array2string(length[g], precision=3)}, amplitude {np.sqrt(amp2[g]):.3g}, "
-                f"nugget {noise[g]:.2g}, {timings[-1]:.1f} s")
+    from joblib import Parallel, delayed
+
+    results = Parallel(n_jobs=settings.n_jobs)(
+        delayed(_fit_group)(x, R[:, bounds[g]:bounds[g + 1]], sub, settings, d) for g in range(n_g)
+    )
+    length = np.array([r[0] for r in results])
+    amp2 = np.array([r[1] for r in results])
+    noise = np.array([r[2] for r in results])
+    alpha = np.concatenate([r[3] for r in results], axis=1)
+    timings = [r[4] for r in results]
+    boundary_hits = [f"group {g}: {msg}" for g, r in enumerate(results) for msg in r[5]]
+    if log:
+        for g, r in enumerate(results):
+            log(f"  GP group {g + 1}/{n_g} (outputs {bounds[g]}..{bounds[g + 1] - 1}): length scales "
+                f"{np.array2string(r[0], precision=3)}, amplitude {np.sqrt(r[1]):.3g}, nugget {r[2]:.2g}, "
+                f"{r[4]:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=coef * 1.0, X=x, alpha=alpha, group_bounds=bounds,
                   length=length, amp2=amp2, noise=noise, resid_scale=rscale)
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
     arrays["trend_coef"] = coef
     arrays["alpha"] = alpha * rscale
-    extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts,
+    extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts, "curve_groups": settings.curve_groups,
                     "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
                     "group_bounds": bounds.tolist(), "fit_seconds": timings,
                     "optimizer_warnings": boundary_hits}}

@@ -1,0 +1,202 @@
+"""``tovforge grid refine``: add exact solves where the GP is least certain, retrain."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from . import _runtime as rt
+from ._check import check
+from ._dataset import read_training_data, training_data_from_arrays
+from ._fit import GPSettings, TrainingData
+from ._model import Surrogate
+from ._train import train_on
+
+__all__ = ["refine", "RefineResult", "select_points"]
+
+#: Scales that make the predictive sigmas of different outputs comparable: the
+#: accuracy goals (M_max 0.002 Msun, R 10 m, ln Lambda 0.005).
+_SIGMA_SCALES = {"mass_max_msun": 0.002, "radius_km": 0.010, "log_tidal_deformability": 0.005}
+
+
+@dataclass(frozen=True)
+class RefineResult:
+    """Outcome of :func:`refine`.
+
+    Attributes
+    ----------
+    model : Surrogate
+        The retrained model.
+    added : ndarray (n_added, d)
+        The parameters that were solved.
+    points_path : Path
+        Grid file with the added exact solves.
+    learning_curve : list of dict
+        Training size and held-out p95 errors, before and after (if a
+        held-out grid was given).
+    """
+
+    model: Surrogate
+    added: np.ndarray
+    points_path: Path
+    learning_curve: list
+
+
+def _score(model: Surrogate, theta: np.ndarray) -> np.ndarray:
+    """Largest predictive sigma over M_max, the radius and ln Lambda nodes, in units of the goals."""
+    m = model._m
+    sd = rt.output_std(np, m, theta)
+    idx = model.meta["outputs"]["index"]
+    score = sd[:, idx["mass_max_msun"]] / _SIGMA_SCALES["mass_max_msun"]
+    for name in ("radius_km", "log_tidal_deformability"):
+        a, b = rt._curve_slice(m, name)
+        score = np.maximum(score, sd[:, a:b].max(axis=1) / _SIGMA_SCALES[name])
+    # points whose M_max is far below the floor matter less to users
+    mm = rt.outputs(np, m, theta)[0][:, idx["mass_max_msun"]]
+    floor = model.meta["outputs"]["mass_floor_msun"]
+    return np.where(mm >= floor - 0.1, score, 0.1 * score)
+
+
+def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed: int = 0) -> np.ndarray:
+    """Choose ``budget`` parameter points where the GP's sigma is largest.
+
+    Candidates are a scrambled Sobol sample of the box (valid points only);
+    after each choice the scores of nearby candidates are damped by
+    ``1 - exp(-(d / l)^2)``, with ``l`` the typical training-point spacing, so
+    that one batch spreads over the regions of large uncertainty.
+    """
+    from scipy.stats import qmc
+
+    from .. import eos
+
+    if model.kind != "gp":
+        raise InputError(f"grid refine needs a Gaussian-process model (its sigma); this model is {model.kind}.")
+    if budget < 1:
+        raise InputError(f"--budget must be at least 1. Got {budget}.")
+    fam = eos.get_family(model.family)
+    lo, hi = model.arrays["lo"], model.arrays["hi"]
+    cand = qmc.scale(qmc.Sobol(len(lo), seed=seed).random(n_candidates), lo, hi)
+    cand = cand[[not msg for msg in fam.validate_rows(cand)]]
+    scores = np.concatenate([_score(model, c) for c in np.array_split(cand, max(1, len(cand) // 512))])
+    x = (cand - lo) / (hi - lo)
+    spacing = (1.0 / max(model.meta["training"]["n_train"], 1)) ** (1.0 / len(lo))
+    chosen = []
+    for _ in range(min(budget, len(cand))):
+        i = int(np.argmax(scores))
+        chosen.append(i)
+        d2 = np.sum((x - x[i]) ** 2, axis=1)
+        scores = scores * (1.0 - np.exp(-d2 / (2.0 * spacing) ** 2))
+        scores[i] = -np.inf
+    return cand[np.array(chosen)]
+
+
+def _solve_points(spec, theta, workers=None):
+    """Exact solves of ``theta`` with the grid's spec (parallel chunks)."""
+    import joblib
+
+    from ..grid import ChunkResult, solve_chunk
+
+    chunks = [theta[i:i + spec.chunk_size] for i in range(0, len(theta), spec.chunk_size)]
+    results = joblib.Parallel(n_jobs=workers or -1, batch_size=1)(
+        joblib.delayed(solve_chunk)(spec, c) for c in chunks)
+    return ChunkResult(
+        status=np.concatenate([r.status for r in results]),
+        reason=[s for r in results for s in r.reason],
+        scalars={k: np.concatenate([r.scalars[k] for r in results]) for k in results[0].scalars},
+        curves={k: np.concatenate([r.curves[k] for r in results]) for k in results[0].curves},
+        at_mass={k: np.concatenate([r.at_mass[k] for r in results]) for k in results[0].at_mass},
+    )
+
+
+def _merge(a: TrainingData, b: TrainingData) -> TrainingData:
+    return dataclasses.replace(
+        a,
+        theta=np.vstack([a.theta, b.theta]),
+        scalars={k: np.concatenate([a.scalars[k], b.scalars[k]]) for k in a.scalars},
+        curves={k: np.vstack([a.curves[k], b.curves[k]]) for k in a.curves},
+        regular_shape=None,
+        provenance={**a.provenance, "refinement_points": int(len(b.theta))},
+    )
+
+
+def _p95_row(model, holdout):
+    rep = check(model, holdout).report
+    return {"n_train": model.meta["training"]["n_train"],
+            "mass_max_p95": rep["errors"]["mass_max_msun"]["abs_p95"],
+            "radius_p95_km": rep["errors"]["radius_km_at_mass"]["abs_p95"],
+            "lambda_rel_p95": rep["errors"]["tidal_deformability_at_mass"]["rel_p95"]}
+
+
+def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
+           workers=None, log=None) -> RefineResult:
+    """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
+
+    Parameters
+    ----------
+    model : Surrogate
+        A GP model trained by ``tovforge train`` (its training grid must exist).
+    budget : int
+        Exact solves to add.
+    out : path
+        Folder of the retrained model; the added solves go to
+        ``out/refinement-points.h5`` (same layout as a grid).
+    holdout : path, optional
+        Held-out grid: the errors before and after are measured and stored in
+        the model as its learning curve.
+    """
+    from ..grid import DesignSpec, parse_spec, read_grid
+    from ..grid._store import write_grid
+
+    tr = model.meta["training"]
+    grid_path = tr.get("grid_path")
+    if not grid_path or not Path(grid_path).is_file():
+        raise InputError(f"the model's training grid {grid_path!r} is not available; refine needs it.")
+    base = read_training_data(grid_path, family=model.family)
+    want = tr.get("grid_content_sha256", "")
+    if want and base.provenance["grid_content_sha256"] != want:
+        raise InputError(f"{grid_path}: the training grid changed since the model was trained "
+                         "(content hash differs); retrain first.")
+    for extra in tr.get("refinement_grids", []):
+        base = _merge(base, read_training_data(extra, family=model.family))
+    g = read_grid(grid_path)
+    spec = parse_spec(json.loads(g.attrs["spec_json"]))
+    added = select_points(model, budget, n_candidates, seed)
+    if log:
+        log(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
+    result = _solve_points(spec, added, workers)
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    points_path = out / "refinement-points.h5"
+    rspec = dataclasses.replace(
+        spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
+        description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
+                    f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
+    write_grid(points_path, rspec, added, result, {"refinement_of": str(grid_path),
+                                                   "refinement_of_sha256": tr.get("grid_content_sha256", "")})
+    new = training_data_from_arrays(
+        path=points_path, family_name=model.family, parameter_names=model.parameter_names,
+        parameter_units=tuple(model.meta["parameter_units"]), box=model.bounds, theta=added,
+        status=result.status, scalars=result.scalars, curves=result.curves, u_nodes=spec.outputs.u_nodes,
+        attrs={"mass_max_floor_msun": spec.mass_max_floor_msun})
+    data = _merge(base, new)
+    gp = tr.get("gp", {})
+    settings = GPSettings(n_subset=gp.get("n_subset", 1024), n_restarts=gp.get("n_restarts", 2),
+                          trend_degree=gp.get("trend_degree", 2), curve_groups=gp.get("curve_groups", 3))
+    if log:
+        log(f"retraining on {len(data.theta)} points")
+    new_model = train_on(data, "gp", settings, log=log)
+    new_model.meta["training"]["refinement_grids"] = list(tr.get("refinement_grids", [])) + [str(points_path)]
+    curve = list(model.meta.get("learning_curve", []))
+    if holdout is not None:
+        if not curve:
+            curve.append(_p95_row(model, holdout))
+        curve.append(_p95_row(new_model, holdout))
+        new_model.meta["learning_curve"] = curve
+        new_model.meta["learning_curve_holdout"] = str(holdout)
+    new_model.save(out)
+    return RefineResult(new_model, added, points_path, curve)

@@ -1,0 +1,94 @@
+"""Surrogate fits: interpolation, an analytic function, save/load."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.stats import qmc
+
+from surrogate_helpers import BOX, synthetic, truth
+from tovforge import surrogate
+from tovforge.surrogate import GPSettings, train_on
+from tovforge.surrogate import _runtime as rt
+
+
+def _all_outputs(model, theta):
+    y, _, _ = rt.outputs(np, model._m, theta)
+    return y
+
+
+def _truth_matrix(theta):
+    s, c = truth(theta)
+    return np.hstack([s["mass_max_msun"][:, None], s["log10_central_pressure_at_mass_max"][:, None],
+                      s["max_sound_speed_sq"][:, None], c["radius_km"], c["log_tidal_deformability"],
+                      c["log_moment_of_inertia"]])
+
+
+@pytest.mark.parametrize("shape", [None, (5, 4, 4, 4)])
+def test_spline_reproduces_its_training_points(shape):
+    """RBF (scattered) and tensor-product splines (regular) interpolate their data."""
+    data = synthetic(300, regular_shape=shape)
+    model = train_on(data, "spline")
+    assert model.kind == ("tensor" if shape else "rbf")
+    np.testing.assert_allclose(_all_outputs(model, data.theta), _truth_matrix(data.theta), rtol=1e-8, atol=1e-8)
+
+
+def test_gp_reproduces_a_smooth_function_on_held_out_points():
+    """A GP on 256 Sobol points reproduces the analytic outputs at 200 other points to 1e-3 relative."""
+    model = train_on(synthetic(256), "gp", GPSettings(n_subset=128, n_restarts=0, curve_groups=2, n_jobs=1))
+    test = qmc.scale(qmc.LatinHypercube(4, seed=7).random(200), BOX[:, 0], BOX[:, 1])
+    np.testing.assert_allclose(_all_outputs(model, test), _truth_matrix(test), rtol=1e-3)
+
+
+def test_queries_go_through_u_and_the_maximum():
+    """radius(theta, M) is the node curve at u = sqrt(1 - M / M_max); NaN above M_max and outside the box."""
+    data = synthetic(300)
+    model = train_on(data, "spline")
+    theta = data.theta[:3]
+    mmax = model.mass_max(theta)
+    masses = np.array([1.0, 1.2])
+    r = model.radius(theta, masses)
+    u = np.sqrt(1.0 - masses[None, :] / mmax[:, None])
+    expect = 11.0 + 2.0 * ((theta[:, :1] - 34.0)) + 1.5 * u**2 + 0.3 * np.sin(3.0 * u + (theta[:, 1:2] - 2.0) / 2.0)
+    np.testing.assert_allclose(r, expect, rtol=1e-5)
+    assert np.all(np.isnan(model.radius(theta, mmax.max() + 0.01)))
+    outside = theta[0].copy()
+    outside[1] = 4.5
+    assert np.isnan(model.mass_max(outside)[0]) and not model.in_domain(outside)[0]
+    assert model.predict(outside).out_of_box[0]
+
+
+@pytest.mark.parametrize("kind", ["gp", "spline"])
+def test_save_then_load_gives_identical_predictions(tmp_path, kind):
+    settings = GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1)
+    model = train_on(synthetic(128), kind, settings)
+    model.save(tmp_path / "m")
+    again = surrogate.load(tmp_path / "m")
+    theta = qmc.scale(qmc.Sobol(4, seed=3).random(32), BOX[:, 0], BOX[:, 1])
+    masses = np.array([1.1, 1.7])
+    for fn in ("radius", "tidal_deformability", "moment_of_inertia", "k2"):
+        np.testing.assert_array_equal(getattr(model, fn)(theta, masses), getattr(again, fn)(theta, masses))
+    a, b = model.predict(theta, return_std=True), again.predict(theta, return_std=True)
+    np.testing.assert_array_equal(a.radius_km, b.radius_km)
+    for k in a.std:
+        np.testing.assert_array_equal(a.std[k], b.std[k])
+
+
+def test_gradients_match_finite_differences():
+    """Analytic d/dtheta against central differences (step 1e-4 of the box: the GP weights are
+    large, so smaller steps are dominated by rounding)."""
+    model = train_on(synthetic(200), "gp", GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1))
+    theta = np.array([[34.4, 3.1, 2.2, 3.0]])
+    for fn in ("radius", "tidal_deformability", "k2"):
+        val, grad = getattr(model, fn)(theta, [1.3], return_grad=True)
+        for i in range(4):
+            step = 1e-4 * (BOX[i, 1] - BOX[i, 0])
+            tp, tm = theta.copy(), theta.copy()
+            tp[0, i] += step
+            tm[0, i] -= step
+            fd = (getattr(model, fn)(tp, [1.3]) - getattr(model, fn)(tm, [1.3])) / (2 * step)
+            assert grad[0, 0, i] == pytest.approx(fd[0, 0], rel=1e-4, abs=1e-7 * abs(val[0, 0]))
+    mm, g = model.mass_max(theta, return_grad=True)
+    step = 1e-4 * (BOX[1, 1] - BOX[1, 0])
+    fd = (model.mass_max(theta + [0, step, 0, 0]) - model.mass_max(theta - [0, step, 0, 0])) / (2 * step)
+    assert g.shape == (1, 4) and g[0, 1] == pytest.approx(fd[0], rel=1e-4)
