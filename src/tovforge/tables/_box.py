@@ -403,7 +403,7 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
         if not np.array_equal(theta, expected):  # pragma: no cover - a broken invariant, not user input
             raise RuntimeError("grid points differ from the box table's points")
         values = {"status": h5["status/code"][...][perm].astype(np.int64)}
-        grid_masses = [float(m) for m in h5["at_mass/masses_msun"][...]] if "at_mass" in h5 else []
+        grid_masses = [float(m) for m in h5["at_mass/masses_msun"][...]] if "at_mass/masses_msun" in h5 else []
         for q in quantities:
             if QUANTITIES[q].per_mass:
                 data = h5["at_mass"][_GRID_AT_MASS[q]][...][perm]

@@ -211,7 +211,15 @@ def box_cmd(
         return box_table(out, model, axes, fixed, qs, ms, sigma=not no_sigma, progress=not quiet,
                          command=_command())
 
-    _finish(_run(work))
+    try:
+        summary = _run(work)
+    except KeyboardInterrupt:
+        if exact is None:
+            raise
+        typer.echo(f"\ninterrupted: finished chunks are kept in {out}.grid.h5.parts; rerun the same command "
+                   "to resume.", err=True)
+        raise typer.Exit(code=130) from None
+    _finish(summary)
 
 
 # ---------------------------------------------------------------------------

@@ -127,3 +127,25 @@ def test_exact_box_checks_the_allowed_range(tmp_path):
         exact_box_table(tmp_path / "e.csv", "piecewise-polytrope", [Axis("gamma1", 0.5, 3.0, 2)],
                         {"log_p1": 34.4, "gamma2": 3, "gamma3": 3}, progress=False)
 
+
+
+def test_rerunning_an_exact_box_reuses_its_grid(tmp_path, monkeypatch):
+    """The work grid's spec depends on the box alone, so the same call finds it finished (or resumes its chunks)."""
+    from tovforge.grid import _run
+
+    axes = [Axis("gamma1", 2.8, 3.2, 2)]
+    fixed = {"log_p1": 34.4, "gamma2": 3.0, "gamma3": 3.0}
+    exact_box_table(tmp_path / "e.csv", "piecewise-polytrope", axes, fixed, ["mass_max"], workers=1,
+                    progress=False, keep_grid=True)
+    first = read_table(tmp_path / "e.csv")
+
+    def no_solving(*args, **kwargs):
+        raise AssertionError("the finished work grid was solved again")
+
+    monkeypatch.setattr(_run, "_execute", no_solving)
+    exact_box_table(tmp_path / "e.csv", "piecewise-polytrope", axes, fixed, ["mass_max"], workers=1,
+                    progress=False)
+    second = read_table(tmp_path / "e.csv")
+    assert not (tmp_path / "e.csv.grid.h5").exists()  # used as it was, then removed
+    np.testing.assert_array_equal(first["mass_max"], second["mass_max"])
+    assert first.meta["grid_content_sha256"] == second.meta["grid_content_sha256"]
