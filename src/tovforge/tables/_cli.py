@@ -41,7 +41,7 @@ def _floats(text: str, option: str) -> list[float]:
 
 
 def _number(text: str, what: str) -> float:
-    """One finite number (the CLI's own number parsing, with its messages)."""
+    """One finite number, parsed by the CLI's number parser."""
     try:
         values = _floats(text, what)
     except InputError:
@@ -102,15 +102,13 @@ def parse_range(text: str, option: str, lo: float, hi: float, open_lo: bool = Tr
 
 
 def _finish(summary) -> None:
-    """Print the summary; rows left out are an input error (exit 2) after the rest was written."""
+    """Print the summary; bad input found on the way (rows left out) is exit 2, after the rest was written."""
     for note in summary.notes:
-        if "rows left out" not in note:
-            typer.echo(note)
+        typer.echo(note)
     typer.echo(f"wrote {summary.n_rows} rows x {len(summary.columns)} columns to {summary.path} "
                f"in {summary.seconds:.1f} s")
-    left_out = [n for n in summary.notes if "rows left out" in n]
-    if left_out:
-        typer.echo(f"error: {left_out[0]}", err=True)
+    if summary.error:
+        typer.echo(f"error: {summary.error}", err=True)
         raise typer.Exit(code=2)
 
 

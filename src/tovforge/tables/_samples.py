@@ -265,7 +265,8 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     Returns
     -------
     TableSummary
-        ``skipped`` lists the rows left out; the table holds the others.
+        ``skipped`` lists the rows left out and ``error`` says so in one line;
+        the table holds the other rows.
     """
     from ..surrogate import Surrogate, load
 
@@ -318,11 +319,9 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     if plot is not None:
         _plot_band(plot, model, data.theta, masses, store.get("mass_max"), label)
         notes.append(f"plot: {plot}")
-    skipped = data.bad
-    if skipped:
-        notes.append(skipped_text(skipped, data.n_rows, samples, out))
+    error = skipped_text(data.bad, data.n_rows, samples, out) if data.bad else ""
     return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0, tuple(notes),
-                        skipped)
+                        data.bad, error)
 
 
 def _write_band(path, store, quantities, masses, n, meta):

@@ -128,6 +128,9 @@ class TableSummary:
         One-line remarks for the user (masses above M_max, failed points, ...).
     skipped : tuple of (int, str)
         Input rows left out, with the reason (samples tables; 1-based row numbers).
+    error : str
+        One line describing bad input found while the table was made (rows left
+        out); empty if none.  The table holds everything else.
     """
 
     path: Path
@@ -136,6 +139,7 @@ class TableSummary:
     seconds: float
     notes: tuple = ()
     skipped: tuple = ()
+    error: str = ""
 
 
 def table_format(path) -> str:

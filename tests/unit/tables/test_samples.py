@@ -123,7 +123,7 @@ def test_samples_table_holds_the_model_values(samples_run):
         for j, m in enumerate(["1.2", "1.4", "2.2"]):
             np.testing.assert_allclose(t[f"{name}@{m}"], ref[:, j], rtol=1e-12)
     assert summary.skipped == ((10, "NaN or infinite value: log_p1 = nan"),)
-    assert "1 of 60 rows left out" in summary.notes[-1] and "row 10" in summary.notes[-1]
+    assert summary.error.startswith(f"{tmp / 'post.csv'}: 1 of 60 rows left out") and "in row 10 (" in summary.error
     assert t.meta["samples_rows"] == 60 and t.meta["samples_skipped"] == 1
 
 
