@@ -190,15 +190,17 @@ _SEQUENCE_COLUMNS = [
 ]
 
 
-def _format_table(stars, columns=_SEQUENCE_COLUMNS) -> str:
-    heads = [h for _, h, _ in columns]
-    rows = []
-    for i in range(len(stars)):
-        rows.append([fmt.format(float(getattr(stars, key)[i])) for key, _, fmt in columns])
-    widths = [max(len(h), *(len(r[j]) for r in rows)) if rows else len(h) for j, h in enumerate(heads)]
+def _aligned(heads, rows) -> str:
+    """Right-aligned text columns under their headings."""
+    widths = [max([len(h)] + [len(r[j]) for r in rows]) for j, h in enumerate(heads)]
     lines = ["  ".join(h.rjust(w) for h, w in zip(heads, widths))]
     lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in rows]
     return "\n".join(lines)
+
+
+def _format_table(stars, columns=_SEQUENCE_COLUMNS) -> str:
+    rows = [[fmt.format(float(getattr(stars, key)[i])) for key, _, fmt in columns] for i in range(len(stars))]
+    return _aligned([h for _, h, _ in columns], rows)
 
 
 def write_stars_csv(path: Path, stars, comment: str, columns=_SEQUENCE_COLUMNS) -> None:
@@ -208,6 +210,10 @@ def write_stars_csv(path: Path, stars, comment: str, columns=_SEQUENCE_COLUMNS) 
         fh.write(",".join(h for _, h, _ in columns) + "\n")
         for i in range(len(stars)):
             fh.write(",".join(repr(float(getattr(stars, k)[i])) for k, _, _ in columns) + "\n")
+
+
+_JSON_STAR_KEYS = ("mass_msun", "radius_km", "tidal_deformability", "k2", "moment_of_inertia_1e45_g_cm2",
+                   "baryon_mass_msun")
 
 
 def sequence_json(seq) -> dict:
@@ -225,34 +231,11 @@ def sequence_json(seq) -> dict:
             "max_sound_speed_sq": mm.max_sound_speed_sq if mm else None,
         },
         "at_mass": [],
-        "sequence": {
-            k: getattr(seq.branch, k)
-            for k in (
-                "mass_msun",
-                "radius_km",
-                "tidal_deformability",
-                "k2",
-                "moment_of_inertia_1e45_g_cm2",
-                "baryon_mass_msun",
-                "central_pressure_dyn_cm2",
-            )
-        },
+        "sequence": {k: getattr(seq.branch, k) for k in _JSON_STAR_KEYS + ("central_pressure_dyn_cm2",)},
     }
     if seq.at_mass is not None:
-        for i in range(len(seq.at_mass)):
-            out["at_mass"].append(
-                {
-                    k: float(getattr(seq.at_mass, k)[i])
-                    for k in (
-                        "mass_msun",
-                        "radius_km",
-                        "tidal_deformability",
-                        "k2",
-                        "moment_of_inertia_1e45_g_cm2",
-                        "baryon_mass_msun",
-                    )
-                }
-            )
+        out["at_mass"] = [{k: float(getattr(seq.at_mass, k)[i]) for k in _JSON_STAR_KEYS}
+                          for i in range(len(seq.at_mass))]
     return _jsonable(out)
 
 
@@ -338,10 +321,7 @@ def _profile_text(prof) -> str:
             prof.rest_mass_density_g_cm3, prof.alpha, prof.y]
     fmts = ["{:.5f}", "{:.6f}", "{:.5e}", "{:.5e}", "{:.5e}", "{:.6f}", "{:.6f}"]
     rows = [[f.format(float(c[i])) for f, c in zip(fmts, cols)] for i in range(len(prof.radius_km))]
-    widths = [max(len(h), *(len(r[j]) for r in rows)) for j, h in enumerate(heads)]
-    lines = ["  ".join(h.rjust(w) for h, w in zip(heads, widths))]
-    lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in rows]
-    return "\n".join(lines)
+    return _aligned(heads, rows)
 
 
 def _summary_text(seq) -> str:
