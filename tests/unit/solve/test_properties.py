@@ -8,7 +8,8 @@ from hypothesis import strategies as st
 
 from tovforge import eos, solve
 
-_SETTINGS = settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+# derandomize: CI sees the same examples on every run (a failure is reproducible, never flaky)
+_SETTINGS = settings(max_examples=12, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
 
 
 def _theta_strategy(family):
