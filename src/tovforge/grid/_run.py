@@ -103,7 +103,7 @@ def _utc_now() -> str:
     return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
-class _Progress:
+class Progress:
     """A one-line progress bar on stderr: points done, rate and ETA.
 
     On a terminal the line is redrawn in place; otherwise (logs, CI) a line
@@ -351,7 +351,7 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
         done = _finished_chunks(parts, spec)
         todo = [k for k in range(spec.n_chunks) if k not in done]
         n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
-        bar = _Progress(spec.n_points, int(n_done), out.name, stream=stream, enabled=progress)
+        bar = Progress(spec.n_points, int(n_done), out.name, stream=stream, enabled=progress)
         try:
             for k, result in _execute(spec, theta, todo, workers, client):
                 start, stop = spec.chunk_bounds(k)

@@ -16,6 +16,8 @@ from ._sequence import (
     solve_at_masses,
     solve_sequence,
     solve_sequences,
+    solve_stars,
+    stars_at_masses,
 )
 from ._star import central_enthalpy, solve_star
 from ._structure import StepSettings, SurfaceValues, integrate_stars
@@ -38,5 +40,7 @@ __all__ = [
     "solve_at_masses",
     "solve_sequence",
     "solve_sequences",
+    "solve_stars",
+    "stars_at_masses",
     "tidal_deformability",
 ]

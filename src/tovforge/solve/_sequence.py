@@ -48,6 +48,7 @@ __all__ = [
     "solve_sequence",
     "solve_at_masses",
     "max_sound_speed_sq",
+    "solve_stars",
     "stars_at_masses",
 ]
 
@@ -753,6 +754,31 @@ def _sequence_from_batch(eos, res: SequenceBatch, r: int, masses) -> StarSequenc
 def _expand(stars: Stars) -> Stars:
     """Give 1-D fields a trailing axis so that rows are length-1 arrays."""
     return Stars(**{k: np.asarray(v)[:, None] for k, v in stars.as_dict().items()})
+
+
+def solve_stars(eos, central_pseudo_enthalpy, steps: StepSettings | None = None) -> Stars:
+    """Stars of one EOS at given central pseudo-enthalpies (any order, one call).
+
+    Parameters
+    ----------
+    eos : tovforge.eos.EOS
+    central_pseudo_enthalpy : array_like, shape (n,)
+        ``h_c`` of each star, in (0, h_max of the EOS].
+    steps : StepSettings, optional
+
+    Returns
+    -------
+    Stars
+        NaN rows where the integration failed.
+    """
+    h_c = np.atleast_1d(np.asarray(central_pseudo_enthalpy, float))
+    if np.any(~np.isfinite(h_c)) or np.any(h_c <= 0) or np.any(h_c > eos.h_max):
+        from ..errors import InputError
+
+        raise InputError(f"central_pseudo_enthalpy must be in (0, {eos.h_max:g}] for this EOS.")
+    idx = np.zeros(h_c.size, dtype=np.intp)
+    sv, _ = _solve(eos.batch, idx, h_c, steps or StepSettings())
+    return _stars(eos.batch, idx, h_c, sv)
 
 
 def solve_at_masses(sequence: StarSequence, masses, settings: SequenceSettings | None = None) -> Stars:

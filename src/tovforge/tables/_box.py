@@ -167,9 +167,9 @@ def plan_box(names, units, axes, fixed, allowed=None, where: str = "") -> BoxPla
 
 
 def _progress(total: int, label: str, enabled: bool, stream=None):
-    from ..grid._run import _Progress  # the grid's progress bar, so both look alike
+    from ..grid import Progress  # the grid's progress bar, so both look alike
 
-    return _Progress(total, 0, label, stream=stream, enabled=enabled)
+    return Progress(total, 0, label, stream=stream, enabled=enabled)
 
 
 def _check_masses(quantities, masses) -> tuple:

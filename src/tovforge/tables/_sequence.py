@@ -76,12 +76,10 @@ def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.n
 
 
 def _stars_at_enthalpies(eos, h_c, steps):
-    # the solver's own surface-to-Stars conversion, so every column matches `tovforge solve`
-    from ..solve._sequence import _solve, _stars
+    # the solver's own conversion to Stars, so every column matches `tovforge solve`
+    from ..solve import solve_stars
 
-    idx = np.zeros(h_c.size, dtype=np.intp)
-    sv, _ = _solve(eos.batch, idx, h_c, steps)
-    return _stars(eos.batch, idx, h_c, sv)
+    return solve_stars(eos, h_c, steps)
 
 
 def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
