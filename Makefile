@@ -4,7 +4,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-stamp
 
-.PHONY: demo test test-all bench grids install clean
+.PHONY: demo test test-all bench grids export install clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -37,6 +37,26 @@ GRIDS := demo-train demo-holdout
 grids: $(STAMP)
 	rm -f $(GRIDS:%=grids/%.h5)
 	for g in $(GRIDS); do $(BIN)/tovforge grid run grids/$$g.toml --out grids/$$g.h5 --overwrite || exit $$?; done
+
+## make export: the demo evaluators exported/demo_{gp,spline}.py: train on grids/demo-train.h5 when the
+## model in build/models is missing or older than the grid, check on grids/demo-holdout.h5, export
+MODELS := build/models
+EXPORTED := exported/demo_gp.py exported/demo_spline.py
+export: $(EXPORTED)
+	@ls -l $(EXPORTED)
+
+# keep the trained models and reports between runs (make deletes intermediate files otherwise)
+.PRECIOUS: $(MODELS)/%/model.json $(MODELS)/%/check/report.json
+
+$(MODELS)/%/model.json: grids/demo-train.h5 | $(STAMP)
+	$(BIN)/tovforge train grids/demo-train.h5 --kind $* --out $(MODELS)/$*
+
+$(MODELS)/%/check/report.json: $(MODELS)/%/model.json grids/demo-holdout.h5
+	$(BIN)/tovforge check $(MODELS)/$* --holdout grids/demo-holdout.h5 --report $(MODELS)/$*/check
+
+exported/demo_%.py: $(MODELS)/%/model.json $(MODELS)/%/check/report.json src/tovforge/surrogate/_runtime.py \
+		src/tovforge/export/_evaluator.py src/tovforge/export/_codegen.py
+	$(BIN)/tovforge export $(MODELS)/$* --out $@ --report $(MODELS)/$*/check/report.json
 
 clean:
 	rm -rf $(VENV) build src/*.egg-info .pytest_cache .hypothesis

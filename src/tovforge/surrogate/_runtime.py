@@ -102,11 +102,15 @@ def _trend(xp, m, x, grad):
 
 
 def _matern(xp, diffs, length, amp2, grad):
-    """Matern-5/2 kernel rows k(x, X) (n, N) from the column differences ``diffs``.
+    """Matern-5/2 kernel rows k(x, X) of every kernel group at once, (G, n, N).
 
-    With ``grad``, also the d arrays (n, N) of dk/dx_i.
+    ``diffs``: the d column differences (n, N); ``length`` (G, d); ``amp2`` (G,).
+    With ``grad``, also the d arrays (G, n, N) of dk/dx_i.  All groups in one
+    array: a dozen array operations per call instead of a dozen per group.
     """
-    scaled = [diffs[i] / length[i] for i in range(len(diffs))]
+    G = length.shape[0]
+    scaled = [diffs[i][None, :, :] / xp.reshape(length[:, i], (G, 1, 1)) for i in range(len(diffs))]
+    amp2 = xp.reshape(amp2, (G, 1, 1))
     r2 = scaled[0] * scaled[0]
     for s in scaled[1:]:
         r2 = r2 + s * s
@@ -117,7 +121,7 @@ def _matern(xp, diffs, length, amp2, grad):
     if grad:
         # dk/dx_i = -amp2 (5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
         c = (-amp2 * (5.0 / 3.0)) * ((1.0 + SQRT5 * r) * e)
-        dk = [c * (scaled[i] / length[i]) for i in range(len(diffs))]
+        dk = [c * (scaled[i] / xp.reshape(length[:, i], (G, 1, 1))) for i in range(len(diffs))]
     return k, dk
 
 
@@ -182,7 +186,8 @@ def standardised_outputs(xp, m, x, grad=False):
     dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
     kind = m["kind"]
     if kind in ("gp", "rbf"):
-        kz, kdz = _chunked(xp, _kernel_part, x, m["X"].shape[0], m, grad)
+        per_row = m["X"].shape[0] * (m["length"].shape[0] if kind == "gp" else 1)
+        kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad)
         z = z + kz
         if grad:
             dz = dz + kdz
@@ -215,13 +220,13 @@ def _kernel_part(xp, x, m, grad):
         phi, dphi = _polyharmonic_columns(xp, diffs, grad)
         return phi @ m["alpha"], (xp.stack([c @ m["alpha"] for c in dphi], axis=-1) if grad else None)
     parts, dparts = [], []
+    k, dk = _matern(xp, diffs, m["length"], m["amp2"], grad)
     for g in range(m["length"].shape[0]):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
-        k, dk = _matern(xp, diffs, m["length"][g], m["amp2"][g], grad)
         alpha = m["alpha"][:, a:b]
-        parts.append(k @ alpha)
+        parts.append(k[g] @ alpha)
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
-            dparts.append(xp.stack([c @ alpha for c in dk], axis=-1))
+            dparts.append(xp.stack([c[g] @ alpha for c in dk], axis=-1))
     return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
 
 

@@ -1,0 +1,105 @@
+"""Benchmark section ``export``: the exported evaluators beside the exact solver."""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from .._bench import demo_box_points, register, timeit_median
+
+DEMO_FILES = ("demo_gp.py", "demo_spline.py")
+
+
+def _exported_dir() -> Path:
+    return Path(__file__).resolve().parents[3] / "exported"
+
+
+def _import(path: Path, name: str):
+    spec = importlib.util.spec_from_file_location(name, path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    sys.modules.pop(name, None)
+    return mod
+
+
+def _tensor_demo(folder: Path):
+    """A tensor-spline evaluator on a synthetic 8^4 regular grid of the demo box (the demo grid is scattered)."""
+    import itertools
+
+    from ..surrogate import TrainingData, train_on
+    from . import export_model
+
+    box = np.array([[34.0, 35.0], [2.0, 4.0], [1.5, 4.0], [1.5, 4.0]])
+    x = np.array(list(itertools.product(*[np.linspace(0.0, 1.0, 8)] * 4)))
+    u = 0.85 * 0.5 * (1.0 - np.cos(np.pi * np.arange(24) / 23))
+    c = x[:, :1]
+    data = TrainingData(
+        family="piecewise-polytrope", parameter_names=("log_p1", "gamma1", "gamma2", "gamma3"),
+        parameter_units=("log10(dyn/cm^2)", "1", "1", "1"), bounds=box, theta=box[:, 0] + x * (box[:, 1] - box[:, 0]),
+        scalars={"mass_max_msun": 2.0 + 0.4 * x[:, 0] + 0.1 * x[:, 1],
+                 "log10_central_pressure_at_mass_max": 35.5 - 0.3 * x[:, 0],
+                 "max_sound_speed_sq": 0.5 + 0.2 * x[:, 1]},
+        u_nodes=u, curves={"radius_km": 11.0 + c + u**2, "log_tidal_deformability": 1.0 + c + 6.0 * u,
+                           "log_moment_of_inertia": 0.8 + 0.2 * c - 1.5 * u**2},
+        regular_shape=(8, 8, 8, 8), provenance={"grid_path": "synthetic"})
+    path = folder / "bench_tensor.py"
+    export_model(train_on(data, "spline"), path, namespaces=("numpy",))
+    return _import(path, "bench_tensor")
+
+
+@register("export")
+def bench_export(quick: bool = False, echo=print) -> None:
+    """Latency for one theta and throughput for 10^4 theta of the exported files, beside the exact solver."""
+    from .. import eos
+    from ..solve import solve_sequence
+
+    family = "piecewise-polytrope"
+    fam = eos.get_family(family)
+    n_eos = 2 if quick else 5
+    repeat = 3 if quick else 7
+    theta_s = demo_box_points(family, n_eos, seed=11)
+    eoses = [fam.from_array(t) for t in theta_s]
+    solve_sequence(eoses[0])
+    t_exact = float(np.median([timeit_median(lambda E=E: solve_sequence(E), repeat) for E in eoses]))
+
+    evaluators = []
+    for name in DEMO_FILES:
+        path = _exported_dir() / name
+        if path.is_file():
+            evaluators.append((f"{name} ({path.stat().st_size / 1e6:.2f} MB)", _import(path, f"bench_{path.stem}")))
+        else:
+            echo(f"{path} is missing (run `make export`); skipped")
+    tmp = tempfile.TemporaryDirectory()
+    evaluators.append(("tensor splines, synthetic 8^4 grid", _tensor_demo(Path(tmp.name))))
+
+    n_batch = 2_000 if quick else 10_000
+    theta_b = demo_box_points(family, n_batch, seed=12)
+    one = theta_b[0]
+    echo(f"exact solver (solve_sequence, 100 stars + M_max, one EOS per call): {t_exact * 1e3:.1f} ms per EOS "
+         f"(median of {n_eos} EOS)")
+    echo(f"one theta: median of {30 if quick else 200} calls; batch: {n_batch} theta of the demo {family} box, "
+         "one call")
+    echo("")
+    head = (f"{'evaluator':<38}{'curve us':>10}{'radius us':>11}{'batch radius/s':>16}{'batch curve/s':>15}"
+            f"{'speed-up 1':>12}{'speed-up N':>12}")
+    echo(head)
+    reps = 30 if quick else 200
+    for label, mod in evaluators:
+        mod.curve(one, n=100)
+        t_curve = timeit_median(lambda: mod.curve(one, n=100), reps)
+        t_radius = timeit_median(lambda: mod.radius(one, 1.4), reps)
+        t_batch = timeit_median(lambda: mod.radius(theta_b, 1.4), 1 if quick else 3)
+        t_bcurve = timeit_median(lambda: mod.curve(theta_b, n=100), 1 if quick else 2)
+        echo(f"{label:<38}{t_curve * 1e6:>10.0f}{t_radius * 1e6:>11.0f}{n_batch / t_batch:>16.3g}"
+             f"{n_batch / t_bcurve:>15.3g}{t_exact / t_curve:>12.3g}{t_exact / (t_bcurve / n_batch):>12.3g}")
+    tmp.cleanup()
+    echo("")
+    echo("curve: mass, radius and Lambda at 100 points of the stable branch; radius: R at 1.4 Msun.")
+    echo("speed-up 1: exact solve time / one-theta curve time; speed-up N: per theta in the batched curve call.")
+    echo("floors: <= 1000 us for one theta, >= 1e4 theta/s batched; goals: <= 50 us (spline), <= 300 us (GP), "
+         ">= 1e6 theta/s (spline).")
