@@ -100,16 +100,22 @@ def _namespace(*args):
     return _NUMPY
 
 
+def _on(like):
+    """``device=`` of ``like`` for array creation (nothing for arrays without one, as in NumPy 1.x)."""
+    device = getattr(like, "device", None)
+    return {} if device is None else {"device": device}
+
+
 def _model(xp, like):
     """The model arrays in namespace ``xp`` on the device of ``like`` (converted once, then cached)."""
     if xp is _NUMPY or xp is np:
         return _M
-    device = getattr(like, "device", None)
-    key = (id(xp), str(device))
+    on = _on(like)
+    key = (id(xp), str(on))
     m = _MODEL_CACHE.get(key)
     if m is None:
-        m = {k: (v if (k in _STATIC or not isinstance(v, np.ndarray)) else
-                 xp.asarray(v, dtype=xp.float64, device=device)) for k, v in _M.items()}
+        m = {k: (v if (k in _STATIC or not isinstance(v, np.ndarray)) else xp.asarray(v, dtype=xp.float64, **on))
+             for k, v in _M.items()}
         _MODEL_CACHE[key] = m
     return m
 
@@ -157,7 +163,7 @@ def _require_on_branch(xp, value, mass, mmax):
 
 def _masses(xp, mass, n, like):
     """Masses broadcast to (n, q), and the shape of the answer per theta row."""
-    mass = xp.asarray(mass, dtype=xp.float64, device=getattr(like, "device", None))
+    mass = xp.asarray(mass, dtype=xp.float64, **_on(like))
     if mass.ndim == 0:
         return xp.broadcast_to(xp.reshape(mass, (1, 1)), (n, 1)), ()
     if mass.ndim == 1:
@@ -309,7 +315,7 @@ def curve(theta, n=100, strict=False):
     y, inside, _ = outputs(xp, m, t)
     if strict:
         _require_inside(xp, t, inside)
-    frac = 1.0 - (_U_MAX * xp.linspace(1.0, 0.0, n, dtype=xp.float64, device=getattr(t, "device", None))) ** 2
+    frac = 1.0 - (_U_MAX * xp.linspace(1.0, 0.0, n, dtype=xp.float64, **_on(t))) ** 2
     masses = y[:, _I_MASS_MAX][:, None] * frac[None, :]
     R = curve_at_mass(xp, m, y, None, None, masses, "radius_km")[0]
     L = curve_at_mass(xp, m, y, None, None, masses, "tidal_deformability")[0]
