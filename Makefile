@@ -18,7 +18,7 @@ install: $(STAMP)
 
 ## make demo: install, then run the demo pipeline and print what each stage does
 demo: $(STAMP)
-	$(BIN)/tovforge solve piecewise-polytrope log_p1=34.384 gamma1=3.005 gamma2=2.988 gamma3=2.851 --masses 1.0,1.4,2.0 --stars 40
+	$(BIN)/tovforge demo --out demo-output
 
 ## make test: install with test extras and run the test suite (slow tests excluded)
 test: $(STAMP)

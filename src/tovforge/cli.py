@@ -33,6 +33,7 @@ def _register_subcommands() -> None:
     from .surrogate._cli import check_cmd, refine_cmd, train_cmd
     from .export._cli import export_cmd
     from .tables._cli import table_app
+    from .demo._cli import demo_cmd
 
     grid_app.command("refine")(refine_cmd)
     app.add_typer(grid_app, name="grid")
@@ -40,6 +41,7 @@ def _register_subcommands() -> None:
     app.command("train")(train_cmd)
     app.command("check")(check_cmd)
     app.command("export")(export_cmd)
+    app.command("demo")(demo_cmd)
 
 
 def _fail(message: str) -> None:

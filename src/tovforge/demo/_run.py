@@ -1,0 +1,556 @@
+"""The end-to-end demo: grids -> surrogates -> check -> export -> a Bayesian fit with the exported file.
+
+Every stage calls the library (no shelling out) and prints what it does; the
+figures, tables and ``summary.md`` land in one output folder.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime
+import importlib.util
+import json
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..errors import InputError
+from ..surrogate import GPSettings
+
+__all__ = ["DemoSettings", "DemoResult", "run_demo", "import_evaluator", "BAND_MASSES"]
+
+#: Masses of the posterior bands (Msun).
+BAND_MASSES = tuple(float(m) for m in np.round(np.arange(1.0, 2.401, 0.05), 2))
+KINDS = ("gp", "spline")
+
+
+@dataclass(frozen=True)
+class DemoSettings:
+    """What the demo runs, and how long.
+
+    Attributes
+    ----------
+    train_spec, holdout_spec : Path
+        Grid specs (TOML).  Each grid file is the spec's path with ``.h5``; an
+        existing file of the same spec is reused, otherwise it is built.
+    n_train : int or None
+        Train on the first ``n_train`` usable points only (None: all).
+    gp : GPSettings
+        Hyperparameter search of the Gaussian process.
+    sampler_model : {"spline", "gp"}
+        Which exported evaluator the sampler calls.
+    n_walkers, n_steps, n_burn : int
+        Ensemble size, steps per walker, and steps discarded as burn-in.
+    n_cross_check : int
+        Posterior samples re-solved with the exact solver.
+    data : Path or None
+        Observations file (None: the invented data shipped with the package).
+    mass_low_msun, n_mass, n_mass_ratio
+        Likelihood grids (see :class:`tovforge.demo.Posterior`).
+    band_masses : tuple of float
+        Masses of the posterior bands, in Msun.
+    seed : int
+    workers : int or None
+        Worker processes for grid building (None: all cores).
+    progress : bool
+        Progress bars while building grids.
+    """
+
+    train_spec: Path = Path("grids/demo-train.toml")
+    holdout_spec: Path = Path("grids/demo-holdout.toml")
+    n_train: int | None = None
+    gp: GPSettings = field(default_factory=lambda: GPSettings(n_subset=512, n_restarts=0))
+    sampler_model: str = "spline"
+    n_walkers: int = 32
+    n_steps: int = 1500
+    n_burn: int = 500
+    n_cross_check: int = 300
+    data: Path | None = None
+    mass_low_msun: float = 1.0
+    n_mass: int = 65
+    n_mass_ratio: int = 33
+    band_masses: tuple = BAND_MASSES
+    seed: int = 20260301
+    workers: int | None = None
+    progress: bool = True
+
+    @classmethod
+    def quick(cls, **changes) -> "DemoSettings":
+        """A smoke run of about a minute: 512 training points, a short chain."""
+        base = dict(n_train=512, gp=GPSettings(n_subset=128, n_restarts=0), n_steps=400, n_burn=150,
+                    n_cross_check=100)
+        return cls(**{**base, **changes})
+
+    def check(self) -> None:
+        """Raise InputError for settings that cannot work."""
+        if self.sampler_model not in KINDS:
+            raise InputError(f"--sampler must be one of {', '.join(KINDS)}; got {self.sampler_model!r}.")
+        if self.n_train is not None and self.n_train < 16:
+            raise InputError(f"n_train must be at least 16. Got {self.n_train}.")
+        if self.n_cross_check < 2:
+            raise InputError(f"--cross-check must be at least 2. Got {self.n_cross_check}.")
+        for key in ("n_mass", "n_mass_ratio"):
+            v = getattr(self, key)
+            if v < 3 or v % 2 == 0:
+                raise InputError(f"{key} must be odd and at least 3 (Simpson's rule). Got {v}.")
+
+
+@dataclass(frozen=True)
+class DemoResult:
+    """What :func:`run_demo` produced.
+
+    Attributes
+    ----------
+    out : Path
+    files : dict of str to Path
+        Every output file by role (``summary``, ``corner``, ``mass_radius``, ...).
+    numbers : dict
+        The measured numbers also written to ``summary.json``.
+    failures : tuple of str
+        Stages that failed without stopping the demo (for example an export).
+    """
+
+    out: Path
+    files: dict
+    numbers: dict
+    failures: tuple = ()
+
+
+def import_evaluator(path, name: str | None = None):
+    """Import an exported evaluator file as a module (without touching ``sys.path``)."""
+    path = Path(path)
+    name = name or f"_tovforge_demo_{path.stem}"
+    spec = importlib.util.spec_from_file_location(name, path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def _median_seconds(fn, repeat: int) -> float:
+    fn()  # warm caches before measuring
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def _interval(x) -> tuple[float, float, float]:
+    lo, med, hi = np.quantile(np.asarray(x, float), [0.05, 0.5, 0.95])
+    return float(med), float(lo), float(hi)
+
+
+def _subset(data, n):
+    """The first ``n`` rows of training data (a Sobol prefix stays space-filling)."""
+    if n is None or n >= len(data.theta):
+        return data
+    return dataclasses.replace(
+        data, theta=data.theta[:n], scalars={k: v[:n] for k, v in data.scalars.items()},
+        curves={k: v[:n] for k, v in data.curves.items()}, regular_shape=None)
+
+
+def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print) -> DemoResult:
+    """Run the whole demo and write its outputs into ``out``.
+
+    Parameters
+    ----------
+    out : path-like
+        Output folder (created).
+    settings : DemoSettings, optional
+    echo : callable
+        Receives every line the demo prints.
+
+    Returns
+    -------
+    DemoResult
+
+    Raises
+    ------
+    tovforge.errors.InputError
+        For bad settings, specs or observations (checked before the long stages).
+    """
+    from ..export import ExportError, export_model
+    from ..grid import load_spec, read_grid, run_grid
+    from ..surrogate import read_training_data, train_on
+    from ..surrogate._check import check
+    from ..tables import read_table, samples_table
+    from ._crosscheck import cross_check
+    from ._likelihood import ExactModel, Posterior
+    from ._observations import load_observations
+    from ._plots import band_plot, corner_plot, trace_plot
+    from ._sampler import run_chain
+
+    s = settings or DemoSettings()
+    s.check()
+    t_start = time.perf_counter()
+    out = Path(out)
+    # read everything the user supplied before the long stages
+    obs = load_observations(s.data)
+    specs = {"train": load_spec(s.train_spec), "holdout": load_spec(s.holdout_spec)}
+    out.mkdir(parents=True, exist_ok=True)
+    files: dict = {}
+    numbers: dict = {"tovforge_version": __version__, "settings": {}, "stages_seconds": {}}
+    failures: list[str] = []
+    stage_t = time.perf_counter()
+    n_stages = 8
+
+    def stage(k: int, name: str, what: str) -> None:
+        nonlocal stage_t
+        now = time.perf_counter()
+        echo("")
+        echo(f"[{k}/{n_stages}] {name}: {what}")
+        stage_t = now
+
+    def done(name: str) -> None:
+        numbers["stages_seconds"][name] = time.perf_counter() - stage_t
+        echo(f"  ({name} took {numbers['stages_seconds'][name]:.1f} s)")
+
+    echo(f"tovforge {__version__} demo -> {out}/")
+    echo(f"observations: {obs.path}")
+    if obs.note:
+        echo(f"  NOTE: {obs.note}")
+
+    # -- 1. grids ---------------------------------------------------------------------------
+    stage(1, "grids", "exact solves over the EOS box (reused when the file of the same spec exists)")
+    grid_paths = {}
+    for role, spec_path in (("train", s.train_spec), ("holdout", s.holdout_spec)):
+        spec = specs[role]
+        gpath = Path(spec_path).with_suffix(".h5")
+        summary = run_grid(spec, gpath, workers=s.workers, progress=s.progress)
+        ok = summary.status_counts.get(0, 0)
+        how = "reused" if summary.already_complete else f"built in {summary.seconds:.1f} s"
+        echo(f"  {role:<8}{gpath}: {spec.n_points} points ({spec.design.method}), {ok} solved, {how}; "
+             f"spec {spec.sha256[:12]}")
+        grid_paths[role] = gpath
+    g_train = read_grid(grid_paths["train"])
+    names = list(g_train.parameter_names)
+    numbers["grids"] = {r: str(p) for r, p in grid_paths.items()}
+    done("grids")
+
+    # -- 2. training --------------------------------------------------------------------------
+    gp = s.gp
+    stage(2, "train", f"Gaussian process (hyperparameters on {gp.n_subset} points, {gp.n_restarts} restarts, "
+                      f"{gp.curve_groups} kernels per curve) and spline (r^5 RBF or tensor splines)")
+    data = _subset(read_training_data(grid_paths["train"]), s.n_train)
+    models = {}
+    for kind in KINDS:
+        t0 = time.perf_counter()
+        model = train_on(data, kind, gp if kind == "gp" else None, log=None)
+        folder = model.save(out / "models" / kind)
+        models[kind] = model
+        echo(f"  {kind:<7}{model.kind} on {len(data.theta)} points in {time.perf_counter() - t0:.1f} s -> {folder}")
+    numbers["training"] = {"n_train": int(len(data.theta)), "gp_settings": dataclasses.asdict(gp),
+                           "seconds": {k: models[k].meta["training"]["seconds"] for k in KINDS}}
+    done("train")
+
+    # -- 3. check -------------------------------------------------------------------------------
+    stage(3, "check", f"errors against the held-out exact solves of {grid_paths['holdout']}")
+    reports = {}
+    for kind in KINDS:
+        res = check(models[kind], grid_paths["holdout"], out / "check" / kind)
+        reports[kind] = res.report
+        files[f"check_{kind}"] = out / "check" / kind / "report.md"
+        echo(f"  {kind}: report {files[f'check_{kind}']}")
+        for line in res.table().splitlines():
+            echo(f"    {line}")
+    numbers["check"] = {k: {"mass_max_abs_p95_msun": r["errors"]["mass_max_msun"]["abs_p95"],
+                            "radius_abs_p95_km": r["errors"]["radius_km_at_mass"]["abs_p95"],
+                            "radius_abs_median_km": r["errors"]["radius_km_at_mass"]["abs_median"],
+                            "lambda_rel_p95": r["errors"]["tidal_deformability_at_mass"]["rel_p95"]}
+                        for k, r in reports.items()}
+    done("check")
+
+    # -- 4. export ------------------------------------------------------------------------------
+    stage(4, "export", "each model as one NumPy-only Python file (self-checked against the library model)")
+    evaluators = {}
+    numbers["export"] = {}
+    for kind in KINDS:
+        target = out / "evaluators" / f"demo_{kind}.py"
+        try:
+            res = export_model(models[kind], target, reports[kind])
+        except ExportError as exc:
+            failures.append(f"export of the {kind} model: {exc}")
+            echo(f"  {kind}: EXPORT FAILED: {exc}")
+            continue
+        evaluators[kind] = import_evaluator(target, f"_tovforge_demo_{kind}_{id(res)}")
+        files[f"evaluator_{kind}"] = target
+        numbers["export"][kind] = {"path": str(target), "size_bytes": res.size_bytes,
+                                   "max_rel_diff": res.max_rel_diff}
+        echo(f"  {kind}: {target} ({res.size_bytes / 1e6:.2f} MB); differs from the library model by at most "
+             f"{res.max_rel_diff:.1e} (relative)")
+        for ns, verdict in res.namespaces.items():
+            echo(f"    {ns}: {verdict}")
+    if s.sampler_model not in evaluators:
+        raise InputError(f"the {s.sampler_model} evaluator could not be exported, so the fit cannot run: "
+                         f"{failures[-1]}")
+    ev = evaluators[s.sampler_model]
+    done("export")
+
+    # -- 5. fit ---------------------------------------------------------------------------------
+    stage(5, "fit", f"posterior of ({', '.join(names)}) with the exported {s.sampler_model} evaluator, "
+                    f"uniform prior on the box, emcee with {s.n_walkers} walkers x {s.n_steps} steps")
+    for p in obs.pulsars:
+        echo(f"  pulsar {p.name:<20} M = {p.mass_msun:.3f} +- {p.mass_sigma_msun:.3f} Msun, "
+             f"R = {p.radius_km:.2f} +- {p.radius_sigma_km:.2f} km, correlation {p.correlation:+.2f}")
+    for m in obs.mergers:
+        echo(f"  merger {m.name:<20} chirp mass {m.chirp_mass_msun:.4f} Msun, q in [{m.mass_ratio_min:g}, "
+             f"{m.mass_ratio_max:g}], Lambda-tilde = {m.lambda_tilde:g} +- {m.lambda_tilde_sigma:g}")
+    post = Posterior(ev, obs, mass_low_msun=s.mass_low_msun, n_mass=s.n_mass, n_mass_ratio=s.n_mass_ratio)
+    chain = run_chain(post, ev.BOUNDS, n_walkers=s.n_walkers, n_steps=s.n_steps, n_burn=s.n_burn, seed=s.seed,
+                      echo=echo)
+    tau = chain.autocorr_steps
+    echo(f"  {chain.n_evaluations} posterior evaluations in {chain.seconds:.1f} s; acceptance "
+         f"{chain.acceptance_fraction:.2f}; autocorrelation time {np.nanmax(tau):.0f} steps "
+         f"({(s.n_steps - s.n_burn) / np.nanmax(tau):.0f} times shorter than the kept chain); "
+         f"{len(chain.samples)} samples kept (every {chain.thin}th step after {s.n_burn})")
+    if not np.nanmax(tau) * 10 < s.n_steps - s.n_burn:
+        echo("  note: the kept chain is shorter than 10 autocorrelation times: take the intervals as rough")
+    posterior_numbers = {}
+    for i, name in enumerate(names):
+        med, lo, hi = _interval(chain.samples[:, i])
+        posterior_numbers[name] = {"median": med, "p05": lo, "p95": hi}
+        echo(f"  {name:<10} {med:.4g}  (90 %: {lo:.4g} .. {hi:.4g})")
+    samples_csv = out / "posterior_samples.csv"
+    header = ",".join(names) + ",log_posterior"
+    np.savetxt(samples_csv, np.column_stack([chain.samples, chain.log_prob]), delimiter=",", header=header,
+               comments="", fmt="%.17g")
+    files["samples"] = samples_csv
+    # per-sample observables and the band, through the samples tables (same model as the evaluator)
+    tsum = samples_table(out / "posterior_table.csv", models[s.sampler_model], samples_csv,
+                         quantities=("mass_max", "radius", "lambda"), masses=s.band_masses,
+                         band=out / "posterior_band.csv", ignore=("log_posterior",), sigma=False, progress=False,
+                         command="tovforge demo")
+    files["table"], files["band"] = tsum.path, out / "posterior_band.csv"
+    band_t = read_table(files["band"])
+    band_dict = {k: np.asarray(v, float) for k, v in band_t.columns.items()}
+    i14 = int(np.argmin(np.abs(band_dict["mass"] - 1.4)))
+    derived = {"mass_max_msun": {k: float(band_t.meta[f"mass_max_{k}"]) for k in ("median", "p05", "p95")},
+               "radius_1.4_km": {k: float(band_dict[f"radius_{k}"][i14]) for k in ("median", "p05", "p95")},
+               "lambda_1.4": {k: float(band_dict[f"lambda_{k}"][i14]) for k in ("median", "p05", "p95")}}
+    for k, v in derived.items():
+        echo(f"  {k:<14} {v['median']:.4g}  (90 %: {v['p05']:.4g} .. {v['p95']:.4g})")
+    numbers["fit"] = {"sampler_model": s.sampler_model, "n_walkers": s.n_walkers, "n_steps": s.n_steps,
+                      "n_burn": s.n_burn, "thin": chain.thin, "n_samples": int(len(chain.samples)),
+                      "acceptance": chain.acceptance_fraction, "autocorr_steps": tau.tolist(),
+                      "seconds": chain.seconds, "n_evaluations": chain.n_evaluations,
+                      "parameters": posterior_numbers, "derived": derived}
+    done("fit")
+
+    # -- 6. timings -------------------------------------------------------------------------------
+    stage(6, "timing", "one likelihood call with the exported evaluator against exact solves")
+    from ..solve import solve_sequences
+
+    exact_model = ExactModel(ev.FAMILY, ev.BOUNDS)
+    exact_post = Posterior(exact_model, obs, mass_low_msun=s.mass_low_msun, n_mass=s.n_mass,
+                           n_mass_ratio=s.n_mass_ratio)
+    rng = np.random.default_rng(s.seed + 1)
+    pick = rng.choice(len(chain.samples), size=min(s.n_cross_check, len(chain.samples)), replace=False)
+    subset = chain.samples[pick]
+    one = subset[:1]
+    batch = subset[: min(s.n_walkers, len(subset))]
+    t_emu_one = _median_seconds(lambda: post(one), 21)
+    t_emu_batch = _median_seconds(lambda: post(batch), 7)
+    t_exact_one = _median_seconds(lambda: exact_post(one), 2)
+    family = exact_model.family
+    mm_one = ev.mass_max(one)
+    solve_masses = np.concatenate([post.pulsar_masses(mm_one)[0]]
+                                  + [m[0] for m1, m2, _ in post.merger_pairs(mm_one) for m in (m1, m2)])
+    t_solve_one = _median_seconds(lambda: solve_sequences(family.build(one), n_stars=16, masses=solve_masses), 2)
+    timing = {
+        "likelihood_emulated_one_us": t_emu_one * 1e6,
+        "likelihood_emulated_batch_us_per_theta": t_emu_batch / len(batch) * 1e6,
+        "batch_size": int(len(batch)),
+        "likelihood_exact_one_ms": t_exact_one * 1e3,
+        "exact_solve_one_ms": t_solve_one * 1e3,
+        "exact_solve_masses": int(solve_masses.size),
+    }
+    echo(f"  likelihood, exported {s.sampler_model} evaluator: {timing['likelihood_emulated_one_us']:.0f} us per "
+         f"call (one theta); {timing['likelihood_emulated_batch_us_per_theta']:.0f} us per theta in a call of "
+         f"{len(batch)} walkers")
+    echo(f"  exact solve of one EOS (M_max and {solve_masses.size} stars): {timing['exact_solve_one_ms']:.1f} ms")
+    echo(f"  likelihood with exact solves (one theta, three solves): {timing['likelihood_exact_one_ms']:.1f} ms")
+    done("timing")
+
+    # -- 7. cross-check -------------------------------------------------------------------------------
+    stage(7, "cross-check", f"{len(subset)} posterior samples re-solved exactly (batched), "
+                            "bands and likelihoods compared")
+    cc = cross_check(post, exact_post, subset, s.band_masses)
+    n = cc.n_samples
+    timing["likelihood_exact_batch_ms_per_theta"] = cc.exact_seconds / n * 1e3
+    timing["likelihood_emulated_crosscheck_us_per_theta"] = cc.emulated_seconds / n * 1e6
+    timing["exact_solve_batch_ms_per_eos"] = cc.exact_solve_seconds / n * 1e3
+    timing["speedup_one"] = t_exact_one / t_emu_one
+    timing["speedup_batch"] = (cc.exact_seconds / n) / (t_emu_batch / len(batch))
+    stated = reports[s.sampler_model]["errors"]["radius_km_at_mass"]
+    stated_mm = reports[s.sampler_model]["errors"]["mass_max_msun"]
+    worst_band = max(cc.band_distance_km.values())
+    verdict = "inside" if worst_band <= stated["abs_p95"] else "OUTSIDE"
+    echo(f"  exact solves: {timing['exact_solve_batch_ms_per_eos']:.1f} ms per EOS in a batch of {n} "
+         f"(M_max and {len(cc.masses)} stars); exact likelihood {timing['likelihood_exact_batch_ms_per_theta']:.1f}"
+         f" ms per theta in a batch")
+    echo(f"  speed-up of the likelihood: {timing['speedup_one']:.0f}x for one theta, "
+         f"{timing['speedup_batch']:.0f}x per theta in batches")
+    echo(f"  R(M) band, emulated vs exact, largest distance over {int(cc.compared.sum())} masses: "
+         + ", ".join(f"{k} {v * 1000:.1f} m" for k, v in cc.band_distance_km.items()))
+    echo(f"  stated emulator error (held-out p95 of R(M)): {stated['abs_p95'] * 1000:.1f} m -> the band "
+         f"distance is {verdict} it ({worst_band / stated['abs_p95']:.2f} of it)")
+    echo(f"  per sample: |R error| p95 {cc.radius_abs_p95_km * 1000:.1f} m, max {cc.radius_abs_max_km * 1000:.1f} m;"
+         f" |M_max error| p95 {cc.mass_max_abs_p95_msun:.2e} Msun (held-out p95 {stated_mm['abs_p95']:.2e});"
+         f" |log L error| median {cc.log_like_abs_median:.3f}, p95 {cc.log_like_abs_p95:.3f}")
+    numbers["timing"] = timing
+    numbers["cross_check"] = {
+        "n_samples": n, "masses_compared": [float(m) for m in cc.masses[cc.compared]],
+        "band_distance_km": cc.band_distance_km, "stated_radius_abs_p95_km": stated["abs_p95"],
+        "stated_mass_max_abs_p95_msun": stated_mm["abs_p95"], "verdict": verdict,
+        "radius_abs_p95_km": cc.radius_abs_p95_km, "radius_abs_max_km": cc.radius_abs_max_km,
+        "mass_max_abs_p95_msun": cc.mass_max_abs_p95_msun, "mass_max_abs_max_msun": cc.mass_max_abs_max_msun,
+        "log_like_abs_median": cc.log_like_abs_median, "log_like_abs_p95": cc.log_like_abs_p95}
+    done("cross-check")
+
+    # -- 8. figures and summary -------------------------------------------------------------------------
+    stage(8, "figures", "corner plot, M-R and Lambda bands with the observations, chain traces, summary.md")
+    marker, gen_curve = _generator(obs, ev.FAMILY, names)
+    title = (f"{len(chain.samples)} posterior samples, exported {s.sampler_model} evaluator; data: "
+             f"{'INVENTED (demo)' if 'invent' in obs.note.lower() else obs.path.name}")
+    files["corner"] = corner_plot(out / "corner.png", chain.samples, names, ev.BOUNDS, marker, title)
+    exact_band = {"mass": cc.masses, "n": n, **{k: cc.exact[k] for k in ("median", "p05", "p95")}}
+    files["mass_radius"] = band_plot(out / "mass_radius.png", band_dict, exact_band, obs, gen_curve, title)
+    files["trace"] = trace_plot(out / "trace.png", chain.chain, names, s.n_burn)
+    numbers["total_seconds"] = time.perf_counter() - t_start
+    numbers["settings"] = {k: (str(v) if isinstance(v, Path) else v) for k, v in dataclasses.asdict(s).items()}
+    numbers["observations"] = {"path": str(obs.path), "note": obs.note, "names": list(obs.names)}
+    numbers["failures"] = failures
+    files["summary_json"] = out / "summary.json"
+    files["summary"] = out / "summary.md"
+    numbers["stages_seconds"]["figures"] = time.perf_counter() - stage_t
+    numbers["total_seconds"] = time.perf_counter() - t_start
+    files["summary_json"].write_text(json.dumps(numbers, indent=2, default=_jsonable))
+    files["summary"].write_text(_summary_md(numbers, obs, files, out, reports))
+    for k in ("corner", "mass_radius", "trace", "summary"):
+        echo(f"  {files[k]}")
+    echo("")
+    echo(f"demo finished in {numbers['total_seconds']:.0f} s" +
+         (f" with {len(failures)} failure(s): " + "; ".join(failures) if failures else "") + f"; see {files['summary']}")
+    return DemoResult(out, files, numbers, tuple(failures))
+
+
+def _jsonable(x):
+    if isinstance(x, np.ndarray):
+        return x.tolist()
+    if isinstance(x, (np.floating, np.integer)):
+        return x.item()
+    if isinstance(x, Path):
+        return str(x)
+    return str(x)
+
+
+def _generator(obs, family: str, names):
+    """Marker and exact curve of the observations' generating EOS, when it is of the model's family."""
+    gen = dict(obs.generator)
+    if not gen or gen.get("family") != family:
+        return None, None
+    from ..eos import make
+    from ..solve import solve_sequence
+
+    params = {k: v for k, v in gen.items() if k != "family"}
+    seq = solve_sequence(make(family, **params), n_stars=100)
+    if not seq.success:
+        return None, None
+    b = seq.branch
+    return np.array([params[n] for n in names], float), (b.mass_msun, b.radius_km, b.tidal_deformability)
+
+
+def _rel(path: Path, out: Path) -> str:
+    try:
+        return str(Path(path).relative_to(out))
+    except ValueError:
+        return str(path)
+
+
+def _summary_md(nb: dict, obs, files: dict, out: Path, reports: dict) -> str:
+    fit, tm, cc = nb["fit"], nb["timing"], nb["cross_check"]
+    tr = nb["training"]
+    gp = tr["gp_settings"]
+    lines = [
+        "# tovforge demo", "",
+        f"tovforge {nb['tovforge_version']}, {datetime.datetime.now(datetime.timezone.utc):%Y-%m-%d %H:%M} UTC, "
+        f"Python {sys.version.split()[0]}; total wall time {nb['total_seconds']:.0f} s.", "",
+    ]
+    if "invent" in obs.note.lower():
+        lines += ["**The observations are INVENTED for this demo** (`" + _rel(obs.path, out) + "`): "
+                  f"{obs.note}", ""]
+    else:
+        lines += [f"Observations: `{obs.path}`. {obs.note}", ""]
+    lines += [
+        "## Stages", "",
+        "| stage | what | wall time |", "|---|---|---|",
+        f"| grids | {nb['grids']['train']} (training), {nb['grids']['holdout']} (held out) | "
+        f"{nb['stages_seconds']['grids']:.1f} s |",
+        f"| train | GP (hyperparameters on {gp['n_subset']} points, {gp['n_restarts']} restarts, "
+        f"{gp['curve_groups']} kernels per curve) and spline, on {tr['n_train']} points | "
+        f"{nb['stages_seconds']['train']:.1f} s |",
+        f"| check | held-out errors, reports: [gp]({_rel(files['check_gp'], out)}), "
+        f"[spline]({_rel(files['check_spline'], out)}) | {nb['stages_seconds']['check']:.1f} s |",
+        "| export | " + ", ".join(f"[{k}]({_rel(Path(v['path']), out)}) ({v['size_bytes'] / 1e6:.1f} MB)"
+                                for k, v in nb["export"].items()) + f" | {nb['stages_seconds']['export']:.1f} s |",
+        f"| fit | emcee, {fit['n_walkers']} walkers x {fit['n_steps']} steps ({fit['n_burn']} burn-in), exported "
+        f"{fit['sampler_model']} evaluator | {nb['stages_seconds']['fit']:.1f} s |",
+        f"| timing | likelihood with the evaluator and with exact solves | {nb['stages_seconds']['timing']:.1f} s |",
+        f"| cross-check | {cc['n_samples']} posterior samples re-solved exactly | "
+        f"{nb['stages_seconds']['cross-check']:.1f} s |",
+        f"| figures | corner, bands, traces, this summary | {nb['stages_seconds']['figures']:.1f} s |",
+        "",
+    ]
+    if nb["failures"]:
+        lines += ["**Failures:**", ""] + [f"- {f}" for f in nb["failures"]] + [""]
+    lines += ["## Emulator error (held-out exact solves, 95th percentile)", "",
+              "| model | M_max [Msun] | R(M) [m] | Lambda(M) [relative] |", "|---|---|---|---|"]
+    for k, c in nb["check"].items():
+        lines.append(f"| {k} | {c['mass_max_abs_p95_msun']:.2e} | {c['radius_abs_p95_km'] * 1000:.1f} | "
+                     f"{c['lambda_rel_p95']:.2%} |")
+    lines += ["", "## Observations", "", "| object | kind | values |", "|---|---|---|"]
+    for p in obs.pulsars:
+        lines.append(f"| {p.name} | mass-radius | M = {p.mass_msun:g} +- {p.mass_sigma_msun:g} Msun, "
+                     f"R = {p.radius_km:g} +- {p.radius_sigma_km:g} km, correlation {p.correlation:g} |")
+    for m in obs.mergers:
+        lines.append(f"| {m.name} | merger | chirp mass {m.chirp_mass_msun:g} Msun, q in [{m.mass_ratio_min:g}, "
+                     f"{m.mass_ratio_max:g}], Lambda-tilde = {m.lambda_tilde:g} +- {m.lambda_tilde_sigma:g} |")
+    lines += ["", "## Posterior (median and 90 % interval)", "", "| quantity | median | 5 % | 95 % |", "|---|---|---|---|"]
+    for name, v in list(fit["parameters"].items()) + list(fit["derived"].items()):
+        lines.append(f"| {name} | {v['median']:.4g} | {v['p05']:.4g} | {v['p95']:.4g} |")
+    lines += ["", f"Acceptance {fit['acceptance']:.2f}; autocorrelation time {max(fit['autocorr_steps']):.0f} steps; "
+              f"{fit['n_samples']} samples kept (every {fit['thin']}th step after the burn-in): "
+              f"[posterior_samples.csv]({_rel(files['samples'], out)}), "
+              f"[posterior_table.csv]({_rel(files['table'], out)}), [posterior_band.csv]({_rel(files['band'], out)}).",
+              "", "## Speed (measured in this run)", "",
+              "| | one theta | per theta in a batch |", "|---|---|---|",
+              f"| likelihood, exported {fit['sampler_model']} evaluator | {tm['likelihood_emulated_one_us']:.0f} us | "
+              f"{tm['likelihood_emulated_batch_us_per_theta']:.0f} us ({tm['batch_size']} walkers per call) |",
+              f"| likelihood, exact solves | {tm['likelihood_exact_one_ms']:.1f} ms | "
+              f"{tm['likelihood_exact_batch_ms_per_theta']:.1f} ms ({cc['n_samples']} per call) |",
+              f"| exact solve of one EOS | {tm['exact_solve_one_ms']:.1f} ms (M_max + {tm['exact_solve_masses']} stars) | "
+              f"{tm['exact_solve_batch_ms_per_eos']:.1f} ms (M_max + {len(nb['settings']['band_masses'])} stars) |",
+              f"| speed-up of the likelihood | {tm['speedup_one']:.0f}x | {tm['speedup_batch']:.0f}x |", "",
+              "## Cross-check: exact re-solve of posterior samples", "",
+              f"{cc['n_samples']} posterior samples were solved again with the exact solver.  Largest distance "
+              f"between the emulated and the exact R(M) band over the masses {cc['masses_compared'][0]:g} to "
+              f"{cc['masses_compared'][-1]:g} Msun:" if cc["masses_compared"] else "no mass had enough samples:",
+              "",
+              "| band line | distance [m] |", "|---|---|"]
+    for k, v in cc["band_distance_km"].items():
+        lines.append(f"| {k} | {v * 1000:.1f} |")
+    lines += ["", f"Stated emulator error (held-out p95 of R(M), {fit['sampler_model']}): "
+              f"{cc['stated_radius_abs_p95_km'] * 1000:.1f} m: the band distance is **{cc['verdict']}** it.  "
+              f"Per sample: |R error| p95 {cc['radius_abs_p95_km'] * 1000:.1f} m (max "
+              f"{cc['radius_abs_max_km'] * 1000:.1f} m), |M_max error| p95 {cc['mass_max_abs_p95_msun']:.2e} Msun, "
+              f"|log-likelihood error| median {cc['log_like_abs_median']:.3f} and p95 {cc['log_like_abs_p95']:.3f}.",
+              "", "## Figures", "",
+              f"![posterior]({_rel(files['corner'], out)})", "",
+              f"![bands]({_rel(files['mass_radius'], out)})", "",
+              f"![traces]({_rel(files['trace'], out)})", ""]
+    return "\n".join(lines)
