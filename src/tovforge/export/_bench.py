@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import importlib.util
-import sys
 import tempfile
 import time
 from pathlib import Path
@@ -11,6 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from .._bench import demo_box_points, register, timeit_median
+from ._codegen import _import_file
 
 DEMO_FILES = ("demo_gp.py", "demo_spline.py")
 
@@ -19,37 +18,66 @@ def _exported_dir() -> Path:
     return Path(__file__).resolve().parents[3] / "exported"
 
 
-def _import(path: Path, name: str):
-    spec = importlib.util.spec_from_file_location(name, path)
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    sys.modules.pop(name, None)
-    return mod
+def synthetic_training_data(points_per_axis: int = 8):
+    """A smooth, plausible stable branch on a regular grid of the demo box (TrainingData).
+
+    For tensor-product splines, which need a regular design (the demo grid is
+    scattered): the bench times them, and the export tests use them.
+    """
+    import itertools
+
+    from ..surrogate import TrainingData
+
+    box = np.array([[34.0, 35.0], [2.0, 4.0], [1.5, 4.0], [1.5, 4.0]])
+    x = np.array(list(itertools.product(*[np.linspace(0.0, 1.0, points_per_axis)] * 4)))  # C order
+    n_u = 24
+    u = 0.85 * 0.5 * (1.0 - np.cos(np.pi * np.arange(n_u) / (n_u - 1)))
+    x0, x1, x2, x3 = (x[:, i : i + 1] for i in range(4))
+    scalars = {
+        "mass_max_msun": 2.0 + 0.4 * x0[:, 0] + 0.2 * x1[:, 0] - 0.1 * x2[:, 0] * x3[:, 0],
+        "log10_central_pressure_at_mass_max": 35.5 - 0.3 * x0[:, 0] + 0.05 * x1[:, 0] ** 2,
+        "max_sound_speed_sq": 0.5 + 0.2 * x1[:, 0] + 0.1 * np.sin(2.0 * x2[:, 0]),
+    }
+    curves = {
+        "radius_km": 10.5 + 1.5 * x0 - 0.5 * x1 + 0.3 * x2 * x3 + (1.2 + 0.2 * x0) * u**2 + 0.1 * u * x1,
+        "log_tidal_deformability": 1.0 + 0.4 * x0 + (6.0 + 0.5 * x1) * u + 0.2 * u**2 * x3,
+        "log_moment_of_inertia": 0.8 + 0.2 * x0 - 1.5 * u**2 + 0.05 * x2 * u,
+    }
+    return TrainingData(family="piecewise-polytrope", parameter_names=("log_p1", "gamma1", "gamma2", "gamma3"),
+                        parameter_units=("log10(dyn/cm^2)", "1", "1", "1"), bounds=box,
+                        theta=box[:, 0] + x * (box[:, 1] - box[:, 0]), scalars=scalars, u_nodes=u, curves=curves,
+                        mass_floor_msun=1.0, regular_shape=(points_per_axis,) * 4,
+                        provenance={"grid_path": "synthetic", "grid_content_sha256": "synthetic"})
 
 
 def _tensor_demo(folder: Path):
-    """A tensor-spline evaluator on a synthetic 8^4 regular grid of the demo box (the demo grid is scattered)."""
-    import itertools
-
-    from ..surrogate import TrainingData, train_on
+    """A tensor-spline evaluator on the synthetic 8^4 regular grid."""
+    from ..surrogate import train_on
     from . import export_model
 
-    box = np.array([[34.0, 35.0], [2.0, 4.0], [1.5, 4.0], [1.5, 4.0]])
-    x = np.array(list(itertools.product(*[np.linspace(0.0, 1.0, 8)] * 4)))
-    u = 0.85 * 0.5 * (1.0 - np.cos(np.pi * np.arange(24) / 23))
-    c = x[:, :1]
-    data = TrainingData(
-        family="piecewise-polytrope", parameter_names=("log_p1", "gamma1", "gamma2", "gamma3"),
-        parameter_units=("log10(dyn/cm^2)", "1", "1", "1"), bounds=box, theta=box[:, 0] + x * (box[:, 1] - box[:, 0]),
-        scalars={"mass_max_msun": 2.0 + 0.4 * x[:, 0] + 0.1 * x[:, 1],
-                 "log10_central_pressure_at_mass_max": 35.5 - 0.3 * x[:, 0],
-                 "max_sound_speed_sq": 0.5 + 0.2 * x[:, 1]},
-        u_nodes=u, curves={"radius_km": 11.0 + c + u**2, "log_tidal_deformability": 1.0 + c + 6.0 * u,
-                           "log_moment_of_inertia": 0.8 + 0.2 * c - 1.5 * u**2},
-        regular_shape=(8, 8, 8, 8), provenance={"grid_path": "synthetic"})
     path = folder / "bench_tensor.py"
-    export_model(train_on(data, "spline"), path, namespaces=("numpy",))
-    return _import(path, "bench_tensor")
+    export_model(train_on(synthetic_training_data(8), "spline"), path, namespaces=("numpy",))
+    return _import_file(path, "bench_tensor")
+
+
+def _jax_rows(evaluators, theta_b, quick, echo) -> None:
+    """The same files under jax.jit, when JAX is installed (not a dependency)."""
+    try:
+        import jax
+    except ImportError:
+        echo(f"{'(JAX not installed: no jax.jit rows)':<38}")
+        return
+    previous = jax.config.jax_enable_x64
+    jax.config.update("jax_enable_x64", True)
+    try:
+        t = jax.numpy.asarray(theta_b)
+        for label, mod in evaluators[:2]:
+            fn = jax.jit(lambda th, mod=mod: mod.radius(th, 1.4))
+            fn(t).block_until_ready()
+            sec = timeit_median(lambda: fn(t).block_until_ready(), 1 if quick else 3)
+            echo(f"{'  same under jax.jit ' + label.split(' ')[0]:<38}{'':>10}{'':>11}{len(theta_b) / sec:>16.3g}")
+    finally:
+        jax.config.update("jax_enable_x64", previous)
 
 
 @register("export")
@@ -71,7 +99,7 @@ def bench_export(quick: bool = False, echo=print) -> None:
     for name in DEMO_FILES:
         path = _exported_dir() / name
         if path.is_file():
-            evaluators.append((f"{name} ({path.stat().st_size / 1e6:.2f} MB)", _import(path, f"bench_{path.stem}")))
+            evaluators.append((f"{name} ({path.stat().st_size / 1e6:.2f} MB)", _import_file(path, f"bench_{path.stem}")))
         else:
             echo(f"{path} is missing (run `make export`); skipped")
     tmp = tempfile.TemporaryDirectory()
@@ -98,6 +126,7 @@ def bench_export(quick: bool = False, echo=print) -> None:
         echo(f"{label:<38}{t_curve * 1e6:>10.0f}{t_radius * 1e6:>11.0f}{n_batch / t_batch:>16.3g}"
              f"{n_batch / t_bcurve:>15.3g}{t_exact / t_curve:>12.3g}{t_exact / (t_bcurve / n_batch):>12.3g}")
     tmp.cleanup()
+    _jax_rows(evaluators, theta_b, quick, echo)
     echo("")
     echo("curve: mass, radius and Lambda at 100 points of the stable branch; radius: R at 1.4 Msun.")
     echo("speed-up 1: exact solve time / one-theta curve time; speed-up N: per theta in the batched curve call.")

@@ -411,9 +411,13 @@ def _validated(model):
 
 
 def _import_file(path: Path, name: str):
+    """Import a generated file as module ``name`` without leaving it in sys.modules."""
     spec = importlib.util.spec_from_file_location(name, path)
     mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+    try:
+        spec.loader.exec_module(mod)
+    finally:
+        sys.modules.pop(name, None)
     return mod
 
 
@@ -535,11 +539,7 @@ _MASSES = (1.0, 1.4, 2.0)
 
 def _self_check(model, path: Path) -> float:
     """Import the new file and compare every query with the library model; return the worst difference."""
-    name = f"_tovforge_export_probe_{os.getpid()}"
-    try:
-        mod = _import_file(path, name)
-    finally:
-        sys.modules.pop(name, None)
+    mod = _import_file(path, f"_tovforge_export_probe_{os.getpid()}")
     theta = check_points(model.bounds, _SELF_CHECK_POINTS)
     gp = model.kind == "gp"
     pairs = [(mod.mass_max(theta, return_grad=True, return_std=gp),

@@ -109,19 +109,25 @@ def _matern(xp, diffs, length, amp2, grad):
     array: a dozen array operations per call instead of a dozen per group.
     """
     G = length.shape[0]
-    scaled = [diffs[i][None, :, :] / xp.reshape(length[:, i], (G, 1, 1)) for i in range(len(diffs))]
+    lengths = [xp.reshape(length[:, i], (G, 1, 1)) for i in range(len(diffs))]
     amp2 = xp.reshape(amp2, (G, 1, 1))
-    r2 = scaled[0] * scaled[0]
-    for s in scaled[1:]:
+    s = diffs[0][None, :, :] / lengths[0]
+    scaled = [s]  # kept only for the gradient (memory)
+    r2 = s * s
+    for i in range(1, len(diffs)):
+        s = diffs[i][None, :, :] / lengths[i]
         r2 = r2 + s * s
+        if grad:
+            scaled.append(s)
     r = xp.sqrt(r2)
-    e = xp.exp(-SQRT5 * r)
-    k = amp2 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * e
+    sr = SQRT5 * r
+    e = xp.exp(-sr)
+    k = amp2 * (1.0 + sr + (5.0 / 3.0) * r * r) * e
     dk = None
     if grad:
         # dk/dx_i = -amp2 (5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
-        c = (-amp2 * (5.0 / 3.0)) * ((1.0 + SQRT5 * r) * e)
-        dk = [c * (scaled[i] / xp.reshape(length[:, i], (G, 1, 1))) for i in range(len(diffs))]
+        c = (-amp2 * (5.0 / 3.0)) * ((1.0 + sr) * e)
+        dk = [c * (scaled[i] / lengths[i]) for i in range(len(diffs))]
     return k, dk
 
 

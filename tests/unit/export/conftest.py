@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import dataclasses
 import importlib.util
-import itertools
 import sys
 from pathlib import Path
 
@@ -17,6 +16,7 @@ import numpy as np
 import pytest
 
 from tovforge.export import export_model
+from tovforge.export._bench import synthetic_training_data
 from tovforge.surrogate import GPSettings, TrainingData, read_training_data, train_on
 
 ROOT = Path(__file__).resolve().parents[3]
@@ -45,32 +45,6 @@ def _subset(data: TrainingData, n: int) -> TrainingData:
                                curves={k: v[keep] for k, v in data.curves.items()})
 
 
-def synthetic_regular_data(points_per_axis: int = 5) -> TrainingData:
-    """A smooth, physically plausible stable branch on a regular grid of the demo box."""
-    box = np.array([[34.0, 35.0], [2.0, 4.0], [1.5, 4.0], [1.5, 4.0]])
-    axes = [np.linspace(0.0, 1.0, points_per_axis)] * 4
-    x = np.array(list(itertools.product(*axes)))  # C order, as a regular design
-    theta = box[:, 0] + x * (box[:, 1] - box[:, 0])
-    n_u = 24
-    u = 0.85 * 0.5 * (1.0 - np.cos(np.pi * np.arange(n_u) / (n_u - 1)))
-    x0, x1, x2, x3 = (x[:, i : i + 1] for i in range(4))
-    scalars = {
-        "mass_max_msun": (2.0 + 0.4 * x0[:, 0] + 0.2 * x1[:, 0] - 0.1 * x2[:, 0] * x3[:, 0]),
-        "log10_central_pressure_at_mass_max": 35.5 - 0.3 * x0[:, 0] + 0.05 * x1[:, 0] ** 2,
-        "max_sound_speed_sq": 0.5 + 0.2 * x1[:, 0] + 0.1 * np.sin(2.0 * x2[:, 0]),
-    }
-    curves = {
-        "radius_km": 10.5 + 1.5 * x0 - 0.5 * x1 + 0.3 * x2 * x3 + (1.2 + 0.2 * x0) * u**2 + 0.1 * u * x1,
-        "log_tidal_deformability": 1.0 + 0.4 * x0 + (6.0 + 0.5 * x1) * u + 0.2 * u**2 * x3,
-        "log_moment_of_inertia": 0.8 + 0.2 * x0 - 1.5 * u**2 + 0.05 * x2 * u,
-    }
-    return TrainingData(family="piecewise-polytrope", parameter_names=("log_p1", "gamma1", "gamma2", "gamma3"),
-                        parameter_units=("log10(dyn/cm^2)", "1", "1", "1"), bounds=box, theta=theta,
-                        scalars=scalars, u_nodes=u, curves=curves, mass_floor_msun=1.0,
-                        regular_shape=(points_per_axis,) * 4,
-                        provenance={"grid_path": "synthetic", "grid_content_sha256": "synthetic"})
-
-
 @pytest.fixture(scope="session")
 def models():
     """One small trained model per kind."""
@@ -78,7 +52,7 @@ def models():
     out = {
         "gp": train_on(data, "gp", GPSettings(n_subset=100, n_restarts=0)),
         "rbf": train_on(data, "spline"),
-        "tensor": train_on(synthetic_regular_data(), "spline"),
+        "tensor": train_on(synthetic_training_data(5), "spline"),
     }
     assert [m.kind for m in out.values()] == list(KINDS)
     return out
