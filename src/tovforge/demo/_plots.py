@@ -56,9 +56,11 @@ def corner_plot(path, samples, names, bounds, marker=None, title="") -> Path:
     bounds : array_like, shape (d, 2)
         Axis ranges (the prior box).
     marker : array_like, shape (d,), optional
-        A point to mark (the invented generating EOS).
+        A point to mark (the EOS the data were made around).
     title : str
     """
+    from scipy.ndimage import gaussian_filter
+
     plt = _pyplot()
     samples = np.asarray(samples, float)
     b = np.asarray(bounds, float)
@@ -86,10 +88,13 @@ def corner_plot(path, samples, names, bounds, marker=None, title="") -> Path:
                 h, xe, ye = np.histogram2d(samples[:, j], samples[:, i], bins=bins, range=[b[j], b[i]])
                 ax.imshow(h.T, origin="lower", extent=(xe[0], xe[-1], ye[0], ye[-1]), aspect="auto",
                           cmap="Blues")
-                levels = sorted(set(credible_levels(h)))
-                if len(levels) and levels[-1] > 0:
+                # contours of the histogram smoothed by one bin: raw counts of a few thousand samples
+                # draw islands around every noisy bin
+                hs = gaussian_filter(h, 1.0)
+                levels = sorted(v for v in set(credible_levels(hs)) if v > 0)
+                if levels:
                     xc, yc = 0.5 * (xe[1:] + xe[:-1]), 0.5 * (ye[1:] + ye[:-1])
-                    ax.contour(xc, yc, h.T, levels=[v for v in levels if v > 0], colors="k", linewidths=0.8)
+                    ax.contour(xc, yc, hs.T, levels=levels, colors="k", linewidths=0.8)
                 if marker is not None:
                     ax.plot(marker[j], marker[i], "x", color="tab:red", ms=7, mew=1.5)
                 ax.set_xlim(b[j])
@@ -103,7 +108,7 @@ def corner_plot(path, samples, names, bounds, marker=None, title="") -> Path:
             elif i != j:
                 ax.set_yticklabels([])
     fig.suptitle(title + "\nlines: median and 90 % interval; contours: 68 % and 95 %"
-                 + ("; red: the invented generating EOS" if marker is not None else ""), fontsize=9)
+                 + ("; red: the EOS the data were made around" if marker is not None else ""), fontsize=9)
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
@@ -135,7 +140,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
         subset of the samples, and ``n`` (samples re-solved).
     observations : Observations
     generator_curve : tuple of ndarray, optional
-        ``(mass, radius, lambda)`` of the invented generating EOS.
+        ``(mass, radius, lambda)`` of the EOS the data were made around.
     """
     plt = _pyplot()
     m = np.asarray(band["mass"], float)
@@ -148,7 +153,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
         em = np.asarray(exact["mass"], float)
         for k, ls in (("median", "-"), ("p05", "--"), ("p95", "--")):
             ax.plot(exact[k], em, color="k", lw=1, ls=ls,
-                    label=f"exact re-solve of {exact['n']} samples" if k == "median" else None)
+                    label=f"exact re-solve of {exact['n']} of the samples" if k == "median" else None)
     # no blue (the band) and no red (the generating EOS)
     colours = ["tab:orange", "tab:green", "tab:purple", "tab:brown", "tab:pink", "tab:olive", "tab:cyan"]
     m_lo, m_hi = float(m[show].min()) - 0.05, float(m[show].max()) + 0.05
@@ -159,7 +164,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
     if generator_curve is not None:
         gm, gr, _ = generator_curve
         keep = gm >= m_lo
-        ax.plot(gr[keep], gm[keep], color="tab:red", lw=1, ls=":", label="invented generating EOS")
+        ax.plot(gr[keep], gm[keep], color="tab:red", lw=1, ls=":", label="EOS the data were made around")
     ax.set_ylim(m_lo, m_hi)
     ax.set(xlabel="R [km]", ylabel="M [Msun]", title="mass-radius: posterior band and the pulsars")
     ax.legend(fontsize=7, loc="lower left")
@@ -175,7 +180,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
     if generator_curve is not None:
         gm, _, gl = generator_curve
         keep = gm >= m_lo
-        bx.plot(gm[keep], gl[keep], color="tab:red", lw=1, ls=":", label="invented generating EOS")
+        bx.plot(gm[keep], gl[keep], color="tab:red", lw=1, ls=":", label="EOS the data were made around")
     bx.set_xlim(m_lo, m_hi)
     bx.set_yscale("log")
     bx.set(xlabel="M [Msun]", ylabel="Lambda", title="tidal deformability")
