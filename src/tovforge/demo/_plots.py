@@ -145,7 +145,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
     plt = _pyplot()
     m = np.asarray(band["mass"], float)
     show = np.asarray(band["fraction"], float) >= 0.05  # above that the band rests on too few samples
-    fig, (ax, bx) = plt.subplots(1, 2, figsize=(11.5, 5.2))
+    fig, (ax, bx) = plt.subplots(1, 2, figsize=(11.5, 6.4))
     ax.fill_betweenx(m[show], band["radius_p05"][show], band["radius_p95"][show], color="tab:blue", alpha=0.3,
                      lw=0, label="emulated 90 % band")
     ax.plot(band["radius_median"][show], m[show], color="tab:blue", lw=2, label="emulated median")
@@ -167,7 +167,8 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
         ax.plot(gr[keep], gm[keep], color="tab:red", lw=1, ls=":", label="EOS the data were made around")
     ax.set_ylim(m_lo, m_hi)
     ax.set(xlabel="R [km]", ylabel="M [Msun]", title="mass-radius: posterior band and the pulsars")
-    ax.legend(fontsize=7, loc="lower left")
+    # legends below the panels: inside they would cover the band or the measurements
+    ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=2, frameon=False)
 
     bx.fill_between(m[show], band["lambda_p05"][show], band["lambda_p95"][show], color="tab:blue", alpha=0.3, lw=0,
                     label="emulated 90 % band of Lambda(M)")
@@ -184,7 +185,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
     bx.set_xlim(m_lo, m_hi)
     bx.set_yscale("log")
     bx.set(xlabel="M [Msun]", ylabel="Lambda", title="tidal deformability")
-    bx.legend(fontsize=7, loc="upper right")
+    bx.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=2, frameon=False)
     if title:
         fig.suptitle(title, fontsize=9)
     fig.tight_layout()
