@@ -95,8 +95,9 @@ def test_cross_check_distances_respect_the_per_sample_errors(demo):
         # each band is over the same samples in both answers, so a quantile moves at most as far as the
         # largest per-sample difference
         assert 0 <= v <= cc["radius_abs_max_km"] + 1e-12, k
-    assert cc["verdict"] == ("inside" if max(cc["band_distance_km"].values()) <= cc["stated_radius_abs_p95_km"]
-                             else "OUTSIDE")
+    worst = max(cc["band_distance_km"].values())
+    assert cc["verdict"] == ("inside" if worst <= cc["stated_radius_abs_p95_km"] else "OUTSIDE")
+    assert cc["verdict_detail"] == f"{worst / cc['stated_radius_abs_p95_km']:.2f} of it"
     assert np.isfinite(cc["log_like_abs_median"]) and np.isfinite(cc["mass_max_abs_p95_msun"])
 
 
