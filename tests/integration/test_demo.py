@@ -130,7 +130,8 @@ def test_band_table_matches_the_samples(demo):
     (["--train-spec", "no-such-spec.toml"], ["no-such-spec.toml: no such grid spec", "give --train-spec"]),
 ])
 def test_bad_input_is_one_line_and_exit_2_before_any_work(tmp_path, args, words):
-    res = runner.invoke(app, ["demo", "--out", str(tmp_path / "out"), *args])
+    # --quick bounds the time should a check ever stop working and the demo run
+    res = runner.invoke(app, ["demo", "--quick", "--out", str(tmp_path / "out"), *args])
     assert res.exit_code == 2, res.output
     assert res.stderr.startswith("error: ") and res.stderr.count("\n") == 1, res.stderr
     for w in words:
@@ -141,5 +142,15 @@ def test_bad_input_is_one_line_and_exit_2_before_any_work(tmp_path, args, words)
 def test_a_broken_data_file_is_named(tmp_path):
     bad = tmp_path / "obs.toml"
     bad.write_text('[[pulsar]]\nname = "A"\n')
-    res = runner.invoke(app, ["demo", "--out", str(tmp_path / "out"), "--data", str(bad)])
+    res = runner.invoke(app, ["demo", "--quick", "--out", str(tmp_path / "out"), "--data", str(bad)])
     assert res.exit_code == 2 and "obs.toml: pulsar[0].mass_msun is missing" in res.stderr
+
+
+def test_a_bad_generator_is_named_before_any_work(tmp_path):
+    from tovforge.demo import INVENTED_DATA
+
+    bad = tmp_path / "obs.toml"
+    bad.write_text(INVENTED_DATA.read_text().replace("gamma3 = 2.5", "gamma3 = -1.5"))
+    res = runner.invoke(app, ["demo", "--quick", "--out", str(tmp_path / "out"), "--data", str(bad)])
+    assert res.exit_code == 2 and res.stderr.startswith(f"error: {bad}: [generator]: ")
+    assert "gamma3" in res.stderr and "-1.5" in res.stderr and not (tmp_path / "out").exists()

@@ -218,6 +218,8 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print
             raise InputError(f"{spec_path}: no such grid spec; run the demo from the tovforge repository "
                              f"(make demo) or give {flag}.")
     specs = {"train": load_spec(s.train_spec), "holdout": load_spec(s.holdout_spec)}
+    # the EOS the data were made around (an exact solve; also checks its parameters now)
+    marker, gen_curve = _generator(obs, specs["train"].family, specs["train"].parameter_names)
     out.mkdir(parents=True, exist_ok=True)
     files: dict = {}
     numbers: dict = {"tovforge_version": __version__, "settings": {}, "stages_seconds": {}}
@@ -462,14 +464,12 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print
 
     # -- 8. figures and summary -------------------------------------------------------------------------
     stage(8, "figures", "corner plot, M-R and Lambda bands with the observations, chain traces, summary.md")
-    marker, gen_curve = _generator(obs, ev.FAMILY, names)
     title = (f"{len(chain.samples)} posterior samples, exported {s.sampler_model} evaluator; data: "
              f"{'INVENTED (demo)' if 'invent' in obs.note.lower() else obs.path.name}")
     files["corner"] = corner_plot(out / "corner.png", chain.samples, names, ev.BOUNDS, marker, title)
     exact_band = {"mass": cc.masses, "n": n, **{k: cc.exact[k] for k in ("median", "p05", "p95")}}
     files["mass_radius"] = band_plot(out / "mass_radius.png", band_dict, exact_band, obs, gen_curve, title)
     files["trace"] = trace_plot(out / "trace.png", chain.chain, names, s.n_burn)
-    numbers["total_seconds"] = time.perf_counter() - t_start
     numbers["settings"] = {k: (str(v) if isinstance(v, Path) else v) for k, v in dataclasses.asdict(s).items()}
     numbers["observations"] = {"path": str(obs.path), "note": obs.note, "names": list(obs.names)}
     numbers["failures"] = failures
@@ -506,7 +506,11 @@ def _generator(obs, family: str, names):
     from ..solve import solve_sequence
 
     params = {k: v for k, v in gen.items() if k != "family"}
-    seq = solve_sequence(make(family, **params), n_stars=100)
+    try:
+        eos = make(family, **params)
+    except InputError as exc:
+        raise InputError(f"{obs.path}: [generator]: {exc}") from None
+    seq = solve_sequence(eos, n_stars=100)
     if not seq.success:
         return None, None
     b = seq.branch
