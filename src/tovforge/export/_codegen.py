@@ -205,7 +205,9 @@ def _payload(arrays: dict) -> tuple[bytes, list]:
         a = np.asarray(arrays[name])
         if a.dtype.kind not in "fiu" or a.dtype.hasobject:
             raise ExportError(f"model array {name!r} has dtype {a.dtype}; only numbers are exported.")
-        a = np.ascontiguousarray(a, dtype=a.dtype.newbyteorder("<"))
+        # keep the memory order (C or Fortran, as .npy records it): BLAS sums in an order that
+        # follows the layout, and ill-conditioned GP weights turn that into differences of 1e-7
+        a = a.astype(a.dtype.newbyteorder("<"), order="K", copy=False)
         np.lib.format.write_array(buf, a, allow_pickle=False)
         index.append((_identifier(name, "model array name"), a.dtype.str, tuple(int(s) for s in a.shape)))
     return zlib.compress(buf.getvalue(), 9), index
@@ -325,8 +327,8 @@ def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> st
         "Array namespaces run at export time (every query, with gradients and sigma, on "
         f"{_SELF_CHECK_POINTS} points;",
         "largest relative difference to the tovforge library model for numpy, to numpy for the others;",
-        "differences near 1e-9 come from last-bit rounding of M/M_max amplified by u = sqrt(1 - M/M_max)",
-        "next to M_max):",
+        "differences up to about the rounding noise of the model, measured on the last line, are rounding",
+        "in another library, not errors):",
     ]
     lines += [f"    {_text(k)}: {_text(v)}" for k, v in namespaces.items()]
     return "\n".join(lines)
@@ -495,8 +497,12 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
         probe = Path(tmp) / out.name
         probe.write_text(render({"(pending)": "run at export time"}), encoding="utf-8")
         worst = _self_check(model, probe)
+        noise = rounding_noise(model, check_points(model.bounds, _SELF_CHECK_POINTS))
         ns = {"numpy": f"NumPy {np.__version__}: {worst:.1e} (the reference)"}
-        ns.update(_namespace_checks(probe, [n for n in namespaces if n != "numpy"]))
+        ns.update(_namespace_checks(probe, [n for n in namespaces if n != "numpy"], noise))
+        ns["rounding noise of this model"] = (
+            f"{noise:.1e} (outputs and gradients change by this much when the sums over training points "
+            "run in reverse order; differences of this size are rounding)")
     src = render(ns)
     tmp_out = out.with_name(f".{out.name}.tmp")
     tmp_out.write_text(src, encoding="utf-8")
@@ -535,6 +541,34 @@ def max_rel_diff(a, b) -> float:
 
 _QUERIES = ("radius", "tidal_deformability", "moment_of_inertia", "k2")
 _MASSES = (1.0, 1.4, 2.0)
+
+
+def rounding_noise(model, theta) -> float:
+    """How much the model's outputs and gradients move when its weight sums run in another order.
+
+    The training points and their weights are taken in reverse order, so that
+    every kernel sum adds the same terms in another order.  Weights that cancel
+    strongly (long GP length scales, a tiny nugget) amplify the rounding; the
+    result says what another library, BLAS or machine can be expected to
+    reproduce.  Zero for tensor splines (no sum over training points).
+    """
+    from ..surrogate import _runtime as rt
+
+    flipped = dict(model._m)
+    if "X" in flipped:
+        flipped["X"] = np.array(flipped["X"][::-1])
+        flipped["alpha"] = np.array(flipped["alpha"][::-1])
+    worst = 0.0
+    (ya, _, dya), (yb, _, dyb) = rt.outputs(np, model._m, theta, True), rt.outputs(np, flipped, theta, True)
+    pairs = [(ya, yb), (dya, dyb)]
+    masses = np.broadcast_to(np.asarray(_MASSES), (len(theta), len(_MASSES)))
+    for q in ("radius_km", "tidal_deformability", "moment_of_inertia", "k2"):  # as the queries amplify it
+        va, ga, _ = rt.curve_at_mass(np, model._m, ya, dya, None, masses, q)
+        vb, gb, _ = rt.curve_at_mass(np, flipped, yb, dyb, None, masses, q)
+        pairs += [(va, vb), (ga, gb)]
+    for a, b in pairs:
+        worst = max(worst, max_rel_diff(b, a))
+    return worst
 
 
 def _self_check(model, path: Path) -> float:
@@ -623,7 +657,7 @@ print(json.dumps({"label": label + ("" if foreign else " (RESULTS LEFT THE NAMES
 '''
 
 
-def _namespace_checks(path: Path, which) -> dict:
+def _namespace_checks(path: Path, which, noise: float = 0.0) -> dict:
     """Run the file under other array namespaces, in a subprocess each; one verdict line per namespace."""
     theta = check_points(np.array(_bounds_of(path)), _SELF_CHECK_POINTS)
     out = {}
@@ -640,7 +674,8 @@ def _namespace_checks(path: Path, which) -> dict:
         elif res["worst"] is None:
             out[ns] = res["label"]
         else:
-            verdict = "" if res["worst"] <= _RTOL_OTHER else f" (ABOVE {_RTOL_OTHER:g}: do not rely on it)"
+            limit = max(_RTOL_OTHER, 10.0 * noise)
+            verdict = "" if res["worst"] <= limit else f" (ABOVE {limit:.1e}: do not rely on it)"
             out[ns] = f"{res['label']}: {res['worst']:.1e}{verdict}"
     return out
 
