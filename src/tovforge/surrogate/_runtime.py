@@ -152,31 +152,93 @@ def _polyharmonic_columns(xp, diffs, grad):
     return phi, dphi
 
 
-def _bspline_basis(xp, t, n_coef, x, deg=3):
-    """Cubic B-spline basis values (n, n_coef) and derivatives at points x (n,), knots t (n_coef + 4,)."""
-    # Cox-de Boor recursion, vectorised over points; a loop over degree and knots only.
-    n_knots = n_coef + deg + 1
-    xc = xp.clip(x, t[deg], t[n_coef] - 1e-12 * (t[n_coef] - t[deg]))
-    B = []
-    for j in range(n_knots - 1):
-        B.append(xp.astype((xc >= t[j]) & (xc < t[j + 1]), xc.dtype))
-    dB = None
-    for k in range(1, deg + 1):
-        newB = []
-        if k == deg:
-            dB = []
-        for j in range(n_knots - 1 - k):
-            left_den = t[j + k] - t[j]
-            right_den = t[j + k + 1] - t[j + 1]
-            left = (xc - t[j]) / left_den * B[j] if left_den > 0 else 0.0 * xc
-            right = (t[j + k + 1] - xc) / right_den * B[j + 1] if right_den > 0 else 0.0 * xc
-            newB.append(left + right)
-            if k == deg:
-                dl = k / left_den * B[j] if left_den > 0 else 0.0 * xc
-                dr = k / right_den * B[j + 1] if right_den > 0 else 0.0 * xc
-                dB.append(dl - dr)
-        B = newB
-    return xp.stack(B, axis=-1), xp.stack(dB, axis=-1)
+def _bspline_local(xp, knots, n_knots, n_coef, x, deg=3):
+    """The deg + 1 B-splines of each axis that do not vanish at points x (n, d).
+
+    ``knots`` (d, K) padded knot vectors with ``n_knots`` and ``n_coef`` per axis.
+    Returns the index of the first of them (n, d), and their values and
+    x-derivatives (each a list of deg + 1 arrays (n, d)).  De Boor's triangle on
+    the knot interval of each point (Piegl & Tiller 1997, The NURBS Book, A2.2
+    and A2.3), vectorised over points and axes: the work per point does not grow
+    with the number of knots.
+    """
+    d, K = knots.shape
+    flat = [float(knots[a, j]) if j < int(n_knots[a]) else 0.0 for a in range(d) for j in range(K)]
+    tx = xp.asarray(flat, dtype=x.dtype)
+    lo = xp.asarray([float(knots[a, deg]) for a in range(d)], dtype=x.dtype)
+    hi = xp.asarray([float(knots[a, int(n_coef[a])]) for a in range(d)], dtype=x.dtype)
+    xc = xp.clip(x, lo, hi - 1e-12 * (hi - lo))
+    cols = []
+    for a in range(d):  # the knot interval t[i] <= x < t[i + 1], per axis
+        ta = tx[a * K : a * K + int(n_knots[a])]
+        cols.append(xp.clip(xp.searchsorted(ta, xc[:, a], side="right") - 1, deg, int(n_coef[a]) - 1) + a * K)
+    i = xp.stack(cols, axis=-1)  # (n, d), offsets into tx
+
+    def t(offset):
+        return xp.reshape(xp.take(tx, xp.reshape(i + offset, (-1,)), axis=0), i.shape)
+
+    left = [None] + [xc - t(1 - j) for j in range(1, deg + 1)]
+    right = [None] + [t(j) - xc for j in range(1, deg + 1)]
+    N = [xp.ones(x.shape, dtype=x.dtype)]
+    prev = N
+    for j in range(1, deg + 1):
+        saved = xp.zeros(x.shape, dtype=x.dtype)
+        new = []
+        for r in range(j):
+            temp = N[r] / (right[r + 1] + left[j - r])
+            new.append(saved + right[r + 1] * temp)
+            saved = left[j - r] * temp
+        new.append(saved)
+        prev, N = N, new
+    # d/dx B_{i-deg+r} = deg (B_{i-deg+r, deg-1} / (t[i+r] - t[i-deg+r]) - B_{i-deg+r+1, deg-1} / (t[i+r+1] - t[i+r+1-deg]))
+    dN = []
+    for r in range(deg + 1):
+        term = xp.zeros(x.shape, dtype=x.dtype)
+        if r >= 1:
+            term = term + prev[r - 1] / (t(r) - t(r - deg))
+        if r <= deg - 1:
+            term = term - prev[r] / (t(r + 1) - t(r + 1 - deg))
+        dN.append(deg * term)
+    first = i - xp.reshape(xp.asarray([a * K for a in range(d)], dtype=i.dtype), (1, d)) - deg
+    return first, N, dN
+
+
+def _tensor_part(xp, x, m, grad):
+    """Tensor-product spline sum at rows x (n, d): (n, n_out) and (n, n_out, d).
+
+    Only the (deg + 1)^d coefficients whose B-splines cover a point are
+    gathered, and weighted by the products of the one-dimensional values.
+    """
+    d = x.shape[1]
+    shape = [int(s) for s in m["coef_shape"]]
+    coef = m["coef"]  # (prod(shape), n_out), C order over shape
+    n = x.shape[0]
+    first, vals, ders = _bspline_local(xp, m["knots"], m["n_knots"], shape, x)
+    V = xp.stack(vals, axis=-1)  # (n, d, deg + 1)
+    dV = xp.stack(ders, axis=-1) if grad else None
+    k = V.shape[-1]
+    offsets = xp.reshape(xp.arange(k, dtype=first.dtype), (1, k))
+    flat, w, dw = None, None, [None] * d
+    stride = 1
+    for a in range(d - 1, -1, -1):  # flat index and weights axis by axis, the last axis fastest
+        idx = (first[:, a : a + 1] + offsets) * stride  # (n, k)
+        v = V[:, a, :]
+        if flat is None:
+            flat, w = idx, v
+            if grad:
+                dw[a] = dV[:, a, :]
+        else:
+            flat = xp.reshape(idx[:, :, None] + flat[:, None, :], (n, -1))
+            if grad:
+                for b in range(a + 1, d):
+                    dw[b] = xp.reshape(v[:, :, None] * dw[b][:, None, :], (n, -1))
+                dw[a] = xp.reshape(dV[:, a, :][:, :, None] * w[:, None, :], (n, -1))
+            w = xp.reshape(v[:, :, None] * w[:, None, :], (n, -1))
+        stride *= shape[a]
+    gathered = xp.reshape(xp.take(coef, xp.reshape(flat, (-1,)), axis=0), (n, flat.shape[1], coef.shape[1]))
+    weights = xp.stack([w] + (dw if grad else []), axis=1)  # (n, 1 [+ d], (deg+1)^d)
+    out = xp.matmul(weights, gathered)  # (n, 1 [+ d], n_out)
+    return out[:, 0, :], (xp.permute_dims(out[:, 1:, :], (0, 2, 1)) if grad else None)
 
 
 def _bmm(xp, a, b):
@@ -198,20 +260,11 @@ def standardised_outputs(xp, m, x, grad=False):
         if grad:
             dz = dz + kdz
     elif kind == "tensor":
-        d = x.shape[1]
-        shape = [int(s) for s in m["coef_shape"]]
-        coef = m["coef"]  # (prod(shape), n_out)
-        bases = []
-        for i in range(d):
-            nk = int(m["n_knots"][i])
-            bases.append(_bspline_basis(xp, m["knots"][i, :nk], shape[i], x[:, i]))
-        z = z + _tensor_contract(xp, coef, shape, [b for b, _ in bases])
+        per_row = int(m["coef"].shape[1]) * 4 ** x.shape[1] // 8  # gathered coefficients per row, scaled
+        tz, tdz = _chunked(xp, _tensor_part, x, per_row, m, grad)
+        z = z + tz
         if grad:
-            parts = []
-            for i in range(d):
-                bl = [bases[j][1] if j == i else bases[j][0] for j in range(d)]
-                parts.append(_tensor_contract(xp, coef, shape, bl))
-            dz = dz + xp.stack(parts, axis=-1)
+            dz = dz + tdz
     return z, dz
 
 
@@ -234,21 +287,6 @@ def _kernel_part(xp, x, m, grad):
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
             dparts.append(xp.stack([c[g] @ alpha for c in dk], axis=-1))
     return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
-
-
-def _tensor_contract(xp, coef, shape, bases):
-    """sum over all axes of coef[i1..id, o] * B1[n, i1] * ... * Bd[n, id] -> (n, n_out)."""
-    n_out = coef.shape[-1]
-    n = bases[0].shape[0]
-    rest = 1
-    for s in shape[1:]:
-        rest *= s
-    cur = bases[0] @ xp.reshape(coef, (shape[0], rest * n_out))  # (n, rest * n_out)
-    for i in range(1, len(shape)):
-        rest //= shape[i]
-        cur = xp.reshape(cur, (n, shape[i], rest * n_out))
-        cur = xp.sum(bases[i][:, :, None] * cur, axis=1)
-    return xp.reshape(cur, (n, n_out))
 
 
 def gp_local_std(xp, m, x, n_neighbours=48):
