@@ -21,7 +21,7 @@ import zlib
 
 import numpy as np
 
-from ..surrogate._runtime import _curve_slice, curve_at_mass, output_std, outputs, unit_inputs
+from ..surrogate._runtime import _curve_slice, curve_at_mass, needed_columns, output_std, outputs, unit_inputs
 
 # ---- the exported code starts below this line ----
 
@@ -182,7 +182,7 @@ def _shape(xp, a, single, tail):
 
 def _query(quantity, theta, mass, return_grad, return_std, strict):
     xp, m, t, single = _inputs(theta)
-    y, inside, dy = outputs(xp, m, t, return_grad)
+    y, inside, dy = outputs(xp, m, t, return_grad, needed_columns(m, (quantity,)))
     if strict:
         _require_inside(xp, t, inside)
     sd = output_std(xp, m, t) if return_std else None
@@ -235,7 +235,7 @@ def mass_max(theta, return_grad=False, return_std=False, strict=False):
         ``(value, grad[, std])``.
     """
     xp, m, t, single = _inputs(theta)
-    y, inside, dy = outputs(xp, m, t, return_grad)
+    y, inside, dy = outputs(xp, m, t, return_grad, needed_columns(m, ()))
     if strict:
         _require_inside(xp, t, inside)
     out = [_shape(xp, y[:, _I_MASS_MAX], single, ())]
@@ -312,7 +312,7 @@ def curve(theta, n=100, strict=False):
         dimensionless tidal deformabilities.
     """
     xp, m, t, single = _inputs(theta)
-    y, inside, _ = outputs(xp, m, t)
+    y, inside, _ = outputs(xp, m, t, False, needed_columns(m, ("radius_km", "tidal_deformability")))
     if strict:
         _require_inside(xp, t, inside)
     frac = 1.0 - (_U_MAX * xp.linspace(1.0, 0.0, n, dtype=xp.float64, **_on(t))) ** 2

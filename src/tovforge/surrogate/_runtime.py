@@ -246,16 +246,25 @@ def _bmm(xp, a, b):
     return xp.matmul(a, b)
 
 
-def standardised_outputs(xp, m, x, grad=False):
-    """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d)."""
+def standardised_outputs(xp, m, x, grad=False, columns=None):
+    """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d).
+
+    ``columns``: optional list of output ranges ``(a, b)`` that are needed; GP
+    kernel groups that serve none of them are skipped and their outputs are NaN.
+    """
     F, dF = _trend(xp, m, x, grad)
     z = F @ m["trend_coef"]
     # dF (n, t, d) -> (n, d, t) @ (t, o) -> (n, d, o) -> (n, o, d)
     dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
     kind = m["kind"]
     if kind in ("gp", "rbf"):
+        # rows per chunk fixed by the model alone: a subset of groups gives the same bits
         per_row = m["X"].shape[0] * (m["length"].shape[0] if kind == "gp" else 1)
-        kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad)
+        groups = None
+        if kind == "gp" and columns is not None:
+            gb = [int(v) for v in m["group_bounds"]]
+            groups = [g for g in range(len(gb) - 1) if any(a < gb[g + 1] and gb[g] < b for a, b in columns)]
+        kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad, groups)
         z = z + kz
         if grad:
             dz = dz + kdz
@@ -268,24 +277,39 @@ def standardised_outputs(xp, m, x, grad=False):
     return z, dz
 
 
-def _kernel_part(xp, x, m, grad):
+def _kernel_part(xp, x, m, grad, groups=None):
     """Kernel sum of a GP or RBF model at rows x (n, d): (n, n_out) and (n, n_out, d).
 
     The column differences to the training points are formed once and shared
     by every kernel group (the groups share the points, not the length scales).
+    ``groups``: the GP kernel groups to evaluate (default all); the outputs of
+    the others are NaN.
     """
     diffs = _column_differences(xp, x, m["X"])
     if m["kind"] == "rbf":
         phi, dphi = _polyharmonic_columns(xp, diffs, grad)
         return phi @ m["alpha"], (xp.stack([c @ m["alpha"] for c in dphi], axis=-1) if grad else None)
     parts, dparts = [], []
-    k, dk = _matern(xp, diffs, m["length"], m["amp2"], grad)
-    for g in range(m["length"].shape[0]):
+    n_groups = m["length"].shape[0]
+    length, amp2 = m["length"], m["amp2"]
+    if groups is not None and len(groups) < n_groups:
+        pick = xp.asarray(groups, dtype=xp.int64)
+        length, amp2 = xp.take(length, pick, axis=0), xp.take(amp2, pick, axis=0)
+    else:
+        groups = list(range(n_groups))
+    k, dk = _matern(xp, diffs, length, amp2, grad)
+    for g in range(n_groups):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+        if g not in groups:
+            parts.append(xp.full((x.shape[0], b - a), float("nan"), dtype=x.dtype))
+            if grad:
+                dparts.append(xp.full((x.shape[0], b - a, x.shape[1]), float("nan"), dtype=x.dtype))
+            continue
+        j = groups.index(g)
         alpha = m["alpha"][:, a:b]
-        parts.append(k[g] @ alpha)
+        parts.append(k[j] @ alpha)
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
-            dparts.append(xp.stack([c[g] @ alpha for c in dk], axis=-1))
+            dparts.append(xp.stack([c[j] @ alpha for c in dk], axis=-1))
     return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
 
 
@@ -361,14 +385,16 @@ def spline_in_u(xp, m, values, u):
 CURVES = ("radius_km", "log_tidal_deformability", "log_moment_of_inertia")
 
 
-def outputs(xp, m, theta, grad=False):
+def outputs(xp, m, theta, grad=False, columns=None):
     """All outputs at parameters ``theta`` (n, d): node values and scalars.
 
     Returns ``y`` (n, n_out) in the model's output units (NaN outside the
     box), ``inside`` (n,), and ``dy/dtheta`` (n, n_out, d) if ``grad``.
+    ``columns``: optional list of the output ranges ``(a, b)`` a query needs
+    (see :func:`needed_columns`); GP outputs outside them may be NaN.
     """
     x, inside = unit_inputs(xp, m, theta)
-    z, dz = standardised_outputs(xp, m, x, grad)
+    z, dz = standardised_outputs(xp, m, x, grad, columns)
     y = m["out_mean"] + m["out_scale"] * z
     nan = float("nan")
     y = xp.where(inside[:, None], y, nan)
@@ -386,6 +412,17 @@ def output_std(xp, m, theta):
         return xp.zeros((x.shape[0], m["out_mean"].shape[0]), dtype=x.dtype)
     s = gp_local_std(xp, m, x)
     return xp.where(inside[:, None], s, float("nan"))
+
+
+def needed_columns(m, quantities):
+    """Output ranges ``(a, b)`` that M_max and the given queries (names of :func:`at_mass`) read."""
+    im = int(m["i_mass_max"])
+    cols = [(im, im + 1)]
+    names = {"radius_km": ("radius_km",), "tidal_deformability": ("log_tidal_deformability",),
+             "moment_of_inertia": ("log_moment_of_inertia",), "k2": ("radius_km", "log_tidal_deformability")}
+    for q in quantities:
+        cols += [_curve_slice(m, name) for name in names[q]]
+    return cols
 
 
 def _curve_slice(m, name):

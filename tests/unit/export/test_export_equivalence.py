@@ -163,3 +163,22 @@ def test_numpy_1_shim_gives_the_same_numbers(models, exported, monkeypatch):
     got = mod.radius(theta, MASSES, return_grad=True, return_std=True)
     for g, w in zip(got, want):
         np.testing.assert_array_equal(g, w)
+
+
+def test_queries_that_skip_kernel_groups_give_the_same_bits(models):
+    """A query evaluates only the GP kernel groups it reads; those outputs must not change at all."""
+    from tovforge.surrogate import _runtime as rt
+
+    m = models["gp"]._m
+    theta = box_points(models["gp"], 40, seed=6)
+    full = rt.outputs(np, m, theta, True)
+    for quantities in ((), ("radius_km",), ("moment_of_inertia",), ("k2",)):
+        cols = rt.needed_columns(m, quantities)
+        sub = rt.outputs(np, m, theta, True, cols)
+        for a, b in cols:
+            np.testing.assert_array_equal(sub[0][:, a:b], full[0][:, a:b])
+            np.testing.assert_array_equal(sub[2][:, a:b], full[2][:, a:b])
+        used = np.zeros(full[0].shape[1], bool)
+        for a, b in cols:
+            used[a:b] = True
+        assert np.isnan(sub[0][:, ~used]).any(axis=0).sum() > 0  # skipped groups are NaN, never stale numbers
