@@ -152,21 +152,6 @@ def _interval(x) -> tuple[float, float, float]:
     return float(med), float(lo), float(hi)
 
 
-def _c_ordered(model):
-    """The same model with C-ordered arrays, the layout the exported file reads its payload in.
-
-    The GP weights come out of the Cholesky solve in Fortran order; the
-    matrix products then run in another BLAS order than in the exported file,
-    and the GP's cancellation lifts the last-bit differences to about 1e-8
-    relative (measured on the 4,096-point demo GP), which the exporter's
-    1e-10 self-check refuses.  Same numbers, other layout.
-    """
-    from ..surrogate import Surrogate
-
-    return Surrogate(model.meta, {k: (np.ascontiguousarray(v) if isinstance(v, np.ndarray) else v)
-                                  for k, v in model.arrays.items()})
-
-
 def _subset(data, n):
     """The first ``n`` rows of training data (a Sobol prefix stays space-filling)."""
     if n is None or n >= len(data.theta):
@@ -300,7 +285,7 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print
     for kind in KINDS:
         target = out / "evaluators" / f"demo_{kind}.py"
         try:
-            res = export_model(_c_ordered(models[kind]), target, reports[kind])
+            res = export_model(models[kind], target, reports[kind])
         except ExportError as exc:
             failures.append(f"export of the {kind} model: {exc}")
             echo(f"  {kind}: EXPORT FAILED: {exc}")
