@@ -164,6 +164,12 @@ def _subset(data, n):
 def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print) -> DemoResult:
     """Run the whole demo and write its outputs into ``out``.
 
+    BLAS runs on one thread (grid workers and GP hyperparameter workers are
+    processes of their own): the demo's matrix products are small, and on a
+    shared machine OpenBLAS threads that wait for a busy core made the
+    sampler up to 25 times slower (measured: 6.5 ms instead of 0.24 ms per
+    theta).  The timings are therefore per core.
+
     Parameters
     ----------
     out : path-like
@@ -181,6 +187,13 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print
     tovforge.errors.InputError
         For bad settings, specs or observations (checked before the long stages).
     """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        return _run_demo(out, settings, echo)
+
+
+def _run_demo(out, settings, echo) -> DemoResult:
     from ..export import ExportError, export_model
     from ..grid import load_spec, read_grid, run_grid
     from ..surrogate import read_training_data, train_on
@@ -565,8 +578,8 @@ def _summary_md(nb: dict, obs, files: dict, out: Path, reports: dict) -> str:
               f"[posterior_samples.csv]({_rel(files['samples'], out)}), "
               f"[posterior_table.csv]({_rel(files['table'], out)}), [posterior_band.csv]({_rel(files['band'], out)}).",
               "", "## Speed (measured in this run)", "",
-              "Each figure is the fastest of several timed calls (the machine may be shared: slower repeats time "
-              "the other processes).  The exact likelihood runs the same arithmetic on three exact solves "
+              "Each figure is the fastest of several timed calls on one core (BLAS on one thread; the machine may "
+              "be shared: slower repeats time the other processes).  The exact likelihood runs the same arithmetic on three exact solves "
               "(M_max, radii at the pulsar mass nodes, Lambdas at the merger mass nodes).", "",
               "| | one theta | per theta in a batch |", "|---|---|---|",
               f"| likelihood, exported {fit['sampler_model']} evaluator | {tm['likelihood_emulated_one_us']:.0f} us | "
