@@ -60,26 +60,6 @@ def _tensor_demo(folder: Path):
     return _import_file(path, "bench_tensor")
 
 
-def _jax_rows(evaluators, theta_b, quick, echo) -> None:
-    """The same files under jax.jit, when JAX is installed (not a dependency)."""
-    try:
-        import jax
-    except ImportError:
-        echo(f"{'(JAX not installed: no jax.jit rows)':<38}")
-        return
-    previous = jax.config.jax_enable_x64
-    jax.config.update("jax_enable_x64", True)
-    try:
-        t = jax.numpy.asarray(theta_b)
-        for label, mod in evaluators[:2]:
-            fn = jax.jit(lambda th, mod=mod: mod.radius(th, 1.4))
-            fn(t).block_until_ready()
-            sec = timeit_median(lambda: fn(t).block_until_ready(), 1 if quick else 3)
-            echo(f"{'  same under jax.jit ' + label.split(' ')[0]:<38}{'':>10}{'':>11}{len(theta_b) / sec:>16.3g}")
-    finally:
-        jax.config.update("jax_enable_x64", previous)
-
-
 @register("export")
 def bench_export(quick: bool = False, echo=print) -> None:
     """Latency for one theta and throughput for 10^4 theta of the exported files, beside the exact solver.
@@ -137,7 +117,6 @@ def _bench_export(quick: bool, echo) -> None:
         echo(f"{label:<38}{t_curve * 1e6:>10.0f}{t_radius * 1e6:>11.0f}{n_batch / t_batch:>16.3g}"
              f"{n_batch / t_bcurve:>15.3g}{t_exact / t_curve:>12.3g}{t_exact / (t_bcurve / n_batch):>12.3g}")
     tmp.cleanup()
-    _jax_rows(evaluators, theta_b, quick, echo)
     echo("")
     echo("curve: mass, radius and Lambda at 100 points of the stable branch; radius: R at 1.4 Msun.")
     echo("speed-up 1: exact solve time / one-theta curve time; speed-up N: per theta in the batched curve call.")

@@ -354,12 +354,13 @@ def _gp_local_std_rows(xp, x, m, n_neighbours):
     return (xp.concat(parts, axis=-1),)
 
 
-def spline_in_u(xp, m, values, u):
+def spline_in_u(xp, m, values, u, weights=True):
     """Evaluate node curves at sequence coordinates.
 
     ``values`` (n, n_u) node values per row; ``u`` (n, q).  Returns the values
-    (n, q), d/du (n, q) and the weights (n, q, n_u) of the node values (for
-    gradients and error propagation).  Outside [0, u_max] gives NaN.
+    (n, q), d/du (n, q) and, if ``weights``, the weights (n, q, n_u) of the node
+    values (for gradients and error propagation; None otherwise).  Outside
+    [0, u_max] gives NaN.
     """
     un = m["u_nodes"]
     C = m["spline_c"]  # (4, n_u - 1, n_u)
@@ -367,12 +368,18 @@ def spline_in_u(xp, m, values, u):
     flat = xp.reshape(u, (-1,))
     safe = xp.where(flat == flat, flat, 0.0)  # NaN-safe lookup
     j = xp.clip(xp.searchsorted(un, safe, side="right") - 1, 0, n_int - 1)
-    t = xp.reshape(safe - xp.take(un, j, axis=0), u.shape + (1,))
-    c0, c1, c2, c3 = (xp.reshape(xp.take(C[p], j, axis=0), u.shape + (un.shape[0],)) for p in range(4))
-    w = ((c0 * t + c1) * t + c2) * t + c3
-    dw = (3.0 * c0 * t + 2.0 * c1) * t + c2
-    val = xp.sum(w * values[:, None, :], axis=-1)
-    der = xp.sum(dw * values[:, None, :], axis=-1)
+    t = xp.reshape(safe - xp.take(un, j, axis=0), u.shape)
+    # each row's polynomial on each interval (n, n_int) per power, then one lookup per query:
+    # memory (n, q) instead of (n, q, n_u) per power
+    jj = xp.reshape(j, u.shape)
+    c0, c1, c2, c3 = (xp.take_along_axis(values @ xp.permute_dims(C[p], (1, 0)), jj, axis=1) for p in range(4))
+    val = ((c0 * t + c1) * t + c2) * t + c3
+    der = (3.0 * c0 * t + 2.0 * c1) * t + c2
+    w = None
+    if weights:
+        tw = xp.reshape(t, u.shape + (1,))
+        k0, k1, k2, k3 = (xp.reshape(xp.take(C[p], j, axis=0), u.shape + (un.shape[0],)) for p in range(4))
+        w = ((k0 * tw + k1) * tw + k2) * tw + k3
     ok = (u >= 0.0) & (u <= un[-1])
     nan = float("nan")
     return xp.where(ok, val, nan), xp.where(ok, der, nan), w
@@ -474,7 +481,7 @@ def curve_at_mass(xp, m, y, dy, sd, mass, quantity):
     name = {"radius_km": "radius_km", "tidal_deformability": "log_tidal_deformability",
             "moment_of_inertia": "log_moment_of_inertia"}[quantity]
     a, b = _curve_slice(m, name)
-    val, der, w = spline_in_u(xp, m, y[:, a:b], u)
+    val, der, w = spline_in_u(xp, m, y[:, a:b], u, weights=grad or std)
     g = None
     if grad:
         # d/dtheta = sum_k w_k dy_k/dtheta + (dv/du) (du/dM_max) dM_max/dtheta,
