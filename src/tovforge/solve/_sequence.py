@@ -89,6 +89,8 @@ class SequenceSettings:
 
 
 _Z_CLUSTER_CACHE: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+#: Branch stars solved at least, when masses are requested (they bracket the searches).
+_MIN_BRANCH_FOR_QUERIES = 16
 
 
 def _cluster_nodes(n):
@@ -282,8 +284,9 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     batch : EOSBatch
         The EOS (see :meth:`tovforge.eos.EOSFamily.build`).
     n_stars : int
-        Stars on each stable branch (0 for none beyond what the maximum and
-        the queries need; a few are still solved to place the queries).
+        Stars on each stable branch (0 for none; with ``masses`` or
+        ``u_nodes`` at least 16 are solved, because they bracket the search for
+        each requested star).
     masses : array_like, shape (n_masses,) or (n_eos, n_masses), optional
         Gravitational masses in Msun at which to solve exactly.
     settings : SequenceSettings, optional
@@ -303,6 +306,9 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     """
     settings = settings or SequenceSettings()
     n_eos = batch.n_eos
+    if masses is not None or u_nodes is not None:
+        # the exact search for a star of given mass starts from a bracket of branch stars
+        n_stars = max(n_stars, _MIN_BRANCH_FOR_QUERIES)
     nfev = 0
     status = np.zeros(n_eos, dtype=np.intp)
 

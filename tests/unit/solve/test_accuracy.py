@@ -156,3 +156,13 @@ def test_love_number_series_matches_closed_form():
     np.testing.assert_allclose(k2_series(C, y), k2_closed_form(C, y), rtol=1e-8, atol=1e-12)
     y1 = np.linspace(0.0, 2.5, 11)
     np.testing.assert_allclose(k2_series(1e-9, y1), (2 - y1) / (2 * (y1 + 3)), rtol=1e-7, atol=1e-8)
+
+
+def test_mass_queries_without_branch_stars(sly):
+    """Regression (found by the demo work): n_stars=0 with masses once gave NaN at every mass."""
+    from tovforge.solve import solve_sequences
+
+    res = solve_sequences(sly.batch, n_stars=0, masses=[1.0, 1.4, 2.0])
+    assert np.all(np.isfinite(res.at_mass.radius_km))
+    ref = solve.solve_sequence(sly, masses=[1.0, 1.4, 2.0])
+    np.testing.assert_allclose(res.at_mass.radius_km[0], ref.at_mass.radius_km, rtol=1e-9)
