@@ -73,15 +73,15 @@ def _trend(xp, m, x, grad):
     """Polynomial trend terms (n, n_terms) and, if asked, their x-derivatives (n, n_terms, d)."""
     powers = m["trend_powers"]
     n_terms, d = powers.shape
-    cols = []
+    # every term at once: the powers x_i^p (p = 0..top, by the same integer powers as a
+    # term-by-term loop), the factors of each term gathered, multiplied in parameter order
+    top = max([int(powers[t, i]) for t in range(n_terms) for i in range(d)] + [0])
+    n = x.shape[0]
+    XP = xp.stack([xp.ones(x.shape, dtype=x.dtype)] + [x**p for p in range(1, top + 1)], axis=-1)  # (n, d, top+1)
+    pick = xp.asarray([i * (top + 1) + int(powers[t, i]) for t in range(n_terms) for i in range(d)], dtype=xp.int64)
+    F = xp.prod(xp.reshape(xp.take(xp.reshape(XP, (n, d * (top + 1))), pick, axis=1), (n, n_terms, d)), axis=-1)
     dcols = []
-    for t in range(n_terms):
-        term = xp.ones(x.shape[0], dtype=x.dtype)
-        for i in range(d):
-            p = int(powers[t, i])
-            if p:
-                term = term * x[:, i] ** p
-        cols.append(term)
+    for t in range(n_terms if grad else 0):
         if grad:
             dd = []
             for i in range(d):
@@ -96,7 +96,6 @@ def _trend(xp, m, x, grad):
                         g = g * x[:, j] ** q
                 dd.append(g)
             dcols.append(xp.stack(dd, axis=-1))
-    F = xp.stack(cols, axis=-1)
     dF = xp.stack(dcols, axis=1) if grad else None
     return F, dF
 
@@ -372,7 +371,10 @@ def spline_in_u(xp, m, values, u, weights=True):
     # each row's polynomial on each interval (n, n_int) per power, then one lookup per query:
     # memory (n, q) instead of (n, q, n_u) per power
     jj = xp.reshape(j, u.shape)
-    c0, c1, c2, c3 = (xp.take_along_axis(values @ xp.permute_dims(C[p], (1, 0)), jj, axis=1) for p in range(4))
+    q = u.shape[1]
+    P = values @ xp.reshape(xp.permute_dims(C, (2, 0, 1)), (un.shape[0], 4 * n_int))  # column p n_int + j
+    c = xp.take_along_axis(P, xp.concat([jj + p * n_int for p in range(4)], axis=1), axis=1)
+    c0, c1, c2, c3 = (c[:, p * q : (p + 1) * q] for p in range(4))
     val = ((c0 * t + c1) * t + c2) * t + c3
     der = (3.0 * c0 * t + 2.0 * c1) * t + c2
     w = None
