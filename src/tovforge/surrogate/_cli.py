@@ -19,13 +19,17 @@ def train_cmd(
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
     kind: Annotated[str, typer.Option("--kind", help="gp (Gaussian process) or spline.")] = "gp",
     subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 1024,
-    restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 2,
+    restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 1,
+    curve_groups: Annotated[
+        int, typer.Option("--curve-groups", min=1, max=24, help="GP: kernels per curve (blocks of u nodes).")
+    ] = 2,
 ):
     """Train a surrogate on a grid and save it."""
     from . import GPSettings, train
 
     def work():
-        model = train(grid, kind, GPSettings(n_subset=subset, n_restarts=restarts), log=typer.echo)
+        settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups)
+        model = train(grid, kind, settings, log=typer.echo)
         model.save(out)
         return model
 

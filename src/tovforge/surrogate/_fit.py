@@ -81,7 +81,12 @@ class GPSettings:
     trend_degree : int
         Degree of the polynomial trend fitted by least squares before the GP.
     noise_bounds : tuple
-        Bounds of the white-noise variance (standardised units): a small nugget.
+        Bounds of the white-noise variance, in units of the variance of the
+        residual after the trend: a small nugget.  The lower bound keeps the
+        kernel matrix well conditioned (with 1e-8 the weights cancelled to
+        1e-13 of their size and predictions moved by 5e-7 with the summation
+        order; with 1e-6 the held-out errors are unchanged, measured on 2,048
+        points).
     seed : int
     curve_groups : int
         Kernels per curve: the nodes of a curve are split into this many
@@ -92,11 +97,11 @@ class GPSettings:
     """
 
     n_subset: int = 1024
-    n_restarts: int = 2
+    n_restarts: int = 1
     trend_degree: int = 2
-    noise_bounds: tuple = (1e-10, 1e-6)
+    noise_bounds: tuple = (1e-6, 1e-4)
     seed: int = 0
-    curve_groups: int = 3
+    curve_groups: int = 2
     n_jobs: int = -1
 
 
@@ -167,7 +172,7 @@ def _fit_group(x, R, sub, settings, d):
     t0 = time.perf_counter()
     kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5),
                                                        length_scale_bounds=(1e-3, 1e3), nu=2.5) \
-        + WhiteKernel(1e-8, settings.noise_bounds)
+        + WhiteKernel(settings.noise_bounds[0], settings.noise_bounds)
     gpr = GaussianProcessRegressor(kernel, n_restarts_optimizer=settings.n_restarts,
                                    random_state=settings.seed, normalize_y=False)
     with warnings.catch_warnings(record=True) as caught:

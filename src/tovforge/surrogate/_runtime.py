@@ -100,34 +100,61 @@ def _trend(xp, m, x, grad):
     return F, dF
 
 
-def _matern(xp, diffs, length, amp2, grad):
-    """Matern-5/2 kernel rows k(x, X) of every kernel group at once, (G, n, N).
+def _scaled_training_points(xp, m):
+    """Per kernel group: ``X / l`` (G, N, d), ``|X / l|^2`` (G, N), and the weights
+    times the kernel amplitude (N, n_out); computed once per model."""
+    # cached for NumPy only: under another namespace (e.g. inside jax.jit) a cached
+    # array could be a tracer of an earlier call
+    numpy_like = getattr(xp, "__name__", "") == "numpy"
+    cache = m.get("_gp_cache") if numpy_like else None
+    if cache is None:
+        inv = 1.0 / m["length"]
+        Xs = m["X"][None, :, :] * inv[:, None, :]
+        gb = [int(v) for v in m["group_bounds"]]
+        amp = xp.concat([xp.full((gb[g + 1] - gb[g],), float(m["amp2"][g]), dtype=m["X"].dtype)
+                         for g in range(len(gb) - 1)])
+        cache = (Xs, xp.sum(Xs * Xs, axis=-1), m["alpha"] * amp)
+        if numpy_like:
+            m["_gp_cache"] = cache
+    return cache
 
-    ``diffs``: the d column differences (n, N); ``length`` (G, d); ``amp2`` (G,).
-    With ``grad``, also the d arrays (G, n, N) of dk/dx_i.  All groups in one
-    array: a dozen array operations per call instead of a dozen per group.
+
+def _matern(xp, x, m, groups, grad, diffs=None):
+    """Matern-5/2 kernel rows k(x, X) / amp2 of the given kernel groups at once, (G, n, N).
+
+    The amplitude is folded into the weights (see :func:`_scaled_training_points`).
+    The scaled squared distance comes from one batched matrix product,
+    ``|x/l|^2 + |X/l|^2 - 2 (x/l).(X/l)``: a few array passes instead of three
+    per parameter (near r = 0 it loses digits only where the kernel is flat).
+    With ``grad`` (and the column differences ``diffs``), also the d arrays
+    (G, n, N) of the derivatives d/dx_i.
     """
-    G = length.shape[0]
-    lengths = [xp.reshape(length[:, i], (G, 1, 1)) for i in range(len(diffs))]
-    amp2 = xp.reshape(amp2, (G, 1, 1))
-    s = diffs[0][None, :, :] / lengths[0]
-    scaled = [s]  # kept only for the gradient (memory)
-    r2 = s * s
-    for i in range(1, len(diffs)):
-        s = diffs[i][None, :, :] / lengths[i]
-        r2 = r2 + s * s
-        if grad:
-            scaled.append(s)
-    r = xp.sqrt(r2)
-    sr = SQRT5 * r
+    Xs_all, Xn_all, _ = _scaled_training_points(xp, m)
+    pick = xp.asarray(groups, dtype=xp.int64)
+    G = len(groups)
+    Xs, Xn = xp.take(Xs_all, pick, axis=0), xp.take(Xn_all, pick, axis=0)
+    inv = 1.0 / xp.take(m["length"], pick, axis=0)  # (G, d)
+    xs = x[None, :, :] * inv[:, None, :]  # (G, n, d)
+    q = xp.matmul(xs, xp.permute_dims(Xs, (0, 2, 1)))  # (G, n, N)
+    q *= -2.0
+    q += xp.sum(xs * xs, axis=-1)[:, :, None]
+    q += Xn[:, None, :]
+    q = xp.abs(q)  # r^2 (rounding can leave -0 or a tiny negative at r = 0)
+    q *= 5.0
+    sr = xp.sqrt(q)  # sqrt(5) r
     e = xp.exp(-sr)
-    k = amp2 * (1.0 + sr + (5.0 / 3.0) * r * r) * e
+    q *= 1.0 / 3.0  # (5/3) r^2
+    q += sr
+    q += 1.0
+    q *= e  # (1 + sqrt5 r + 5 r^2 / 3) exp(-sqrt5 r)
     dk = None
     if grad:
-        # dk/dx_i = -amp2 (5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
-        c = (-amp2 * (5.0 / 3.0)) * ((1.0 + sr) * e)
-        dk = [c * (scaled[i] / lengths[i]) for i in range(len(diffs))]
-    return k, dk
+        # d/dx_i = -(5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
+        c = (1.0 + sr) * e
+        c *= -5.0 / 3.0
+        inv2 = inv * inv
+        dk = [c * (diffs[i][None, :, :] * xp.reshape(inv2[:, i], (G, 1, 1))) for i in range(len(diffs))]
+    return q, dk
 
 
 def _polyharmonic(xp, x, X, grad):
@@ -257,12 +284,14 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
     dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
     kind = m["kind"]
     if kind in ("gp", "rbf"):
-        # rows per chunk fixed by the model alone: a subset of groups gives the same bits
-        per_row = m["X"].shape[0] * (m["length"].shape[0] if kind == "gp" else 1)
         groups = None
         if kind == "gp" and columns is not None:
             gb = [int(v) for v in m["group_bounds"]]
             groups = [g for g in range(len(gb) - 1) if any(a < gb[g + 1] and gb[g] < b for a, b in columns)]
+        # rows per chunk from the kernel groups actually evaluated (a query that needs few
+        # groups runs on long chunks); the same query always runs the same chunks
+        n_groups = (m["length"].shape[0] if groups is None else len(groups)) if kind == "gp" else 1
+        per_row = m["X"].shape[0] * max(n_groups, 1)
         kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad, groups)
         z = z + kz
         if grad:
@@ -284,19 +313,15 @@ def _kernel_part(xp, x, m, grad, groups=None):
     ``groups``: the GP kernel groups to evaluate (default all); the outputs of
     the others are NaN.
     """
-    diffs = _column_differences(xp, x, m["X"])
+    diffs = _column_differences(xp, x, m["X"]) if (grad or m["kind"] == "rbf") else None
     if m["kind"] == "rbf":
         phi, dphi = _polyharmonic_columns(xp, diffs, grad)
         return phi @ m["alpha"], (xp.stack([c @ m["alpha"] for c in dphi], axis=-1) if grad else None)
     parts, dparts = [], []
     n_groups = m["length"].shape[0]
-    length, amp2 = m["length"], m["amp2"]
-    if groups is not None and len(groups) < n_groups:
-        pick = xp.asarray(groups, dtype=xp.int64)
-        length, amp2 = xp.take(length, pick, axis=0), xp.take(amp2, pick, axis=0)
-    else:
+    if groups is None:
         groups = list(range(n_groups))
-    k, dk = _matern(xp, diffs, length, amp2, grad)
+    k, dk = _matern(xp, x, m, groups, grad, diffs)
     for g in range(n_groups):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
         if g not in groups:
@@ -305,7 +330,7 @@ def _kernel_part(xp, x, m, grad, groups=None):
                 dparts.append(xp.full((x.shape[0], b - a, x.shape[1]), float("nan"), dtype=x.dtype))
             continue
         j = groups.index(g)
-        alpha = m["alpha"][:, a:b]
+        alpha = _scaled_training_points(xp, m)[2][:, a:b]
         parts.append(k[j] @ alpha)
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
             dparts.append(xp.stack([c[j] @ alpha for c in dk], axis=-1))
