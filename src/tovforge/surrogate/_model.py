@@ -163,7 +163,7 @@ class Surrogate:
         """Maximum mass in Msun (NaN outside the box)."""
         t = self._theta(theta)
         i = self._m["i_mass_max"]
-        y, _, dy = rt.outputs(np, self._m, t, grad=return_grad)
+        y, _, dy = rt.outputs(np, self._m, t, return_grad, rt.needed_columns(self._m, ()))
         out = [y[:, i]]
         if return_grad:
             out.append(dy[:, i, :])
@@ -202,12 +202,13 @@ class Surrogate:
         """The emulated stable branch: masses, radii, Lambdas (n_theta, n), from the
         lowest emulated mass up to M_max."""
         t = self._theta(theta)
-        mm = self.mass_max(t)
+        # one evaluation serves M_max and both curves (the masses then sit exactly on the branch)
+        y, _, _ = rt.outputs(np, self._m, t, False, rt.needed_columns(self._m, ("radius_km", "tidal_deformability")))
         umax = float(self.arrays["u_nodes"][-1])
         frac = 1.0 - (umax * np.linspace(1.0, 0.0, n)) ** 2
-        masses = mm[:, None] * frac[None, :]
-        R = rt.at_mass(np, self._m, t, masses, "radius_km")[0]
-        L = rt.at_mass(np, self._m, t, masses, "tidal_deformability")[0]
+        masses = y[:, self._m["i_mass_max"]][:, None] * frac[None, :]
+        R = rt.curve_at_mass(np, self._m, y, None, None, masses, "radius_km")[0]
+        L = rt.curve_at_mass(np, self._m, y, None, None, masses, "tidal_deformability")[0]
         return masses, R, L
 
     # -- storage --------------------------------------------------------------------

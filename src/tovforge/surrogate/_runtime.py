@@ -100,57 +100,55 @@ def _trend(xp, m, x, grad):
     return F, dF
 
 
-def _scaled_training_points(xp, m):
-    """Per kernel group: ``X / l`` (G, N, d), ``|X / l|^2`` (G, N), and the weights
-    times the kernel amplitude (N, n_out); computed once per model."""
+def _folded_weights(xp, m):
+    """The GP weights times each output's kernel amplitude (N, n_out), computed once per model."""
     # cached for NumPy only: under another namespace (e.g. inside jax.jit) a cached
     # array could be a tracer of an earlier call
     numpy_like = getattr(xp, "__name__", "") == "numpy"
-    cache = m.get("_gp_cache") if numpy_like else None
-    if cache is None:
-        inv = 1.0 / m["length"]
-        Xs = m["X"][None, :, :] * inv[:, None, :]
+    alpha = m.get("_folded_alpha") if numpy_like else None
+    if alpha is None:
         gb = [int(v) for v in m["group_bounds"]]
         amp = xp.concat([xp.full((gb[g + 1] - gb[g],), float(m["amp2"][g]), dtype=m["X"].dtype)
                          for g in range(len(gb) - 1)])
-        cache = (Xs, xp.sum(Xs * Xs, axis=-1), m["alpha"] * amp)
+        alpha = m["alpha"] * amp
         if numpy_like:
-            m["_gp_cache"] = cache
-    return cache
+            m["_folded_alpha"] = alpha
+    return alpha
 
 
 def _matern(xp, x, m, groups, grad, diffs=None):
     """Matern-5/2 kernel rows k(x, X) / amp2 of the given kernel groups at once, (G, n, N).
 
-    The amplitude is folded into the weights (see :func:`_scaled_training_points`).
-    The scaled squared distance comes from one batched matrix product,
-    ``|x/l|^2 + |X/l|^2 - 2 (x/l).(X/l)``: a few array passes instead of three
-    per parameter (near r = 0 it loses digits only where the kernel is flat).
-    With ``grad`` (and the column differences ``diffs``), also the d arrays
-    (G, n, N) of the derivatives d/dx_i.
+    The amplitude is folded into the weights (see :func:`_folded_weights`);
+    the arithmetic runs in place on one (G, n, N) array.  With ``grad`` (and the
+    column differences ``diffs``), also the d arrays (G, n, N) of the
+    derivatives d/dx_i.
     """
-    Xs_all, Xn_all, _ = _scaled_training_points(xp, m)
     pick = xp.asarray(groups, dtype=xp.int64)
     G = len(groups)
-    Xs, Xn = xp.take(Xs_all, pick, axis=0), xp.take(Xn_all, pick, axis=0)
     inv = 1.0 / xp.take(m["length"], pick, axis=0)  # (G, d)
-    xs = x[None, :, :] * inv[:, None, :]  # (G, n, d)
-    q = xp.matmul(xs, xp.permute_dims(Xs, (0, 2, 1)))  # (G, n, N)
-    q *= -2.0
-    q += xp.sum(xs * xs, axis=-1)[:, :, None]
-    q += Xn[:, None, :]
-    q = xp.abs(q)  # r^2 (rounding can leave -0 or a tiny negative at r = 0)
+    if diffs is None:
+        diffs = _column_differences(xp, x, m["X"])
+    # squared scaled distance from the column differences (exact to rounding, unlike the
+    # |a|^2 + |b|^2 - 2 a.b form, whose cancellation the ill-conditioned weights amplify)
+    q = diffs[0][None, :, :] * xp.reshape(inv[:, 0], (G, 1, 1))
+    q *= q
+    for i in range(1, len(diffs)):
+        s = diffs[i][None, :, :] * xp.reshape(inv[:, i], (G, 1, 1))
+        s *= s
+        q += s
     q *= 5.0
-    sr = xp.sqrt(q)  # sqrt(5) r
-    e = xp.exp(-sr)
+    msr = xp.sqrt(q)
+    msr *= -1.0  # -sqrt(5) r
+    e = xp.exp(msr)
     q *= 1.0 / 3.0  # (5/3) r^2
-    q += sr
+    q -= msr
     q += 1.0
     q *= e  # (1 + sqrt5 r + 5 r^2 / 3) exp(-sqrt5 r)
     dk = None
     if grad:
         # d/dx_i = -(5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
-        c = (1.0 + sr) * e
+        c = (1.0 - msr) * e
         c *= -5.0 / 3.0
         inv2 = inv * inv
         dk = [c * (diffs[i][None, :, :] * xp.reshape(inv2[:, i], (G, 1, 1))) for i in range(len(diffs))]
@@ -313,7 +311,7 @@ def _kernel_part(xp, x, m, grad, groups=None):
     ``groups``: the GP kernel groups to evaluate (default all); the outputs of
     the others are NaN.
     """
-    diffs = _column_differences(xp, x, m["X"]) if (grad or m["kind"] == "rbf") else None
+    diffs = _column_differences(xp, x, m["X"])
     if m["kind"] == "rbf":
         phi, dphi = _polyharmonic_columns(xp, diffs, grad)
         return phi @ m["alpha"], (xp.stack([c @ m["alpha"] for c in dphi], axis=-1) if grad else None)
@@ -330,7 +328,7 @@ def _kernel_part(xp, x, m, grad, groups=None):
                 dparts.append(xp.full((x.shape[0], b - a, x.shape[1]), float("nan"), dtype=x.dtype))
             continue
         j = groups.index(g)
-        alpha = _scaled_training_points(xp, m)[2][:, a:b]
+        alpha = _folded_weights(xp, m)[:, a:b]
         parts.append(k[j] @ alpha)
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
             dparts.append(xp.stack([c[j] @ alpha for c in dk], axis=-1))
@@ -472,7 +470,7 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
     Returns ``(value, grad, std)``: value (n, q) with NaN above M_max, below the
     emulated range or outside the box; grad (n, q, d) and std (n, q) or None.
     """
-    y, inside, dy = outputs(xp, m, theta, grad)
+    y, inside, dy = outputs(xp, m, theta, grad, needed_columns(m, (quantity,)))
     sd = output_std(xp, m, theta) if std else None
     return curve_at_mass(xp, m, y, dy, sd, mass, quantity)
 
