@@ -105,14 +105,15 @@ def _folded_weights(xp, m):
     # cached for NumPy only: under another namespace (e.g. inside jax.jit) a cached
     # array could be a tracer of an earlier call
     numpy_like = getattr(xp, "__name__", "") == "numpy"
-    alpha = m.get("_folded_alpha") if numpy_like else None
-    if alpha is None:
-        gb = [int(v) for v in m["group_bounds"]]
-        amp = xp.concat([xp.full((gb[g + 1] - gb[g],), float(m["amp2"][g]), dtype=m["X"].dtype)
-                         for g in range(len(gb) - 1)])
-        alpha = m["alpha"] * amp
-        if numpy_like:
-            m["_folded_alpha"] = alpha
+    cached = m.get("_folded_alpha") if numpy_like else None
+    if cached is not None and cached[0] is m["alpha"]:  # the same weights (a copied dict may hold others)
+        return cached[1]
+    gb = [int(v) for v in m["group_bounds"]]
+    amp = xp.concat([xp.full((gb[g + 1] - gb[g],), float(m["amp2"][g]), dtype=m["X"].dtype)
+                     for g in range(len(gb) - 1)])
+    alpha = m["alpha"] * amp
+    if numpy_like:
+        m["_folded_alpha"] = (m["alpha"], alpha)
     return alpha
 
 
