@@ -155,10 +155,9 @@ def _read_report(report) -> dict | None:
         path = path / "report.json"
     if not path.is_file():
         raise ExportError(f"{path}: no such report (write one with `tovforge check MODEL --holdout GRID --report DIR`).")
-    try:
-        rep = json.loads(path.read_text())
-    except json.JSONDecodeError as exc:
-        raise ExportError(f"{path}:{exc.lineno}: not valid JSON ({exc.msg}).") from None
+    from .._jsonfile import read_json
+
+    rep = read_json(path, ExportError)
     if not isinstance(rep, dict) or rep.get("format") != "tovforge-check":
         raise ExportError(f"{path}: not a report of `tovforge check` (format {rep.get('format') if isinstance(rep, dict) else None!r}).")
     return rep

@@ -9,6 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._jsonfile import read_json
 from ..errors import InputError
 from . import _runtime as rt
 
@@ -246,10 +247,7 @@ def load(folder) -> Surrogate:
     for p in (meta_path, arr_path):
         if not p.is_file():
             raise ModelFormatError(f"{folder}: not a tovforge model folder (missing {p.name}).")
-    try:
-        meta = json.loads(meta_path.read_text())
-    except json.JSONDecodeError as exc:
-        raise ModelFormatError(f"{meta_path}:{exc.lineno}: not valid JSON ({exc.msg}).") from None
+    meta = read_json(meta_path, ModelFormatError)
     if meta.get("format") != FORMAT:
         raise ModelFormatError(f"{meta_path}: not a tovforge surrogate (format {meta.get('format')!r}).")
     if meta.get("format_version") != FORMAT_VERSION:
