@@ -111,4 +111,4 @@ def training_data_from_arrays(*, path, family_name, parameter_names, parameter_u
     )
 
 
-assert SCALARS == ("mass_max_msun", "log10_central_pressure_at_mass_max", "max_sound_speed_sq")
+assert set(SCALARS) == {"mass_max_msun", "log10_central_pressure_at_mass_max", "max_sound_speed_sq"}

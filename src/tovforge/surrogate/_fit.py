@@ -16,7 +16,9 @@ __all__ = ["TrainingData", "GPSettings", "fit_gp", "fit_rbf", "fit_tensor", "spl
            "trend_powers"]
 
 #: Outputs modelled, in this order: three scalars, then the node curves.
-SCALARS = ("mass_max_msun", "log10_central_pressure_at_mass_max", "max_sound_speed_sq")
+#: M_max comes last, next to the radius curve, so that it can share a kernel with
+#: the radius nodes near the maximum (see GPSettings.mass_max_with_radius).
+SCALARS = ("log10_central_pressure_at_mass_max", "max_sound_speed_sq", "mass_max_msun")
 
 
 @dataclass(frozen=True)
@@ -92,6 +94,9 @@ class GPSettings:
         Kernels per curve: the nodes of a curve are split into this many
         contiguous blocks of ``u``, each with its own hyperparameters (the
         smoothness in the parameters changes along the branch).
+    mass_max_with_radius : bool
+        Let M_max share the kernel of the first block of radius nodes (a
+        query at a mass then reads one kernel less).
     n_jobs : int
         Parallel workers for the kernel groups (joblib; -1: all cores).
     """
@@ -102,6 +107,7 @@ class GPSettings:
     noise_bounds: tuple = (1e-6, 1e-4)
     seed: int = 0
     curve_groups: int = 2
+    mass_max_with_radius: bool = True
     n_jobs: int = -1
 
 
@@ -147,13 +153,16 @@ def _trend_matrix(x, powers):
     return F
 
 
-def _groups(index, slices, n_out, curve_groups=1):
+def _groups(index, slices, n_out, curve_groups=1, mass_max_with_radius=False):
     """Kernel groups: one per scalar and ``curve_groups`` per curve (contiguous output blocks)."""
     bounds = [0]
     for i in range(len(index)):
         bounds.append(i + 1)
-    for a, b in slices:
-        if bounds[-1] != a:
+    if mass_max_with_radius:  # M_max (the last scalar) joins the first radius block
+        assert index["mass_max_msun"] == len(index) - 1 == slices[0][0] - 1
+        bounds.pop()
+    for k, (a, b) in enumerate(slices):
+        if bounds[-1] != a and not (k == 0 and mass_max_with_radius):
             bounds.append(int(a))
         edges = np.linspace(a, b, curve_groups + 1).round().astype(int)
         bounds.extend(int(e) for e in edges[1:])
@@ -234,7 +243,7 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     resid = Z - F @ coef
     rscale = np.where(resid.std(axis=0) > 0, resid.std(axis=0), 1.0)
     R = resid / rscale
-    bounds = _groups(index, slices, Z.shape[1], settings.curve_groups)
+    bounds = _groups(index, slices, Z.shape[1], settings.curve_groups, settings.mass_max_with_radius)
     sub = _space_filling_subset(x, settings.n_subset, settings.seed)
     n_g = len(bounds) - 1
     d = x.shape[1]
@@ -260,6 +269,7 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     arrays["trend_coef"] = coef
     arrays["alpha"] = alpha * rscale
     extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts, "curve_groups": settings.curve_groups,
+                    "mass_max_with_radius": settings.mass_max_with_radius,
                     "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
                     "group_bounds": bounds.tolist(), "fit_seconds": timings,
                     "optimizer_warnings": boundary_hits}}

@@ -36,7 +36,7 @@ SQRT5 = math.sqrt(5.0)
 MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 nominal)
 #: Kernel models evaluate at most this many (query, training point) pairs at a
 #: time: the temporaries then stay in cache and memory stays bounded for any batch.
-PAIRS_PER_CHUNK = 1 << 16
+PAIRS_PER_CHUNK = 1 << 15
 
 
 def _column_differences(xp, x, X):
@@ -287,10 +287,10 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
         if kind == "gp" and columns is not None:
             gb = [int(v) for v in m["group_bounds"]]
             groups = [g for g in range(len(gb) - 1) if any(a < gb[g + 1] and gb[g] < b for a, b in columns)]
-        # rows per chunk from the kernel groups actually evaluated (a query that needs few
-        # groups runs on long chunks); the same query always runs the same chunks
-        n_groups = (m["length"].shape[0] if groups is None else len(groups)) if kind == "gp" else 1
-        per_row = m["X"].shape[0] * max(n_groups, 1)
+        # rows per chunk from the training points alone, not from how many kernel groups a
+        # query reads: every group then sees the same rows, so a query that skips groups gives
+        # the same bits as a full evaluation
+        per_row = m["X"].shape[0]
         kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad, groups)
         z = z + kz
         if grad:

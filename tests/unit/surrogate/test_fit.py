@@ -10,6 +10,7 @@ from surrogate_helpers import BOX, synthetic, truth
 from tovforge import surrogate
 from tovforge.surrogate import GPSettings, train_on
 from tovforge.surrogate import _runtime as rt
+from tovforge.surrogate._fit import SCALARS
 
 
 def _all_outputs(model, theta):
@@ -19,9 +20,7 @@ def _all_outputs(model, theta):
 
 def _truth_matrix(theta):
     s, c = truth(theta)
-    return np.hstack([s["mass_max_msun"][:, None], s["log10_central_pressure_at_mass_max"][:, None],
-                      s["max_sound_speed_sq"][:, None], c["radius_km"], c["log_tidal_deformability"],
-                      c["log_moment_of_inertia"]])
+    return np.hstack([s[k][:, None] for k in SCALARS] + [c[k] for k in rt.CURVES])
 
 
 @pytest.mark.parametrize("shape", [None, (5, 4, 4, 4)])
