@@ -200,7 +200,26 @@ def _fit_group(x, R, sub, settings, d):
             f"GP kernel on {len(x)} points is not positive definite; "
             "remove duplicate parameter rows or raise the nugget bounds.") from None
     alpha = scipy.linalg.cho_solve(cf, R, check_finite=False)
-    return length, amp2, noise, alpha, time.perf_counter() - t0, [str(w.message) for w in caught]
+    scale = _loo_sigma_scale(x[sub], R[sub], length, amp2, noise)
+    return length, amp2, noise, alpha, time.perf_counter() - t0, [str(w.message) for w in caught], scale
+
+
+def _loo_sigma_scale(x, R, length, amp2, noise):
+    """Scale of the predictive sigma from leave-one-out residuals on the subset.
+
+    For a GP, the leave-one-out residual of point i is ``[K^-1 y]_i / [K^-1]_ii``
+    and its predictive variance ``1 / [K^-1]_ii`` (Rasmussen & Williams 2006,
+    Sec. 5.4.2).  The robust spread (MAD / 0.6745) of their ratio says by how
+    much the marginal-likelihood hyperparameters over- or understate the
+    errors; the predictive sigma is multiplied by it, per output.
+    """
+    K = _matern_matrix(x, length, amp2)
+    K[np.diag_indices_from(K)] += noise + 1e-10 * amp2
+    cf = scipy.linalg.cho_factor(K, lower=True, check_finite=False)
+    Kinv = scipy.linalg.cho_solve(cf, np.eye(len(x)), check_finite=False)
+    d = np.diag(Kinv)
+    z = (Kinv @ R) / np.sqrt(d)[:, None]
+    return np.median(np.abs(z), axis=0) / 0.6745
 
 
 def _space_filling_subset(x, n, seed):
@@ -257,6 +276,7 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     noise = np.array([r[2] for r in results])
     alpha = np.concatenate([r[3] for r in results], axis=1)
     timings = [r[4] for r in results]
+    sigma_scale = np.concatenate([r[6] for r in results])
     boundary_hits = [f"group {g}: {msg}" for g, r in enumerate(results) for msg in r[5]]
     if log:
         for g, r in enumerate(results):
@@ -264,12 +284,13 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
                 f"{np.array2string(r[0], precision=3)}, amplitude {np.sqrt(r[1]):.3g}, nugget {r[2]:.2g}, "
                 f"{r[4]:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=coef * 1.0, X=x, alpha=alpha, group_bounds=bounds,
-                  length=length, amp2=amp2, noise=noise, resid_scale=rscale)
+                  length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
     arrays["trend_coef"] = coef
     arrays["alpha"] = alpha * rscale
     extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts, "curve_groups": settings.curve_groups,
                     "mass_max_with_radius": settings.mass_max_with_radius,
+                    "sigma_loo_scale": [float(v) for v in sigma_scale],
                     "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
                     "group_bounds": bounds.tolist(), "fit_seconds": timings,
                     "optimizer_warnings": boundary_hits}}

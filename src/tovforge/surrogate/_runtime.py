@@ -18,7 +18,9 @@ A model is a dict ``m`` of arrays and a few numbers:
     ``"gp"``: ``X`` (n, d), ``alpha`` (n, n_out), ``group_bounds`` (n_groups + 1,):
     outputs ``group_bounds[g]:group_bounds[g+1]`` share kernel ``g`` with
     ``length`` (n_groups, d), ``amp2``, ``noise`` (n_groups,) and
-    ``resid_scale`` (n_out,); Matern-5/2 kernels with one length scale per
+    ``resid_scale`` (n_out,: turns the kernel's sigma into standardised output
+    units; the residual's scale times a leave-one-out calibration factor);
+    Matern-5/2 kernels with one length scale per
     parameter, on the residual of the trend.
     ``"rbf"``: ``X`` (n, d), ``alpha`` (n, n_out); the polyharmonic kernel r^5.
     ``"tensor"``: ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened, n_out),
