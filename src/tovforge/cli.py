@@ -17,6 +17,7 @@ import numpy as np
 import typer
 
 from . import __version__
+from ._cliargs import FamilyArg, ParametersArg
 from .errors import InputError
 
 app = typer.Typer(
@@ -243,10 +244,8 @@ def sequence_json(seq) -> dict:
 
 @app.command("solve")
 def solve_cmd(
-    family: Annotated[str, typer.Argument(help="EOS family (see `tovforge families`).")],
-    parameters: Annotated[
-        Optional[list[str]], typer.Argument(help="Parameters as NAME=VALUE (for tables: path=FILE).")
-    ] = None,
+    family: FamilyArg,
+    parameters: ParametersArg = None,
     masses: Annotated[
         Optional[str], typer.Option("--masses", help="Comma-separated masses in Msun to solve exactly.")
     ] = None,

@@ -260,6 +260,8 @@ def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> st
     tr = meta.get("training", {})
     kind = meta["kind"]
     n_groups = int(np.asarray(arrays["length"]).shape[0]) if kind == "gp" else None
+    shared = arrays.get("group_kernel") if kind == "gp" else None
+    n_kernels = len(set(np.asarray(shared).tolist())) if shared is not None else n_groups
     mod = info["module"]
     w = max(len(n) for n in names)
     lines = [
@@ -276,7 +278,7 @@ def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> st
         "Model",
         "-----",
         f"family           {_text(meta['family'])}",
-        f"kind             {kind}" + (f", {n_groups} kernel groups" if n_groups else "") + ":",
+        f"kind             {kind}" + (f", {n_groups} output groups, {n_kernels} kernels" if n_groups else "") + ":",
         f"                 {_KIND_TEXT.get(kind, '')}",
         f"training         {tr.get('n_train')} exact EOS ({tr.get('grid_points_used', '?')} of "
         f"{tr.get('grid_points', '?')} grid points usable), grid {_text(tr.get('grid_path', '?'))}",

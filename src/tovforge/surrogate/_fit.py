@@ -97,6 +97,11 @@ class GPSettings:
     mass_max_with_radius : bool
         Let M_max share the kernel of the first block of radius nodes (a
         query at a mass then reads one kernel less).
+    share_curve_kernels : bool
+        The same block of ``u`` nodes of every curve (radius, ln Lambda,
+        ln I) shares one kernel, fitted on the outputs of all of them: a
+        query of the whole M-R-Lambda curve then evaluates ``curve_groups``
+        kernels instead of twice as many.
     n_jobs : int
         Parallel workers for the kernel groups (joblib; -1: all cores).
     """
@@ -108,6 +113,7 @@ class GPSettings:
     seed: int = 0
     curve_groups: int = 2
     mass_max_with_radius: bool = True
+    share_curve_kernels: bool = False
     n_jobs: int = -1
 
 
@@ -168,6 +174,28 @@ def _groups(index, slices, n_out, curve_groups=1, mass_max_with_radius=False):
         bounds.extend(int(e) for e in edges[1:])
     assert bounds[-1] == n_out
     return np.array(bounds, dtype=np.int64)
+
+
+def _kernel_sets(bounds, slices, n_scalar_groups, share):
+    """Groups that share one kernel: lists of group indices (each group in exactly one).
+
+    Without ``share`` every group has its own kernel.  With it, the k-th block
+    of every curve shares the kernel of the k-th radius block (the scalars keep
+    their own kernels).
+    """
+    n_g = len(bounds) - 1
+    if not share:
+        return [[g] for g in range(n_g)]
+    curve_of = []  # (curve, block) of each curve group
+    for g in range(n_scalar_groups, n_g):
+        k = int(np.searchsorted(slices[:, 1], bounds[g + 1], side="left"))
+        curve_of.append(k)
+    sets = [[g] for g in range(n_scalar_groups)]
+    blocks = {}
+    for g, k in zip(range(n_scalar_groups, n_g), curve_of):
+        j = curve_of[: g - n_scalar_groups].count(k)  # block number within its curve
+        blocks.setdefault(j, []).append(g)
+    return sets + [blocks[j] for j in sorted(blocks)]
 
 
 def _fit_group(x, R, sub, settings, d):
@@ -268,28 +296,32 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     d = x.shape[1]
     from joblib import Parallel, delayed
 
-    results = Parallel(n_jobs=settings.n_jobs)(
-        delayed(_fit_group)(x, R[:, bounds[g]:bounds[g + 1]], sub, settings, d) for g in range(n_g)
-    )
-    length = np.array([r[0] for r in results])
-    amp2 = np.array([r[1] for r in results])
-    noise = np.array([r[2] for r in results])
-    alpha = np.concatenate([r[3] for r in results], axis=1)
-    timings = [r[4] for r in results]
-    sigma_scale = np.concatenate([r[6] for r in results])
-    boundary_hits = [f"group {g}: {msg}" for g, r in enumerate(results) for msg in r[5]]
+    n_scalar_groups = int(np.searchsorted(bounds[1:], slices[0, 0], side="right"))  # groups ending before the curves
+    sets = _kernel_sets(bounds, slices, n_scalar_groups, settings.share_curve_kernels)
+    cols = [np.concatenate([np.arange(bounds[g], bounds[g + 1]) for g in s]) for s in sets]
+    fits = Parallel(n_jobs=settings.n_jobs)(delayed(_fit_group)(x, R[:, c], sub, settings, d) for c in cols)
+    length, amp2, noise = np.zeros((n_g, d)), np.zeros(n_g), np.zeros(n_g)
+    alpha, sigma_scale = np.zeros_like(R), np.zeros(R.shape[1])
+    group_kernel = np.zeros(n_g, dtype=np.int64)
+    for s, c, r in zip(sets, cols, fits):
+        length[s], amp2[s], noise[s], group_kernel[s] = r[0], r[1], r[2], s[0]
+        alpha[:, c], sigma_scale[c] = r[3], r[6]
+    timings = [r[4] for r in fits]
+    boundary_hits = [f"kernel {k} (groups {s}): {msg}" for k, (s, r) in enumerate(zip(sets, fits)) for msg in r[5]]
     if log:
-        for g, r in enumerate(results):
-            log(f"  GP group {g + 1}/{n_g} (outputs {bounds[g]}..{bounds[g + 1] - 1}): length scales "
+        for k, (s, r) in enumerate(zip(sets, fits)):
+            outs = ", ".join(f"{bounds[g]}..{bounds[g + 1] - 1}" for g in s)
+            log(f"  GP kernel {k + 1}/{len(sets)} (outputs {outs}): length scales "
                 f"{np.array2string(r[0], precision=3)}, amplitude {np.sqrt(r[1]):.3g}, nugget {r[2]:.2g}, "
                 f"{r[4]:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=coef * 1.0, X=x, alpha=alpha, group_bounds=bounds,
-                  length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
+                  group_kernel=group_kernel, length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
     arrays["trend_coef"] = coef
     arrays["alpha"] = alpha * rscale
     extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts, "curve_groups": settings.curve_groups,
                     "mass_max_with_radius": settings.mass_max_with_radius,
+                    "share_curve_kernels": settings.share_curve_kernels, "n_kernels": len(sets),
                     "sigma_loo_scale": [float(v) for v in sigma_scale],
                     "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
                     "group_bounds": bounds.tolist(), "fit_seconds": timings,

@@ -17,7 +17,9 @@ A model is a dict ``m`` of arrays and a few numbers:
 ``kind``
     ``"gp"``: ``X`` (n, d), ``alpha`` (n, n_out), ``group_bounds`` (n_groups + 1,):
     outputs ``group_bounds[g]:group_bounds[g+1]`` share kernel ``g`` with
-    ``length`` (n_groups, d), ``amp2``, ``noise`` (n_groups,) and
+    ``length`` (n_groups, d), ``amp2``, ``noise`` (n_groups,), optionally
+    ``group_kernel`` (n_groups,: the first group with the same kernel; groups
+    that share hyperparameters share one kernel evaluation) and
     ``resid_scale`` (n_out,: turns the kernel's sigma into standardised output
     units; the residual's scale times a leave-one-out calibration factor);
     Matern-5/2 kernels with one length scale per
@@ -132,15 +134,15 @@ def _matern(xp, x, m, groups, grad, diffs=None):
     inv = 1.0 / xp.take(m["length"], pick, axis=0)  # (G, d)
     if diffs is None:
         diffs = _column_differences(xp, x, m["X"])
-    # squared scaled distance from the column differences (exact to rounding, unlike the
-    # |a|^2 + |b|^2 - 2 a.b form, whose cancellation the ill-conditioned weights amplify)
-    q = diffs[0][None, :, :] * xp.reshape(inv[:, 0], (G, 1, 1))
-    q *= q
-    for i in range(1, len(diffs)):
-        s = diffs[i][None, :, :] * xp.reshape(inv[:, i], (G, 1, 1))
-        s *= s
-        q += s
-    q *= 5.0
+    n, N = diffs[0].shape
+    # 5 r^2 = sum_i (5 / l_i^2) (x_i - X_i)^2: squares of the column differences (exact to
+    # rounding, unlike the |a|^2 + |b|^2 - 2 a.b form, whose cancellation the ill-conditioned
+    # weights amplify), weighted by one matrix-vector product per kernel (several times
+    # faster than scaling and summing d arrays; one product per kernel, so that a query's
+    # bits do not depend on which other kernels it reads)
+    D2 = xp.reshape(xp.stack([s * s for s in diffs], axis=0), (len(diffs), n * N))
+    w = 5.0 * (inv * inv)
+    q = xp.reshape(xp.stack([w[j] @ D2 for j in range(G)], axis=0), (G, n, N))
     msr = xp.sqrt(q)
     msr *= -1.0  # -sqrt(5) r
     e = xp.exp(msr)
@@ -322,7 +324,12 @@ def _kernel_part(xp, x, m, grad, groups=None):
     n_groups = m["length"].shape[0]
     if groups is None:
         groups = list(range(n_groups))
-    k, dk = _matern(xp, x, m, groups, grad, diffs)
+    # groups that share a kernel (same hyperparameters) name the same first group in
+    # ``group_kernel``: each kernel is evaluated once
+    share = m.get("group_kernel")
+    kernel_of = [int(share[g]) if share is not None else g for g in range(n_groups)]
+    kernels = sorted({kernel_of[g] for g in groups})
+    k, dk = _matern(xp, x, m, kernels, grad, diffs)
     for g in range(n_groups):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
         if g not in groups:
@@ -330,7 +337,7 @@ def _kernel_part(xp, x, m, grad, groups=None):
             if grad:
                 dparts.append(xp.full((x.shape[0], b - a, x.shape[1]), float("nan"), dtype=x.dtype))
             continue
-        j = groups.index(g)
+        j = kernels.index(kernel_of[g])
         alpha = _folded_weights(xp, m)[:, a:b]
         parts.append(k[j] @ alpha)
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
@@ -355,8 +362,14 @@ def _gp_local_std_rows(xp, x, m, n_neighbours):
     K = min(n_neighbours, X.shape[0])
     diffs = _column_differences(xp, x, X)
     parts = []
+    share = m.get("group_kernel")
+    sd_of_kernel = {}
     for g in range(m["length"].shape[0]):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+        kg = int(share[g]) if share is not None else g
+        if kg in sd_of_kernel:  # a kernel shared with an earlier group: the same sigma
+            parts.append(sd_of_kernel[kg][:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
+            continue
         length = m["length"][g]
         amp2 = m["amp2"][g]
         scaled = [diffs[i] / length[i] for i in range(len(diffs))]
@@ -375,7 +388,8 @@ def _gp_local_std_rows(xp, x, m, n_neighbours):
         sol = xp.linalg.solve(Kmat, kv[:, :, None])[:, :, 0]
         var = amp2 - xp.sum(kv * sol, axis=-1)
         var = xp.where(var > 0.0, var, 0.0)
-        parts.append(xp.sqrt(var)[:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
+        sd_of_kernel[kg] = xp.sqrt(var)
+        parts.append(sd_of_kernel[kg][:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
     return (xp.concat(parts, axis=-1),)
 
 

@@ -13,6 +13,7 @@ from typing import Annotated, Optional
 
 import typer
 
+from .._cliargs import FamilyArg, ParametersArg
 from ..errors import InputError
 
 table_app = typer.Typer(
@@ -119,10 +120,8 @@ def _finish(summary) -> None:
 
 @table_app.command("sequence")
 def sequence_cmd(
-    family: Annotated[str, typer.Argument(help="EOS family (see `tovforge families`).")],
-    parameters: Annotated[
-        Optional[list[str]], typer.Argument(help="Parameters as NAME=VALUE (for tables: path=FILE).")
-    ] = None,
+    family: FamilyArg,
+    parameters: ParametersArg = None,
     out: Annotated[Path, typer.Option("--out", help=_OUT_HELP, dir_okay=False)] = ...,
     points: Annotated[
         Optional[int], typer.Option("--points", help="Stars at central pressures evenly spaced in ln p_c, from the "

@@ -1,6 +1,7 @@
 """Small surrogates of every kind, and their exported files, shared by the export tests.
 
-The GP and RBF models learn 300 rows of the demo training grid (a few seconds);
+The GP models (one with its own kernel per output group, one whose curves share
+kernels) and the RBF model learn 300 rows of the demo training grid (a few seconds);
 the tensor-spline model learns a smooth synthetic function on a 5^4 regular grid
 (the demo grid is scattered, and tensor splines need a regular one).
 """
@@ -22,7 +23,7 @@ from tovforge.surrogate import GPSettings, TrainingData, read_training_data, tra
 ROOT = Path(__file__).resolve().parents[3]
 TRAIN_GRID = ROOT / "grids" / "demo-train.h5"
 HOLDOUT_GRID = ROOT / "grids" / "demo-holdout.h5"
-KINDS = ("gp", "rbf", "tensor")
+KINDS = ("gp", "gp-shared", "rbf", "tensor")  # gp-shared: curves share kernels per block of u
 
 
 def import_file(path: Path, name: str | None = None):
@@ -51,10 +52,11 @@ def models():
     data = _subset(read_training_data(TRAIN_GRID), 300)
     out = {
         "gp": train_on(data, "gp", GPSettings(n_subset=100, n_restarts=0)),
+        "gp-shared": train_on(data, "gp", GPSettings(n_subset=100, n_restarts=0, share_curve_kernels=True)),
         "rbf": train_on(data, "spline"),
         "tensor": train_on(synthetic_training_data(5), "spline"),
     }
-    assert [m.kind for m in out.values()] == list(KINDS)
+    assert [m.kind for m in out.values()] == [k.split("-")[0] for k in KINDS]
     return out
 
 
@@ -64,7 +66,7 @@ def exported(models, tmp_path_factory):
     folder = tmp_path_factory.mktemp("exported")
     out = {}
     for kind, model in models.items():
-        path = folder / f"small_{kind}.py"
+        path = folder / f"small_{kind.replace('-', '_')}.py"
         export_model(model, path, namespaces=("numpy",))
         out[kind] = (import_file(path), path)
     return out

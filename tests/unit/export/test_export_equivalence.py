@@ -23,7 +23,7 @@ def test_every_query_equals_the_library(kind, models, exported):
     model, (mod, _) = models[kind], exported[kind]
     theta = box_points(model, 200, seed=11)
     theta[:3] = model.bounds[:, 0] - 0.05  # outside: NaN on both sides
-    gp = kind == "gp"
+    gp = model.kind == "gp"
     for got, want, what in [
         (mod.mass_max(theta, return_grad=True, return_std=True), model.mass_max(theta, True, True), "mass_max"),
         *[(getattr(mod, q)(theta, MASSES, return_grad=True, return_std=True),
@@ -165,12 +165,13 @@ def test_numpy_1_shim_gives_the_same_numbers(models, exported, monkeypatch):
         np.testing.assert_array_equal(g, w)
 
 
-def test_queries_that_skip_kernel_groups_give_the_same_bits(models):
+@pytest.mark.parametrize("kind", ["gp", "gp-shared"])
+def test_queries_that_skip_kernel_groups_give_the_same_bits(kind, models):
     """A query evaluates only the GP kernel groups it reads; those outputs must not change at all."""
     from tovforge.surrogate import _runtime as rt
 
-    m = models["gp"]._m
-    theta = box_points(models["gp"], 40, seed=6)
+    m = models[kind]._m
+    theta = box_points(models[kind], 40, seed=6)
     full = rt.outputs(np, m, theta, True)
     for quantities in ((), ("radius_km",), ("moment_of_inertia",), ("k2",)):
         cols = rt.needed_columns(m, quantities)

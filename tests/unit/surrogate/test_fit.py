@@ -91,3 +91,22 @@ def test_gradients_match_finite_differences():
     step = 1e-4 * (BOX[1, 1] - BOX[1, 0])
     fd = (model.mass_max(theta + [0, step, 0, 0]) - model.mass_max(theta - [0, step, 0, 0])) / (2 * step)
     assert g.shape == (1, 4) and g[0, 1] == pytest.approx(fd[0], rel=1e-4)
+
+
+def test_shared_curve_kernels_serve_every_curve_block_once():
+    """With share_curve_kernels, block k of every curve has the hyperparameters of radius block k,
+    predictions equal evaluating each group's (equal) kernel separately, and the fit stays accurate."""
+    settings = GPSettings(n_subset=128, n_restarts=0, curve_groups=2, n_jobs=1, share_curve_kernels=True)
+    model = train_on(synthetic(256), "gp", settings)
+    m = model._m
+    bounds, kernel_of, slices = m["group_bounds"], m["group_kernel"], m["curve_slices"]
+    assert model.meta["training"]["gp"]["n_kernels"] == len(set(kernel_of.tolist())) == 2 + 2
+    for g in range(len(kernel_of)):
+        np.testing.assert_array_equal(m["length"][g], m["length"][kernel_of[g]])
+        if bounds[g] >= slices[0][1]:  # a Lambda or I block: shares a radius block's kernel
+            assert bounds[kernel_of[g] + 1] <= slices[0][1]
+    theta = qmc.scale(qmc.LatinHypercube(4, seed=8).random(100), BOX[:, 0], BOX[:, 1])
+    separate = {k: v for k, v in m.items() if k != "group_kernel"}  # every group evaluates its own kernel
+    np.testing.assert_allclose(rt.outputs(np, m, theta)[0], rt.outputs(np, separate, theta)[0], rtol=1e-12)
+    np.testing.assert_allclose(rt.output_std(np, m, theta), rt.output_std(np, separate, theta), rtol=1e-12)
+    np.testing.assert_allclose(_all_outputs(model, theta), _truth_matrix(theta), rtol=1e-3)
