@@ -18,17 +18,22 @@ def train_cmd(
     grid: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)],
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
     kind: Annotated[str, typer.Option("--kind", help="gp (Gaussian process) or spline.")] = "gp",
-    subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 1024,
+    subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 512,
     restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 1,
     curve_groups: Annotated[
         int, typer.Option("--curve-groups", min=1, max=24, help="GP: kernels per curve (blocks of u nodes).")
     ] = 2,
+    share_kernels: Annotated[
+        bool, typer.Option("--share-kernels", help="GP: the same u-block of every curve shares one kernel "
+                                                   "(faster whole-curve queries, somewhat larger errors).")
+    ] = False,
 ):
     """Train a surrogate on a grid and save it."""
     from . import GPSettings, train
 
     def work():
-        settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups)
+        settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
+                              share_curve_kernels=share_kernels)
         model = train(grid, kind, settings, log=typer.echo)
         model.save(out)
         return model

@@ -184,9 +184,10 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         status=result.status, scalars=result.scalars, curves=result.curves, u_nodes=spec.outputs.u_nodes,
         attrs={"mass_max_floor_msun": spec.mass_max_floor_msun})
     data = _merge(base, new)
-    gp = tr.get("gp", {})
-    settings = GPSettings(n_subset=gp.get("n_subset", 1024), n_restarts=gp.get("n_restarts", 2),
-                          trend_degree=gp.get("trend_degree", 2), curve_groups=gp.get("curve_groups", 3))
+    # retrain with the settings the model was trained with (those it recorded; defaults otherwise)
+    stored = tr.get("gp", {})
+    names = {f.name for f in dataclasses.fields(GPSettings)} - {"n_jobs"}
+    settings = GPSettings(**{k: stored[k] for k in names if k in stored})
     if log:
         log(f"retraining on {len(data.theta)} points")
     new_model = train_on(data, "gp", settings, log=log)
