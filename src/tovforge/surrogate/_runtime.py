@@ -134,15 +134,18 @@ def _matern(xp, x, m, groups, grad, diffs=None):
     inv = 1.0 / xp.take(m["length"], pick, axis=0)  # (G, d)
     if diffs is None:
         diffs = _column_differences(xp, x, m["X"])
-    n, N = diffs[0].shape
-    # 5 r^2 = sum_i (5 / l_i^2) (x_i - X_i)^2: squares of the column differences (exact to
-    # rounding, unlike the |a|^2 + |b|^2 - 2 a.b form, whose cancellation the ill-conditioned
-    # weights amplify), weighted by one matrix-vector product per kernel (several times
-    # faster than scaling and summing d arrays; one product per kernel, so that a query's
-    # bits do not depend on which other kernels it reads)
-    D2 = xp.reshape(xp.stack([s * s for s in diffs], axis=0), (len(diffs), n * N))
+    # 5 r^2 = sum_i (5 / l_i^2) (x_i - X_i)^2 from the squared column differences, squared
+    # once for all kernels (exact to rounding, unlike the |a|^2 + |b|^2 - 2 a.b form, whose
+    # cancellation the ill-conditioned weights amplify); elementwise, so a query's bits do
+    # not depend on which other kernels it reads
     w = 5.0 * (inv * inv)
-    q = xp.reshape(xp.stack([w[j] @ D2 for j in range(G)], axis=0), (G, n, N))
+    q = None
+    for i, s in enumerate(diffs):
+        t = (s * s)[None, :, :] * xp.reshape(w[:, i], (G, 1, 1))
+        if q is None:
+            q = t
+        else:
+            q += t
     msr = xp.sqrt(q)
     msr *= -1.0  # -sqrt(5) r
     e = xp.exp(msr)
