@@ -182,10 +182,11 @@ def _shape(xp, a, single, tail):
 
 def _query(quantity, theta, mass, return_grad, return_std, strict):
     xp, m, t, single = _inputs(theta)
-    y, inside, dy = outputs(xp, m, t, return_grad, needed_columns(m, (quantity,)))
+    columns = needed_columns(m, (quantity,))
+    y, inside, dy = outputs(xp, m, t, return_grad, columns)
     if strict:
         _require_inside(xp, t, inside)
-    sd = output_std(xp, m, t) if return_std else None
+    sd = output_std(xp, m, t, columns) if return_std else None
     mb, tail = _masses(xp, mass, t.shape[0], t)
     val, g, s = curve_at_mass(xp, m, y, dy, sd, mb, quantity)
     if strict:
@@ -235,14 +236,15 @@ def mass_max(theta, return_grad=False, return_std=False, strict=False):
         ``(value, grad[, std])``.
     """
     xp, m, t, single = _inputs(theta)
-    y, inside, dy = outputs(xp, m, t, return_grad, needed_columns(m, ()))
+    columns = needed_columns(m, ())
+    y, inside, dy = outputs(xp, m, t, return_grad, columns)
     if strict:
         _require_inside(xp, t, inside)
     out = [_shape(xp, y[:, _I_MASS_MAX], single, ())]
     if return_grad:
         out.append(_shape(xp, dy[:, _I_MASS_MAX, :], single, (t.shape[1],)))
     if return_std:
-        out.append(_shape(xp, output_std(xp, m, t)[:, _I_MASS_MAX], single, ()))
+        out.append(_shape(xp, output_std(xp, m, t, columns)[:, _I_MASS_MAX], single, ()))
     return out[0] if len(out) == 1 else tuple(out)
 
 

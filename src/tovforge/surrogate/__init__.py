@@ -12,11 +12,12 @@ from __future__ import annotations
 
 from ._dataset import read_training_data
 from ._fit import GPSettings, TrainingData
-from ._model import ModelFormatError, Prediction, Surrogate, load
+from ._model import MassPrediction, ModelFormatError, Prediction, Surrogate, load
 from ._train import train, train_on
 
 __all__ = [
     "GPSettings",
+    "MassPrediction",
     "ModelFormatError",
     "Prediction",
     "Surrogate",

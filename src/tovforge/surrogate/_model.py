@@ -13,7 +13,7 @@ from .._jsonfile import read_json
 from ..errors import InputError
 from . import _runtime as rt
 
-__all__ = ["Surrogate", "Prediction", "load", "ModelFormatError"]
+__all__ = ["Surrogate", "Prediction", "MassPrediction", "load", "ModelFormatError"]
 
 FORMAT = "tovforge-surrogate"
 FORMAT_VERSION = 1
@@ -65,6 +65,40 @@ class Prediction:
     causality_margin: np.ndarray
     out_of_box: np.ndarray
     std: dict | None = None
+
+
+@dataclass(frozen=True)
+class MassPrediction:
+    """A surrogate's predictions at given masses, with everything of :class:`Prediction`.
+
+    Made by :meth:`Surrogate.predict_at_masses` from one evaluation of the model
+    (the queries ``radius``, ``tidal_deformability``, ... each evaluate it anew).
+
+    Attributes
+    ----------
+    prediction : Prediction
+        Scalars and node curves at the same parameters.
+    masses_msun : ndarray (q,)
+        The gravitational masses asked for.
+    radius_km, tidal_deformability, moment_of_inertia_1e45_g_cm2, k2 : ndarray (n, q)
+        Radius (km), dimensionless Lambda, I (1e45 g cm^2) and the Love number k2
+        at each mass; NaN above M_max, below the emulated branch or outside the box.
+    std : dict or None
+        Predictive standard deviations of the four per-mass arrays (GP models).
+    """
+
+    prediction: Prediction
+    masses_msun: np.ndarray
+    radius_km: np.ndarray
+    tidal_deformability: np.ndarray
+    moment_of_inertia_1e45_g_cm2: np.ndarray
+    k2: np.ndarray
+    std: dict | None = None
+
+
+#: Per-mass fields of MassPrediction and the runtime's name of each quantity.
+_AT_MASS_FIELDS = {"radius_km": "radius_km", "tidal_deformability": "tidal_deformability",
+                   "moment_of_inertia_1e45_g_cm2": "moment_of_inertia", "k2": "k2"}
 
 
 class Surrogate:
@@ -124,10 +158,43 @@ class Surrogate:
         """Predict scalars and node curves at ``theta`` (d,) or (n, d)."""
         t = self._theta(theta)
         y, inside, _ = rt.outputs(np, self._m, t)
+        sd = rt.output_std(np, self._m, t) if return_std else None
+        return self._prediction(y, inside, sd)
+
+    def predict_at_masses(self, theta, masses, return_std: bool = False) -> MassPrediction:
+        """Everything :meth:`predict` gives, plus R, Lambda, I and k2 at ``masses``, from one evaluation.
+
+        Parameters
+        ----------
+        theta : array_like, shape (d,) or (n, d)
+        masses : array_like, shape (q,)
+            Gravitational masses in Msun (the same for every row).
+        return_std : bool
+            Also the predictive standard deviations (GP models; zeros otherwise).
+
+        Returns
+        -------
+        MassPrediction
+        """
+        t = self._theta(theta)
+        mass = np.atleast_1d(np.asarray(masses, float))
+        if mass.ndim != 1:
+            raise InputError(f"masses must be a list of values in Msun; got shape {mass.shape}.")
+        y, inside, _ = rt.outputs(np, self._m, t)
+        sd = rt.output_std(np, self._m, t) if return_std else None
+        values, std = {}, ({} if return_std else None)
+        for field, quantity in _AT_MASS_FIELDS.items():
+            v, _, s = rt.curve_at_mass(np, self._m, y, None, sd, mass, quantity)
+            values[field] = v
+            if return_std:
+                std[field] = s
+        return MassPrediction(prediction=self._prediction(y, inside, sd), masses_msun=mass, std=std, **values)
+
+    def _prediction(self, y, inside, sd) -> Prediction:
         fields = self._unpack(y)
         std = None
-        if return_std:
-            std = self._unpack(rt.output_std(np, self._m, t), transform=False)
+        if sd is not None:
+            std = self._unpack(sd, transform=False)
             # log-curves: convert the log-space std to the quantity's units
             std["tidal_deformability"] = fields["tidal_deformability"] * std["tidal_deformability"]
             std["moment_of_inertia_1e45_g_cm2"] = fields["moment_of_inertia_1e45_g_cm2"] * std[
@@ -164,12 +231,13 @@ class Surrogate:
         """Maximum mass in Msun (NaN outside the box)."""
         t = self._theta(theta)
         i = self._m["i_mass_max"]
-        y, _, dy = rt.outputs(np, self._m, t, return_grad, rt.needed_columns(self._m, ()))
+        columns = rt.needed_columns(self._m, ())
+        y, _, dy = rt.outputs(np, self._m, t, return_grad, columns)
         out = [y[:, i]]
         if return_grad:
             out.append(dy[:, i, :])
         if return_std:
-            out.append(rt.output_std(np, self._m, t)[:, i])
+            out.append(rt.output_std(np, self._m, t, columns)[:, i])
         return out[0] if len(out) == 1 else tuple(out)
 
     def _at(self, quantity, theta, mass, return_grad, return_std):

@@ -348,38 +348,53 @@ def _kernel_part(xp, x, m, grad, groups=None):
     return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
 
 
-def gp_local_std(xp, m, x, n_neighbours=48):
+def gp_local_std(xp, m, x, n_neighbours=48, columns=None):
     """Predictive standard deviation of the GP part, in output units (n, n_out).
 
     The exact posterior variance needs the n-by-n kernel inverse, too large to
     ship; instead each prediction conditions on its nearest training points
     in the kernel's metric (a nearest-neighbour GP; Vecchia 1988, JRSS B 50,
     297; Datta et al. 2016, JASA 111, 800).  Conditioning on fewer points can
-    only raise the variance, so this errs on the cautious side.
+    only raise the variance, so this errs on the cautious side.  ``columns``
+    as in :func:`standardised_outputs`: kernels that serve none are skipped
+    (their outputs are NaN).
     """
-    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours)[0]
+    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours, columns)[0]
 
 
-def _gp_local_std_rows(xp, x, m, n_neighbours):
+def _nearest(xp, d2, K):
+    """Indices (n, K) of the K smallest entries of each row of ``d2``, nearest first."""
+    if hasattr(xp, "argpartition") and K < d2.shape[1]:
+        # NumPy: select in O(N), then sort only the K chosen (the same order as a full sort)
+        part = xp.argpartition(d2, K - 1, axis=1)[:, :K]
+        order = xp.argsort(xp.take_along_axis(d2, part, axis=1), axis=1)
+        return xp.take_along_axis(part, order, axis=1)
+    return xp.argsort(d2, axis=1)[:, :K]
+
+
+def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None):
     X = m["X"]
     K = min(n_neighbours, X.shape[0])
-    diffs = _column_differences(xp, x, X)
+    squares = [s * s for s in _column_differences(xp, x, X)]
     parts = []
     share = m.get("group_kernel")
     sd_of_kernel = {}
     for g in range(m["length"].shape[0]):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+        if columns is not None and not any(c0 < b and a < c1 for c0, c1 in columns):
+            parts.append(xp.full((x.shape[0], b - a), float("nan"), dtype=x.dtype))
+            continue
         kg = int(share[g]) if share is not None else g
         if kg in sd_of_kernel:  # a kernel shared with an earlier group: the same sigma
             parts.append(sd_of_kernel[kg][:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
             continue
         length = m["length"][g]
         amp2 = m["amp2"][g]
-        scaled = [diffs[i] / length[i] for i in range(len(diffs))]
-        d2 = scaled[0] * scaled[0]
-        for s in scaled[1:]:
-            d2 = d2 + s * s
-        nn = xp.argsort(d2, axis=1)[:, :K]
+        w = 1.0 / (length * length)
+        d2 = squares[0] * w[0]
+        for i in range(1, len(squares)):
+            d2 = d2 + squares[i] * w[i]
+        nn = _nearest(xp, d2, K)
         Xn = xp.take(X, xp.reshape(nn, (-1,)), axis=0)
         Xn = xp.reshape(Xn, (x.shape[0], K, X.shape[1])) / length
         dd = Xn[:, :, None, :] - Xn[:, None, :, :]
@@ -457,12 +472,16 @@ def outputs(xp, m, theta, grad=False, columns=None):
     return y, inside, dy
 
 
-def output_std(xp, m, theta):
-    """Predictive standard deviation of every output (GP models; zeros otherwise)."""
+def output_std(xp, m, theta, columns=None):
+    """Predictive standard deviation of every output (GP models; zeros otherwise).
+
+    ``columns``: optional output ranges a query needs (as in :func:`outputs`);
+    GP outputs outside them may be NaN.
+    """
     x, inside = unit_inputs(xp, m, theta)
     if m["kind"] != "gp":
         return xp.zeros((x.shape[0], m["out_mean"].shape[0]), dtype=x.dtype)
-    s = gp_local_std(xp, m, x)
+    s = gp_local_std(xp, m, x, columns=columns)
     return xp.where(inside[:, None], s, float("nan"))
 
 
@@ -490,8 +509,9 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
     Returns ``(value, grad, std)``: value (n, q) with NaN above M_max, below the
     emulated range or outside the box; grad (n, q, d) and std (n, q) or None.
     """
-    y, inside, dy = outputs(xp, m, theta, grad, needed_columns(m, (quantity,)))
-    sd = output_std(xp, m, theta) if std else None
+    columns = needed_columns(m, (quantity,))
+    y, inside, dy = outputs(xp, m, theta, grad, columns)
+    sd = output_std(xp, m, theta, columns) if std else None
     return curve_at_mass(xp, m, y, dy, sd, mass, quantity)
 
 

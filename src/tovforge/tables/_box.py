@@ -24,7 +24,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ._quantities import QUANTITIES, mass_label, model_values, parameter_columns, provenance, quantity_columns
+from ._quantities import (AT_MASS_FIELDS, QUANTITIES, mass_label, model_values, parameter_columns, provenance,
+                          quantity_columns)
 from ._write import Column, TableSummary, TableWriter, table_format
 
 __all__ = ["Axis", "BoxPlan", "box_table", "exact_box_table", "plan_box", "DEFAULT_QUANTITIES"]
@@ -277,8 +278,8 @@ _GRID_SCALARS = {
     "causality_margin": "causality_margin",
     "mass_max_margin": "mass_max_margin_msun",
 }
-_GRID_AT_MASS = {"radius": "radius_km", "lambda": "tidal_deformability", "inertia": "moment_of_inertia_1e45_g_cm2",
-                 "k2": "k2"}
+# per-mass quantity -> dataset of the grid's at_mass group (named as the model's fields)
+_GRID_AT_MASS = AT_MASS_FIELDS
 
 
 def _one_point_box(v: float) -> tuple[float, float]:

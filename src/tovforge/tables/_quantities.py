@@ -104,7 +104,9 @@ def parameter_columns(names, units) -> list[Column]:
     return [Column(n, u, f"EOS parameter {n}") for n, u in zip(names, units)]
 
 
-_AT_MASS = {"radius": "radius", "lambda": "tidal_deformability", "inertia": "moment_of_inertia", "k2": "k2"}
+#: Per-mass quantity -> field of tovforge.surrogate.MassPrediction (and dataset of a grid's at_mass group).
+AT_MASS_FIELDS = {"radius": "radius_km", "lambda": "tidal_deformability", "inertia": "moment_of_inertia_1e45_g_cm2",
+            "k2": "k2"}
 
 
 def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
@@ -128,7 +130,9 @@ def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
     """
     theta = np.atleast_2d(np.asarray(theta, float))
     masses = np.asarray(masses, float)
-    pred = model.predict(theta, return_std=sigma)
+    # one evaluation of the model serves every column
+    at = model.predict_at_masses(theta, masses, return_std=sigma)
+    pred = at.prediction
     std = pred.std or {}
     p_max = 10.0 ** pred.log10_central_pressure_at_mass_max
     scalars = {
@@ -149,9 +153,8 @@ def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
             spread = std["radius_km"][:, 0] if sigma else None
             columns = {name: (value, spread)}
         elif QUANTITIES[name].per_mass:
-            method = getattr(model, _AT_MASS[name])
-            res = method(theta, masses, return_std=sigma)
-            value, spread = res if sigma else (res, None)
+            value = getattr(at, AT_MASS_FIELDS[name])
+            spread = at.std[AT_MASS_FIELDS[name]] if sigma else None
             columns = {f"{name}@{mass_label(m)}": (value[:, j], None if spread is None else spread[:, j])
                        for j, m in enumerate(masses)}
         else:

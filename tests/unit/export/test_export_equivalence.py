@@ -173,13 +173,17 @@ def test_queries_that_skip_kernel_groups_give_the_same_bits(kind, models):
     m = models[kind]._m
     theta = box_points(models[kind], 40, seed=6)
     full = rt.outputs(np, m, theta, True)
+    full_sd = rt.output_std(np, m, theta)
     for quantities in ((), ("radius_km",), ("moment_of_inertia",), ("k2",)):
         cols = rt.needed_columns(m, quantities)
         sub = rt.outputs(np, m, theta, True, cols)
+        sub_sd = rt.output_std(np, m, theta, cols)
         for a, b in cols:
             np.testing.assert_array_equal(sub[0][:, a:b], full[0][:, a:b])
             np.testing.assert_array_equal(sub[2][:, a:b], full[2][:, a:b])
+            np.testing.assert_array_equal(sub_sd[:, a:b], full_sd[:, a:b])
         used = np.zeros(full[0].shape[1], bool)
         for a, b in cols:
             used[a:b] = True
         assert np.isnan(sub[0][:, ~used]).any(axis=0).sum() > 0  # skipped groups are NaN, never stale numbers
+        assert np.isnan(sub_sd[:, ~used]).any(axis=0).sum() > 0

@@ -8,6 +8,7 @@ from scipy.stats import qmc
 
 from surrogate_helpers import BOX, synthetic, truth
 from tovforge import surrogate
+from tovforge.errors import InputError
 from tovforge.surrogate import GPSettings, train_on
 from tovforge.surrogate import _runtime as rt
 from tovforge.surrogate._fit import SCALARS
@@ -110,3 +111,30 @@ def test_shared_curve_kernels_serve_every_curve_block_once():
     np.testing.assert_allclose(rt.outputs(np, m, theta)[0], rt.outputs(np, separate, theta)[0], rtol=1e-12)
     np.testing.assert_allclose(rt.output_std(np, m, theta), rt.output_std(np, separate, theta), rtol=1e-12)
     np.testing.assert_allclose(_all_outputs(model, theta), _truth_matrix(theta), rtol=1e-3)
+
+
+@pytest.mark.parametrize("kind", ["gp", "spline"])
+def test_predict_at_masses_equals_the_single_queries(kind):
+    """One evaluation for everything gives the same numbers as predict() and each query at masses."""
+    settings = GPSettings(n_subset=64, n_restarts=0, curve_groups=2, n_jobs=1)
+    model = train_on(synthetic(128), kind, settings)
+    theta = qmc.scale(qmc.Sobol(4, seed=5).random(16), BOX[:, 0], BOX[:, 1])
+    theta[0, 2] = BOX[2, 1] + 0.1  # outside: NaN everywhere
+    masses = [1.0, 1.5, 2.2]
+    sigma = kind == "gp"
+    at = model.predict_at_masses(theta, masses, return_std=sigma)
+    ref = model.predict(theta, return_std=sigma)
+    np.testing.assert_array_equal(at.prediction.radius_km, ref.radius_km)
+    np.testing.assert_array_equal(at.prediction.mass_max_msun, ref.mass_max_msun)
+    for field, query in [("radius_km", "radius"), ("tidal_deformability", "tidal_deformability"),
+                         ("moment_of_inertia_1e45_g_cm2", "moment_of_inertia"), ("k2", "k2")]:
+        want = getattr(model, query)(theta, masses, return_std=sigma)
+        if sigma:
+            np.testing.assert_array_equal(getattr(at, field), want[0])
+            np.testing.assert_array_equal(at.std[field], want[1])
+        else:
+            np.testing.assert_array_equal(getattr(at, field), want)
+        assert np.isnan(getattr(at, field)[0]).all()
+        assert np.isfinite(getattr(at, field)[1:, 0]).any()
+    with pytest.raises(InputError, match="masses"):
+        model.predict_at_masses(theta, [[1.0, 1.2]])
