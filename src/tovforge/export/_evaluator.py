@@ -21,7 +21,8 @@ import zlib
 
 import numpy as np
 
-from ..surrogate._runtime import _curve_slice, curve_at_mass, needed_columns, output_std, outputs, unit_inputs
+from ..surrogate._runtime import (curve_at_mass, named_outputs, named_std, needed_columns, output_std, outputs,
+                                  unit_inputs)
 
 # ---- the exported code starts below this line ----
 
@@ -349,31 +350,17 @@ def predict(theta, return_std=True, strict=False):
     y, inside, _ = outputs(xp, m, t)
     if strict:
         _require_inside(xp, t, inside)
-    f = _fields(xp, m, y, True)
+    f = named_outputs(xp, m, y, _SCALAR_INDEX)
     f["mass_max_margin_msun"] = f["mass_max_msun"] - MASS_FLOOR_MSUN
     f["causality_margin"] = 1.0 - f["max_sound_speed_sq"]
     f["out_of_box"] = ~inside
     std = None
     if return_std and KIND == "gp":
-        std = _fields(xp, m, output_std(xp, m, t), False)
-        # ln Lambda and ln I are modelled: their sigma is relative
-        std["tidal_deformability"] = f["tidal_deformability"] * std["tidal_deformability"]
-        std["moment_of_inertia_1e45_g_cm2"] = f["moment_of_inertia_1e45_g_cm2"] * std["moment_of_inertia_1e45_g_cm2"]
-        std = {k: _shape(xp, v, single, v.shape[1:]) for k, v in std.items() if k not in ("u_nodes", "mass_msun")}
+        std = named_std(xp, m, output_std(xp, m, t), f, _SCALAR_INDEX)
+        std = {k: _shape(xp, v, single, v.shape[1:]) for k, v in std.items()}
     out = {k: (v if k == "u_nodes" else _shape(xp, v, single, v.shape[1:])) for k, v in f.items()}
     out["std"] = std
     return out
 
 
-def _fields(xp, m, y, transform):
-    """Split model outputs (n, n_out) into named scalars and node curves."""
-    f = {name: y[:, i] for name, i in _SCALAR_INDEX}
-    f["u_nodes"] = m["u_nodes"]
-    f["mass_msun"] = f["mass_max_msun"][:, None] * (1.0 - m["u_nodes"] ** 2)
-    for name, key in (("radius_km", "radius_km"), ("log_tidal_deformability", "tidal_deformability"),
-                      ("log_moment_of_inertia", "moment_of_inertia_1e45_g_cm2")):
-        a, b = _curve_slice(m, name)
-        v = y[:, a:b]
-        f[key] = xp.exp(v) if (transform and name.startswith("log_")) else v
-    return f
 

@@ -191,16 +191,9 @@ class Surrogate:
         return MassPrediction(prediction=self._prediction(y, inside, sd), masses_msun=mass, std=std, **values)
 
     def _prediction(self, y, inside, sd) -> Prediction:
-        fields = self._unpack(y)
-        std = None
-        if sd is not None:
-            std = self._unpack(sd, transform=False)
-            # log-curves: convert the log-space std to the quantity's units
-            std["tidal_deformability"] = fields["tidal_deformability"] * std["tidal_deformability"]
-            std["moment_of_inertia_1e45_g_cm2"] = fields["moment_of_inertia_1e45_g_cm2"] * std[
-                "moment_of_inertia_1e45_g_cm2"]
-            std["max_sound_speed_sq"] = std["max_sound_speed_sq"]
-            std = {k: v for k, v in std.items() if k not in ("u_nodes", "mass_msun")}
+        index = self.meta["outputs"]["index"].items()
+        fields = rt.named_outputs(np, self._m, y, index)
+        std = rt.named_std(np, self._m, sd, fields, index) if sd is not None else None
         floor = self.meta["outputs"]["mass_floor_msun"]
         return Prediction(
             mass_max_margin_msun=fields["mass_max_msun"] - floor,
@@ -209,23 +202,6 @@ class Surrogate:
             std=std,
             **fields,
         )
-
-    def _unpack(self, y, transform=True) -> dict:
-        idx = self.meta["outputs"]["index"]
-        out = {
-            "mass_max_msun": y[:, idx["mass_max_msun"]],
-            "log10_central_pressure_at_mass_max": y[:, idx["log10_central_pressure_at_mass_max"]],
-            "max_sound_speed_sq": y[:, idx["max_sound_speed_sq"]],
-            "u_nodes": self.arrays["u_nodes"],
-        }
-        u = self.arrays["u_nodes"]
-        out["mass_msun"] = out["mass_max_msun"][:, None] * (1.0 - u**2)
-        for name, key in (("radius_km", "radius_km"), ("log_tidal_deformability", "tidal_deformability"),
-                          ("log_moment_of_inertia", "moment_of_inertia_1e45_g_cm2")):
-            a, b = rt._curve_slice(self._m, name)
-            v = y[:, a:b]
-            out[key] = np.exp(v) if (transform and name.startswith("log_")) else v
-        return out
 
     def mass_max(self, theta, return_grad: bool = False, return_std: bool = False):
         """Maximum mass in Msun (NaN outside the box)."""

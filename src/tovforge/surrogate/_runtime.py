@@ -485,6 +485,36 @@ def output_std(xp, m, theta, columns=None):
     return xp.where(inside[:, None], s, float("nan"))
 
 
+def named_outputs(xp, m, y, scalar_index, transform=True):
+    """Split outputs (n, n_out) into named scalars and node curves.
+
+    ``scalar_index``: pairs (name, column) of the scalar outputs.  The log-
+    modelled curves become Lambda and I (in 1e45 g cm^2) when ``transform``;
+    ``mass_msun`` (n, n_u) is M_max (1 - u^2) at the nodes.
+    """
+    f = {name: y[:, int(i)] for name, i in scalar_index}
+    f["u_nodes"] = m["u_nodes"]
+    f["mass_msun"] = f["mass_max_msun"][:, None] * (1.0 - m["u_nodes"] ** 2)
+    for name, key in (("radius_km", "radius_km"), ("log_tidal_deformability", "tidal_deformability"),
+                      ("log_moment_of_inertia", "moment_of_inertia_1e45_g_cm2")):
+        a, b = _curve_slice(m, name)
+        v = y[:, a:b]
+        f[key] = xp.exp(v) if (transform and name.startswith("log_")) else v
+    return f
+
+
+def named_std(xp, m, sd, fields, scalar_index):
+    """Standard deviations (from :func:`output_std`) of the fields of :func:`named_outputs`.
+
+    ln Lambda and ln I are modelled, so their sigma is relative: it is
+    multiplied by the predicted value.  ``fields``: the predicted fields.
+    """
+    std = named_outputs(xp, m, sd, scalar_index, transform=False)
+    std["tidal_deformability"] = fields["tidal_deformability"] * std["tidal_deformability"]
+    std["moment_of_inertia_1e45_g_cm2"] = fields["moment_of_inertia_1e45_g_cm2"] * std["moment_of_inertia_1e45_g_cm2"]
+    return {k: v for k, v in std.items() if k not in ("u_nodes", "mass_msun")}
+
+
 def needed_columns(m, quantities):
     """Output ranges ``(a, b)`` that M_max and the given queries (names of :func:`at_mass`) read."""
     im = int(m["i_mass_max"])
