@@ -85,6 +85,14 @@ def test_summary_links_exist_and_state_the_measured_numbers(demo):
     np.testing.assert_allclose(tm["speedup_one"], tm["likelihood_exact_one_ms"] * 1e3 / tm["likelihood_emulated_one_us"],
                                rtol=1e-12)
     assert nb["settings"]["n_steps"] == 80 and nb["training"]["gp_settings"]["n_subset"] == 32
+    # the emulator's error beside each measurement's sigma, printed and written
+    budget = nb["fit"]["error_budget"]
+    assert [b["name"] for b in budget] == ["Copper Metronome", "Saffron Kite", "Willow Lantern", "Heron Duet"]
+    for b in budget:
+        assert b["ratio"] == pytest.approx(b["emulator_p95"] / b["measurement_sigma"])
+        assert b["too_large"] == (b["ratio"] > nb["fit"]["error_budget_warn_ratio"])
+        assert f"{b['ratio']:.2f} of the {b['quantity']} sigma" in res.stdout
+        assert f"| {b['name']} | {b['quantity']} |" in md
 
 
 def test_cross_check_distances_respect_the_per_sample_errors(demo):

@@ -15,7 +15,8 @@ from pathlib import Path
 
 from ..errors import InputError
 
-__all__ = ["INVENTED_DATA", "MassRadius", "MergerTides", "Observations", "load_observations"]
+__all__ = ["INVENTED_DATA", "MassRadius", "MergerTides", "Observations", "ErrorRatio", "error_budget",
+           "load_observations"]
 
 #: The invented data set shipped with the package.
 INVENTED_DATA = Path(__file__).with_name("invented_observations.toml")
@@ -193,3 +194,66 @@ def load_observations(path=None) -> Observations:
     if not isinstance(note, str):
         raise InputError(f"{path}: note must be a string.")
     return Observations(tuple(pulsars), tuple(mergers), note, dict(generator), path)
+
+
+#: Emulator error over measurement sigma above which the fit is flagged.  Added in
+#: quadrature, an error of 0.2 sigma widens the likelihood by 2 %; beyond that the
+#: emulator's own (correlated) error can shift a posterior noticeably.
+WARN_RATIO = 0.2
+
+
+@dataclass(frozen=True)
+class ErrorRatio:
+    """The emulator's held-out error beside one measurement's uncertainty.
+
+    Attributes
+    ----------
+    name : str
+        The object.
+    quantity : str
+        ``radius`` (km) or ``lambda_tilde`` (dimensionless).
+    emulator_p95 : float
+        The emulator's held-out 95th-percentile error of that quantity (for
+        Lambda-tilde: the relative p95 of Lambda(M) times the measured value).
+    measurement_sigma : float
+        The measurement's standard deviation, in the same units.
+    """
+
+    name: str
+    quantity: str
+    emulator_p95: float
+    measurement_sigma: float
+
+    @property
+    def ratio(self) -> float:
+        """Emulator error in units of the measurement's sigma."""
+        return self.emulator_p95 / self.measurement_sigma
+
+    @property
+    def too_large(self) -> bool:
+        """True when the emulator error may bias the fit (``ratio > WARN_RATIO``)."""
+        return self.ratio > WARN_RATIO
+
+
+def error_budget(check: dict, observations: Observations) -> tuple[ErrorRatio, ...]:
+    """Compare a model's held-out errors with each measurement's uncertainty.
+
+    Parameters
+    ----------
+    check : dict
+        The held-out error table of ``tovforge check`` (``report.json``, or an
+        exported file's ``CHECK``).
+    observations : Observations
+
+    Returns
+    -------
+    tuple of ErrorRatio
+        One per pulsar (radius) and per merger (Lambda-tilde).
+    """
+    errors = check["errors"]
+    r95 = float(errors["radius_km_at_mass"]["abs_p95"])
+    l95 = float(errors["tidal_deformability_at_mass"]["rel_p95"])
+    out = [ErrorRatio(p.name, "radius", r95, p.radius_sigma_km) for p in observations.pulsars]
+    out += [ErrorRatio(m.name, "lambda_tilde", l95 * m.lambda_tilde, m.lambda_tilde_sigma)
+            for m in observations.mergers]
+    return tuple(out)

@@ -201,7 +201,7 @@ def _run_demo(out, settings, echo) -> DemoResult:
     from ..tables import read_table, samples_table
     from ._crosscheck import cross_check
     from ._likelihood import ExactModel, Posterior
-    from ._observations import load_observations
+    from ._observations import WARN_RATIO, error_budget, load_observations
     from ._plots import band_plot, corner_plot, trace_plot
     from ._sampler import run_chain
 
@@ -326,6 +326,16 @@ def _run_demo(out, settings, echo) -> DemoResult:
     for m in obs.mergers:
         echo(f"  merger {m.name:<20} chirp mass {m.chirp_mass_msun:.4f} Msun, q in [{m.mass_ratio_min:g}, "
              f"{m.mass_ratio_max:g}], Lambda-tilde = {m.lambda_tilde:g} +- {m.lambda_tilde_sigma:g}")
+    budget = error_budget(ev.CHECK, obs) if ev.CHECK else ()
+    for b in budget:
+        unit = " km" if b.quantity == "radius" else ""
+        echo(f"  {b.name:<27} emulator error (held-out p95) {b.emulator_p95:.3g}{unit} = {b.ratio:.2f} of the "
+             f"{b.quantity} sigma" + ("" if not b.too_large else
+                                       f"  WARNING: above {WARN_RATIO:g}: the emulator's error may bias this fit; "
+                                       "train on more points or use the exact solver"))
+    if any(b.too_large for b in budget):
+        echo(f"  WARNING: {sum(b.too_large for b in budget)} measurement(s) are as sharp as the emulator's error; "
+             "read the posterior with care.")
     post = Posterior(ev, obs, mass_low_msun=s.mass_low_msun, n_mass=s.n_mass, n_mass_ratio=s.n_mass_ratio)
     chain = run_chain(post, ev.BOUNDS, n_walkers=s.n_walkers, n_steps=s.n_steps, n_burn=s.n_burn, seed=s.seed,
                       echo=echo)
@@ -364,7 +374,11 @@ def _run_demo(out, settings, echo) -> DemoResult:
                       "n_burn": s.n_burn, "thin": chain.thin, "n_samples": int(len(chain.samples)),
                       "acceptance": chain.acceptance_fraction, "autocorr_steps": tau.tolist(),
                       "seconds": chain.seconds, "n_evaluations": chain.n_evaluations,
-                      "parameters": posterior_numbers, "derived": derived}
+                      "parameters": posterior_numbers, "derived": derived,
+                      "error_budget": [{"name": b.name, "quantity": b.quantity, "emulator_p95": b.emulator_p95,
+                                        "measurement_sigma": b.measurement_sigma, "ratio": b.ratio,
+                                        "too_large": b.too_large} for b in budget],
+                      "error_budget_warn_ratio": WARN_RATIO}
     done("fit")
 
     # -- 6. timings -------------------------------------------------------------------------------
@@ -570,6 +584,14 @@ def _summary_md(nb: dict, obs, files: dict, out: Path, reports: dict) -> str:
     for m in obs.mergers:
         lines.append(f"| {m.name} | merger | chirp mass {m.chirp_mass_msun:g} Msun, q in [{m.mass_ratio_min:g}, "
                      f"{m.mass_ratio_max:g}], Lambda-tilde = {m.lambda_tilde:g} +- {m.lambda_tilde_sigma:g} |")
+    if fit.get("error_budget"):
+        lines += ["", f"Emulator error (held-out p95, {fit['sampler_model']}) in units of each measurement's sigma "
+                  f"(flagged above {fit['error_budget_warn_ratio']:g}):", "",
+                  "| object | quantity | emulator p95 | measurement sigma | ratio |", "|---|---|---|---|---|"]
+        for b in fit["error_budget"]:
+            flag = " **too large**" if b["too_large"] else ""
+            lines.append(f"| {b['name']} | {b['quantity']} | {b['emulator_p95']:.3g} | {b['measurement_sigma']:.3g} "
+                         f"| {b['ratio']:.3f}{flag} |")
     lines += ["", "## Posterior (median and 90 % interval)", "", "| quantity | median | 5 % | 95 % |", "|---|---|---|---|"]
     for name, v in list(fit["parameters"].items()) + list(fit["derived"].items()):
         lines.append(f"| {name} | {v['median']:.4g} | {v['p05']:.4g} | {v['p95']:.4g} |")

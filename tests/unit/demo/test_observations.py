@@ -100,3 +100,19 @@ def test_bad_files_are_refused_with_the_key_path(tmp_path, text, match):
 def test_a_missing_file_is_named(tmp_path):
     with pytest.raises(InputError, match=r"nope\.toml: cannot read the observations"):
         load_observations(tmp_path / "nope.toml")
+
+
+def test_error_budget_flags_measurements_as_sharp_as_the_emulator(tmp_path):
+    """Emulator p95 over measurement sigma: R error 25 m against 0.5 km is 0.05 (fine); Lambda error 1 % of
+    400 against 100 is 0.04; a 0.1 km radius sigma against a 25 m error is 0.25 and is flagged."""
+    from tovforge.demo._observations import WARN_RATIO, error_budget
+
+    f = tmp_path / "mine.toml"
+    f.write_text(GOOD_PULSAR + GOOD_PULSAR.replace('"A"', '"C"').replace("radius_sigma_km = 0.5", "radius_sigma_km = 0.1")
+                 + GOOD_MERGER)
+    check = {"errors": {"radius_km_at_mass": {"abs_p95": 0.025}, "tidal_deformability_at_mass": {"rel_p95": 0.01}}}
+    budget = {b.name: b for b in error_budget(check, load_observations(f))}
+    assert budget["A"].quantity == "radius" and budget["A"].ratio == pytest.approx(0.05)
+    assert budget["B"].quantity == "lambda_tilde" and budget["B"].ratio == pytest.approx(0.04)
+    assert budget["C"].ratio == pytest.approx(0.25)
+    assert [n for n, b in budget.items() if b.too_large] == ["C"] and WARN_RATIO == 0.2
