@@ -41,6 +41,11 @@ class Parameter:
         Default bounds of the demo parameter box (a sub-range of ``allowed``).
     open_ends : tuple of bool
         Whether ``lo`` and ``hi`` are excluded from the allowed range.
+    log_offset : float or None
+        If set, Gaussian-process surrogates take ``ln(value - log_offset)`` as
+        their input instead of the value (e.g. ``ln(Gamma - 1)`` for an
+        adiabatic index, on which the stars depend more evenly).  Must not
+        exceed the lower end of ``allowed``.
     """
 
     name: str
@@ -49,6 +54,7 @@ class Parameter:
     allowed: tuple[float, float]
     box: tuple[float, float]
     open_ends: tuple[bool, bool] = (False, False)
+    log_offset: float | None = None
 
     def range_text(self) -> str:
         lo, hi = self.allowed

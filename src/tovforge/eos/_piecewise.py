@@ -95,9 +95,12 @@ class PiecewisePolytrope(EOSFamily):
     reference = "Read, Lackey, Owen & Friedman 2009, PRD 79, 124032"
     parameters = (
         Parameter("log_p1", "log10(dyn/cm^2)", "log10 pressure at 10^14.7 g/cm^3", (33.0, 36.0), (34.0, 35.0)),
-        Parameter("gamma1", "1", "adiabatic index below 10^14.7 g/cm^3", (1.0, 10.0), (2.0, 4.0), (True, False)),
-        Parameter("gamma2", "1", "adiabatic index 10^14.7-10^15 g/cm^3", (1.0, 10.0), (1.5, 4.0), (True, False)),
-        Parameter("gamma3", "1", "adiabatic index above 10^15 g/cm^3", (1.0, 10.0), (1.5, 4.0), (True, False)),
+        Parameter("gamma1", "1", "adiabatic index below 10^14.7 g/cm^3", (1.0, 10.0), (2.0, 4.0), (True, False),
+                  log_offset=1.0),
+        Parameter("gamma2", "1", "adiabatic index 10^14.7-10^15 g/cm^3", (1.0, 10.0), (1.5, 4.0), (True, False),
+                  log_offset=1.0),
+        Parameter("gamma3", "1", "adiabatic index above 10^15 g/cm^3", (1.0, 10.0), (1.5, 4.0), (True, False),
+                  log_offset=1.0),
     )
 
     @staticmethod

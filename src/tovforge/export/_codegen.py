@@ -254,6 +254,10 @@ def _error_table(check: dict | None) -> list[str]:
     return lines
 
 
+def _warp_text(names, arrays) -> list[str]:
+    return [f"ln({_text(n)} - {float(c):g})" for n, c, f in zip(names, arrays["warp_shift"], arrays["warp_log"]) if f]
+
+
 def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> str:
     names = meta["parameters"]
     units = meta.get("parameter_units", ["?"] * len(names))
@@ -280,6 +284,8 @@ def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> st
         f"family           {_text(meta['family'])}",
         f"kind             {kind}" + (f", {n_groups} output groups, {n_kernels} kernels" if n_groups else "") + ":",
         f"                 {_KIND_TEXT.get(kind, '')}",
+        *([f"inputs           the GP sees {', '.join(_warp_text(names, arrays))} (the rest as given)"]
+          if arrays.get("warp_log") is not None else []),
         f"training         {tr.get('n_train')} exact EOS ({tr.get('grid_points_used', '?')} of "
         f"{tr.get('grid_points', '?')} grid points usable), grid {_text(tr.get('grid_path', '?'))}",
         f"                 {_text(tr.get('grid_description', ''))}",

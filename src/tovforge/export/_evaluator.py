@@ -81,7 +81,7 @@ class _NumPy1:
 _NUMPY = np if hasattr(np, "concat") else _NumPy1()
 #: model arrays that steer loops or index (kept as NumPy in every namespace, so
 #: that tracing libraries such as JAX see them as constants)
-_STATIC = ("trend_powers", "group_bounds", "group_kernel", "curve_slices", "n_knots", "coef_shape", "knots")
+_STATIC = ("trend_powers", "group_bounds", "group_kernel", "warp_log", "warp_shift", "curve_slices", "n_knots", "coef_shape", "knots")
 _MODEL_CACHE = {}
 
 

@@ -11,6 +11,7 @@ import numpy as np
 
 from .. import __version__
 from ..errors import InputError
+from . import _runtime as rt
 from ._model import Surrogate
 
 __all__ = ["check", "CheckResult", "TARGETS", "error_stats"]
@@ -101,7 +102,7 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRes
         raise InputError(f"{holdout_path}: no held-out point with status 0 inside the model's box.")
     X = model.arrays.get("X")
     if X is not None:
-        x = (theta[ok] - model.arrays["lo"]) / (model.arrays["hi"] - model.arrays["lo"])
+        x = rt.unit_inputs(np, model._m, theta[ok])[0]  # the model's own input scale
         d2 = ((x[:, None, :] - X[None, :, :]) ** 2).sum(-1).min(axis=1)
         if np.any(d2 < 1e-20):
             raise InputError(f"{holdout_path}: {int(np.sum(d2 < 1e-20))} held-out points are training points; "

@@ -10,6 +10,9 @@ A model is a dict ``m`` of arrays and a few numbers:
 
 ``lo, hi`` (d,)
     Parameter box; inputs are mapped to ``x = (theta - lo) / (hi - lo)``.
+``warp_log`` (d,) 0/1, ``warp_shift``, ``wlo``, ``whi`` (d,), optional
+    Flagged parameters enter as ``ln(theta - warp_shift)``; ``x`` then maps
+    the warped box ``[wlo, whi]`` (see :func:`unit_inputs`).
 ``out_mean, out_scale`` (n_out,)
     Outputs are standardised: ``y = out_mean + out_scale * z``.
 ``trend_powers`` (n_terms, d), ``trend_coef`` (n_terms, n_out)
@@ -67,10 +70,42 @@ def _chunked(xp, fn, x, n_train, *args):
 
 
 def unit_inputs(xp, m, theta):
-    """Map parameters to the unit cube; returns ``(x, inside)``."""
-    x = (theta - m["lo"]) / (m["hi"] - m["lo"])
-    inside = xp.all((x >= 0.0) & (x <= 1.0), axis=-1)
+    """Map parameters to the unit cube; returns ``(x, inside)``.
+
+    Without a warp ``x = (theta - lo) / (hi - lo)``.  Parameters flagged in
+    ``warp_log`` enter as ``ln(theta - warp_shift)``, mapped from the warped
+    box ``[wlo, whi]``; ``inside`` always tests the parameter box itself.
+    """
+    flags = m.get("warp_log")
+    if flags is None:
+        x = (theta - m["lo"]) / (m["hi"] - m["lo"])
+        inside = xp.all((x >= 0.0) & (x <= 1.0), axis=-1)
+        return x, inside
+    inside = xp.all((theta >= m["lo"]) & (theta <= m["hi"]), axis=-1)
+    cols = []
+    for i in range(theta.shape[-1]):
+        t = theta[:, i]
+        if int(flags[i]):
+            s = float(m["warp_shift"][i])
+            t = xp.log(xp.where(t > s, t - s, 1.0))  # below the shift: outside the box anyway
+        cols.append(t)
+    x = (xp.stack(cols, axis=-1) - m["wlo"]) / (m["whi"] - m["wlo"])
     return x, inside
+
+
+def input_span(xp, m, theta):
+    """``d theta / d x`` per parameter: (d,) without a warp, (n, d) with one."""
+    flags = m.get("warp_log")
+    if flags is None:
+        return m["hi"] - m["lo"]
+    width = m["whi"] - m["wlo"]
+    cols = []
+    for i in range(theta.shape[-1]):
+        c = width[i] * xp.ones(theta.shape[:1], dtype=theta.dtype)
+        if int(flags[i]):
+            c = c * (theta[:, i] - float(m["warp_shift"][i]))
+        cols.append(c)
+    return xp.stack(cols, axis=-1)
 
 
 def _trend(xp, m, x, grad):
@@ -467,7 +502,8 @@ def outputs(xp, m, theta, grad=False, columns=None):
     y = xp.where(inside[:, None], y, nan)
     dy = None
     if grad:
-        dy = (m["out_scale"][:, None] * dz) / (m["hi"] - m["lo"])
+        span = input_span(xp, m, theta)
+        dy = (m["out_scale"][:, None] * dz) / (span[:, None, :] if span.ndim == 2 else span)
         dy = xp.where(inside[:, None, None], dy, nan)
     return y, inside, dy
 
