@@ -269,26 +269,33 @@ def _fit_group(x, R, sub, settings, d):
             f"GP kernel on {len(x)} points is not positive definite; "
             "remove duplicate parameter rows or raise the nugget bounds.") from None
     alpha = scipy.linalg.cho_solve(cf, R, check_finite=False)
-    scale = _loo_sigma_scale(x[sub], R[sub], length, amp2, noise)
+    scale = _loo_sigma_scale(x, R, sub, cf, alpha, length, amp2, noise)
     return length, amp2, noise, alpha, time.perf_counter() - t0, [str(w.message) for w in caught], scale
 
 
-def _loo_sigma_scale(x, R, length, amp2, noise):
-    """Scale of the predictive sigma from leave-one-out residuals on the subset.
+def _loo_sigma_scale(x, R, sub, cf, alpha, length, amp2, noise):
+    """Scale of the shipped predictive sigma, per output, from leave-one-out residuals.
 
-    For a GP, the leave-one-out residual of point i is ``[K^-1 y]_i / [K^-1]_ii``
-    and its predictive variance ``1 / [K^-1]_ii`` (Rasmussen & Williams 2006,
-    Sec. 5.4.2).  The robust spread (MAD / 0.6745) of their ratio says by how
-    much the marginal-likelihood hyperparameters over- or understate the
-    errors; the predictive sigma is multiplied by it, per output.
+    For the GP on all points, the leave-one-out residual of point i is
+    ``alpha_i / [K^-1]_ii`` (Rasmussen & Williams 2006, Sec. 5.4.2); it is
+    computed at the points of the subset ``sub`` from the Cholesky factor
+    ``cf`` of the full kernel matrix.  The sigma users get is the
+    nearest-neighbour one of :func:`_runtime.gp_local_std`; at a training point
+    with that point left out it is the matching leave-one-out sigma.  The
+    robust spread (MAD / 0.6745) of residual over sigma is the factor that
+    makes the sigma match the errors, per output.
     """
-    K = _matern_matrix(x, length, amp2)
-    K[np.diag_indices_from(K)] += noise + 1e-10 * amp2
-    cf = scipy.linalg.cho_factor(K, lower=True, check_finite=False)
-    Kinv = scipy.linalg.cho_solve(cf, np.eye(len(x)), check_finite=False)
-    d = np.diag(Kinv)
-    z = (Kinv @ R) / np.sqrt(d)[:, None]
-    return np.median(np.abs(z), axis=0) / 0.6745
+    L = cf[0]
+    E = np.zeros((len(x), len(sub)))
+    E[sub, np.arange(len(sub))] = 1.0
+    W = scipy.linalg.solve_triangular(L, E, lower=True, check_finite=False)
+    kinv_diag = np.sum(W * W, axis=0)  # [K^-1]_ii = |L^-1 e_i|^2
+    resid = alpha[sub] / kinv_diag[:, None]
+    m = {"X": x, "length": length[None, :], "amp2": np.array([amp2]), "noise": np.array([noise]),
+         "group_bounds": np.array([0, R.shape[1]]), "resid_scale": np.ones(R.shape[1]),
+         "out_scale": np.ones(R.shape[1])}
+    sd = rt.gp_local_std(np, m, x[sub], skip_nearest=1)
+    return np.median(np.abs(resid / sd), axis=0) / 0.6745
 
 
 def _space_filling_subset(x, n, seed):

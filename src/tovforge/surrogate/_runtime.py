@@ -383,7 +383,7 @@ def _kernel_part(xp, x, m, grad, groups=None):
     return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
 
 
-def gp_local_std(xp, m, x, n_neighbours=48, columns=None):
+def gp_local_std(xp, m, x, n_neighbours=48, columns=None, skip_nearest=0):
     """Predictive standard deviation of the GP part, in output units (n, n_out).
 
     The exact posterior variance needs the n-by-n kernel inverse, too large to
@@ -392,9 +392,10 @@ def gp_local_std(xp, m, x, n_neighbours=48, columns=None):
     297; Datta et al. 2016, JASA 111, 800).  Conditioning on fewer points can
     only raise the variance, so this errs on the cautious side.  ``columns``
     as in :func:`standardised_outputs`: kernels that serve none are skipped
-    (their outputs are NaN).
+    (their outputs are NaN).  ``skip_nearest``: leave out that many nearest
+    points (1 at a training point: its leave-one-out sigma, for calibration).
     """
-    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours, columns)[0]
+    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours, columns, skip_nearest)[0]
 
 
 def _nearest(xp, d2, K):
@@ -407,9 +408,9 @@ def _nearest(xp, d2, K):
     return xp.argsort(d2, axis=1)[:, :K]
 
 
-def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None):
+def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None, skip_nearest=0):
     X = m["X"]
-    K = min(n_neighbours, X.shape[0])
+    K = min(n_neighbours, X.shape[0] - skip_nearest)
     squares = [s * s for s in _column_differences(xp, x, X)]
     parts = []
     share = m.get("group_kernel")
@@ -429,7 +430,7 @@ def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None):
         d2 = squares[0] * w[0]
         for i in range(1, len(squares)):
             d2 = d2 + squares[i] * w[i]
-        nn = _nearest(xp, d2, K)
+        nn = _nearest(xp, d2, K + skip_nearest)[:, skip_nearest:]
         Xn = xp.take(X, xp.reshape(nn, (-1,)), axis=0)
         Xn = xp.reshape(Xn, (x.shape[0], K, X.shape[1])) / length
         dd = Xn[:, :, None, :] - Xn[:, None, :, :]

@@ -182,3 +182,16 @@ def test_predict_at_masses_equals_the_single_queries(kind):
         assert np.isfinite(getattr(at, field)[1:, 0]).any()
     with pytest.raises(InputError, match="masses"):
         model.predict_at_masses(theta, [[1.0, 1.2]])
+
+
+def test_leave_one_out_sigma_at_a_training_point_equals_sigma_without_it():
+    """gp_local_std(skip_nearest=1) at training points, used to calibrate sigma, is the sigma of the
+    same model with that point removed."""
+    model = train_on(synthetic(96), "gp", GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1))
+    m = model._m
+    for i in (0, 17, 95):
+        without = {**m, "X": np.delete(m["X"], i, axis=0)}
+        x = m["X"][i:i + 1]
+        np.testing.assert_allclose(rt.gp_local_std(np, m, x, skip_nearest=1), rt.gp_local_std(np, without, x),
+                                   rtol=1e-12)
+        assert np.all(rt.gp_local_std(np, m, x) < rt.gp_local_std(np, m, x, skip_nearest=1))  # its own point helps
