@@ -27,18 +27,28 @@ def train_cmd(
         bool, typer.Option("--share-kernels", help="GP: the same u-block of every curve shares one kernel "
                                                    "(faster whole-curve queries, somewhat larger errors).")
     ] = False,
+    warp: Annotated[
+        bool, typer.Option("--warp/--no-warp", help="GP: parameters the family marks (adiabatic indices) enter "
+                                                    "as ln(value - offset).")
+    ] = True,
 ):
     """Train a surrogate on a grid and save it."""
+    import warnings
+
     from . import GPSettings, train
 
     def work():
         settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
-                              share_curve_kernels=share_kernels)
-        model = train(grid, kind, settings, log=typer.echo)
+                              share_curve_kernels=share_kernels, warp_inputs=warp)
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message="GP kernel")  # printed below, once, without a traceback
+            model = train(grid, kind, settings, log=typer.echo)
         model.save(out)
         return model
 
     model = _run(work)
+    for msg in model.meta["training"].get("gp", {}).get("degenerate_kernels", []):
+        typer.echo(f"WARNING: GP {msg}", err=True)
     typer.echo(f"trained {model.kind} on {model.meta['training']['n_train']} points in "
                f"{model.meta['training']['seconds']:.1f} s; saved to {out}")
 

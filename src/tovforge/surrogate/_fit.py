@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -195,6 +196,37 @@ def input_warp(data: TrainingData) -> dict | None:
     return {"warp_log": flags.astype(np.int64), "warp_shift": shift, "wlo": wlo, "whi": whi}
 
 
+#: Bounds of the GP length scales, in units of the (warped) parameter box.
+LENGTH_BOUNDS = (1e-3, 1e3)
+
+
+#: Median kernel correlation with the nearest training point below which a fit is called degenerate.
+MIN_NEIGHBOUR_CORRELATION = 0.05
+
+
+def degenerate_kernels(x: np.ndarray, sub: np.ndarray, length: np.ndarray) -> list[str]:
+    """Messages for kernels under which neighbouring training points are nearly uncorrelated.
+
+    Such a GP explained the outputs as white noise (length scales far below
+    the spacing of the design) and predicts the trend alone between training
+    points.  For each kernel, the Matern-5/2 correlation of each subset point
+    with its nearest other training point is computed; a median below
+    :data:`MIN_NEIGHBOUR_CORRELATION` is reported.  ``x`` (n, d) unit inputs,
+    ``sub`` the subset rows, ``length`` (n_kernels, d).
+    """
+    out = []
+    for k, row in enumerate(np.atleast_2d(length)):
+        d2 = np.sum(((x[sub, None, :] - x[None, :, :]) / row) ** 2, axis=-1)
+        d2[np.arange(len(sub)), sub] = np.inf  # not the point itself
+        r = np.sqrt(5.0 * d2.min(axis=1))
+        corr = float(np.median((1.0 + r + r * r / 3.0) * np.exp(-r)))
+        if corr < MIN_NEIGHBOUR_CORRELATION:
+            out.append(f"kernel {k + 1}: neighbouring training points are nearly uncorrelated (median correlation "
+                       f"{corr:.2g} with the nearest one; length scales {np.array2string(row, precision=3)}): a "
+                       "degenerate fit; check the held-out errors, try another subset, trend degree or seed")
+    return out
+
+
 def _trend_matrix(x, powers):
     F, _ = rt._trend(np, {"trend_powers": powers}, x, False)
     return F
@@ -241,15 +273,13 @@ def _kernel_sets(bounds, slices, n_scalar_groups, share):
 
 def _fit_group(x, R, sub, settings, d):
     """Hyperparameters (on the subset) and weights (on all points) of one kernel group."""
-    import warnings
-
     from sklearn.exceptions import ConvergenceWarning
     from sklearn.gaussian_process import GaussianProcessRegressor
     from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
     t0 = time.perf_counter()
     kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5),
-                                                       length_scale_bounds=(1e-3, 1e3), nu=2.5) \
+                                                       length_scale_bounds=LENGTH_BOUNDS, nu=2.5) \
         + WhiteKernel(settings.noise_bounds[0], settings.noise_bounds)
     gpr = GaussianProcessRegressor(kernel, n_restarts_optimizer=settings.n_restarts,
                                    random_state=settings.seed, normalize_y=False)
@@ -359,6 +389,9 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
         alpha[:, c], sigma_scale[c] = r[3], r[6]
     timings = [r[4] for r in fits]
     boundary_hits = [f"kernel {k} (groups {s}): {msg}" for k, (s, r) in enumerate(zip(sets, fits)) for msg in r[5]]
+    degenerate = degenerate_kernels(x, sub, np.array([r[0] for r in fits]))
+    for msg in degenerate:
+        warnings.warn(f"GP {msg}", UserWarning, stacklevel=2)
     if log:
         for k, (s, r) in enumerate(zip(sets, fits)):
             outs = ", ".join(f"{bounds[g]}..{bounds[g + 1] - 1}" for g in s)
@@ -380,7 +413,7 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
                     "sigma_loo_scale": [float(v) for v in sigma_scale],
                     "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
                     "group_bounds": bounds.tolist(), "fit_seconds": timings,
-                    "optimizer_warnings": boundary_hits}}
+                    "optimizer_warnings": boundary_hits, "degenerate_kernels": degenerate}}
     return index, extra, arrays
 
 

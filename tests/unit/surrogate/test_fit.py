@@ -195,3 +195,22 @@ def test_leave_one_out_sigma_at_a_training_point_equals_sigma_without_it():
         np.testing.assert_allclose(rt.gp_local_std(np, m, x, skip_nearest=1), rt.gp_local_std(np, without, x),
                                    rtol=1e-12)
         assert np.all(rt.gp_local_std(np, m, x) < rt.gp_local_std(np, m, x, skip_nearest=1))  # its own point helps
+
+
+def test_a_degenerate_fit_is_reported_loudly():
+    """Outputs that are pure noise drive the length scales to their lower bound: training warns, the model
+    records it, and a smooth function gives no such warning."""
+    import dataclasses
+    import warnings
+
+    data = synthetic(64)
+    rng = np.random.default_rng(0)
+    noisy = dataclasses.replace(data, scalars={k: rng.normal(size=len(v)) for k, v in data.scalars.items()})
+    settings = GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1, warp_inputs=False)
+    with pytest.warns(UserWarning, match=r"GP kernel \d: neighbouring training points are nearly uncorrelated"):
+        model = train_on(noisy, "gp", settings)
+    assert model.meta["training"]["gp"]["degenerate_kernels"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)
+        smooth = train_on(data, "gp", settings)
+    assert smooth.meta["training"]["gp"]["degenerate_kernels"] == []
