@@ -113,11 +113,17 @@ def _trend(xp, m, x, grad):
     powers = m["trend_powers"]
     n_terms, d = powers.shape
     # every term at once: the powers x_i^p (p = 0..top, by the same integer powers as a
-    # term-by-term loop), the factors of each term gathered, multiplied in parameter order
-    top = max([int(powers[t, i]) for t in range(n_terms) for i in range(d)] + [0])
+    # term-by-term loop), the factors of each term gathered, multiplied in parameter order;
+    # the gather plan is plain Python, made once per model (it costs more than the arithmetic)
+    plan = m.get("_trend_plan")
+    if plan is None or plan[0] is not powers:
+        top = max([int(powers[t, i]) for t in range(n_terms) for i in range(d)] + [0])
+        plan = (powers, top, [i * (top + 1) + int(powers[t, i]) for t in range(n_terms) for i in range(d)])
+        m["_trend_plan"] = plan
+    top = plan[1]
     n = x.shape[0]
     XP = xp.stack([xp.ones(x.shape, dtype=x.dtype)] + [x**p for p in range(1, top + 1)], axis=-1)  # (n, d, top+1)
-    pick = xp.asarray([i * (top + 1) + int(powers[t, i]) for t in range(n_terms) for i in range(d)], dtype=xp.int64)
+    pick = xp.asarray(plan[2], dtype=xp.int64)
     F = xp.prod(xp.reshape(xp.take(xp.reshape(XP, (n, d * (top + 1))), pick, axis=1), (n, n_terms, d)), axis=-1)
     dcols = []
     for t in range(n_terms if grad else 0):
@@ -154,6 +160,28 @@ def _folded_weights(xp, m):
     if numpy_like:
         m["_folded_alpha"] = (m["alpha"], alpha)
     return alpha
+
+
+def _weight_block(xp, m, a, b):
+    """Columns ``a:b`` of the kernel weights (folded with the amplitude for GPs), contiguous.
+
+    A query multiplies kernel rows by a block of output columns; a contiguous
+    copy reads a third of the memory a strided slice does.  Cached for NumPy
+    (see :func:`_folded_weights`).
+    """
+    alpha = _folded_weights(xp, m) if m["kind"] == "gp" else m["alpha"]
+    numpy_like = getattr(xp, "__name__", "") == "numpy"
+    if not numpy_like:
+        return alpha[:, a:b]
+    cache = m.get("_weight_blocks")
+    if cache is None or cache[0] is not alpha:
+        cache = (alpha, {})
+        m["_weight_blocks"] = cache
+    block = cache[1].get((a, b))
+    if block is None:
+        block = alpha[:, a:b] * 1.0  # a C-ordered copy, the same numbers (NumPy 1 lacks asarray(copy=))
+        cache[1][(a, b)] = block
+    return block
 
 
 def _matern(xp, x, m, groups, grad, diffs=None):
@@ -317,7 +345,8 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
     """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d).
 
     ``columns``: optional list of output ranges ``(a, b)`` that are needed; GP
-    kernel groups that serve none of them are skipped and their outputs are NaN.
+    kernel groups that serve none of them, and RBF outputs outside them, are
+    skipped and their outputs are NaN.
     """
     F, dF = _trend(xp, m, x, grad)
     z = F @ m["trend_coef"]
@@ -333,7 +362,8 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
         # query reads: every group then sees the same rows, so a query that skips groups gives
         # the same bits as a full evaluation
         per_row = m["X"].shape[0]
-        kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad, groups)
+        spans = _rbf_blocks(m, columns) if kind == "rbf" else None
+        kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad, groups, spans)
         z = z + kz
         if grad:
             dz = dz + kdz
@@ -346,18 +376,52 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
     return z, dz
 
 
-def _kernel_part(xp, x, m, grad, groups=None):
+def _rbf_blocks(m, columns):
+    """Fixed output blocks of an RBF model (the scalars, then each curve) that ``columns`` touch.
+
+    A query evaluates whole blocks, each by its own product, so that its bits
+    equal those of a full evaluation (which evaluates every block).
+    """
+    cs = m["curve_slices"]
+    blocks = [(0, int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
+    if columns is None:
+        return blocks
+    return [(a, b) for a, b in blocks if any(c0 < b and a < c1 for c0, c1 in columns)]
+
+
+def _rbf_part(xp, m, phi, dphi, spans):
+    """RBF kernel sums phi @ alpha (and their x-derivatives) for the output ranges ``spans`` only."""
+    alpha = m["alpha"]
+    n_out = alpha.shape[1]
+    n, d = phi.shape[0], len(dphi) if dphi is not None else 0
+    parts, dparts, at = [], [], 0
+    for a, b in spans + [(n_out, n_out)]:
+        if a > at:  # not needed: NaN, never a stale number
+            parts.append(xp.full((n, a - at), float("nan"), dtype=phi.dtype))
+            if dphi is not None:
+                dparts.append(xp.full((n, a - at, d), float("nan"), dtype=phi.dtype))
+        if b > a:
+            w = _weight_block(xp, m, a, b)
+            parts.append(phi @ w)
+            if dphi is not None:
+                dparts.append(xp.stack([c @ w for c in dphi], axis=-1))
+        at = b
+    return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if dphi is not None else None)
+
+
+def _kernel_part(xp, x, m, grad, groups=None, spans=None):
     """Kernel sum of a GP or RBF model at rows x (n, d): (n, n_out) and (n, n_out, d).
 
     The column differences to the training points are formed once and shared
     by every kernel group (the groups share the points, not the length scales).
     ``groups``: the GP kernel groups to evaluate (default all); the outputs of
-    the others are NaN.
+    the others are NaN.  ``spans``: for RBF models, the output blocks to
+    evaluate (:func:`_rbf_blocks`; the others are NaN).
     """
     diffs = _column_differences(xp, x, m["X"])
     if m["kind"] == "rbf":
         phi, dphi = _polyharmonic_columns(xp, diffs, grad)
-        return phi @ m["alpha"], (xp.stack([c @ m["alpha"] for c in dphi], axis=-1) if grad else None)
+        return _rbf_part(xp, m, phi, dphi, spans)
     parts, dparts = [], []
     n_groups = m["length"].shape[0]
     if groups is None:
@@ -376,7 +440,7 @@ def _kernel_part(xp, x, m, grad, groups=None):
                 dparts.append(xp.full((x.shape[0], b - a, x.shape[1]), float("nan"), dtype=x.dtype))
             continue
         j = kernels.index(kernel_of[g])
-        alpha = _folded_weights(xp, m)[:, a:b]
+        alpha = _weight_block(xp, m, a, b)
         parts.append(k[j] @ alpha)
         if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
             dparts.append(xp.stack([c[j] @ alpha for c in dk], axis=-1))
