@@ -127,7 +127,10 @@ def test_samples_from_npy(tmp_path, model_dir):
                               "--out", str(tmp_path / "s.csv"), "--band", str(tmp_path / "band.h5"), "--quiet"])
     assert res.exit_code == 0, res.output
     band = tables.read_table(tmp_path / "band.h5")
-    assert np.all(band["radius_p05"] == band["radius_p95"])  # five identical samples: a band of zero width
+    # five identical samples: a band of zero width, up to rounding (BLAS may sum a row differently
+    # depending on its position in the block, by about 1e-15 relative)
+    np.testing.assert_allclose(band["radius_p05"], band["radius_p95"], rtol=1e-13, atol=0)
+    assert np.all(np.isfinite(band["radius_p05"]))
 
 
 @pytest.mark.parametrize("args, words", [
