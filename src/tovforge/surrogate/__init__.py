@@ -11,7 +11,7 @@ copies into standalone files.
 from __future__ import annotations
 
 from ._dataset import read_training_data
-from ._fit import GPSettings, TrainingData
+from ._fit import GPSettings, SplineSettings, TrainingData
 from ._model import MassPrediction, ModelFormatError, Prediction, Surrogate, load
 from ._train import train, train_on
 
@@ -20,6 +20,7 @@ __all__ = [
     "MassPrediction",
     "ModelFormatError",
     "Prediction",
+    "SplineSettings",
     "Surrogate",
     "TrainingData",
     "load",

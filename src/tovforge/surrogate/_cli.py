@@ -28,21 +28,25 @@ def train_cmd(
                                                    "(faster whole-curve queries, somewhat larger errors).")
     ] = False,
     warp: Annotated[
-        bool, typer.Option("--warp/--no-warp", help="GP: parameters the family marks (adiabatic indices) enter "
+        bool, typer.Option("--warp/--no-warp", help="Parameters the family marks (adiabatic indices) enter "
                                                     "as ln(value - offset).")
     ] = True,
+    isotropic: Annotated[
+        bool, typer.Option("--isotropic", help="Spline (RBF): no per-parameter stretch of the inputs.")
+    ] = False,
 ):
     """Train a surrogate on a grid and save it."""
     import warnings
 
-    from . import GPSettings, train
+    from . import GPSettings, SplineSettings, train
 
     def work():
         settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
                               share_curve_kernels=share_kernels, warp_inputs=warp)
+        spline = SplineSettings(warp_inputs=warp, anisotropic=not isotropic)
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="GP kernel")  # printed below, once, without a traceback
-            model = train(grid, kind, settings, log=typer.echo)
+            model = train(grid, kind, settings, log=typer.echo, spline_settings=spline)
         model.save(out)
         return model
 

@@ -13,8 +13,8 @@ from scipy.interpolate import CubicSpline
 from ..errors import InputError
 from . import _runtime as rt
 
-__all__ = ["TrainingData", "GPSettings", "fit_gp", "fit_rbf", "fit_tensor", "spline_cardinal_coefficients",
-           "trend_powers"]
+__all__ = ["TrainingData", "GPSettings", "SplineSettings", "fit_gp", "fit_rbf", "fit_tensor",
+           "spline_cardinal_coefficients", "trend_powers"]
 
 #: Outputs modelled, in this order: three scalars, then the node curves.
 #: M_max comes last, next to the radius curve, so that it can share a kernel with
@@ -129,6 +129,40 @@ class GPSettings:
     share_curve_kernels: bool = False
     warp_inputs: bool = True
     n_jobs: int = -1
+
+
+@dataclass(frozen=True)
+class SplineSettings:
+    """Options of the radial-basis-function spline (scattered designs).
+
+    Attributes
+    ----------
+    warp_inputs : bool
+        As :attr:`GPSettings.warp_inputs` (``ln(Gamma - 1)`` for the adiabatic
+        indices of the piecewise polytrope).
+    anisotropic : bool
+        Stretch each parameter's unit interval by ``l_min / l_i``, with ``l``
+        the length scales a Gaussian process (one Matern-5/2 kernel for all
+        curve outputs, fitted by marginal likelihood on ``n_subset`` points)
+        finds: the r^5 kernel then measures distance in the metric the data
+        vary in.
+    n_subset : int
+        Points of that Gaussian process (space-filling subset).
+    degree : int
+        Degree of the polynomial (>= 2 for the r^5 kernel).
+    seed : int
+
+    On the demo box (4,093 points, 500 held-out EOS) the held-out p95 errors
+    were R(M) 25.3 m, Lambda 1.06 %, M_max 1.05e-3 Msun with neither option,
+    21.1 m, 1.04 %, 1.41e-3 with the warp alone, and about 10 m, 0.4 % and
+    5.5e-4 with both.
+    """
+
+    warp_inputs: bool = True
+    anisotropic: bool = True
+    n_subset: int = 256
+    degree: int = 2
+    seed: int = 0
 
 
 def trend_powers(d: int, degree: int) -> np.ndarray:
@@ -423,19 +457,58 @@ def _matern_matrix(x, length, amp2):
     return amp2 * (1.0 + rt.SQRT5 * r + (5.0 / 3.0) * r * r) * np.exp(-rt.SQRT5 * r)
 
 
-def fit_rbf(data: TrainingData, degree: int = 2, log=None):
-    """Interpolate with the polyharmonic kernel r^5 plus a polynomial of ``degree``.
+def _anisotropy(x, Z, slices, settings: SplineSettings):
+    """Per-parameter stretch ``l_min / l_i`` from one GP kernel over the curve outputs (see SplineSettings)."""
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+    F = _trend_matrix(x, trend_powers(x.shape[1], 2))
+    coef, *_ = np.linalg.lstsq(F, Z, rcond=None)
+    R = (Z - F @ coef)[:, slices[0][0]:slices[-1][1]]
+    R = R / np.where(R.std(axis=0) > 0, R.std(axis=0), 1.0)
+    sub = _space_filling_subset(x, settings.n_subset, settings.seed)
+    kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(np.full(x.shape[1], 0.5), LENGTH_BOUNDS, nu=2.5) \
+        + WhiteKernel(1e-6, (1e-6, 1e-4))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # bounds hits of the nugget are expected
+        gp = GaussianProcessRegressor(kernel, random_state=settings.seed).fit(x[sub], R[sub])
+    length = np.atleast_1d(gp.kernel_.k1.k2.length_scale).astype(float)
+    return length.min() / length, length
+
+
+def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings(), log=None):
+    """Interpolate with the polyharmonic kernel r^5 plus a polynomial of ``settings.degree``.
 
     Solves the symmetric saddle-point system ``[[Phi, P], [P^T, 0]] [a; c] =
     [Z; 0]`` (conditionally positive definite of order 3, hence degree >= 2;
-    as in SciPy's RBFInterpolator with kernel='quintic').
+    as in SciPy's RBFInterpolator with kernel='quintic'), in the warped and
+    stretched inputs of :class:`SplineSettings`.
     """
+    degree = settings.degree
     if degree < 2:
         raise InputError("the r^5 kernel needs a polynomial of degree >= 2.")
     Y, index, slices = data.output_matrix()
     arrays = _common_arrays(data, Y, slices)
-    x = (data.theta - arrays["lo"]) / (arrays["hi"] - arrays["lo"])
+    warp = input_warp(data) if settings.warp_inputs else None
+    if warp:
+        arrays.update(warp)
+    x = rt.unit_inputs(np, arrays, data.theta)[0]
     Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    extra = {"kernel": "r^5", "degree": degree, "warp_inputs": settings.warp_inputs,
+             "anisotropic": settings.anisotropic,
+             "input_warp": ({n: f"ln({n} - {c:g})" for n, c, f in
+                             zip(data.parameter_names, warp["warp_shift"], warp["warp_log"]) if f} if warp else {})}
+    if settings.anisotropic:
+        t0 = time.perf_counter()
+        scale, length = _anisotropy(x, Z, slices, settings)
+        arrays["input_scale"] = scale
+        x = rt.unit_inputs(np, arrays, data.theta)[0]
+        extra.update(input_scale=scale.tolist(), anisotropy_length_scales=length.tolist(),
+                     anisotropy_subset=min(settings.n_subset, len(x)))
+        if log:
+            log(f"  input stretch {np.array2string(scale, precision=3)} (GP length scales "
+                f"{np.array2string(length, precision=3)} on {min(settings.n_subset, len(x))} points, "
+                f"{time.perf_counter() - t0:.1f} s)")
     powers = trend_powers(x.shape[1], degree)
     P = _trend_matrix(x, powers)
     phi, _ = rt._polyharmonic(np, x, x, False)
@@ -450,7 +523,7 @@ def fit_rbf(data: TrainingData, degree: int = 2, log=None):
     if log:
         log(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
-    return index, {"rbf": {"kernel": "r^5", "degree": degree}}, arrays
+    return index, {"rbf": extra}, arrays
 
 
 def fit_tensor(data: TrainingData, log=None):

@@ -13,6 +13,8 @@ A model is a dict ``m`` of arrays and a few numbers:
 ``warp_log`` (d,) 0/1, ``warp_shift``, ``wlo``, ``whi`` (d,), optional
     Flagged parameters enter as ``ln(theta - warp_shift)``; ``x`` then maps
     the warped box ``[wlo, whi]`` (see :func:`unit_inputs`).
+``input_scale`` (d,), optional
+    ``x`` is multiplied by it (RBF models: an anisotropic metric).
 ``out_mean, out_scale`` (n_out,)
     Outputs are standardised: ``y = out_mean + out_scale * z``.
 ``trend_powers`` (n_terms, d), ``trend_coef`` (n_terms, n_out)
@@ -80,16 +82,19 @@ def unit_inputs(xp, m, theta):
     if flags is None:
         x = (theta - m["lo"]) / (m["hi"] - m["lo"])
         inside = xp.all((x >= 0.0) & (x <= 1.0), axis=-1)
-        return x, inside
-    inside = xp.all((theta >= m["lo"]) & (theta <= m["hi"]), axis=-1)
-    cols = []
-    for i in range(theta.shape[-1]):
-        t = theta[:, i]
-        if int(flags[i]):
-            s = float(m["warp_shift"][i])
-            t = xp.log(xp.where(t > s, t - s, 1.0))  # below the shift: outside the box anyway
-        cols.append(t)
-    x = (xp.stack(cols, axis=-1) - m["wlo"]) / (m["whi"] - m["wlo"])
+    else:
+        inside = xp.all((theta >= m["lo"]) & (theta <= m["hi"]), axis=-1)
+        cols = []
+        for i in range(theta.shape[-1]):
+            t = theta[:, i]
+            if int(flags[i]):
+                s = float(m["warp_shift"][i])
+                t = xp.log(xp.where(t > s, t - s, 1.0))  # below the shift: outside the box anyway
+            cols.append(t)
+        x = (xp.stack(cols, axis=-1) - m["wlo"]) / (m["whi"] - m["wlo"])
+    scale = m.get("input_scale")
+    if scale is not None:  # anisotropic RBF: parameter i spans [0, input_scale[i]]
+        x = x * scale
     return x, inside
 
 
@@ -97,15 +102,18 @@ def input_span(xp, m, theta):
     """``d theta / d x`` per parameter: (d,) without a warp, (n, d) with one."""
     flags = m.get("warp_log")
     if flags is None:
-        return m["hi"] - m["lo"]
-    width = m["whi"] - m["wlo"]
-    cols = []
-    for i in range(theta.shape[-1]):
-        c = width[i] * xp.ones(theta.shape[:1], dtype=theta.dtype)
-        if int(flags[i]):
-            c = c * (theta[:, i] - float(m["warp_shift"][i]))
-        cols.append(c)
-    return xp.stack(cols, axis=-1)
+        span = m["hi"] - m["lo"]
+    else:
+        width = m["whi"] - m["wlo"]
+        cols = []
+        for i in range(theta.shape[-1]):
+            c = width[i] * xp.ones(theta.shape[:1], dtype=theta.dtype)
+            if int(flags[i]):
+                c = c * (theta[:, i] - float(m["warp_shift"][i]))
+            cols.append(c)
+        span = xp.stack(cols, axis=-1)
+    scale = m.get("input_scale")
+    return span if scale is None else span / scale
 
 
 def _trend(xp, m, x, grad):

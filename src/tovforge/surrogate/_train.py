@@ -11,7 +11,7 @@ import numpy as np
 from .. import __version__
 from ..errors import InputError
 from ._dataset import read_training_data
-from ._fit import GPSettings, TrainingData, fit_gp, fit_rbf, fit_tensor
+from ._fit import GPSettings, SplineSettings, TrainingData, fit_gp, fit_rbf, fit_tensor
 from ._model import FORMAT, FORMAT_VERSION, Surrogate
 
 __all__ = ["train", "train_on"]
@@ -19,7 +19,8 @@ __all__ = ["train", "train_on"]
 KINDS = ("gp", "spline")
 
 
-def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None, log=None) -> Surrogate:
+def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None, log=None,
+          spline_settings: SplineSettings | None = None) -> Surrogate:
     """Train a surrogate on a grid file.
 
     Parameters
@@ -32,14 +33,17 @@ def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None, lo
     gp_settings : GPSettings, optional
     log : callable, optional
         Receives progress lines.
+    spline_settings : SplineSettings, optional
+        Options of the radial-basis-function spline (scattered designs).
     """
     if kind not in KINDS:
         raise InputError(f"--kind must be one of {', '.join(KINDS)}; got {kind!r}.")
     data = read_training_data(grid_path)
-    return train_on(data, kind, gp_settings, log)
+    return train_on(data, kind, gp_settings, log, spline_settings)
 
 
-def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | None = None, log=None) -> Surrogate:
+def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | None = None, log=None,
+             spline_settings: SplineSettings | None = None) -> Surrogate:
     """Train on in-memory :class:`TrainingData` (see :func:`train`)."""
     t0 = time.perf_counter()
     if kind == "gp":
@@ -49,7 +53,7 @@ def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | Non
         index, extra, arrays = fit_tensor(data, log=log)
         model_kind = "tensor"
     else:
-        index, extra, arrays = fit_rbf(data, log=log)
+        index, extra, arrays = fit_rbf(data, spline_settings or SplineSettings(), log=log)
         model_kind = "rbf"
     seconds = time.perf_counter() - t0
     meta = {
