@@ -254,8 +254,17 @@ def _error_table(check: dict | None) -> list[str]:
     return lines
 
 
-def _warp_text(names, arrays) -> list[str]:
-    return [f"ln({_text(n)} - {float(c):g})" for n, c, f in zip(names, arrays["warp_shift"], arrays["warp_log"]) if f]
+def _inputs_text(names, arrays) -> list[str]:
+    """Header lines on what the model takes as inputs (warped parameters, stretched box), if anything."""
+    lines = []
+    if arrays.get("warp_log") is not None:
+        warped = [f"ln({_text(n)} - {float(c):g})" for n, c, f in zip(names, arrays["warp_shift"], arrays["warp_log"])
+                  if f]
+        lines.append(f"inputs           the model sees {', '.join(warped)} (the rest as given)")
+    if arrays.get("input_scale") is not None:
+        stretch = ", ".join(f"{_text(n)} {float(c):.3g}" for n, c in zip(names, arrays["input_scale"]))
+        lines.append(f"                 distances in a stretched box (each parameter spans [0, c]: {stretch})")
+    return lines
 
 
 def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> str:
@@ -284,8 +293,7 @@ def _header(meta: dict, arrays: dict, check, info: dict, namespaces: dict) -> st
         f"family           {_text(meta['family'])}",
         f"kind             {kind}" + (f", {n_groups} output groups, {n_kernels} kernels" if n_groups else "") + ":",
         f"                 {_KIND_TEXT.get(kind, '')}",
-        *([f"inputs           the GP sees {', '.join(_warp_text(names, arrays))} (the rest as given)"]
-          if arrays.get("warp_log") is not None else []),
+        *_inputs_text(names, arrays),
         f"training         {tr.get('n_train')} exact EOS ({tr.get('grid_points_used', '?')} of "
         f"{tr.get('grid_points', '?')} grid points usable), grid {_text(tr.get('grid_path', '?'))}",
         f"                 {_text(tr.get('grid_description', ''))}",
