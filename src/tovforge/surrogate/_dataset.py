@@ -27,12 +27,14 @@ def _read(path):
         raise InputError(f"{path}: cannot read grid file ({exc}).") from None
 
 
-def read_training_data(path, family: str | None = None) -> TrainingData:
+def read_training_data(path, family: str | None = None, min_points: int = 8) -> TrainingData:
     """Read a grid file and keep the rows a surrogate can learn from.
 
     Rows with status 0 or 2 whose curves are complete are kept.  Scalars and
     curves are transformed to the modelled quantities: ``log10`` of the central
-    pressure at M_max, and the natural logs of Lambda and of I.
+    pressure at M_max, and the natural logs of Lambda and of I.  Fewer than
+    ``min_points`` usable rows is an error (0 for grids that only add to
+    others, such as the points of ``grid refine``).
 
     Raises
     ------
@@ -48,11 +50,11 @@ def read_training_data(path, family: str | None = None) -> TrainingData:
     return training_data_from_arrays(
         path=path, family_name=g.family, parameter_names=g.parameter_names, parameter_units=g.parameter_units,
         box=g.box, theta=g.parameters, status=g.status, scalars=g.scalars, curves=g.curves, u_nodes=g.u_nodes,
-        attrs=dict(g.attrs))
+        attrs=dict(g.attrs), min_points=min_points)
 
 
 def training_data_from_arrays(*, path, family_name, parameter_names, parameter_units, box, theta, status,
-                              scalars, curves, u_nodes, attrs) -> TrainingData:
+                              scalars, curves, u_nodes, attrs, min_points: int = 8) -> TrainingData:
     """The rows of grid-like arrays that a surrogate can learn from (see :func:`read_training_data`)."""
     need_s = ("mass_max_msun", "central_pressure_at_mass_max_dyn_cm2", "max_sound_speed_sq")
     need_c = ("radius_km", "tidal_deformability", "moment_of_inertia_1e45_g_cm2")
@@ -77,7 +79,7 @@ def training_data_from_arrays(*, path, family_name, parameter_names, parameter_u
     keep = np.isin(status, USED_STATUSES)
     for v in list(model_curves.values()) + list(model_scalars.values()):
         keep &= np.all(np.isfinite(v.reshape(len(status), -1)), axis=1)
-    if keep.sum() < 8:
+    if keep.sum() < min_points:
         raise InputError(f"{path}: only {int(keep.sum())} usable points (status 0 or 2 with complete curves).")
     spec = json.loads(attrs.get("spec_json", "{}")) if isinstance(attrs.get("spec_json"), str) else {}
     regular = None

@@ -162,7 +162,13 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         raise InputError(f"{grid_path}: the training grid changed since the model was trained "
                          "(content hash differs); retrain first.")
     for extra in tr.get("refinement_grids", []):
-        base = _merge(base, read_training_data(extra, family=model.family))
+        base = _merge(base, read_training_data(extra, family=model.family, min_points=0))
+    if len(base.theta) != int(tr.get("n_train", len(base.theta))):
+        # e.g. a model trained in memory on part of the grid: retraining on the whole file would
+        # silently change what the learning curve compares
+        raise InputError(f"the model was trained on {tr['n_train']} points, but {grid_path} and its refinements "
+                         f"hold {len(base.theta)} usable points; refine needs a model trained on the whole "
+                         "grid file (tovforge train GRID).")
     g = read_grid(grid_path)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
@@ -182,7 +188,7 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
         parameter_units=tuple(model.meta["parameter_units"]), box=model.bounds, theta=added,
         status=result.status, scalars=result.scalars, curves=result.curves, u_nodes=spec.outputs.u_nodes,
-        attrs={"mass_max_floor_msun": spec.mass_max_floor_msun})
+        attrs={"mass_max_floor_msun": spec.mass_max_floor_msun}, min_points=0)
     data = _merge(base, new)
     # retrain with the settings the model was trained with (those it recorded; defaults otherwise)
     stored = tr.get("gp", {})
