@@ -145,7 +145,8 @@ class SplineSettings:
         the length scales a Gaussian process (one Matern-5/2 kernel for all
         curve outputs, fitted by marginal likelihood on ``n_subset`` points)
         finds: the r^5 kernel then measures distance in the metric the data
-        vary in.
+        vary in.  Stretches are kept >= ``MIN_STRETCH`` (0.05); if that GP comes
+        out degenerate the box stays unstretched, with a warning.
     n_subset : int
         Points of that Gaussian process (space-filling subset).
     degree : int
@@ -457,6 +458,10 @@ def _matern_matrix(x, length, amp2):
     return amp2 * (1.0 + rt.SQRT5 * r + (5.0 / 3.0) * r * r) * np.exp(-rt.SQRT5 * r)
 
 
+#: Smallest stretch of a parameter's unit interval in the anisotropic RBF.
+MIN_STRETCH = 0.05
+
+
 def _anisotropy(x, Z, slices, settings: SplineSettings):
     """Per-parameter stretch ``l_min / l_i`` from one GP kernel over the curve outputs (see SplineSettings)."""
     from sklearn.gaussian_process import GaussianProcessRegressor
@@ -473,7 +478,14 @@ def _anisotropy(x, Z, slices, settings: SplineSettings):
         warnings.simplefilter("ignore")  # bounds hits of the nugget are expected
         gp = GaussianProcessRegressor(kernel, random_state=settings.seed).fit(x[sub], R[sub])
     length = np.atleast_1d(gp.kernel_.k1.k2.length_scale).astype(float)
-    return length.min() / length, length
+    if degenerate_kernels(x, sub, length[None, :]):
+        warnings.warn("the GP that sets the spline's input stretch came out degenerate (length scales "
+                      f"{np.array2string(length, precision=3)}); the spline uses the unstretched box.",
+                      UserWarning, stacklevel=3)
+        return np.ones_like(length), length
+    # an irrelevant parameter (huge length scale) is squeezed, but not to nothing: points that
+    # differ only in it must stay apart, or the interpolation matrix becomes singular
+    return np.maximum(length.min() / length, MIN_STRETCH), length
 
 
 def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings(), log=None):

@@ -214,3 +214,24 @@ def test_a_degenerate_fit_is_reported_loudly():
         warnings.simplefilter("error", UserWarning)
         smooth = train_on(data, "gp", settings)
     assert smooth.meta["training"]["gp"]["degenerate_kernels"] == []
+
+
+def test_spline_stretch_follows_the_length_scales_and_falls_back_when_degenerate():
+    """The RBF's input stretch is l_min / l_i (>= 0.05) from one GP; with noise for outputs that GP is
+    degenerate and the spline keeps the unstretched box, with a warning."""
+    import dataclasses
+
+    from tovforge.surrogate import SplineSettings
+    from tovforge.surrogate._fit import MIN_STRETCH
+
+    data = synthetic(128)
+    model = train_on(data, "spline", spline_settings=SplineSettings(warp_inputs=False))
+    info = model.meta["training"]["rbf"]
+    length = np.array(info["anisotropy_length_scales"])
+    np.testing.assert_allclose(model.arrays["input_scale"], np.maximum(length.min() / length, MIN_STRETCH))
+    assert model.arrays["input_scale"].max() == 1.0 and model.arrays["input_scale"].min() < 1.0
+    rng = np.random.default_rng(1)
+    noise = dataclasses.replace(data, curves={k: rng.normal(size=v.shape) for k, v in data.curves.items()})
+    with pytest.warns(UserWarning, match="input stretch came out degenerate"):
+        flat = train_on(noise, "spline", spline_settings=SplineSettings(warp_inputs=False))
+    np.testing.assert_array_equal(flat.arrays["input_scale"], 1.0)
