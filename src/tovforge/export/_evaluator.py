@@ -21,8 +21,8 @@ import zlib
 
 import numpy as np
 
-from ..surrogate._runtime import (curve_at_mass, named_outputs, named_std, needed_columns, output_std, outputs,
-                                  unit_inputs)
+from ..surrogate._runtime import (branch_curve, curve_at_mass, named_outputs, named_std, needed_columns, output_std,
+                                  outputs, unit_inputs)
 
 # ---- the exported code starts below this line ----
 
@@ -318,10 +318,7 @@ def curve(theta, n=100, strict=False):
     y, inside, _ = outputs(xp, m, t, False, needed_columns(m, ("radius_km", "tidal_deformability")))
     if strict:
         _require_inside(xp, t, inside)
-    frac = 1.0 - (_U_MAX * xp.linspace(1.0, 0.0, n, dtype=xp.float64, **_on(t))) ** 2
-    masses = y[:, _I_MASS_MAX][:, None] * frac[None, :]
-    R = curve_at_mass(xp, m, y, None, None, masses, "radius_km")[0]
-    L = curve_at_mass(xp, m, y, None, None, masses, "tidal_deformability")[0]
+    masses, R, L = branch_curve(xp, m, y, xp.linspace(1.0, 0.0, n, dtype=xp.float64, **_on(t)))
     return tuple(_shape(xp, a, single, (n,)) for a in (masses, R, L))
 
 

@@ -249,12 +249,7 @@ class Surrogate:
         t = self._theta(theta)
         # one evaluation serves M_max and both curves (the masses then sit exactly on the branch)
         y, _, _ = rt.outputs(np, self._m, t, False, rt.needed_columns(self._m, ("radius_km", "tidal_deformability")))
-        umax = float(self.arrays["u_nodes"][-1])
-        frac = 1.0 - (umax * np.linspace(1.0, 0.0, n)) ** 2
-        masses = y[:, self._m["i_mass_max"]][:, None] * frac[None, :]
-        R = rt.curve_at_mass(np, self._m, y, None, None, masses, "radius_km")[0]
-        L = rt.curve_at_mass(np, self._m, y, None, None, masses, "tidal_deformability")[0]
-        return masses, R, L
+        return rt.branch_curve(np, self._m, y, np.linspace(1.0, 0.0, n))
 
     # -- storage --------------------------------------------------------------------
     def save(self, folder) -> Path:

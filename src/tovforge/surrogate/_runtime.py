@@ -654,6 +654,43 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
     return curve_at_mass(xp, m, y, dy, sd, mass, quantity)
 
 
+def _curve_weights(xp, m, u):
+    """Spline weights (n_u, q) of the node values at the points ``u`` (q,); cached for NumPy."""
+    numpy_like = getattr(xp, "__name__", "") == "numpy"
+    key = u.tobytes() if numpy_like else None  # exactly these points
+    cache = m.get("_curve_weights") if numpy_like else None
+    if cache is not None and cache[0] is m["u_nodes"] and key in cache[1]:
+        return cache[1][key]
+    n_u = m["u_nodes"].shape[0]
+    eye = xp.eye(n_u, dtype=u.dtype)
+    W = spline_in_u(xp, m, eye, xp.broadcast_to(u[None, :], (n_u, u.shape[0])), weights=False)[0]
+    if numpy_like:
+        if cache is None or cache[0] is not m["u_nodes"]:
+            cache = (m["u_nodes"], {})
+            m["_curve_weights"] = cache
+        cache[1][key] = W
+    return W
+
+
+def branch_curve(xp, m, y, s):
+    """Masses, radii and Lambdas (n, q) along the stable branch at ``u = u_max s``.
+
+    ``y`` (n, n_out) from :func:`outputs`; ``s`` (q,) in [0, 1] (1: the
+    lightest emulated star, 0: M_max).  The points sit at the same ``u`` for
+    every row, so one matrix of spline weights (n_u, q) serves all rows:
+    the same values as :func:`curve_at_mass` at these masses, to rounding.
+    """
+    un = m["u_nodes"]
+    u = un[-1] * s
+    masses = y[:, int(m["i_mass_max"])][:, None] * (1.0 - u * u)[None, :]
+    W = _curve_weights(xp, m, u)
+    a, b = _curve_slice(m, "radius_km")
+    R = y[:, a:b] @ W
+    a, b = _curve_slice(m, "log_tidal_deformability")
+    L = xp.exp(y[:, a:b] @ W)
+    return masses, R, L
+
+
 def curve_at_mass(xp, m, y, dy, sd, mass, quantity):
     """:func:`at_mass` from outputs already evaluated (several queries, one model evaluation).
 
