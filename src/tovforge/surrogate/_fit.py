@@ -203,6 +203,26 @@ def _common_arrays(data: TrainingData, Y: np.ndarray, slices) -> dict:
     }
 
 
+def _prepared(data: TrainingData, warp_inputs: bool):
+    """What every fit starts from.
+
+    Returns the output index and curve slices, the model's common arrays (with
+    the family's input warp when ``warp_inputs``), the unit inputs ``x`` (n, d),
+    the standardised outputs ``Z`` (n, n_out), and the warp as metadata
+    (``{name: "ln(name - offset)"}``, empty without one).
+    """
+    Y, index, slices = data.output_matrix()
+    arrays = _common_arrays(data, Y, slices)
+    warp = input_warp(data) if warp_inputs else None
+    if warp:
+        arrays.update(warp)
+    x = rt.unit_inputs(np, arrays, data.theta)[0]
+    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    warped = ({n: f"ln({n} - {c:g})" for n, c, f in zip(data.parameter_names, warp["warp_shift"], warp["warp_log"])
+               if f} if warp else {})
+    return index, slices, arrays, x, Z, warped
+
+
 def input_warp(data: TrainingData) -> dict | None:
     """Arrays of the family's input warp (``ln(theta - log_offset)``), or None if it has none.
 
@@ -262,6 +282,28 @@ def degenerate_kernels(x: np.ndarray, sub: np.ndarray, length: np.ndarray) -> li
     return out
 
 
+def _trend_residuals(x, Z, degree):
+    """Least-squares polynomial trend of ``Z`` in ``x``.
+
+    Returns the monomial powers, the coefficients, the residuals scaled to unit
+    spread per column, and those scales.
+    """
+    powers = trend_powers(x.shape[1], degree)
+    F = _trend_matrix(x, powers)
+    coef, *_ = np.linalg.lstsq(F, Z, rcond=None)
+    resid = Z - F @ coef
+    rscale = np.where(resid.std(axis=0) > 0, resid.std(axis=0), 1.0)
+    return powers, coef, resid / rscale, rscale
+
+
+def _matern_kernel(d, noise_bounds):
+    """scikit-learn kernel of every GP here: amplitude x anisotropic Matern-5/2 + a white-noise nugget."""
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+    return ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5), length_scale_bounds=LENGTH_BOUNDS,
+                                                     nu=2.5) + WhiteKernel(noise_bounds[0], noise_bounds)
+
+
 def _trend_matrix(x, powers):
     F, _ = rt._trend(np, {"trend_powers": powers}, x, False)
     return F
@@ -310,12 +352,9 @@ def _fit_group(x, R, sub, settings, d):
     """Hyperparameters (on the subset) and weights (on all points) of one kernel group."""
     from sklearn.exceptions import ConvergenceWarning
     from sklearn.gaussian_process import GaussianProcessRegressor
-    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
     t0 = time.perf_counter()
-    kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(length_scale=np.full(d, 0.5),
-                                                       length_scale_bounds=LENGTH_BOUNDS, nu=2.5) \
-        + WhiteKernel(settings.noise_bounds[0], settings.noise_bounds)
+    kernel = _matern_kernel(d, settings.noise_bounds)
     gpr = GaussianProcessRegressor(kernel, n_restarts_optimizer=settings.n_restarts,
                                    random_state=settings.seed, normalize_y=False)
     with warnings.catch_warnings(record=True) as caught:
@@ -393,19 +432,8 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     -------
     meta_extra : dict, arrays : dict
     """
-    Y, index, slices = data.output_matrix()
-    arrays = _common_arrays(data, Y, slices)
-    warp = input_warp(data) if settings.warp_inputs else None
-    if warp:
-        arrays.update(warp)
-    x = rt.unit_inputs(np, arrays, data.theta)[0]
-    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
-    powers = trend_powers(x.shape[1], settings.trend_degree)
-    F = _trend_matrix(x, powers)
-    coef, *_ = np.linalg.lstsq(F, Z, rcond=None)
-    resid = Z - F @ coef
-    rscale = np.where(resid.std(axis=0) > 0, resid.std(axis=0), 1.0)
-    R = resid / rscale
+    index, slices, arrays, x, Z, warped = _prepared(data, settings.warp_inputs)
+    powers, coef, R, rscale = _trend_residuals(x, Z, settings.trend_degree)
     bounds = _groups(index, slices, Z.shape[1], settings.curve_groups, settings.mass_max_with_radius)
     sub = _space_filling_subset(x, settings.n_subset, settings.seed)
     n_g = len(bounds) - 1
@@ -433,18 +461,14 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
             log(f"  GP kernel {k + 1}/{len(sets)} (outputs {outs}): length scales "
                 f"{np.array2string(r[0], precision=3)}, amplitude {np.sqrt(r[1]):.3g}, nugget {r[2]:.2g}, "
                 f"{r[4]:.1f} s")
-    arrays.update(trend_powers=powers, trend_coef=coef * 1.0, X=x, alpha=alpha, group_bounds=bounds,
-                  group_kernel=group_kernel, length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
-    arrays["trend_coef"] = coef
-    arrays["alpha"] = alpha * rscale
+    arrays.update(trend_powers=powers, trend_coef=coef, X=x, alpha=alpha * rscale, group_bounds=bounds,
+                  group_kernel=group_kernel, length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
     extra = {"gp": {"n_subset": int(len(sub)), "n_restarts": settings.n_restarts, "curve_groups": settings.curve_groups,
                     "mass_max_with_radius": settings.mass_max_with_radius,
                     "share_curve_kernels": settings.share_curve_kernels, "n_kernels": len(sets),
                     "warp_inputs": settings.warp_inputs,
-                    "input_warp": ({n: f"ln({n} - {c:g})" for n, c, f in
-                                    zip(data.parameter_names, warp["warp_shift"], warp["warp_log"]) if f}
-                                   if warp else {}),
+                    "input_warp": warped,
                     "sigma_loo_scale": [float(v) for v in sigma_scale],
                     "trend_degree": settings.trend_degree, "kernel": "Matern nu=5/2, ARD",
                     "group_bounds": bounds.tolist(), "fit_seconds": timings,
@@ -465,15 +489,10 @@ MIN_STRETCH = 0.05
 def _anisotropy(x, Z, slices, settings: SplineSettings):
     """Per-parameter stretch ``l_min / l_i`` from one GP kernel over the curve outputs (see SplineSettings)."""
     from sklearn.gaussian_process import GaussianProcessRegressor
-    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
-    F = _trend_matrix(x, trend_powers(x.shape[1], 2))
-    coef, *_ = np.linalg.lstsq(F, Z, rcond=None)
-    R = (Z - F @ coef)[:, slices[0][0]:slices[-1][1]]
-    R = R / np.where(R.std(axis=0) > 0, R.std(axis=0), 1.0)
+    R = _trend_residuals(x, Z, 2)[2][:, slices[0][0]:slices[-1][1]]
     sub = _space_filling_subset(x, settings.n_subset, settings.seed)
-    kernel = ConstantKernel(1.0, (1e-4, 1e7)) * Matern(np.full(x.shape[1], 0.5), LENGTH_BOUNDS, nu=2.5) \
-        + WhiteKernel(1e-6, (1e-6, 1e-4))
+    kernel = _matern_kernel(x.shape[1], GPSettings().noise_bounds)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # bounds hits of the nugget are expected
         gp = GaussianProcessRegressor(kernel, random_state=settings.seed).fit(x[sub], R[sub])
@@ -499,17 +518,10 @@ def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings(), log
     degree = settings.degree
     if degree < 2:
         raise InputError("the r^5 kernel needs a polynomial of degree >= 2.")
-    Y, index, slices = data.output_matrix()
-    arrays = _common_arrays(data, Y, slices)
-    warp = input_warp(data) if settings.warp_inputs else None
-    if warp:
-        arrays.update(warp)
-    x = rt.unit_inputs(np, arrays, data.theta)[0]
-    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    index, slices, arrays, x, Z, warped = _prepared(data, settings.warp_inputs)
     extra = {"kernel": "r^5", "degree": degree, "warp_inputs": settings.warp_inputs,
              "anisotropic": settings.anisotropic,
-             "input_warp": ({n: f"ln({n} - {c:g})" for n, c, f in
-                             zip(data.parameter_names, warp["warp_shift"], warp["warp_log"]) if f} if warp else {})}
+             "input_warp": warped}
     if settings.anisotropic:
         t0 = time.perf_counter()
         scale, length = _anisotropy(x, Z, slices, settings)
@@ -548,13 +560,10 @@ def fit_tensor(data: TrainingData, log=None):
 
     if data.regular_shape is None:
         raise InputError("tensor-product splines need a regular design; this grid is scattered (use kind rbf).")
-    Y, index, slices = data.output_matrix()
-    arrays = _common_arrays(data, Y, slices)
     shape = tuple(int(s) for s in data.regular_shape)
     if min(shape) < 4:
         raise InputError(f"cubic tensor splines need at least 4 points per axis; the grid has {shape}.")
-    x = (data.theta - arrays["lo"]) / (arrays["hi"] - arrays["lo"])
-    Z = (Y - arrays["out_mean"]) / arrays["out_scale"]
+    index, slices, arrays, x, Z, _ = _prepared(data, warp_inputs=False)
     coef = Z.reshape(*shape, Z.shape[1])
     axes_values = []
     knots = []

@@ -153,61 +153,61 @@ def _trend(xp, m, x, grad):
     return F, dF
 
 
+def _is_numpy(xp) -> bool:
+    return getattr(xp, "__name__", "") == "numpy"
+
+
+def _cached(xp, m, name, source, key, make):
+    """``make()``, kept in ``m[name]`` under ``key`` while ``source`` (one of m's arrays) stays the same object.
+
+    Only under NumPy: under another namespace (e.g. inside jax.jit) a cached
+    array could be a tracer of an earlier call, so ``make()`` runs every time.
+    The identity test on ``source`` guards against a copied dict holding other
+    arrays.
+    """
+    if not _is_numpy(xp):
+        return make()
+    cache = m.get(name)
+    if cache is None or cache[0] is not source:
+        cache = (source, {})
+        m[name] = cache
+    if key not in cache[1]:
+        cache[1][key] = make()
+    return cache[1][key]
+
+
 def _folded_weights(xp, m):
     """The GP weights times each output's kernel amplitude (N, n_out), computed once per model."""
-    # cached for NumPy only: under another namespace (e.g. inside jax.jit) a cached
-    # array could be a tracer of an earlier call
-    numpy_like = getattr(xp, "__name__", "") == "numpy"
-    cached = m.get("_folded_alpha") if numpy_like else None
-    if cached is not None and cached[0] is m["alpha"]:  # the same weights (a copied dict may hold others)
-        return cached[1]
-    gb = [int(v) for v in m["group_bounds"]]
-    amp = xp.concat([xp.full((gb[g + 1] - gb[g],), float(m["amp2"][g]), dtype=m["X"].dtype)
-                     for g in range(len(gb) - 1)])
-    alpha = m["alpha"] * amp
-    if numpy_like:
-        m["_folded_alpha"] = (m["alpha"], alpha)
-    return alpha
+    def make():
+        gb = [int(v) for v in m["group_bounds"]]
+        amp = xp.concat([xp.full((gb[g + 1] - gb[g],), float(m["amp2"][g]), dtype=m["X"].dtype)
+                         for g in range(len(gb) - 1)])
+        return m["alpha"] * amp
+
+    return _cached(xp, m, "_folded_alpha", m["alpha"], None, make)
 
 
 def _weight_block(xp, m, a, b):
     """Columns ``a:b`` of the kernel weights (folded with the amplitude for GPs), contiguous.
 
     A query multiplies kernel rows by a block of output columns; a contiguous
-    copy reads a third of the memory a strided slice does.  Cached for NumPy
-    (see :func:`_folded_weights`).
+    copy reads a third of the memory a strided slice does.  Cached for NumPy.
     """
     alpha = _folded_weights(xp, m) if m["kind"] == "gp" else m["alpha"]
-    numpy_like = getattr(xp, "__name__", "") == "numpy"
-    if not numpy_like:
+    if not _is_numpy(xp):
         return alpha[:, a:b]
-    cache = m.get("_weight_blocks")
-    if cache is None or cache[0] is not alpha:
-        cache = (alpha, {})
-        m["_weight_blocks"] = cache
-    block = cache[1].get((a, b))
-    if block is None:
-        block = alpha[:, a:b] * 1.0  # a C-ordered copy, the same numbers (NumPy 1 lacks asarray(copy=))
-        cache[1][(a, b)] = block
-    return block
+    # * 1.0: a C-ordered copy, the same numbers (NumPy 1 lacks asarray(copy=))
+    return _cached(xp, m, "_weight_blocks", alpha, (a, b), lambda: alpha[:, a:b] * 1.0)
 
 
 def _scaled_points(xp, m, groups, inv):
     """Training points scaled by sqrt5 / l of each kernel, transposed (G, d, N), and their squared norms
     (G, 1, N); cached for NumPy per set of kernels."""
-    numpy_like = getattr(xp, "__name__", "") == "numpy"
-    key = tuple(groups)
-    cache = m.get("_scaled_points") if numpy_like else None
-    if cache is not None and cache[0] is m["X"] and key in cache[1]:
-        return cache[1][key]
-    b = m["X"][None, :, :] * (SQRT5 * inv)[:, None, :]  # (G, N, d)
-    out = (xp.permute_dims(b, (0, 2, 1)) * 1.0, xp.sum(b * b, axis=-1)[:, None, :])  # * 1.0: a C-ordered copy
-    if numpy_like:
-        if cache is None or cache[0] is not m["X"]:
-            cache = (m["X"], {})
-            m["_scaled_points"] = cache
-        cache[1][key] = out
-    return out
+    def make():
+        b = m["X"][None, :, :] * (SQRT5 * inv)[:, None, :]  # (G, N, d)
+        return xp.permute_dims(b, (0, 2, 1)) * 1.0, xp.sum(b * b, axis=-1)[:, None, :]  # * 1.0: C-ordered
+
+    return _cached(xp, m, "_scaled_points", m["X"], tuple(groups), make)
 
 
 def _matern(xp, x, m, groups, grad, diffs=None):
@@ -367,6 +367,11 @@ def _bmm(xp, a, b):
     return xp.matmul(a, b)
 
 
+def _touches(a, b, columns):
+    """True if the output range ``a:b`` overlaps any of the ranges ``columns``."""
+    return any(c0 < b and a < c1 for c0, c1 in columns)
+
+
 def standardised_outputs(xp, m, x, grad=False, columns=None):
     """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d).
 
@@ -383,7 +388,7 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
         groups = None
         if kind == "gp" and columns is not None:
             gb = [int(v) for v in m["group_bounds"]]
-            groups = [g for g in range(len(gb) - 1) if any(a < gb[g + 1] and gb[g] < b for a, b in columns)]
+            groups = [g for g in range(len(gb) - 1) if _touches(gb[g], gb[g + 1], columns)]
         # rows per chunk from the training points alone, not from how many kernel groups a
         # query reads: every group then sees the same rows, so a query that skips groups gives
         # the same bits as a full evaluation
@@ -412,7 +417,7 @@ def _rbf_blocks(m, columns):
     blocks = [(0, int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
     if columns is None:
         return blocks
-    return [(a, b) for a, b in blocks if any(c0 < b and a < c1 for c0, c1 in columns)]
+    return [(a, b) for a, b in blocks if _touches(a, b, columns)]
 
 
 def _rbf_part(xp, m, phi, dphi, spans):
@@ -508,7 +513,7 @@ def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None, skip_nearest=0):
     sd_of_kernel = {}
     for g in range(m["length"].shape[0]):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
-        if columns is not None and not any(c0 < b and a < c1 for c0, c1 in columns):
+        if columns is not None and not _touches(a, b, columns):
             parts.append(xp.full((x.shape[0], b - a), float("nan"), dtype=x.dtype))
             continue
         kg = int(share[g]) if share is not None else g
@@ -675,20 +680,13 @@ def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
 
 def _curve_weights(xp, m, u):
     """Spline weights (n_u, q) of the node values at the points ``u`` (q,); cached for NumPy."""
-    numpy_like = getattr(xp, "__name__", "") == "numpy"
-    key = u.tobytes() if numpy_like else None  # exactly these points
-    cache = m.get("_curve_weights") if numpy_like else None
-    if cache is not None and cache[0] is m["u_nodes"] and key in cache[1]:
-        return cache[1][key]
-    n_u = m["u_nodes"].shape[0]
-    eye = xp.eye(n_u, dtype=u.dtype)
-    W = spline_in_u(xp, m, eye, xp.broadcast_to(u[None, :], (n_u, u.shape[0])), weights=False)[0]
-    if numpy_like:
-        if cache is None or cache[0] is not m["u_nodes"]:
-            cache = (m["u_nodes"], {})
-            m["_curve_weights"] = cache
-        cache[1][key] = W
-    return W
+    def make():
+        n_u = m["u_nodes"].shape[0]
+        eye = xp.eye(n_u, dtype=u.dtype)
+        return spline_in_u(xp, m, eye, xp.broadcast_to(u[None, :], (n_u, u.shape[0])), weights=False)[0]
+
+    key = u.tobytes() if _is_numpy(xp) else None  # exactly these points
+    return _cached(xp, m, "_curve_weights", m["u_nodes"], key, make)
 
 
 def branch_curve(xp, m, y, s):
