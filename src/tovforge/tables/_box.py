@@ -278,8 +278,6 @@ _GRID_SCALARS = {
     "causality_margin": "causality_margin",
     "mass_max_margin": "mass_max_margin_msun",
 }
-# per-mass quantity -> dataset of the grid's at_mass group (named as the model's fields)
-_GRID_AT_MASS = AT_MASS_FIELDS
 
 
 def _one_point_box(v: float) -> tuple[float, float]:
@@ -301,7 +299,7 @@ def grid_spec_for(plan: BoxPlan, family: str, quantities, masses, mass_floor_msu
     for name, v in plan.fixed.items():
         counts[name] = 1
         box[name] = list(_one_point_box(v))
-    at_mass = [_GRID_AT_MASS[q] for q in quantities if QUANTITIES[q].per_mass]
+    at_mass = [AT_MASS_FIELDS[q] for q in quantities if QUANTITIES[q].per_mass]
     n = plan.n_rows
     raw = {
         "description": f"exact box table of {family} ({n} points)",
@@ -407,7 +405,7 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
         grid_masses = [float(m) for m in h5["at_mass/masses_msun"][...]] if "at_mass/masses_msun" in h5 else []
         for q in quantities:
             if QUANTITIES[q].per_mass:
-                data = h5["at_mass"][_GRID_AT_MASS[q]][...][perm]
+                data = h5["at_mass"][AT_MASS_FIELDS[q]][...][perm]
                 for m in masses:
                     values[f"{q}@{mass_label(m)}"] = data[:, grid_masses.index(m)]
             else:
