@@ -17,7 +17,8 @@ def _run(fn):
 def train_cmd(
     grid: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)],
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
-    kind: Annotated[str, typer.Option("--kind", help="gp (Gaussian process) or spline.")] = "gp",
+    kind: Annotated[str, typer.Option("--kind", help="gp (Gaussian process) or spline (tensor splines on a "
+                                                     "regular grid, r^5 RBF otherwise).")] = "gp",
     subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 512,
     restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 1,
     curve_groups: Annotated[
@@ -41,20 +42,20 @@ def train_cmd(
     from . import GPSettings, SplineSettings, train
 
     def work():
-        settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
-                              share_curve_kernels=share_kernels, warp_inputs=warp)
-        spline = SplineSettings(warp_inputs=warp, anisotropic=not isotropic)
+        settings = {"gp": GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
+                                     share_curve_kernels=share_kernels, warp_inputs=warp),
+                    "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic)}.get(kind)
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="GP kernel")  # printed below, once, without a traceback
-            model = train(grid, kind, settings, log=typer.echo, spline_settings=spline)
+            model = train(grid, kind, settings, log=typer.echo)
         model.save(out)
         return model
 
     model = _run(work)
-    for msg in model.meta["training"].get("gp", {}).get("degenerate_kernels", []):
+    for msg in getattr(model.meta.fit, "degenerate_kernels", ()):
         typer.echo(f"WARNING: GP {msg}", err=True)
-    typer.echo(f"trained {model.kind} on {model.meta['training']['n_train']} points in "
-               f"{model.meta['training']['seconds']:.1f} s; saved to {out}")
+    label = model.kind if model.method == model.kind else f"{model.kind} ({model.method})"
+    typer.echo(f"trained {label} on {model.n_train} points in {model.meta.training.seconds:.1f} s; saved to {out}")
 
 
 def check_cmd(
@@ -65,8 +66,7 @@ def check_cmd(
     ] = None,
 ):
     """Compare a surrogate with held-out exact solves; print the error table."""
-    from . import load
-    from ._check import check
+    from . import check, load
 
     res = _run(lambda: check(load(model), holdout, report))
     typer.echo(res.table())
@@ -98,5 +98,5 @@ def refine_cmd(
     if res.learning_curve:
         typer.echo(f"{'training points':>16}{'M_max p95 [Msun]':>18}{'R p95 [m]':>11}{'Lambda p95':>12}")
         for row in res.learning_curve:
-            typer.echo(f"{row['n_train']:>16}{row['mass_max_p95']:>18.4g}{row['radius_p95_km'] * 1000:>11.2f}"
-                       f"{row['lambda_rel_p95']:>12.3%}")
+            typer.echo(f"{row.n_train:>16}{row.mass_max_p95:>18.4g}{row.radius_p95_km * 1000:>11.2f}"
+                       f"{row.lambda_rel_p95:>12.3%}")
