@@ -75,9 +75,9 @@ def _report(report, model) -> dict | None:
     got, tr = rep.model, model.meta.training
     want = {"kind": model.kind, "method": model.method, "n_train": tr.n_train,
             "training_grid_sha256": tr.grid_content_sha256}
+    if not got.method:  # a report from before the table of kinds: its "kind" named the method
+        want["kind"] = want.pop("method")
     for k, v in want.items():
-        if k == "method" and not got.method:
-            continue  # reports of version 1 name only the kind
         if getattr(got, k) != v:
             raise ExportError(f"the report was made for another model: its {k} is {text(getattr(got, k))!r}, "
                               f"the model's is {text(v)!r}.")
