@@ -25,7 +25,7 @@ from ..surrogate import Prediction
 __all__ = ["ExportError", "MARKER", "render", "header", "constants", "source", "text", "identifier", "plain",
            "literal", "is_identifier", "OUTPUT_UNITS", "SELF_CHECK_POINTS"]
 
-#: The line in ``_runtime.py``-adjacent modules below which their code is copied into exported files.
+#: The line of surrogate/_contract.py and export/_evaluator.py below which their code is copied into exported files.
 MARKER = "# ---- the exported code starts below this line ----\n"
 _IDENTIFIER = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
 #: Points of the self-check and namespace runs (named in the header).

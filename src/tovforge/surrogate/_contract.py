@@ -20,8 +20,9 @@ containers, defaults or return types.  The contract is written down in
 - NaN outside the box, above M_max and below the lowest emulated mass;
   ``strict=True`` raises :class:`QueryError` (a ``ValueError``) instead.
 
-Like the runtime, the code imports only ``dataclasses`` and ``math`` besides
-the runtime's names, and works on any array-API namespace ``xp``.
+Like the runtime, the code imports only the standard library's
+``dataclasses`` besides the runtime's names, and works on any array-API
+namespace ``xp``.
 """
 
 import dataclasses

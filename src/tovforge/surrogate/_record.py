@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import dataclasses
-import math
 
 import numpy as np
 
@@ -33,7 +32,9 @@ def plain(obj):
         return [plain(v) for v in obj]
     if isinstance(obj, np.ndarray):
         return plain(obj.tolist())
-    if isinstance(obj, (np.integer,)):
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, np.integer):
         return int(obj)
     if isinstance(obj, (np.floating, float)):
         return float(obj)
@@ -75,7 +76,3 @@ class Record:
             kw[f.name] = v
         return cls(**kw)
 
-
-def finite_or_none(v):
-    """A float for JSON: NaN and infinities become None."""
-    return float(v) if v is not None and math.isfinite(v) else None

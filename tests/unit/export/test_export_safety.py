@@ -156,7 +156,7 @@ def test_metadata_strings_are_written_inertly(nasty, models, tmp_path):
 def _report_for(model, name):
     stats = {k: 0.001 for k in ("abs_median", "abs_p95", "abs_max", "rel_median", "rel_p95", "rel_max")}
     return {"format": "tovforge-check", "created_utc": "2026-01-01T00:00:00+00:00", "tovforge_version": name,
-            "model": {"kind": model.kind, "n_train": model.n_train,
+            "model": {"kind": model.kind, "method": model.method, "n_train": model.n_train,
                       "training_grid_sha256": model.meta.training.grid_content_sha256},
             "holdout": {"path": name, "content_sha256": name, "n_points": 1, "n_used": 1,
                         "n_star_comparisons": 1, "mass_rule": name},
