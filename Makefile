@@ -55,7 +55,7 @@ $(MODELS)/%/check/report.json: $(MODELS)/%/model.json grids/demo-holdout.h5
 	$(BIN)/tovforge check $(MODELS)/$* --holdout grids/demo-holdout.h5 --report $(MODELS)/$*/check
 
 exported/demo_%.py: $(MODELS)/%/model.json $(MODELS)/%/check/report.json src/tovforge/surrogate/_runtime.py \
-		src/tovforge/export/_evaluator.py src/tovforge/export/_codegen.py
+		src/tovforge/surrogate/_contract.py src/tovforge/export/_evaluator.py src/tovforge/export/_render.py
 	$(BIN)/tovforge export $(MODELS)/$* --out $@ --report $(MODELS)/$*/check/report.json
 
 clean:
