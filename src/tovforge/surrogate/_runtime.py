@@ -212,8 +212,6 @@ def input_span(xp, m, theta):
     return span if scale is None else span / scale
 
 
-
-
 def trend_plan(powers):
     """How :func:`trend_terms` gathers the factors of each term: ``(top power, flat indices)`` (plain Python)."""
     n_terms, d = powers.shape
@@ -680,8 +678,6 @@ def spline_in_u(xp, m, values, u, weights=True):
     ok = (u >= 0.0) & (u <= un[-1])
     nan = float("nan")
     return xp.where(ok, val, nan), xp.where(ok, der, nan), w
-
-
 
 
 # ---------------------------------------------------------------------------
