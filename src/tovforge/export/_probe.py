@@ -28,8 +28,8 @@ __all__ = ["probe", "main"]
 def _namespace(which: str):
     """``(to the namespace, back to NumPy, its array type, label)``; ImportError if not installed."""
     if which == "torch":
+        import torch  # first: a missing torch is what users need to hear about
         import array_api_compat
-        import torch
 
         return (torch.asarray, lambda a: a.detach().numpy(), torch.Tensor,
                 f"PyTorch {torch.__version__} via array-api-compat {array_api_compat.__version__}")
