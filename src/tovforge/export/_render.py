@@ -188,13 +188,20 @@ def header(model, check, info: dict, namespaces: dict) -> str:
         lines.append(f"    {n:<{w}}  [{float(lo):g}, {float(hi):g}]  {text(u)}")
     u_nodes = meta.outputs.u_nodes
     umax = float(u_nodes[-1])
+    lines += ["", "Outputs (tovforge's registry of quantities: name, unit, meaning; predict() returns them all):"]
+    emulated = meta.outputs.scalars + meta.outputs.curves
+    wq = max(len(o.quantity) for o in emulated)
+    wu = max(len(o.unit) for o in emulated)
+    for o in emulated:
+        how = "" if o.transform == "identity" else f" (emulated as {o.transform})"
+        lines.append(f"    {text(o.quantity):<{wq}}  {text(o.unit):<{wu}}  "
+                     f"{text(quantities.get(o.quantity).description)}{how}")
     lines += [
-        "",
-        "Outputs: M_max, the central pressure and the largest c_s^2 at M_max, and R, Lambda, I along the stable",
-        "branch (the connected branch up to the first maximum of M), emulated at "
-        f"{len(u_nodes)} nodes of u = sqrt(1 - M/M_max)",
-        f"in [0, {umax:g}], i.e. from {1 - umax ** 2:.4g} M_max up to M_max; a query at a mass goes through u",
-        "and a cubic spline in it.  Above M_max, below the lowest emulated mass, or outside the box: NaN.",
+        f"The first {len(meta.outputs.scalars)} are one value per EOS; the others are emulated along the stable branch (the",
+        f"connected branch up to the first maximum of M) at {len(u_nodes)} nodes of u = sqrt(1 - M/M_max) in "
+        f"[0, {umax:g}],",
+        f"i.e. from {1 - umax ** 2:.4g} M_max up to M_max; the queries at a mass ({', '.join(model.star_queries)})",
+        "go through u and a cubic spline in it.  Above M_max, below the lowest emulated mass, or outside the box: NaN.",
         f"mass_max_margin_msun is M_max minus the floor {meta.outputs.mass_floor_msun:g} Msun "
         "of the training grid; causality_margin is 1 - max c_s^2.",
         "",

@@ -168,3 +168,9 @@ def test_units_of_the_exported_outputs_come_from_the_registry(exported):
     assert mod.OUTPUT_UNITS["central_pressure_at_mass_max_dyn_cm2"] == "dyn/cm^2"
     assert mod.OUTPUT_UNITS["moment_of_inertia_1e45_g_cm2"] == quantities.get("moment_of_inertia").unit
     assert mod.OUTPUTS == tuple(f for f in Prediction.__dataclass_fields__ if f != "std")
+    # the header lists every emulated quantity with its registry unit and meaning, and how it was modelled
+    sequence, star = emulated_outputs()
+    for q in sequence + star:
+        line = next(x for x in mod.__doc__.splitlines() if x.split()[:1] == [q.name])
+        assert q.unit in line and q.description in line
+        assert (f"(emulated as {q.transform})" in line) == (q.transform != "identity")
