@@ -67,7 +67,7 @@ def test_sequence_csv_header_carries_units(tmp_path):
     assert res.exit_code == 0, res.output
     assert "no stable star at 3 Msun" in res.stdout
     header = [ln for ln in out.read_text().splitlines() if not ln.startswith("#")][0]
-    assert header.startswith("target_mass [Msun],mass [Msun],radius [km],compactness [1],k2 [1],lambda [1],"
+    assert header.startswith("target_mass [Msun],mass [Msun],radius [km],compactness [1],lambda [1],k2 [1],"
                              "inertia [1e45 g cm^2],inertia_over_m3 [1],baryon_mass [Msun],"
                              "central_pressure [dyn/cm^2],")
 
