@@ -130,6 +130,11 @@ def _moment_of_inertia_over_m3(v):
     return (v["moment_of_inertia_1e45_g_cm2"] / MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2) / (v["mass_msun"] * MSUN_KM) ** 3
 
 
+def _binding_energy(v):
+    # gravitational binding energy (M_b - M) c^2, in Msun c^2
+    return v["baryon_mass_msun"] - v["mass_msun"]
+
+
 def _causality_margin(v):
     return 1.0 - v["max_sound_speed_sq"]
 
@@ -159,6 +164,9 @@ QUANTITIES: dict[str, Quantity] = {q.name: q for q in (
              "{:.6g}", needs=("moment_of_inertia_1e45_g_cm2", "mass_msun"), derive=_moment_of_inertia_over_m3),
     Quantity("baryon_mass_msun", "Msun", "baryon (rest) mass", _STAR, "M_b", "baryon_mass", "{:.6f}",
              stored=("curve", "at_mass"), default=("curve",)),
+    Quantity("binding_energy_msun", "Msun", "gravitational binding energy (M_b - M) c^2", _STAR, "E_b",
+             "binding_energy", "{:.6f}", stored=("curve", "at_mass"), needs=("baryon_mass_msun", "mass_msun"),
+             derive=_binding_energy),
     Quantity("central_pressure_dyn_cm2", "dyn/cm^2", "central pressure", _STAR, "p_c", "central_pressure",
              "{:.6e}"),
     Quantity("central_energy_density_g_cm3", "g/cm^3", "central energy density divided by c^2", _STAR,
