@@ -227,7 +227,8 @@ def solve_cmd(
 
     eos_obj, seq, prof = _run(work)
     if table is not None:
-        _run(lambda: tables.star_table(table, seq.branch, tables.sequence_meta(seq, solve.SequenceSettings(), "branch")))
+        meta = tables.sequence_meta(seq, solve.SequenceSettings(), "branch")
+        _run(lambda: tables.star_table(table, seq.branch, meta))
     if as_json:
         out = tables.sequence_json(seq)
         if prof is not None:

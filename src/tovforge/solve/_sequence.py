@@ -100,7 +100,7 @@ class SequenceBatch:
             return self.mass_max.value(q.of_maximum)
         if q.derive is not None:
             return q.derive({k: self.value(k) for k in q.needs})
-        if q.name in ("max_sound_speed_sq", "twin_mass_max_msun"):
+        if q.name in self.__dataclass_fields__:  # max_sound_speed_sq, twin_mass_max_msun
             return getattr(self, q.name)
         raise KeyError(f"{name!r} is not computed by the solver")
 

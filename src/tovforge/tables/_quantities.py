@@ -17,6 +17,7 @@ from datetime import datetime, timezone
 import numpy as np
 
 from .. import __version__
+from .. import quantities as registry  # functions here take a `quantities` argument (table column names)
 from ..errors import InputError
 from ._write import Column
 
@@ -56,11 +57,9 @@ _SCALARS = ("mass_max_msun", "radius_at_mass_max_km", "central_pressure_at_mass_
 
 
 def _table_quantities() -> dict:
-    from .. import quantities
-
-    scalars = [quantities.get(n) for n in _SCALARS]
+    scalars = [registry.get(n) for n in _SCALARS]
     # per mass: every star quantity a model answers at given masses (its ``query``)
-    per_mass = [q for q in quantities.queries() if q.level == "star"]
+    per_mass = [q for q in registry.queries() if q.level == "star"]
     return {q.column: Quantity(q.column, q.unit, q.description, q.level == "star", q.name)
             for q in (*scalars, *per_mass)}
 
