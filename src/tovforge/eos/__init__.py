@@ -18,6 +18,7 @@ from ._base import EOS, EOSFamily, EOSPoint, Parameter, families, get_family, re
 from ._core_tables import SoundSpeed, Spectral
 from ._piecewise import PiecewisePolytrope, Polytrope
 from ._tabulated import Tabulated, read_table
+from ._transition import Transition, seidov_limit
 from ._uniform import UniformDensity
 
 __all__ = [
@@ -34,8 +35,10 @@ __all__ = [
     "Spectral",
     "SoundSpeed",
     "Tabulated",
+    "Transition",
     "UniformDensity",
     "read_table",
+    "seidov_limit",
 ]
 
 
