@@ -17,7 +17,8 @@ separated).  Rows must be positive, the energy density (and rest-mass
 density) increasing strictly and the pressure never decreasing.  Two rows of
 equal pressure are a first-order phase transition (a Maxwell construction):
 ``e`` jumps from the first to the second (more rows of one pressure are merged
-into their first and last).  The first row is the stellar surface (``h = 0``);
+into their first and last); a row written twice (equal ``p`` and ``e``) is a
+break without a jump, where the sound speed may be discontinuous.  The first row is the stellar surface (``h = 0``);
 a warning says so when its pressure is far from zero.
 
 Between rows, ``ln e`` is a monotone cubic (PCHIP) function of ``ln p``; the
@@ -111,7 +112,8 @@ class TableData:
     jump_rows : ndarray of int
         Rows ``k`` whose pressure equals that of row ``k + 1``: a first-order
         phase transition from ``e[k]`` to ``e[k + 1]`` (more than two rows of one
-        pressure are merged into their first and last).
+        pressure are merged into their first and last; ``e[k] = e[k + 1]`` is a
+        break without a jump).
     line_numbers : list of int
         Line of the file of each row.
     """
@@ -141,9 +143,9 @@ class TableBatch(HermiteTable):
         return TableBatch(sub.h_nodes, sub.coef, sub.kink_h, sub.e_surface_, sub.jump_h, self.row_pressure,
                           self.row_energy_density)
 
-    def with_rows(self, p_cgs, e_cgs) -> "TableBatch":
-        return replace(self, row_pressure=np.asarray(p_cgs) * PRESSURE_CGS_TO_GEOM,
-                       row_energy_density=np.asarray(e_cgs) * DENSITY_CGS_TO_GEOM)
+    def with_rows(self, p, e) -> "TableBatch":
+        """The same table keeping the rows ``p``, ``e`` (geometrised, km^-2)."""
+        return replace(self, row_pressure=np.asarray(p, float), row_energy_density=np.asarray(e, float))
 
     def row_sound_speed_sq(self, p_upper: float) -> float:
         """Largest secant ``dp/de`` between consecutive rows of one phase up to ``p_upper`` (km^-2)."""
@@ -284,11 +286,12 @@ def _checked_rows(cols: dict, linenos: list[int], path) -> TableData:
     for j in range(1, n):  # rows of a file: a Python loop outside any hot path
         if p[j] < p[j - 1]:
             fail(j, f"pressure must not decrease from row to row ({p[j - 1]:.6g} then {p[j]:.6g} dyn/cm^2).")
-        if not e[j] > e[j - 1]:
-            what = ("energy_density must rise across a phase transition (rows of equal pressure), i.e. a "
-                    "positive jump" if p[j] == p[j - 1] else "energy_density must increase strictly from row to row")
+        split = p[j] == p[j - 1]  # a phase transition, or (e repeated too) a declared break without a jump
+        if e[j] < e[j - 1] or (e[j] == e[j - 1] and not split):
+            what = ("energy_density must not fall across a phase transition (rows of equal pressure): the jump "
+                    "must be positive" if split else "energy_density must increase strictly from row to row")
             fail(j, f"{what} ({e[j - 1]:.6g} then {e[j]:.6g} g/cm^3).")
-        if rho is not None and not rho[j] > rho[j - 1]:
+        if rho is not None and (rho[j] < rho[j - 1] or (rho[j] == rho[j - 1] and e[j] > e[j - 1])):
             fail(j, f"rest_mass_density must increase strictly from row to row ({rho[j - 1]:.6g} then "
                     f"{rho[j]:.6g} g/cm^3).")
     same = np.flatnonzero(p[1:] == p[:-1])  # row j and j + 1 share a pressure
@@ -313,7 +316,7 @@ def _checked_rows(cols: dict, linenos: list[int], path) -> TableData:
 #: integration grid (see :func:`table_batch`).
 KINK_CURVATURE_JUMP = 1e-3
 #: At most this many such rows (the largest jumps) become nodes.
-MAX_TABLE_KINKS = 64
+MAX_TABLE_KINKS = 96
 
 
 def _smooth_between(P, x, y, breaks):
