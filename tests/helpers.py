@@ -31,25 +31,6 @@ def valid_box_points(family: str, n: int, seed: int) -> np.ndarray:
     return np.array(rows[:n])
 
 
-def table_rows_of(E, n: int, rho_lo: float = 1.0, rho_hi: float = 1e16):
-    """``n`` exact EOS points of ``E`` log-spaced in rest-mass density (g/cm^3), as an EOSPoint.
-
-    The positions come from interpolating a fine sample in ``ln h``; the values are
-    evaluated exactly at those positions.
-    """
-    h_max = min(E.h_max * 0.999, 3.0)
-    hf = np.geomspace(1e-12, h_max, 200001)
-    rf = E.evaluate(hf).rest_mass_density_g_cm3
-    target = np.geomspace(rho_lo, min(rho_hi, rf[-1]), n)
-    return E.evaluate(np.exp(np.interp(np.log(target), np.log(rf), np.log(hf))))
-
-
-def write_eos_table(path, columns, rest_mass: bool = True):
-    """Write EOS rows (an EOSPoint, or a tuple p, e[, rho] in cgs) as a table file with a header."""
-    if hasattr(columns, "pressure_dyn_cm2"):
-        columns = (columns.pressure_dyn_cm2, columns.energy_density_g_cm3, columns.rest_mass_density_g_cm3)
-    cols = list(columns[:3] if rest_mass else columns[:2])
-    head = "# pressure[dyn/cm^2], energy_density[g/cm^3]" + (", rest_mass_density[g/cm^3]" if rest_mass else "")
-    lines = [head] + [", ".join(f"{v:.17e}" for v in row) for row in zip(*cols)]
-    path.write_text("\n".join(lines) + "\n")
-    return path
+# EOS rows written as table files (library helpers, re-exported for the tests)
+from tovforge.eos._tabulated import table_rows as table_rows_of  # noqa: E402
+from tovforge.eos._tabulated import write_table as write_eos_table  # noqa: E402

@@ -43,7 +43,7 @@ from ..units import C_CGS, DENSITY_CGS_TO_GEOM, MEV_FM3_TO_DYN_CM2, MEV_FM3_TO_G
 from ._base import EOS, EOSFamily, register_family
 from ._batch import HermiteTable
 
-__all__ = ["Tabulated", "read_table", "table_batch", "TableData", "TableBatch", "ATOMIC_MASS_UNIT_G",
+__all__ = ["Tabulated", "read_table", "table_batch", "table_rows", "write_table", "TableData", "TableBatch", "ATOMIC_MASS_UNIT_G",
            "KINK_CURVATURE_JUMP", "MAX_TABLE_KINKS", "SURFACE_PRESSURE_RATIO"]
 
 #: Atomic mass unit in g (CODATA 2018), used to turn a baryon number density
@@ -479,6 +479,36 @@ def _warn_surface(data: TableData) -> None:
             "of a crust down to about 1e4 g/cm^3 for exact radii.",
             stacklevel=3,
         )
+
+
+def table_rows(eos_obj, n_rows: int, rho_lo_g_cm3: float = 1.0, rho_hi_g_cm3: float = 1e16):
+    """``n_rows`` exact points of an EOS, log-spaced in rest-mass density.
+
+    The positions come from interpolating a fine sample in ``ln h`` (up to the
+    EOS's largest enthalpy, or ``h = 3``); the values are evaluated exactly at
+    those positions.  Returns an :class:`~tovforge.eos.EOSPoint` (cgs).
+    """
+    h_max = min(eos_obj.h_max * 0.999, 3.0)
+    hf = np.geomspace(1e-12, h_max, 200001)
+    rf = eos_obj.evaluate(hf).rest_mass_density_g_cm3
+    target = np.geomspace(rho_lo_g_cm3, min(rho_hi_g_cm3, rf[-1]), int(n_rows))
+    return eos_obj.evaluate(np.exp(np.interp(np.log(target), np.log(rf), np.log(hf))))
+
+
+def write_table(path, columns, rest_mass: bool = True):
+    """Write EOS rows as a table file this module reads (header with units, 17 digits).
+
+    ``columns`` is an :class:`~tovforge.eos.EOSPoint` or a tuple ``(p, e[, rho])`` in
+    dyn/cm^2 and g/cm^3.  Returns ``path``.
+    """
+    path = Path(path)
+    if hasattr(columns, "pressure_dyn_cm2"):
+        columns = (columns.pressure_dyn_cm2, columns.energy_density_g_cm3, columns.rest_mass_density_g_cm3)
+    cols = list(columns[:3] if rest_mass else columns[:2])
+    head = "# pressure[dyn/cm^2], energy_density[g/cm^3]" + (", rest_mass_density[g/cm^3]" if rest_mass else "")
+    lines = [head] + [", ".join(f"{v:.17e}" for v in row) for row in zip(*cols)]
+    path.write_text("\n".join(lines) + "\n")
+    return path
 
 
 class Tabulated(EOSFamily):

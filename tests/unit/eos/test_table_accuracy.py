@@ -86,7 +86,7 @@ def _transition_rows(E, n):
     lanes = b.lanes(np.zeros(1, dtype=np.intp))
     p_t, e_t, rho_t, _ = (x[0] for x in lanes.eval(np.array([h_t]), np.array([h_t * (1.0 - 1e-12)])))
     base = eos.make("piecewise-polytrope", **READ2009["SLy"])
-    lo = table_rows_of(base, n, rho_hi=rho_t / DENSITY_CGS_TO_GEOM * (1.0 - 1e-3))
+    lo = table_rows_of(base, n, rho_hi_g_cm3=rho_t / DENSITY_CGS_TO_GEOM * (1.0 - 1e-3))
     up = E.evaluate(h_t + np.concatenate([[0.0], np.geomspace(1e-6, 1.5, n)]))
     p = np.concatenate([lo.pressure_dyn_cm2, [p_t / PRESSURE_CGS_TO_GEOM], up.pressure_dyn_cm2])
     e = np.concatenate([lo.energy_density_g_cm3, [e_t / DENSITY_CGS_TO_GEOM], up.energy_density_g_cm3])
@@ -132,7 +132,7 @@ def test_a_table_split_at_a_row_without_a_jump_gives_the_same_stars(tmp_path, di
 
 def test_first_row_far_from_zero_pressure_warns(tmp_path, direct):
     E, _ = direct["piecewise-polytrope"]
-    path = write_eos_table(tmp_path / "core.csv", table_rows_of(E, 400, rho_lo=1e14))
+    path = write_eos_table(tmp_path / "core.csv", table_rows_of(E, 400, rho_lo_g_cm3=1e14))
     with pytest.warns(UserWarning, match=r"core\.csv:2: the first row .* taken as the stellar surface"):
         eos.make("table", path=str(path))
     fine = write_eos_table(tmp_path / "full.csv", table_rows_of(E, 400))
