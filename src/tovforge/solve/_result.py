@@ -164,6 +164,9 @@ class StarSequence:
         Exact solves at the requested masses (NaN above M_max).
     nfev : int
         Right-hand-side evaluations (each over all stars of a pass).
+    error_estimate : BranchError or None
+        Estimated relative integration error of each branch star (step
+        doubling; computed for tabulated EOS, or on request).
     """
 
     family: str
@@ -175,6 +178,7 @@ class StarSequence:
     at_mass: Stars | None = None
     nfev: int = 0
     eos: object = field(default=None, repr=False, compare=False)
+    error_estimate: object = field(default=None, repr=False, compare=False)
 
     @property
     def success(self) -> bool:

@@ -183,7 +183,8 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     return SequenceBatch(status, branch, mass_max, cs2max, seq.twin_mass_max_msun, at_mass, nfev + query.nfev, at_u)
 
 
-def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSettings | None = None) -> StarSequence:
+def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSettings | None = None,
+                   error_estimate: bool | None = None) -> StarSequence:
     """Solve the stable branch of one EOS.
 
     Parameters
@@ -199,6 +200,10 @@ def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSetti
         Gravitational masses (Msun) at which to solve exactly.  Masses above
         the maximum give NaN and a warning.
     settings : SequenceSettings, optional
+    error_estimate : bool, optional
+        Estimate the integration error of every branch star by step doubling
+        (``StarSequence.error_estimate``; a warning when it exceeds the stated
+        tolerance).  Default: for tabulated EOS only.
 
     Returns
     -------
@@ -212,8 +217,11 @@ def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSetti
     >>> round(seq.mass_max.mass_msun, 2)
     2.05
     """
+    from ._accuracy import checked_sequence
+
+    settings = settings or SequenceSettings()
     res = solve_sequences(eos.batch, n_stars=n_stars, masses=masses, settings=settings)
-    return _sequence_from_batch(eos, res, 0, masses)
+    return checked_sequence(_sequence_from_batch(eos, res, 0, masses), settings.steps, error_estimate)
 
 
 def _sequence_from_batch(eos, res: SequenceBatch, r: int, masses) -> StarSequence:
