@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import logging
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -18,6 +19,8 @@ from ._model import Surrogate
 from ._train import train_on
 
 __all__ = ["refine", "RefineResult", "select_points"]
+
+logger = logging.getLogger(__name__)
 
 #: Scales that make the predictive sigmas of different outputs comparable: the
 #: accuracy goals (M_max 0.002 Msun, R 10 m, ln Lambda 0.005).
@@ -77,7 +80,7 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
     if model.kind != "gp":
         raise InputError(f"grid refine needs a Gaussian-process model (its sigma); this model is {model.kind}.")
     if budget < 1:
-        raise InputError(f"--budget must be at least 1. Got {budget}.")
+        raise InputError(f"budget must be at least 1 exact solve. Got {budget}.")
     fam = eos.get_family(model.family)
     lo, hi = model.arrays["lo"], model.arrays["hi"]
     cand = qmc.scale(qmc.Sobol(len(lo), seed=seed).random(n_candidates), lo, hi)
@@ -133,7 +136,7 @@ def _p95_row(model, holdout):
 
 
 def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None, log=None) -> RefineResult:
+           workers=None) -> RefineResult:
     """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
 
     Parameters
@@ -172,8 +175,7 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     g = read_grid(grid_path)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
-    if log:
-        log(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
+    logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
     result = _solve_points(spec, added, workers)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -194,9 +196,8 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     stored = tr.get("gp", {})
     names = {f.name for f in dataclasses.fields(GPSettings)} - {"n_jobs"}
     settings = GPSettings(**{k: stored[k] for k in names if k in stored})
-    if log:
-        log(f"retraining on {len(data.theta)} points")
-    new_model = train_on(data, "gp", settings, log=log)
+    logger.info(f"retraining on {len(data.theta)} points")
+    new_model = train_on(data, "gp", settings)
     new_model.meta["training"]["refinement_grids"] = list(tr.get("refinement_grids", [])) + [str(points_path)]
     curve = list(model.meta.get("learning_curve", []))
     if holdout is not None:

@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._progress import progress_bar
 from ..errors import InputError
 from ._quantities import (AT_MASS_FIELDS, QUANTITIES, mass_label, model_values, parameter_columns, provenance,
                           quantity_columns)
@@ -167,12 +168,6 @@ def plan_box(names, units, axes, fixed, allowed=None, where: str = "") -> BoxPla
     return BoxPlan(names, tuple(units), tuple(axes), {k: float(v) for k, v in fixed.items()})
 
 
-def _progress(total: int, label: str, enabled: bool, stream=None):
-    from ..grid import Progress  # the grid's progress bar, so both look alike
-
-    return Progress(total, 0, label, stream=stream, enabled=enabled)
-
-
 def _check_masses(quantities, masses) -> tuple:
     masses = tuple(float(m) for m in (masses or ()))
     if any(QUANTITIES[q].per_mass for q in quantities):
@@ -250,7 +245,7 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
                       quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)),
                       mass_floor_msun=float(model.meta["outputs"]["mass_floor_msun"]), sigma=sigma, **plan.meta())
     n = plan.n_rows
-    bar = _progress(n, Path(out).name, progress, stream)
+    bar = progress_bar(n, Path(out).name, unit="rows", enabled=progress, stream=stream)
     try:
         with TableWriter(out, columns, meta) as w:
             for start in range(0, n, chunk_rows):

@@ -9,14 +9,12 @@ after each value column.
 
 from __future__ import annotations
 
-import platform
 import sys
 from dataclasses import dataclass
-from datetime import datetime, timezone
 
 import numpy as np
 
-from .. import __version__
+from .. import _provenance
 from ..errors import InputError
 from ._write import Column
 
@@ -176,11 +174,4 @@ def provenance(command: str | None, **source) -> dict:
     **source
         What the table was made from (str, int, float or bool values).
     """
-    return {
-        "tovforge_version": __version__,
-        "python_version": platform.python_version(),
-        "numpy_version": np.__version__,
-        "created_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "command": command if command is not None else " ".join(sys.argv),
-        **source,
-    }
+    return _provenance.provenance(command=command if command is not None else " ".join(sys.argv), **source)

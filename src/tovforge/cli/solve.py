@@ -1,164 +1,26 @@
-"""The ``tovforge`` command line: a thin front over the library.
-
-Every command parses its arguments, calls the library and prints.  Errors
-caused by user input are printed as one line on stderr with exit code 2.
-"""
+"""``tovforge families`` and ``tovforge solve``: the EOS families, and one EOS solved exactly."""
 
 from __future__ import annotations
 
 import json
 import math
-import sys
 import warnings
 from pathlib import Path
 from typing import Annotated, Optional
 
-import numpy as np
 import typer
 
-from . import __version__
-from ._cliargs import FamilyArg, ParametersArg
-from .errors import InputError
+from .. import __version__
+from .._jsonfile import jsonable
+from ..errors import InputError
+from ._common import FamilyArg, ParametersArg, make_eos, parse_float_list, run
 
-app = typer.Typer(
-    help="Exact neutron-star structure, EOS-parameter grids, surrogates and exported evaluators.",
-    no_args_is_help=True,
-    add_completion=False,
-    pretty_exceptions_enable=False,
-)
+__all__ = ["families_cmd", "solve_cmd", "sequence_json", "write_stars_csv"]
 
 
-def _register_subcommands() -> None:
-    """Attach the command groups of the stages (each lives next to its stage)."""
-    from .grid._cli import grid_app
-    from .surrogate._cli import check_cmd, refine_cmd, train_cmd
-    from .export._cli import export_cmd
-    from .tables._cli import table_app
-    from .demo._cli import demo_cmd
-
-    grid_app.command("refine")(refine_cmd)
-    app.add_typer(grid_app, name="grid")
-    app.add_typer(table_app, name="table")
-    app.command("train")(train_cmd)
-    app.command("check")(check_cmd)
-    app.command("export")(export_cmd)
-    app.command("demo")(demo_cmd)
-
-
-def _fail(message: str) -> None:
-    typer.echo(f"error: {message}", err=True)
-    raise typer.Exit(code=2)
-
-
-def _version(value: bool):
-    if value:
-        typer.echo(f"tovforge {__version__}")
-        raise typer.Exit()
-
-
-@app.callback()
-def _main(
-    version: Annotated[
-        bool, typer.Option("--version", callback=_version, is_eager=True, help="Print the version and exit.")
-    ] = False,
-):
-    """Exact neutron-star structure, EOS-parameter grids, surrogates and exported evaluators."""
-
-
-# ---------------------------------------------------------------------------
-# helpers shared by commands
-# ---------------------------------------------------------------------------
-
-
-def parse_assignments(items: list[str], what: str = "parameter") -> dict[str, str]:
-    """Turn ``["a=1", "b=2"]`` into ``{"a": "1", "b": "2"}`` with clear errors."""
-    out: dict[str, str] = {}
-    for item in items:
-        if "=" not in item:
-            raise InputError(f"expected {what} as NAME=VALUE, got {item!r}.")
-        name, value = item.split("=", 1)
-        name = name.strip()
-        if not name:
-            raise InputError(f"expected {what} as NAME=VALUE, got {item!r}.")
-        if name in out:
-            raise InputError(f"{what} {name!r} is given twice.")
-        out[name] = value.strip()
-    return out
-
-
-def parse_float_list(text: str, option: str) -> list[float]:
-    """Parse ``"1.4,2.0"``; names the option in errors."""
-    vals = []
-    for tok in text.split(","):
-        tok = tok.strip()
-        if not tok:
-            continue
-        try:
-            v = float(tok)
-        except ValueError:
-            raise InputError(f"{option} expects comma-separated numbers, got {tok!r}.") from None
-        if not math.isfinite(v):
-            raise InputError(f"{option} values must be finite numbers, got {tok!r}.")
-        vals.append(v)
-    if not vals:
-        raise InputError(f"{option} needs at least one number.")
-    return vals
-
-
-def make_eos(family: str, assignments: list[str]):
-    """Build an EOS from a family name and NAME=VALUE strings."""
-    from . import eos
-
-    fam = eos.get_family(family)
-    values = parse_assignments(assignments)
-    if fam.numeric:
-        parsed = {}
-        for name, raw in values.items():
-            try:
-                parsed[name] = float(raw)
-            except ValueError:
-                if name in fam.parameter_names:
-                    p = fam.parameter(name)
-                    raise InputError(
-                        f"The {name!r} parameter of {fam.name} must be a number in {p.range_text()}. Got {raw!r}."
-                    ) from None
-                parsed[name] = raw  # let the family report the unknown name
-        return fam(**parsed)
-    return fam(**values)
-
-
-def _jsonable(x):
-    if isinstance(x, dict):
-        return {k: _jsonable(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return [_jsonable(v) for v in x.tolist()]
-    if isinstance(x, (np.floating, float)):
-        x = float(x)
-        return x if math.isfinite(x) else None
-    if isinstance(x, np.integer):
-        return int(x)
-    return x
-
-
-def _run(fn):
-    """Call ``fn`` and turn input errors into one line and exit code 2."""
-    try:
-        return fn()
-    except InputError as exc:
-        _fail(str(exc))
-
-
-# ---------------------------------------------------------------------------
-# families
-# ---------------------------------------------------------------------------
-
-
-@app.command("families")
 def families_cmd():
     """List the EOS families with their parameters, units and default box."""
-    from . import eos
+    from .. import eos
 
     for fam in eos.families().values():
         typer.echo(f"{fam.name}: {fam.description}")
@@ -173,10 +35,6 @@ def families_cmd():
                 f"  {p.description}"
             )
 
-
-# ---------------------------------------------------------------------------
-# solve
-# ---------------------------------------------------------------------------
 
 _SEQUENCE_COLUMNS = [
     ("mass_msun", "M [Msun]", "{:.6f}"),
@@ -239,10 +97,9 @@ def sequence_json(seq) -> dict:
     if seq.at_mass is not None:
         out["at_mass"] = [{k: float(getattr(seq.at_mass, k)[i]) for k in _JSON_STAR_KEYS}
                           for i in range(len(seq.at_mass))]
-    return _jsonable(out)
+    return jsonable(out)
 
 
-@app.command("solve")
 def solve_cmd(
     family: FamilyArg,
     parameters: ParametersArg = None,
@@ -259,7 +116,7 @@ def solve_cmd(
     stars: Annotated[int, typer.Option("--stars", min=8, max=2000, help="Stars along the stable branch.")] = 100,
 ):
     """Solve the stable branch of one EOS: M_max, the M-R-Lambda-I sequence, stars at given masses."""
-    from . import solve
+    from .. import solve
 
     def work():
         eos_obj = make_eos(family, parameters or [])
@@ -285,14 +142,14 @@ def solve_cmd(
                 prof = solve.solve_star(eos_obj, mass_msun=profile)
         return eos_obj, seq, prof
 
-    eos_obj, seq, prof = _run(work)
+    eos_obj, seq, prof = run(work)
     if table is not None:
         pars = " ".join(f"{k}={v}" for k, v in seq.parameters.items())
         write_stars_csv(table, seq.branch, f"tovforge {__version__} solve {seq.family} {pars}: stable branch")
     if as_json:
         out = sequence_json(seq)
         if prof is not None:
-            out["profile"] = _jsonable(_profile_dict(prof))
+            out["profile"] = jsonable(_profile_dict(prof))
         typer.echo(json.dumps(out))
         raise typer.Exit(code=0 if seq.success else 1)
     typer.echo(_summary_text(seq))
@@ -335,12 +192,12 @@ def _summary_text(seq) -> str:
             f"M_max    {mm.mass_msun:.6f} Msun   R = {mm.radius_km:.4f} km   "
             f"p_c = {mm.central_pressure_dyn_cm2:.4e} dyn/cm^2   max c_s^2 = {mm.max_sound_speed_sq:.4f} ({causal})"
         )
-        if np.isfinite(seq.twin_mass_max_msun):
+        if math.isfinite(seq.twin_mass_max_msun):
             lines.append(f"twins    a second stable branch reaches {seq.twin_mass_max_msun:.3f} Msun (scan resolution)")
         if seq.at_mass is not None:
             for i in range(len(seq.at_mass)):
                 a = seq.at_mass
-                if not np.isfinite(a.radius_km[i]):
+                if not math.isfinite(a.radius_km[i]):
                     continue
                 lines.append(
                     f"M = {a.mass_msun[i]:.4f} Msun   R = {a.radius_km[i]:.4f} km   Lambda = {a.tidal_deformability[i]:.5g}"
@@ -351,27 +208,3 @@ def _summary_text(seq) -> str:
         lines.append(f"stable branch ({len(seq.branch)} stars, increasing central pressure):")
         lines.append(_format_table(seq.branch))
     return "\n".join(lines)
-
-
-@app.command("bench")
-def bench_cmd(
-    quick: Annotated[bool, typer.Option("--quick", help="Fewer repetitions (a smoke run).")] = False,
-    only: Annotated[
-        Optional[str], typer.Option("--only", help="Comma-separated sections to run (default: all).")
-    ] = None,
-):
-    """Measure speed and accuracy on this machine (prints ratios measured side by side)."""
-    from ._bench import run_benchmarks
-
-    _run(lambda: run_benchmarks(quick=quick, only=only.split(",") if only else None, echo=typer.echo))
-
-
-_register_subcommands()
-
-
-def main():  # entry point of the console script
-    app()
-
-
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
