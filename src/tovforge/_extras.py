@@ -25,7 +25,7 @@ def require(module: str, extra: str, purpose: str):
     extra : str
         The tovforge extra that installs it (``"cluster"``).
     purpose : str
-        What needs it, for the message (``"grid run --scheduler"``).
+        What needs it, for the message (``"running on a Dask scheduler"``).
     """
     try:
         return importlib.import_module(module)

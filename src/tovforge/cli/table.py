@@ -97,7 +97,7 @@ def sequence_cmd(
     parameters: ParametersArg = None,
     out: Annotated[Path, typer.Option("--out", help=_OUT_HELP, dir_okay=False)] = ...,
     points: Annotated[
-        Optional[int], typer.Option("--points", help="Stars at central pressures evenly spaced in ln p_c, from the "
+        Optional[int], typer.Option("--points", min=2, max=100_000, help="Stars at central pressures evenly spaced in ln p_c, from the "
                                                      "lightest star to the maximum-mass star (default 100).")
     ] = None,
     masses: Annotated[

@@ -113,7 +113,7 @@ def _connect(scheduler: str):
     try:
         return Client(scheduler, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
-        raise InputError(f"--scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
+        raise InputError(f"scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
 
 
 def _execute(spec, theta, todo, workers: int | None, client):
@@ -153,7 +153,7 @@ def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
     if overwrite:
         return False
     what = "is not a tovforge grid file" if found is None else f"was made from a different spec ({found[:12]}...)"
-    raise InputError(f"{out} exists and {what}; pass --overwrite to replace it.")
+    raise InputError(f"{out} exists and {what}; pass overwrite=True to replace it.")
 
 
 def _prepare_parts(parts: Path, spec, theta_hash: str, overwrite: bool) -> dict:
@@ -171,7 +171,7 @@ def _prepare_parts(parts: Path, spec, theta_hash: str, overwrite: bool) -> dict:
         if not overwrite:
             why = ("holds no readable manifest" if manifest is None else
                    "holds chunks of a different spec, design or tovforge version")
-            raise InputError(f"{parts} {why}; pass --overwrite to discard them, or choose another --out.")
+            raise InputError(f"{parts} {why}; pass overwrite=True to discard them, or choose another output file.")
         shutil.rmtree(parts)
     parts.mkdir(parents=True)
     manifest = {**expected, "started_utc": utc_now(), "spec": json.loads(spec.to_json())}
@@ -264,7 +264,7 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
     t0 = time.monotonic()
     out = Path(out)
     if workers is not None and workers < 1:
-        raise InputError(f"--workers must be at least 1. Got {workers}.")
+        raise InputError(f"workers must be at least 1. Got {workers}.")
     if not out.parent.exists():
         raise InputError(f"{out.parent}: no such folder for the output.")
     if _check_existing_output(out, spec, overwrite):

@@ -69,12 +69,12 @@ def parse_quantities(names) -> tuple[str, ...]:
         names = [n.strip() for n in names.split(",") if n.strip()]
     names = list(names)
     if not names:
-        raise InputError(f"--quantities needs at least one of: {', '.join(QUANTITIES)}.")
+        raise InputError(f"quantities needs at least one of: {', '.join(QUANTITIES)}.")
     for n in names:
         if n not in QUANTITIES:
-            raise InputError(f"--quantities: unknown quantity {n!r}; choose from {', '.join(QUANTITIES)}.")
+            raise InputError(f"quantities: unknown quantity {n!r}; choose from {', '.join(QUANTITIES)}.")
         if names.count(n) > 1:
-            raise InputError(f"--quantities: {n!r} is listed twice.")
+            raise InputError(f"quantities: {n!r} is listed twice.")
     return tuple(names)
 
 

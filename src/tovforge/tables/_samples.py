@@ -77,7 +77,7 @@ def _check_names(path, names, parameter_names, ignore):
         raise InputError(f"{path}: column {dup[0]!r} appears twice.")
     unknown_ignore = [n for n in ignore if n not in names]
     if unknown_ignore:
-        raise InputError(f"--ignore {unknown_ignore[0]}: {path} has no such column; its columns are {', '.join(names)}.")
+        raise InputError(f"ignore {unknown_ignore[0]}: {path} has no such column; its columns are {', '.join(names)}.")
     missing = [n for n in parameter_names if n not in names]
     if missing:
         raise InputError(f"{path}: missing column{'s' if len(missing) > 1 else ''} {', '.join(missing)}; the model "
@@ -86,7 +86,7 @@ def _check_names(path, names, parameter_names, ignore):
     if extra:
         raise InputError(f"{path}: extra column{'s' if len(extra) > 1 else ''} {', '.join(extra)} "
                          f"(the model's parameters are {', '.join(parameter_names)}); remove "
-                         f"{'them' if len(extra) > 1 else 'it'} or pass --ignore {','.join(extra)}.")
+                         f"{'them' if len(extra) > 1 else 'it'} or ignore {','.join(extra)}.")
 
 
 def _read_csv(path: Path, parameter_names, ignore):
@@ -286,9 +286,9 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     if plot is not None:  # before the work, not after it
         require("matplotlib", "plots", "the samples plot")
     if Path(band).resolve() == Path(out).resolve():
-        raise InputError(f"--band {band}: the band table needs a file of its own, not --out.")
+        raise InputError(f"band {band}: the band table needs a file of its own, not that of the table.")
     if Path(samples).resolve() in (Path(out).resolve(), Path(band).resolve()):
-        raise InputError(f"{samples}: the samples file would be overwritten; choose another --out or --band.")
+        raise InputError(f"{samples}: the samples file would be overwritten; choose other output files.")
     names = model.parameter_names
     data = read_samples(samples, names, ignore, bounds=model.bounds)
     sigma = bool(sigma and model.kind == "gp")
