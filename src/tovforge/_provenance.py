@@ -63,7 +63,7 @@ def package_versions(*packages: str) -> dict:
     return out
 
 
-def provenance(*packages: str, **extra) -> dict:
+def provenance(*packages: str, created_utc: str | None = None, **extra) -> dict:
     """Versions, git commit and creation time, plus ``extra`` entries.
 
     Parameters
@@ -71,6 +71,8 @@ def provenance(*packages: str, **extra) -> dict:
     *packages : str
         Dependencies whose versions matter for the artifact, beyond NumPy
         (always recorded).
+    created_utc : str, optional
+        The creation time to record (default: now, :func:`utc_now`).
     **extra
         Further entries (what the artifact was made from); they come last and
         may not replace the common keys.
@@ -83,7 +85,8 @@ def provenance(*packages: str, **extra) -> dict:
         ``extra``.
     """
     out = {"tovforge_version": __version__, "python_version": platform.python_version(),
-           **package_versions("numpy", *packages), "git_commit": git_commit(), "created_utc": utc_now()}
+           **package_versions("numpy", *packages), "git_commit": git_commit(),
+           "created_utc": created_utc if created_utc is not None else utc_now()}
     clash = sorted(set(out) & set(extra))
     if clash:
         raise ValueError(f"provenance: {clash[0]!r} is a common key; do not pass it")

@@ -39,7 +39,7 @@ import numpy as np
 
 from .. import __version__
 from .._jsonfile import jsonable
-from .._provenance import git_commit, utc_now
+from .._provenance import provenance
 from ..errors import InputError
 
 __all__ = ["export_model", "ExportResult", "ExportError", "NAMESPACES"]
@@ -362,10 +362,8 @@ def _assemble(header: str, constants: list[str], payload_b64: str) -> str:
 def _constants(meta: dict, arrays: dict, check, info: dict, index: list) -> list[str]:
     out = meta["outputs"]
     scalar_index = tuple((_identifier(k, "output name"), int(v)) for k, v in out["index"].items())
-    provenance = _plain({
-        "tovforge_version": __version__,
-        "git_commit": info["commit"],
-        "created_utc": info["created"],
+    record = _plain({
+        **info["provenance"],
         "training": {k: v for k, v in meta.get("training", {}).items()
                      if isinstance(v, (str, int, float, bool)) or v is None},
         "model_arrays_sha256": meta.get("arrays_sha256", ""),
@@ -381,7 +379,7 @@ def _constants(meta: dict, arrays: dict, check, info: dict, index: list) -> list
         f"MASS_FLOOR_MSUN = {_literal(float(out.get('mass_floor_msun', 0.0)))}",
         "#: The held-out error table of the header, as data (None: no check was supplied).",
         f"CHECK = {_literal(check)}",
-        f"PROVENANCE = {_literal(provenance)}",
+        f"PROVENANCE = {_literal(record)}",
         f"PAYLOAD_SHA256 = {_literal(info['payload_sha256'])}",
         f"_I_MASS_MAX = {int(out['index']['mass_max_msun'])}",
         f"_SCALAR_INDEX = {_literal(scalar_index)}",
@@ -474,10 +472,12 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     arrays = {k: np.asarray(v) for k, v in model.arrays.items()}
     raw, index = _payload(arrays)
     runtime = _source("tovforge.surrogate", "_runtime.py")
+    prov = provenance(created_utc=created_utc)
     info = {
         "module": out.stem,
-        "commit": git_commit(),
-        "created": created_utc or utc_now(),
+        "provenance": prov,
+        "commit": prov["git_commit"],
+        "created": prov["created_utc"],
         "payload_sha256": hashlib.sha256(raw).hexdigest(),
         "runtime_sha256": hashlib.sha256(runtime.encode("utf-8")).hexdigest(),
     }

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._provenance import provenance
 from ..errors import InputError
 from . import _runtime as rt
 from ._check import check
@@ -184,8 +185,9 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
         description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
                     f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
-    write_grid(points_path, rspec, added, result, {"refinement_of": str(grid_path),
-                                                   "refinement_of_sha256": tr.get("grid_content_sha256", "")})
+    write_grid(points_path, rspec, added, result,
+               provenance("scipy", "h5py", refinement_of=str(grid_path),
+                          refinement_of_sha256=tr.get("grid_content_sha256", "")))
     new = training_data_from_arrays(
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
         parameter_units=tuple(model.meta["parameter_units"]), box=model.bounds, theta=added,

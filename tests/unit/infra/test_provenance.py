@@ -27,8 +27,9 @@ def test_provenance_has_the_common_keys_first_and_refuses_to_replace_them():
     assert list(p)[:5] == ["tovforge_version", "python_version", "numpy_version", "scipy_version", "h5py_version"]
     assert p["tovforge_version"] == __version__ and p["command"] == "tovforge x"
     assert p["git_commit"] and UTC.match(p["created_utc"])
-    with pytest.raises(ValueError, match="'created_utc' is a common key"):
-        provenance(created_utc="yesterday")
+    with pytest.raises(ValueError, match="'git_commit' is a common key"):
+        provenance(git_commit="abc")
+    assert provenance(created_utc="2026-03-01T12:00:00Z")["created_utc"] == "2026-03-01T12:00:00Z"  # exports
 
 
 def test_missing_package_is_recorded_not_raised():
