@@ -27,6 +27,7 @@ __all__ = [
     "Namespace",
     "OneLineErrors",
     "ParametersArg",
+    "aligned",
     "command_line",
     "configure_logging",
     "fail",
@@ -147,6 +148,14 @@ def configure_logging(quiet: bool) -> None:
 def show_progress(quiet: bool = False) -> bool:
     """Whether a command shows progress: not with its own ``--quiet`` nor with ``tovforge --quiet``."""
     return not quiet and logging.getLogger("tovforge").isEnabledFor(logging.INFO)
+
+
+def aligned(heads: list[str], rows: list[list[str]]) -> str:
+    """Text columns right-aligned under their headings (rows of already formatted cells)."""
+    widths = [max([len(h)] + [len(r[j]) for r in rows]) for j, h in enumerate(heads)]
+    lines = ["  ".join(h.rjust(w) for h, w in zip(heads, widths))]
+    lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in rows]
+    return "\n".join(lines)
 
 
 def command_line() -> str:

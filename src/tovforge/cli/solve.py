@@ -13,7 +13,7 @@ import typer
 from .. import __version__
 from .._jsonfile import jsonable
 from ..errors import InputError
-from ._common import FamilyArg, ParametersArg, make_eos, parse_float_list, run
+from ._common import FamilyArg, ParametersArg, aligned, make_eos, parse_float_list, run
 
 __all__ = ["families_cmd", "solve_cmd", "sequence_json", "write_stars_csv"]
 
@@ -51,17 +51,9 @@ _SEQUENCE_COLUMNS = [
 ]
 
 
-def _aligned(heads, rows) -> str:
-    """Right-aligned text columns under their headings."""
-    widths = [max([len(h)] + [len(r[j]) for r in rows]) for j, h in enumerate(heads)]
-    lines = ["  ".join(h.rjust(w) for h, w in zip(heads, widths))]
-    lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in rows]
-    return "\n".join(lines)
-
-
 def _format_table(stars, columns=_SEQUENCE_COLUMNS) -> str:
     rows = [[fmt.format(float(getattr(stars, key)[i])) for key, _, fmt in columns] for i in range(len(stars))]
-    return _aligned([h for _, h, _ in columns], rows)
+    return aligned([h for _, h, _ in columns], rows)
 
 
 def write_stars_csv(path: Path, stars, comment: str, columns=_SEQUENCE_COLUMNS) -> None:
@@ -179,7 +171,7 @@ def _profile_text(prof) -> str:
             prof.rest_mass_density_g_cm3, prof.alpha, prof.y]
     fmts = ["{:.5f}", "{:.6f}", "{:.5e}", "{:.5e}", "{:.5e}", "{:.6f}", "{:.6f}"]
     rows = [[f.format(float(c[i])) for f, c in zip(fmts, cols)] for i in range(len(prof.radius_km))]
-    return _aligned(heads, rows)
+    return aligned(heads, rows)
 
 
 def _summary_text(seq) -> str:

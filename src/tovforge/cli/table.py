@@ -13,8 +13,8 @@ from typing import Annotated, Optional
 import typer
 
 from ..errors import InputError
-from ._common import (FamilyArg, ParametersArg, command_line, make_eos, parse_assignments, parse_float_list,
-                      parse_number, run, show_progress)
+from ._common import (FamilyArg, ParametersArg, aligned, command_line, make_eos, parse_assignments,
+                      parse_float_list, parse_number, run, show_progress)
 
 __all__ = ["app", "parse_axis", "parse_fixed", "parse_range"]
 
@@ -97,8 +97,9 @@ def sequence_cmd(
     parameters: ParametersArg = None,
     out: Annotated[Path, typer.Option("--out", help=_OUT_HELP, dir_okay=False)] = ...,
     points: Annotated[
-        Optional[int], typer.Option("--points", min=2, max=100_000, help="Stars at central pressures evenly spaced in ln p_c, from the "
-                                                     "lightest star to the maximum-mass star (default 100).")
+        Optional[int], typer.Option("--points", min=2, max=100_000,
+                                    help="Stars at central pressures evenly spaced in ln p_c, from the lightest star "
+                                         "to the maximum-mass star (default 100).")
     ] = None,
     masses: Annotated[
         Optional[str], typer.Option("--masses", help="Comma-separated masses in Msun instead: one exact star each.")
@@ -175,7 +176,8 @@ def box_cmd(
         ms = parse_float_list(masses, "--masses")
         if exact is not None:
             return exact_box_table(out, exact, axes, fixed, qs, ms, mass_floor_msun=mass_floor, workers=workers,
-                                   scheduler=scheduler, progress=show_progress(quiet), command=command_line(), keep_grid=keep_grid)
+                                   scheduler=scheduler, progress=show_progress(quiet), command=command_line(),
+                                   keep_grid=keep_grid)
         return box_table(out, model, axes, fixed, qs, ms, sigma=not no_sigma, progress=show_progress(quiet),
                          command=command_line())
 
@@ -343,10 +345,7 @@ def binary_cmd(
             res.lambda_tilde]
     fmts = ["{:.5f}", "{:.5f}", "{:.6f}", "{:.5f}", "{:.6g}", "{:.6g}", "{:.6g}"]
     rows = [[f.format(float(c[i])) for f, c in zip(fmts, cols)] for i in range(len(res.m1_msun))]
-    widths = [max(len(h), *(len(r[j]) for r in rows)) for j, h in enumerate(heads)]
-    typer.echo("  ".join(h.rjust(w) for h, w in zip(heads, widths)))
-    for r in rows:
-        typer.echo("  ".join(c.rjust(w) for c, w in zip(r, widths)))
+    typer.echo(aligned(heads, rows))
 
 
 # ---------------------------------------------------------------------------
