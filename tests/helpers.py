@@ -29,3 +29,23 @@ def valid_box_points(family: str, n: int, seed: int) -> np.ndarray:
             if not msg:
                 rows.append(row)
     return np.array(rows[:n])
+
+
+# EOS rows written as table files (library helpers, re-exported for the tests)
+from tovforge.eos._tabulated import table_rows as table_rows_of  # noqa: E402
+from tovforge.eos._tabulated import write_table as write_eos_table  # noqa: E402
+
+
+def assert_matches_baseline(E, h_c, rel: dict) -> None:
+    """Stars of ``E`` at central enthalpies ``h_c``: the fixed-step solver against the SciPy
+    baseline (solve_ivp in radius, rtol 1e-12), each field in ``rel`` to its relative tolerance."""
+    import pytest
+
+    from tovforge import solve
+    from tovforge.solve._baseline import baseline_star
+
+    ours = solve.solve_stars(E, np.asarray(h_c, float))
+    for k, h in enumerate(np.asarray(h_c, float)):
+        ref = baseline_star(E, float(h), rtol=1e-12, atol=1e-16)
+        for name, tol in rel.items():
+            assert getattr(ours, name)[k] == pytest.approx(getattr(ref, name), rel=tol), (name, h)

@@ -86,6 +86,11 @@ class Quantity:
     derive : callable or None
         ``derive(values)`` with ``values[name]`` the arrays of ``needs``;
         None for quantities the solver computes directly.
+    of_maximum : str or None
+        For a sequence quantity that is a property of the maximum-mass star:
+        the star quantity it is (``"radius_km"`` for
+        ``radius_at_mass_max_km``).  Solver results answer it from their
+        maximum-mass star, so such an output needs no code either.
     """
 
     name: str
@@ -102,6 +107,7 @@ class Quantity:
     model_name: str | None = None
     needs: tuple[str, ...] = ()
     derive: Callable[[Mapping], object] | None = None
+    of_maximum: str | None = None
 
     @property
     def heading(self) -> str:
@@ -122,6 +128,11 @@ class Quantity:
 def _moment_of_inertia_over_m3(v):
     # I / M^3 in G = c = 1 (dimensionless): I in km^3 over (M in km)^3
     return (v["moment_of_inertia_1e45_g_cm2"] / MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2) / (v["mass_msun"] * MSUN_KM) ** 3
+
+
+def _binding_energy(v):
+    # gravitational binding energy (M_b - M) c^2, in Msun c^2
+    return v["baryon_mass_msun"] - v["mass_msun"]
 
 
 def _causality_margin(v):
@@ -153,6 +164,9 @@ QUANTITIES: dict[str, Quantity] = {q.name: q for q in (
              "{:.6g}", needs=("moment_of_inertia_1e45_g_cm2", "mass_msun"), derive=_moment_of_inertia_over_m3),
     Quantity("baryon_mass_msun", "Msun", "baryon (rest) mass", _STAR, "M_b", "baryon_mass", "{:.6f}",
              stored=("curve", "at_mass"), default=("curve",)),
+    Quantity("binding_energy_msun", "Msun", "gravitational binding energy (M_b - M) c^2", _STAR, "E_b",
+             "binding_energy", "{:.6f}", stored=("curve", "at_mass"), needs=("baryon_mass_msun", "mass_msun"),
+             derive=_binding_energy),
     Quantity("central_pressure_dyn_cm2", "dyn/cm^2", "central pressure", _STAR, "p_c", "central_pressure",
              "{:.6e}"),
     Quantity("central_energy_density_g_cm3", "g/cm^3", "central energy density divided by c^2", _STAR,
@@ -166,12 +180,13 @@ QUANTITIES: dict[str, Quantity] = {q.name: q for q in (
     # ---- one value per EOS (the stable branch as a whole) ----------------------------------
     Quantity("mass_max_msun", "Msun", "maximum mass of the stable branch (first maximum of M(p_c))", _SEQ,
              "M_max", "mass_max", "{:.6f}", stored=("scalar",), default=("scalar",),
-             query="mass_max", transform="identity", model_name="mass_max_msun"),
+             query="mass_max", transform="identity", model_name="mass_max_msun", of_maximum="mass_msun"),
     Quantity("radius_at_mass_max_km", "km", "radius of the maximum-mass star", _SEQ, "R(M_max)",
-             "radius_at_mass_max", "{:.5f}", stored=("scalar",), default=("scalar",)),
+             "radius_at_mass_max", "{:.5f}", stored=("scalar",), default=("scalar",), of_maximum="radius_km"),
     Quantity("central_pressure_at_mass_max_dyn_cm2", "dyn/cm^2", "central pressure of the maximum-mass star",
              _SEQ, "p_c(M_max)", "pressure_at_mass_max", "{:.6e}", stored=("scalar",), default=("scalar",),
-             transform="log10", model_name="log10_central_pressure_at_mass_max"),
+             transform="log10", model_name="log10_central_pressure_at_mass_max",
+             of_maximum="central_pressure_dyn_cm2"),
     Quantity("max_sound_speed_sq", "c^2",
              "largest c_s^2 of the EOS from the surface to the centre of the maximum-mass star", _SEQ,
              "max c_s^2", "max_sound_speed_sq", "{:.5f}", stored=("scalar",), default=("scalar",),
@@ -181,7 +196,7 @@ QUANTITIES: dict[str, Quantity] = {q.name: q for q in (
              needs=("max_sound_speed_sq",), derive=_causality_margin),
     Quantity("mass_max_margin_msun", "Msun", "M_max minus the floor mass of the grid (negative: below it)", _SEQ,
              "M_max - floor", "mass_max_margin", "{:.6f}", stored=("scalar",), default=("scalar",)),
-    Quantity("twin_mass_max_msun", "Msun", "maximum of a second stable branch (NaN if none)", _SEQ,
+    Quantity("twin_mass_max_msun", "Msun", "maximum of a second stable branch (NaN if none; at scan resolution)", _SEQ,
              "M_max(twin)", "twin_mass_max", "{:.6f}", stored=("scalar",), default=("scalar",)),
 )}
 

@@ -11,7 +11,9 @@ import pytest
 from typer.testing import CliRunner
 
 from helpers import READ2009
+from tovforge import eos, quantities, solve
 from tovforge.cli import app
+from tovforge.tables import SEQUENCE_COLUMNS, read_table
 
 runner = CliRunner()
 SLY = [f"{k}={v}" for k, v in READ2009["SLy"].items()]
@@ -32,8 +34,10 @@ def test_json_output_has_the_documented_keys():
     out = json.loads(lines[0])
     assert set(out) >= {"family", "parameters", "mass_max", "at_mass", "sequence"}
     assert set(out["mass_max"]) == {"mass_msun", "radius_km", "central_pressure_dyn_cm2", "max_sound_speed_sq"}
-    assert set(out["sequence"]) == {"mass_msun", "radius_km", "tidal_deformability", "k2",
-                                    "moment_of_inertia_1e45_g_cm2", "baryon_mass_msun", "central_pressure_dyn_cm2"}
+    star_keys = {q.name for q in quantities.star_quantities()}  # every star quantity, by canonical name
+    assert {"mass_msun", "radius_km", "tidal_deformability", "k2", "moment_of_inertia_1e45_g_cm2",
+            "baryon_mass_msun", "central_pressure_dyn_cm2"} <= star_keys
+    assert set(out["sequence"]) == star_keys and set(out["at_mass"][0]) == star_keys
     assert out["at_mass"][0]["mass_msun"] == pytest.approx(1.4)
     assert out["at_mass"][2]["radius_km"] is None  # above M_max: null, not a crash
     assert "exceed M_max" in res.stderr
@@ -46,10 +50,31 @@ def test_table_and_profile(tmp_path):
                               "--profile", "1.4"])
     assert res.exit_code == 0, res.output
     assert "M_max" in res.stdout and "interior of the 1.4 Msun star" in res.stdout
-    data = np.genfromtxt(path, delimiter=",", skip_header=2)
-    header = path.read_text().splitlines()[1]
-    assert header.startswith("M [Msun],R [km]")
-    assert np.all(np.diff(data[:, 0]) > 0)
+    t = read_table(path)  # the format of `tovforge table sequence`
+    assert list(t.columns) == [c.name for c in SEQUENCE_COLUMNS]
+    assert t.units["mass"] == "Msun" and t.meta["kind"] == "sequence" and t.meta["mode"] == "branch"
+    assert np.all(np.diff(t["mass"]) > 0)
+    seq = solve.solve_sequence(eos.make("piecewise-polytrope", **READ2009["SLy"]), n_stars=12)
+    np.testing.assert_array_equal(t["lambda"], seq.branch.tidal_deformability)
+
+
+def test_solve_table_feeds_table_binary(tmp_path):
+    """`table binary` reads Lambda(M) from a `solve --table` file as from a `table sequence` file."""
+    path = tmp_path / "seq.csv"
+    assert runner.invoke(app, ["solve", "piecewise-polytrope", *SLY, "--table", str(path)]).exit_code == 0
+    for source in (path, tmp_path / "seq2.csv"):
+        if source != path:
+            assert runner.invoke(app, ["table", "sequence", "piecewise-polytrope", *SLY, "--out",
+                                       str(source)]).exit_code == 0
+        res = runner.invoke(app, ["table", "binary", str(source), "--chirp-mass", "1.188",
+                                  "--mass-ratio", "0.8", "--out", str(tmp_path / "b.csv")])
+        assert res.exit_code == 0, res.output
+        assert np.isfinite(read_table(tmp_path / "b.csv")["lambda_tilde"]).all()
+
+
+def test_unknown_table_suffix_is_refused_before_solving(tmp_path):
+    res = runner.invoke(app, ["solve", "piecewise-polytrope", *SLY, "--table", str(tmp_path / "seq.txt")])
+    assert res.exit_code == 2 and "seq.txt" in res.stderr and not (tmp_path / "seq.txt").exists()
 
 
 @pytest.mark.parametrize(

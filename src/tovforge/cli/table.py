@@ -106,7 +106,7 @@ def sequence_cmd(
     ] = None,
     min_mass: Annotated[float, typer.Option("--min-mass", help="Lightest star of --points (Msun).")] = 0.3,
 ):
-    """The stable branch of one EOS: M, R, C, k2, Lambda, I, I/M^3, M_b and central p, e, rho, c_s^2."""
+    """The stable branch of one EOS: a column per star quantity (M, R, C, Lambda, k2, I, M_b, central values)."""
     from ..tables import sequence_table
 
     def work():

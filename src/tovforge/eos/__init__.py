@@ -17,7 +17,8 @@ from __future__ import annotations
 from ._base import EOS, EOSFamily, EOSPoint, Parameter, families, get_family, register_family
 from ._core_tables import SoundSpeed, Spectral
 from ._piecewise import PiecewisePolytrope, Polytrope
-from ._tabulated import Tabulated, read_table
+from ._tabulated import Tabulated, read_table, table_rows, write_table
+from ._transition import Transition, seidov_limit
 from ._uniform import UniformDensity
 
 __all__ = [
@@ -34,8 +35,12 @@ __all__ = [
     "Spectral",
     "SoundSpeed",
     "Tabulated",
+    "Transition",
     "UniformDensity",
     "read_table",
+    "seidov_limit",
+    "table_rows",
+    "write_table",
 ]
 
 

@@ -20,7 +20,15 @@ Three building blocks cover every family:
 * :class:`UniformDensityBatch` -- the incompressible star.
 
 :class:`CrustAndTable` joins polytrope pieces (the crust) below an enthalpy
-``h_join`` to a table above it.
+``h_join`` to a table above it; :class:`TransitionBatch` joins any batch below
+a transition enthalpy ``h_t`` to matter of constant sound speed above it, with
+a jump of the energy density at ``h_t`` (a first-order phase transition).
+
+A first-order phase transition (Maxwell construction) is a jump of ``e`` and
+``rho`` at one pressure.  The pressure and the chemical potential
+``mu ~ (e + p) / rho`` are continuous there, hence so is ``h``: in ``h`` the
+jump is a node with one-sided EOS values, like a kink, listed in ``jumps``
+(the structure solver adds the jump of the tidal variable ``y`` there).
 """
 
 from __future__ import annotations
@@ -36,7 +44,9 @@ __all__ = [
     "HermiteTable",
     "CrustAndTable",
     "UniformDensityBatch",
+    "TransitionBatch",
     "polytrope_chain",
+    "pressure_enthalpy",
 ]
 
 _FOUR_PI = 4.0 * np.pi
@@ -60,12 +70,19 @@ class EOSBatch:
     e_surface : ndarray, shape (n_eos,)
         Energy density at ``h = 0`` in km^-2 (non-zero for self-bound matter;
         enters the tidal surface correction).
+    jumps : ndarray, shape (n_eos, n_jumps)
+        Pseudo-enthalpies where the energy density jumps (first-order phase
+        transitions), increasing, ``inf``-padded; each is also a kink.
     """
 
     n_eos: int
     kinks: np.ndarray
     h_max: np.ndarray
     e_surface: np.ndarray
+
+    @property
+    def jumps(self) -> np.ndarray:
+        return np.full((self.n_eos, 0), np.inf)
 
     def lanes(self, eos_index: np.ndarray):  # pragma: no cover - interface
         """Return an evaluator with one lane per entry of ``eos_index``."""
@@ -243,15 +260,21 @@ class HermiteTable(EOSBatch):
         Enthalpies of nodes where the EOS is not smooth.
     e_surface_ : ndarray, shape (n_eos,)
         Energy density at ``h = 0``.
+    jump_h : ndarray, shape (n_eos, n_jumps), optional
+        Enthalpies where ``e`` jumps.  Each is a node written twice (an
+        interval of zero width): the interval below ends there, the one above
+        starts there, so one-sided look-ups see each phase.
     """
 
     h_nodes: np.ndarray
     coef: np.ndarray
     kink_h: np.ndarray
     e_surface_: np.ndarray
+    jump_h: np.ndarray | None = None
 
     @classmethod
-    def from_samples(cls, h, p, e, rho, cs2, dcs2_dh, kink_h=None, e_surface=None, lnrho_derivs=None):
+    def from_samples(cls, h, p, e, rho, cs2, dcs2_dh, kink_h=None, e_surface=None, lnrho_derivs=None,
+                     jump_h=None):
         """Build the table from node samples and exact derivatives.
 
         Parameters
@@ -265,6 +288,9 @@ class HermiteTable(EOSBatch):
             Enthalpies where the EOS is not smooth (must be nodes).
         e_surface : ndarray, shape (n_eos,), optional
             Energy density at ``h = 0`` (defaults to zero).
+        jump_h : ndarray, shape (n_eos, n_jumps), optional
+            Enthalpies of jumps of ``e`` (each a node given twice, with the
+            values below and then above the jump).
         lnrho_derivs : tuple, optional
             ``(d ln rho/dh, d^2 ln rho/dh^2)`` when the rest-mass density is
             given separately (the second per node or per interval ends); by default the first law gives ``1 / c_s^2`` and
@@ -323,7 +349,9 @@ class HermiteTable(EOSBatch):
             kink_h = np.full((h.shape[0], 0), np.inf)
         if e_surface is None:
             e_surface = np.zeros(h.shape[0])
-        return cls(h, coef, np.atleast_2d(np.asarray(kink_h, float)), np.asarray(e_surface, float))
+        if jump_h is not None:
+            jump_h = np.atleast_2d(np.asarray(jump_h, float))
+        return cls(h, coef, np.atleast_2d(np.asarray(kink_h, float)), np.asarray(e_surface, float), jump_h)
 
     @property
     def n_eos(self) -> int:
@@ -332,6 +360,10 @@ class HermiteTable(EOSBatch):
     @property
     def kinks(self) -> np.ndarray:
         return self.kink_h
+
+    @property
+    def jumps(self) -> np.ndarray:
+        return np.full((self.n_eos, 0), np.inf) if self.jump_h is None else self.jump_h
 
     @property
     def h_max(self) -> np.ndarray:
@@ -347,7 +379,8 @@ class HermiteTable(EOSBatch):
 
     def select(self, eos_index):
         idx = np.asarray(eos_index)
-        return HermiteTable(self.h_nodes[idx], self.coef[idx], self.kink_h[idx], self.e_surface_[idx])
+        return HermiteTable(self.h_nodes[idx], self.coef[idx], self.kink_h[idx], self.e_surface_[idx],
+                            None if self.jump_h is None else self.jump_h[idx])
 
     def lanes(self, eos_index):
         return _HermiteLanes(self, np.asarray(eos_index))
@@ -436,6 +469,10 @@ class CrustAndTable(EOSBatch):
         return self.table.h_max
 
     @property
+    def jumps(self) -> np.ndarray:
+        return self.table.jumps
+
+    @property
     def e_surface(self) -> np.ndarray:
         return np.zeros(self.n_eos)
 
@@ -505,3 +542,127 @@ class _UniformLanes:
     def eval(self, h, h_loc=None):
         p = self._e0 * np.expm1(h)
         return p, self._e0.copy(), self._e0.copy(), np.zeros_like(h)
+
+
+# --------------------------------------------------------------------------
+# Any batch below a first-order transition, constant sound speed above
+# --------------------------------------------------------------------------
+
+
+def pressure_enthalpy(batch: EOSBatch, p_target: np.ndarray, n_iter: int = 200) -> np.ndarray:
+    """Pseudo-enthalpy at which each EOS of ``batch`` has pressure ``p_target`` (km^-2).
+
+    Vectorised bisection in ``ln h`` on ``(1e-14, min(h_max, 20)]`` (``p`` rises
+    with ``h``).  Returns NaN where the target lies outside that range.
+    """
+    p_target = np.asarray(p_target, float)
+    n = batch.n_eos
+    lanes = batch.lanes(np.arange(n))
+    lo = np.full(n, np.log(1e-14))
+    hi = np.log(np.minimum(batch.h_max, 20.0))
+    p_hi = lanes.eval(np.exp(hi), np.exp(hi) * (1.0 - 1e-12))[0]
+    p_lo = lanes.eval(np.exp(lo))[0]
+    inside = (p_lo < p_target) & (p_target <= p_hi)
+    for _ in range(n_iter):
+        mid = 0.5 * (lo + hi)
+        below = lanes.eval(np.exp(mid))[0] < p_target
+        lo = np.where(below, mid, lo)
+        hi = np.where(below, hi, mid)
+        if np.all(hi - lo <= 1e-15 * np.maximum(np.abs(hi), 1.0)):
+            break
+    return np.where(inside, np.exp(0.5 * (lo + hi)), np.nan)
+
+
+@dataclass(frozen=True)
+class TransitionBatch(EOSBatch):
+    """A base EOS below ``h_t``, then matter of constant sound speed ``s`` above.
+
+    At ``h_t`` (pressure ``p_t``) the energy density jumps from ``e_t`` to
+    ``e_t + delta_e`` (Maxwell construction; ``delta_e = 0`` is allowed).  Above
+    it the squared sound speed is the constant ``s`` (the constant-sound-speed
+    construction of Alford, Han & Prakash 2013, PRD 88, 083013), which is
+    closed-form in ``h``: with ``w = e + p`` and ``w_+ = e_t + delta_e + p_t``,
+
+        w   = w_+ exp((1 + s) (h - h_t) / s),
+        p   = p_t + s (w - w_+) / (1 + s),
+        rho = rho_+ exp((h - h_t) / s),   rho_+ = rho_t w_+ / (e_t + p_t),
+
+    (``dp/dh = w``, ``de/dh = w / s``, ``d ln rho / dh = 1 / s``; the rest-mass
+    density jumps with ``e`` at fixed chemical potential ``w / rho``).
+
+    Parameters
+    ----------
+    base : EOSBatch
+        The EOS below the transition.
+    h_t, p_t, w_plus, rho_plus, cs2 : ndarray, shape (n_eos,)
+        Transition enthalpy, pressure, ``e + p`` and ``rho`` just above it, and
+        ``s`` (geometrised units).
+    delta_e : ndarray, shape (n_eos,)
+        The jump of the energy density (km^-2); 0 for a continuous transition.
+    """
+
+    base: EOSBatch
+    h_t: np.ndarray
+    p_t: np.ndarray
+    w_plus: np.ndarray
+    rho_plus: np.ndarray
+    cs2: np.ndarray
+    delta_e: np.ndarray
+
+    @property
+    def n_eos(self) -> int:
+        return self.base.n_eos
+
+    @property
+    def kinks(self) -> np.ndarray:
+        ht = self.h_t[:, None]
+        below = np.where(self.base.kinks < ht, self.base.kinks, np.inf)
+        return np.sort(np.concatenate([below, ht], axis=1), axis=1)
+
+    @property
+    def jumps(self) -> np.ndarray:
+        return np.where(self.delta_e > 0, self.h_t, np.inf)[:, None]
+
+    @property
+    def h_max(self) -> np.ndarray:
+        return np.full(self.n_eos, np.inf)
+
+    @property
+    def e_surface(self) -> np.ndarray:
+        return self.base.e_surface
+
+    def select(self, eos_index):
+        i = np.asarray(eos_index)
+        return TransitionBatch(self.base.select(i), self.h_t[i], self.p_t[i], self.w_plus[i], self.rho_plus[i],
+                               self.cs2[i], self.delta_e[i])
+
+    def lanes(self, eos_index):
+        return _TransitionLanes(self, np.asarray(eos_index))
+
+
+class _TransitionLanes:
+    def __init__(self, batch: TransitionBatch, eos_index):
+        self._base = batch.base.lanes(eos_index)
+        self._h_t = batch.h_t[eos_index]
+        self._p_t = batch.p_t[eos_index]
+        self._w_plus = batch.w_plus[eos_index]
+        self._rho_plus = batch.rho_plus[eos_index]
+        self._s = batch.cs2[eos_index]
+
+    def _above(self, h):
+        s = self._s
+        x = h - self._h_t
+        w = self._w_plus * np.exp((1.0 + s) / s * x)
+        p = self._p_t + s / (1.0 + s) * (w - self._w_plus)
+        return p, w - p, self._rho_plus * np.exp(x / s), w / s
+
+    def eval(self, h, h_loc=None):
+        loc = h if h_loc is None else h_loc
+        above = loc >= self._h_t
+        if above.all():
+            return self._above(h)
+        lo = self._base.eval(np.minimum(h, self._h_t), np.minimum(loc, self._h_t))
+        if not above.any():
+            return lo
+        hi = self._above(np.maximum(h, self._h_t))
+        return tuple(np.where(above, y, x) for x, y in zip(lo, hi))

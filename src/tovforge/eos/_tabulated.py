@@ -13,19 +13,27 @@ units in square brackets, for example::
 Column names: ``pressure`` (or ``p``), ``energy_density`` (``e``, ``epsilon``)
 and optionally ``rest_mass_density`` (``rho``, ``n``).  Without a header the
 columns and units are given as options (``columns=`` and ``units=``, comma
-separated).  Rows must be positive and increasing in both pressure and energy
-density.  The first row is the stellar surface (``h = 0``).
+separated).  Rows must be positive, the energy density (and rest-mass
+density) increasing strictly and the pressure never decreasing.  Two rows of
+equal pressure are a first-order phase transition (a Maxwell construction):
+``e`` jumps from the first to the second (more rows of one pressure are merged
+into their first and last); a row written twice (equal ``p`` and ``e``) is a
+break without a jump, where the sound speed may be discontinuous.  The first row is the stellar surface (``h = 0``);
+a warning says so when its pressure is far from zero.
 
 Between rows, ``ln e`` is a monotone cubic (PCHIP) function of ``ln p``; the
 sound speed is the derivative of that interpolant and the pseudo-enthalpy its
 integral.  Without a rest-mass column the first law ``d ln rho = de / (e + p)``
-gives the rest-mass density, normalised to ``rho = e`` at the first row.
+gives the rest-mass density, normalised to ``rho = e`` at the first row; at a
+transition it jumps at fixed chemical potential, ``rho ~ e + p``.
 """
 
 from __future__ import annotations
 
 import math
 import re
+import warnings
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -35,7 +43,8 @@ from ..units import C_CGS, DENSITY_CGS_TO_GEOM, MEV_FM3_TO_DYN_CM2, MEV_FM3_TO_G
 from ._base import EOS, EOSFamily, register_family
 from ._batch import HermiteTable
 
-__all__ = ["Tabulated", "read_table", "TableData", "ATOMIC_MASS_UNIT_G"]
+__all__ = ["Tabulated", "read_table", "table_batch", "table_rows", "write_table", "TableData", "TableBatch", "ATOMIC_MASS_UNIT_G",
+           "KINK_CURVATURE_JUMP", "MAX_TABLE_KINKS", "SURFACE_PRESSURE_RATIO"]
 
 #: Atomic mass unit in g (CODATA 2018), used to turn a baryon number density
 #: into a rest-mass density (a convention; common practice uses m_u or m_n).
@@ -90,6 +99,7 @@ _UNITS = {
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eEdD][+-]?\d+)?$|^[+-]?(nan|inf|infinity)$", re.IGNORECASE)
 
 
+@dataclass(frozen=True)
 class TableData:
     """Validated rows of a tabulated EOS in cgs units.
 
@@ -99,13 +109,49 @@ class TableData:
     rest_mass_density_g_cm3 : ndarray or None
     source : str
         Where the rows came from (file name).
+    jump_rows : ndarray of int
+        Rows ``k`` whose pressure equals that of row ``k + 1``: a first-order
+        phase transition from ``e[k]`` to ``e[k + 1]`` (more than two rows of one
+        pressure are merged into their first and last; ``e[k] = e[k + 1]`` is a
+        break without a jump).
+    line_numbers : list of int
+        Line of the file of each row.
     """
 
-    def __init__(self, p, e, rho, source):
-        self.pressure_dyn_cm2 = p
-        self.energy_density_g_cm3 = e
-        self.rest_mass_density_g_cm3 = rho
-        self.source = source
+    pressure_dyn_cm2: np.ndarray
+    energy_density_g_cm3: np.ndarray
+    rest_mass_density_g_cm3: np.ndarray | None
+    source: str
+    jump_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    line_numbers: list = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class TableBatch(HermiteTable):
+    """A :class:`HermiteTable` made from a file, which keeps the file's rows.
+
+    ``row_pressure`` and ``row_energy_density`` (geometrised, shape (n_rows,))
+    let the solver tell the causality of the rows from that of the
+    interpolant.
+    """
+
+    row_pressure: np.ndarray | None = None
+    row_energy_density: np.ndarray | None = None
+
+    def select(self, eos_index):
+        sub = HermiteTable.select(self, eos_index)
+        return TableBatch(sub.h_nodes, sub.coef, sub.kink_h, sub.e_surface_, sub.jump_h, self.row_pressure,
+                          self.row_energy_density)
+
+    def with_rows(self, p, e) -> "TableBatch":
+        """The same table keeping the rows ``p``, ``e`` (geometrised, km^-2)."""
+        return replace(self, row_pressure=np.asarray(p, float), row_energy_density=np.asarray(e, float))
+
+    def row_sound_speed_sq(self, p_upper: float) -> float:
+        """Largest secant ``dp/de`` between consecutive rows of one phase up to ``p_upper`` (km^-2)."""
+        dp, de = np.diff(self.row_pressure), np.diff(self.row_energy_density)
+        use = (self.row_pressure[1:] <= p_upper * (1.0 + 1e-12)) & (dp > 0)
+        return float(np.max(dp[use] / de[use], initial=0.0))
 
 
 def _split(line: str) -> list[str]:
@@ -225,73 +271,244 @@ def read_table(path, columns: str | None = None, units: str | None = None) -> Ta
             data[r, c] = v * factors[c]
     linenos = [ln for ln, _ in rows]
     cols = {n: data[:, k] for k, n in enumerate(names)}
-    for name in names:
-        bad = np.flatnonzero(np.diff(cols[name]) <= 0)
-        if bad.size:
-            j = bad[0] + 1
-            raise TableFormatError(
-                f"{path}:{linenos[j]}: {name} must increase strictly from row to row "
-                f"({cols[name][j - 1]:.6g} then {cols[name][j]:.6g}, cgs)."
-            )
-    return TableData(cols["pressure"], cols["energy_density"], cols.get("rest_mass_density"), str(path))
+    return _checked_rows(cols, linenos, path)
+
+
+def _checked_rows(cols: dict, linenos: list[int], path) -> TableData:
+    """Check monotonicity, find the phase transitions, merge rows of one pressure."""
+    p, e = cols["pressure"], cols["energy_density"]
+    rho = cols.get("rest_mass_density")
+    n = p.size
+
+    def fail(j, message):
+        raise TableFormatError(f"{path}:{linenos[j]}: {message}")
+
+    for j in range(1, n):  # rows of a file: a Python loop outside any hot path
+        if p[j] < p[j - 1]:
+            fail(j, f"pressure must not decrease from row to row ({p[j - 1]:.6g} then {p[j]:.6g} dyn/cm^2).")
+        split = p[j] == p[j - 1]  # a phase transition, or (e repeated too) a declared break without a jump
+        if e[j] < e[j - 1] or (e[j] == e[j - 1] and not split):
+            what = ("energy_density must not fall across a phase transition (rows of equal pressure): the jump "
+                    "must be positive" if split else "energy_density must increase strictly from row to row")
+            fail(j, f"{what} ({e[j - 1]:.6g} then {e[j]:.6g} g/cm^3).")
+        if rho is not None and (rho[j] < rho[j - 1] or (rho[j] == rho[j - 1] and e[j] > e[j - 1])):
+            fail(j, f"rest_mass_density must increase strictly from row to row ({rho[j - 1]:.6g} then "
+                    f"{rho[j]:.6g} g/cm^3).")
+    same = np.flatnonzero(p[1:] == p[:-1])  # row j and j + 1 share a pressure
+    if same.size and same[0] == 0:
+        fail(1, "a phase transition (rows of equal pressure) cannot start at the first row: the table needs "
+                "rows of the phase below it.")
+    # Three or more rows of one pressure (a sampled mixed phase) are one jump
+    # from the first to the last of them: drop the rows in between.
+    keep = np.ones(n, dtype=bool)
+    keep[same[1:][np.diff(same) == 1]] = False
+    idx = np.flatnonzero(keep)
+    pk = p[idx]
+    jump_at = np.flatnonzero(pk[1:] == pk[:-1])  # kept row k (below) and k + 1 (above)
+    if jump_at.size and jump_at[-1] == idx.size - 2:
+        fail(idx[-1], "a phase transition at the last row leaves no rows of the phase above it.")
+    return TableData(p[idx], e[idx], None if rho is None else rho[idx], str(path), jump_at,
+                     [linenos[i] for i in idx])
+
+
+#: Rows where the curvature of the interpolant ``d^2 ln e / d (ln p)^2``, times the
+#: row spacing in ``ln p``, jumps by more than this become nodes of every star's
+#: integration grid (see :func:`table_batch`).
+KINK_CURVATURE_JUMP = 1e-3
+#: At most this many such rows (the largest jumps) become nodes.
+MAX_TABLE_KINKS = 96
+
+
+def _smooth_between(P, x, y, breaks):
+    """A C2 cubic spline through the rows between kinks, C1 (PCHIP's slopes) at the kinks.
+
+    Between the kink rows ``breaks`` each stretch of rows gets the cubic spline
+    that takes PCHIP's slopes at its two ends (clamped), so the interpolant is
+    twice differentiable at every other row: a Runge-Kutta step that straddles
+    such a row keeps its order.  A stretch whose spline is not increasing
+    (``c_s^2`` would leave (0, inf)), or that has fewer than 4 rows, keeps PCHIP.
+    """
+    from scipy.interpolate import CubicSpline, PPoly
+
+    dP = P.derivative()
+    coef = P.c.copy()
+    edges = np.concatenate([[0], np.asarray(breaks, int), [x.size - 1]])
+    for i, j in zip(edges[:-1], edges[1:]):  # one stretch per kink (a handful)
+        if j - i < 3:
+            continue
+        S = CubicSpline(x[i:j + 1], y[i:j + 1], bc_type=((1, float(dP(x[i]))), (1, float(dP(x[j])))))
+        t = np.linspace(0.0, 1.0, 5)
+        probe = (x[i:j, None] + t * np.diff(x[i:j + 1])[:, None]).ravel()
+        if np.all(S.derivative()(probe) > 0):
+            coef[:, i:j] = S.c
+    return PPoly(coef, x)
 
 
 def table_batch(data: TableData, cells: int = 2048) -> HermiteTable:
     """Turn validated rows into a :class:`HermiteTable` in geometrised units.
 
-    ``ln e`` is a PCHIP function ``F`` of ``ln p`` (Fritsch & Carlson 1980,
-    SIAM J. Numer. Anal. 17, 238), resampled on about ``cells`` intervals that
-    never straddle a row of the file.  With ``w = e + p``:
-    ``c_s^2 = (p/e) / F'``, ``dh = p / w d ln p`` and
+    Between rows of one phase, ``ln e`` is a function ``F`` of ``ln p``,
+    resampled on about ``cells`` intervals that never straddle a row of the
+    file.  With ``w = e + p``: ``c_s^2 = (p/e) / F'``, ``dh = p / w d ln p`` and
     ``d ln c_s^2 / d ln p = 1 - F' - F''/F'``.
+
+    ``F`` starts as the monotone cubic PCHIP (Fritsch & Carlson 1980, SIAM J.
+    Numer. Anal. 17, 238), which is only once differentiable: its ``F''`` jumps
+    at every row, by about the row spacing at smooth rows and by much more
+    where a kink of the underlying EOS falls between two rows.  A fixed
+    Runge-Kutta step that straddles such jumps loses its order (measured: 16
+    steps gave Lambda 9 % off on a 2000-row table).  So rows where ``F''``
+    times the row spacing jumps by more than :data:`KINK_CURVATURE_JUMP` become
+    kinks (nodes of every star), and between them ``F`` is the cubic spline
+    with PCHIP's slopes at the kinks (:func:`_smooth_between`): twice
+    differentiable at every other row.
+
+    A phase transition (rows ``k`` and ``k + 1`` of equal pressure) splits the
+    table: each phase is interpolated on its own, ``h`` is continuous, and the
+    node at the transition is written twice (below and above the jump).
     """
     from scipy.interpolate import PchipInterpolator
 
     from ._core_tables import cumulative_corrected_trapezoid
 
-    lp = np.log(data.pressure_dyn_cm2 * PRESSURE_CGS_TO_GEOM)
-    le = np.log(data.energy_density_g_cm3 * DENSITY_CGS_TO_GEOM)
-    F = PchipInterpolator(lp, le)
-    dF, d2F = F.derivative(), F.derivative(2)
-    n_rows = len(lp)
-    sub = max(1, math.ceil(cells / (n_rows - 1)))
+    lp_all = np.log(data.pressure_dyn_cm2 * PRESSURE_CGS_TO_GEOM)
+    le_all = np.log(data.energy_density_g_cm3 * DENSITY_CGS_TO_GEOM)
+    lr_all = (None if data.rest_mass_density_g_cm3 is None
+              else np.log(data.rest_mass_density_g_cm3 * DENSITY_CGS_TO_GEOM))
+    bounds = np.concatenate([[0], data.jump_rows + 1, [lp_all.size]])
+    sub = max(1, math.ceil(cells / max(lp_all.size - 1 - data.jump_rows.size, 1)))
     frac = np.arange(sub) / sub
-    x = np.append((lp[:-1, None] + frac * np.diff(lp)[:, None]).ravel(), lp[-1])
-    dx = np.diff(x)
-    x_lo, x_hi = x[:-1] + 1e-9 * dx, x[1:] - 1e-9 * dx  # one-sided second derivatives
-    p, e = np.exp(x), np.exp(F(x))
-    Fp = dF(x)
-    w = e + p
-    cs2 = (p / e) / Fp
-    q = p / w
-    dq = p * e * (1.0 - Fp) / (w * w)
-    h = cumulative_corrected_trapezoid(q, dq, x)
+    parts = {k: [] for k in ("h", "p", "e", "rho", "cs2", "dcs2", "d1r", "d2r")}
+    kink_h, kink_score, jump_h = [], [], []
+    h0, rho_below = 0.0, None
+    for a, b in zip(bounds[:-1], bounds[1:]):  # one pass per phase (a handful)
+        lp, le = lp_all[a:b], le_all[a:b]
+        P = PchipInterpolator(lp, le)
+        # Rows where PCHIP's F'' jumps by much (times the row spacing: the jump of the slope F'
+        # that a kink of the EOS smoothed over one row interval would have; at smooth rows it falls
+        # like the spacing squared) are kinks: nodes of every star.
+        dxr = np.diff(lp)
+        d2P = P.derivative(2)
+        jump = np.abs(d2P(lp[1:-1] + 1e-9 * dxr[1:]) - d2P(lp[1:-1] - 1e-9 * dxr[:-1])) * 0.5 * (dxr[1:] + dxr[:-1])
+        big = np.flatnonzero(jump > KINK_CURVATURE_JUMP)
+        F = _smooth_between(P, lp, le, big + 1)
+        dF, d2F = F.derivative(), F.derivative(2)
+        x = np.append((lp[:-1, None] + frac * np.diff(lp)[:, None]).ravel(), lp[-1])
+        dx = np.diff(x)
+        x_lo, x_hi = x[:-1] + 1e-9 * dx, x[1:] - 1e-9 * dx  # inside each cell: one-sided F''
+        p, e = np.exp(x), np.exp(F(x))
+        Fp = dF(x)
+        w = e + p
+        cs2 = (p / e) / Fp
+        q = p / w
+        dq = p * e * (1.0 - Fp) / (w * w)
+        h = h0 + cumulative_corrected_trapezoid(q, dq, x)
 
-    def dcs2_dh(xx, idx):
-        fp = dF(xx)
-        return cs2[idx] * (1.0 - fp - d2F(xx) / fp) * (w[idx] / p[idx])
+        def dcs2_dh(xx, idx):
+            fp = dF(xx)
+            return cs2[idx] * (1.0 - fp - d2F(xx) / fp) * (w[idx] / p[idx])
 
-    dcs2 = np.stack([dcs2_dh(x_lo, slice(0, -1)), dcs2_dh(x_hi, slice(1, None))], axis=-1)
-    lnrho_derivs = None
-    if data.rest_mass_density_g_cm3 is not None:
-        G = PchipInterpolator(lp, np.log(data.rest_mass_density_g_cm3 * DENSITY_CGS_TO_GEOM))
-        dG, d2G = G.derivative(), G.derivative(2)
-        rho = np.exp(G(x))
+        dcs2 = np.stack([dcs2_dh(x_lo, slice(0, -1)), dcs2_dh(x_hi, slice(1, None))], axis=-1)
         L1p = w / p
-        L2p = L1p * (1.0 + 1.0 / cs2) - L1p * L1p
-        d1 = dG(x) * L1p
-        d2_lo = d2G(x_lo) * L1p[:-1] ** 2 + dG(x[:-1]) * L2p[:-1]
-        d2_hi = d2G(x_hi) * L1p[1:] ** 2 + dG(x[1:]) * L2p[1:]
-        lnrho_derivs = (d1[None], np.stack([d2_lo, d2_hi], axis=-1)[None])
-    else:
-        r = e * Fp / w
-        dw = e * Fp + p
-        dr = (e * Fp * Fp + e * d2F(x)) / w - e * Fp * dw / (w * w)
-        rho = e[0] * np.exp(cumulative_corrected_trapezoid(r, dr, x))
-    return HermiteTable.from_samples(
-        h[None], p[None], e[None], rho[None], cs2[None], dcs2[None], e_surface=np.array([e[0]]),
-        lnrho_derivs=lnrho_derivs,
-    )
+        if lr_all is not None:
+            G = PchipInterpolator(lp, lr_all[a:b])
+            dG, d2G = G.derivative(), G.derivative(2)
+            rho = np.exp(G(x))
+            L2p = L1p * (1.0 + 1.0 / cs2) - L1p * L1p
+            d1r = dG(x) * L1p
+            d2r = np.stack([d2G(x_lo) * L1p[:-1] ** 2 + dG(x[:-1]) * L2p[:-1],
+                            d2G(x_hi) * L1p[1:] ** 2 + dG(x[1:]) * L2p[1:]], axis=-1)
+        else:
+            # First law d ln rho / d ln p = e F' / w, integrated with one-sided
+            # derivatives per cell (F'' jumps at rows).  The rest-mass density
+            # is rho = e at the first row and jumps at a transition with e + p
+            # (the chemical potential w / rho is continuous).
+            r = e * Fp / w
+            dw = e * Fp + p
+
+            def dr(xx, idx):
+                return (e[idx] * Fp[idx] ** 2 + e[idx] * d2F(xx)) / w[idx] - e[idx] * Fp[idx] * dw[idx] / w[idx] ** 2
+
+            r_cells = np.stack([r[:-1], r[1:]], axis=-1)
+            dr_cells = np.stack([dr(x_lo, slice(0, -1)), dr(x_hi, slice(1, None))], axis=-1)
+            rho0 = e[0] if rho_below is None else rho_below * w[0] / (parts["e"][-1][-1] + parts["p"][-1][-1])
+            rho = rho0 * np.exp(cumulative_corrected_trapezoid(r_cells, dr_cells, x))
+            d1r, d2r = None, None
+        if parts["h"]:  # a transition: the node h0 is written again, with the values above the jump
+            jump_h.append(h0)
+            kink_h.append(h0)
+            kink_score.append(np.inf)
+            for k in ("dcs2", "d2r"):
+                if parts[k][0] is not None:
+                    parts[k].append(np.zeros((1, 2)))
+        for k, v in (("h", h), ("p", p), ("e", e), ("rho", rho), ("cs2", cs2), ("dcs2", dcs2), ("d1r", d1r),
+                     ("d2r", d2r)):
+            parts[k].append(v)
+        kink_h.extend(h[(big + 1) * sub])
+        kink_score.extend(jump[big])
+        h0, rho_below = h[-1], rho[-1]
+    cat = {k: (np.concatenate(v) if v[0] is not None else None) for k, v in parts.items()}
+    order = np.argsort(-np.asarray(kink_score), kind="stable")[: MAX_TABLE_KINKS + len(jump_h)]
+    kinks = np.sort(np.asarray(kink_h, float)[order])
+    lnrho_derivs = None if cat["d1r"] is None else (cat["d1r"][None], cat["d2r"][None])
+    return TableBatch.from_samples(
+        cat["h"][None], cat["p"][None], cat["e"][None], cat["rho"][None], cat["cs2"][None], cat["dcs2"][None],
+        kink_h=kinks[None], e_surface=np.array([cat["e"][0]]), lnrho_derivs=lnrho_derivs,
+        jump_h=np.array(jump_h, float).reshape(1, -1),
+    ).with_rows(np.exp(lp_all), np.exp(le_all))
+
+
+#: A table whose first row has ``p / (e c^2)`` above this starts far from zero
+#: pressure: the layers below its first row would move R by more than about 1 m.
+SURFACE_PRESSURE_RATIO = 1e-5
+
+
+def _warn_surface(data: TableData) -> None:
+    """Warn when the first row, taken as the surface, is far from zero pressure."""
+    p0, e0 = data.pressure_dyn_cm2[0], data.energy_density_g_cm3[0]
+    ratio = p0 / (e0 * C_CGS**2)
+    if ratio > SURFACE_PRESSURE_RATIO:
+        # Missing enthalpy ~ (n + 1) p0 / e0 for an envelope of polytropic index n ~ 1.5, times
+        # dr/dh = R (R - 2M) / M ~ 45 km for a 1.4 Msun star of 12 km: a rough size, said so.
+        short_km = 110.0 * ratio
+        line = data.line_numbers[0] if data.line_numbers else 1
+        warnings.warn(
+            f"{data.source}:{line}: the first row (p = {p0:.4g} dyn/cm^2, e = {e0:.4g} g/cm^3, p/(e c^2) = "
+            f"{ratio:.2g}) is taken as the stellar surface (zero pressure outside it), so the layers below that "
+            f"pressure are missing: radii come out short, by roughly {short_km:.2g} km at 1.4 Msun. Prepend rows "
+            "of a crust down to about 1e4 g/cm^3 for exact radii.",
+            stacklevel=3,
+        )
+
+
+def table_rows(eos_obj, n_rows: int, rho_lo_g_cm3: float = 1.0, rho_hi_g_cm3: float = 1e16):
+    """``n_rows`` exact points of an EOS, log-spaced in rest-mass density.
+
+    The positions come from interpolating a fine sample in ``ln h`` (up to the
+    EOS's largest enthalpy, or ``h = 3``); the values are evaluated exactly at
+    those positions.  Returns an :class:`~tovforge.eos.EOSPoint` (cgs).
+    """
+    h_max = min(eos_obj.h_max * 0.999, 3.0)
+    hf = np.geomspace(1e-12, h_max, 200001)
+    rf = eos_obj.evaluate(hf).rest_mass_density_g_cm3
+    target = np.geomspace(rho_lo_g_cm3, min(rho_hi_g_cm3, rf[-1]), int(n_rows))
+    return eos_obj.evaluate(np.exp(np.interp(np.log(target), np.log(rf), np.log(hf))))
+
+
+def write_table(path, columns, rest_mass: bool = True):
+    """Write EOS rows as a table file this module reads (header with units, 17 digits).
+
+    ``columns`` is an :class:`~tovforge.eos.EOSPoint` or a tuple ``(p, e[, rho])`` in
+    dyn/cm^2 and g/cm^3.  Returns ``path``.
+    """
+    path = Path(path)
+    if hasattr(columns, "pressure_dyn_cm2"):
+        columns = (columns.pressure_dyn_cm2, columns.energy_density_g_cm3, columns.rest_mass_density_g_cm3)
+    cols = list(columns[:3] if rest_mass else columns[:2])
+    head = "# pressure[dyn/cm^2], energy_density[g/cm^3]" + (", rest_mass_density[g/cm^3]" if rest_mass else "")
+    lines = [head] + [", ".join(f"{v:.17e}" for v in row) for row in zip(*cols)]
+    path.write_text("\n".join(lines) + "\n")
+    return path
 
 
 class Tabulated(EOSFamily):
@@ -314,6 +531,7 @@ class Tabulated(EOSFamily):
             raise InvalidEOSParameter("table needs parameter 'path' (the EOS file).")
         data = read_table(values["path"], values.get("columns"), values.get("units"))
         params = {k: str(v) for k, v in values.items()}
+        _warn_surface(data)
         return EOS(self, params, table_batch(data))
 
     def _build(self, theta):

@@ -19,7 +19,7 @@ from __future__ import annotations
 from ._design import design_points
 from ._info import describe_grid
 from ._run import RunSummary, parts_folder, run_grid
-from ._solve import STATUS_NAMES, ChunkResult, solve_chunk, stars_at_masses
+from ._solve import ChunkResult, solve_chunk
 from ._spec import (
     AT_MASS,
     CURVES,
@@ -42,7 +42,6 @@ __all__ = [
     "FORMAT",
     "FORMAT_VERSION",
     "SCALARS",
-    "STATUS_NAMES",
     "ChunkResult",
     "DesignSpec",
     "GridData",
@@ -60,5 +59,4 @@ __all__ = [
     "read_grid",
     "run_grid",
     "solve_chunk",
-    "stars_at_masses",
 ]

@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ._solve import STATUS_NAMES
+from ..status import Status
 from ._spec import SCALARS
 from ._store import _hash_datasets, open_grid_file
 
@@ -73,12 +73,12 @@ def describe_grid(path) -> str:
             lines.append(f"description: {a['description']}")
         lines.append("")
         lines.append("status:")
-        for c, name in STATUS_NAMES.items():
+        for c in Status:
             n = int((code == c).sum())
             example = ""
             if n and c:
                 example = f"   e.g. {reason[np.flatnonzero(code == c)[0]]}"
-            lines.append(f"  {c} {name:<24}{n:>8}{example}")
+            lines.append(f"  {int(c)} {c.label:<28}{n:>8}{example}")
         lines.append("")
         lines.append("parameters (box of the spec; values of all points):")
         names = h5["parameters/names"].asstr()[...]

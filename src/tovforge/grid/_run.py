@@ -31,6 +31,7 @@ from .._extras import require
 from .._progress import progress_bar
 from .._provenance import provenance, utc_now
 from ..errors import InputError
+from ..status import Status
 from ._design import design_points
 from ._solve import ChunkResult, solve_chunk
 from ._store import FORMAT, atomic_path, read_chunk, write_chunk, write_grid
@@ -78,9 +79,7 @@ class RunSummary:
         else:
             head = (f"{self.path}: {self.n_points} points in {self.n_chunks} chunks "
                     f"({self.chunks_solved} solved now, {self.chunks_reused} resumed) in {self.seconds:.1f} s.")
-        from ._solve import STATUS_NAMES
-
-        counts = ", ".join(f"{STATUS_NAMES.get(k, k)}: {v}" for k, v in sorted(self.status_counts.items()))
+        counts = ", ".join(f"{Status(k).label}: {v}" for k, v in sorted(self.status_counts.items()))
         return f"{head}\nstatus: {counts}\ncontent sha256: {self.content_sha256}"
 
 
@@ -206,14 +205,7 @@ def _assemble(parts: Path, spec) -> tuple[np.ndarray, ChunkResult]:
         theta, res = read_chunk(_chunk_path(parts, k), spec, k)
         thetas.append(theta)
         results.append(res)
-    merged = ChunkResult(
-        status=np.concatenate([r.status for r in results]),
-        reason=[s for r in results for s in r.reason],
-        scalars={k: np.concatenate([r.scalars[k] for r in results]) for k in results[0].scalars},
-        curves={k: np.concatenate([r.curves[k] for r in results]) for k in results[0].curves},
-        at_mass={k: np.concatenate([r.at_mass[k] for r in results]) for k in results[0].at_mass},
-    )
-    return np.concatenate(thetas), merged
+    return np.concatenate(thetas), ChunkResult.concat(results)
 
 
 def _provenance(spec, manifest: dict) -> dict:

@@ -24,20 +24,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..solve._sequence import stars_at_masses
+from ..status import Status
 
-__all__ = ["STATUS_NAMES", "ChunkResult", "solve_chunk", "stars_at_masses"]
-
-#: Status codes stored for every grid point.
-STATUS_NAMES = {
-    0: "ok",
-    1: "invalid parameters",
-    2: "M_max below the floor",
-    3: "no maximum mass",
-    4: "solver failure",
-}
-# solver status (tovforge.solve.STATUS_MESSAGES) -> grid status
-_FROM_SOLVER = {1: 3, 2: 3, 3: 4}
+__all__ = ["ChunkResult", "solve_chunk"]
 
 
 @dataclass(frozen=True)
@@ -47,7 +36,7 @@ class ChunkResult:
     Attributes
     ----------
     status : ndarray of int8, shape (n,)
-        Codes of :data:`STATUS_NAMES`.
+        :class:`~tovforge.status.Status` codes.
     reason : list of str
         Empty for status 0, otherwise one line naming the cause.
     scalars : dict of str to ndarray, shape (n,)
@@ -61,32 +50,52 @@ class ChunkResult:
     curves: dict
     at_mass: dict
 
+    @classmethod
+    def concat(cls, results) -> ChunkResult:
+        """The points of ``results`` (a sequence of ChunkResult with the same outputs), in order."""
+        results = list(results)
+        first = results[0]
+        return cls(
+            status=np.concatenate([r.status for r in results]),
+            reason=[s for r in results for s in r.reason],
+            scalars={k: np.concatenate([r.scalars[k] for r in results]) for k in first.scalars},
+            curves={k: np.concatenate([r.curves[k] for r in results]) for k in first.curves},
+            at_mass={k: np.concatenate([r.at_mass[k] for r in results]) for k in first.at_mass},
+        )
+
+
+def _scalar(seq, name: str, floor: float) -> np.ndarray:
+    # the margin to the spec's floor is the grid's own output; the rest are the solver's, by name
+    if name == "mass_max_margin_msun":
+        return seq.value("mass_max_msun") - floor
+    return seq.value(name)
+
 
 def _solve_valid(family, theta, spec) -> dict:
     """Vectorised solve of valid rows: raw arrays for :func:`solve_chunk`."""
-    from ..solve import solve_sequences
+    from ..solve import solve_sequences, stars_at_masses
 
     settings = spec.solver.sequence_settings()
+    o = spec.outputs
     batch = family.build(theta)
     seq = solve_sequences(batch, n_stars=spec.solver.branch_stars, settings=settings, exact_maximum=True)
-    m_max = np.asarray(seq.mass_max.mass_msun, float)
-    u = np.asarray(spec.outputs.u_nodes, float)
-    masses = np.asarray(spec.outputs.masses_msun, float)
+    m_max = np.asarray(seq.value("mass_max_msun"), float)
+    u = np.asarray(o.u_nodes, float)
+    masses = np.asarray(o.masses_msun, float)
     targets = np.concatenate([np.broadcast_to(masses, (len(theta), masses.size)),
                               m_max[:, None] * (1.0 - u[None, :] ** 2)], axis=1)
-    vals, below, not_found = stars_at_masses(batch, seq, targets, settings.steps, rtol=spec.solver.mass_rtol)
+    query = stars_at_masses(batch, seq, targets, settings.steps, rtol=spec.solver.mass_rtol)
     n_m = masses.size
+    at_mass = query.stars.select((slice(None), slice(0, n_m)))
+    nodes = query.stars.select((slice(None), slice(n_m, None)))
     return {
         "solver_status": np.asarray(seq.status),
         "mass_max_msun": m_max,
-        "radius_at_mass_max_km": np.asarray(seq.mass_max.radius_km, float),
-        "central_pressure_at_mass_max_dyn_cm2": np.asarray(seq.mass_max.central_pressure_dyn_cm2, float),
-        "max_sound_speed_sq": np.asarray(seq.max_sound_speed_sq, float),
-        "twin_mass_max_msun": np.asarray(seq.twin_mass_max_msun, float),
-        "at_mass": {k: v[:, :n_m] for k, v in vals.items()},
-        "curves": {k: v[:, n_m:] for k, v in vals.items()},
-        "curve_below_branch": below[:, n_m:],
-        "not_found_mass": np.where(not_found, targets, np.nan),
+        "scalars": {k: np.asarray(_scalar(seq, k, spec.mass_max_floor_msun), float) for k in o.scalars},
+        "at_mass": {k: at_mass.value(k) for k in o.at_mass},
+        "curves": {k: nodes.value(k) for k in o.curves},
+        "curve_below_branch": query.below_branch[:, n_m:],
+        "not_found_mass": np.where(query.not_found, targets, np.nan),
     }
 
 
@@ -155,7 +164,6 @@ def solve_chunk(spec, theta: np.ndarray) -> ChunkResult:
         M_max below the floor and solver exceptions become statuses.
     """
     from .. import eos
-    from ..solve import STATUS_MESSAGES
 
     family = eos.get_family(spec.family)
     theta = np.atleast_2d(np.asarray(theta, float))
@@ -170,21 +178,17 @@ def solve_chunk(spec, theta: np.ndarray) -> ChunkResult:
     messages = family.validate_rows(theta)
     for i, msg in enumerate(messages):
         if msg:
-            status[i], reason[i] = 1, msg
+            status[i], reason[i] = Status.INVALID_PARAMETERS, msg
     rows = np.flatnonzero(status == 0)
     if rows.size:
         raw, errors = _solve_rows(family, theta[rows], spec)
         for r, err in zip(rows, errors):
             if err:
-                status[r], reason[r] = 4, f"solver raised {err}"
+                status[r], reason[r] = Status.SOLVER_FAILURE, f"solver raised {err}"
         if raw is not None:
             floor = spec.mass_max_floor_msun
-            derived = {
-                "causality_margin": 1.0 - raw["max_sound_speed_sq"],
-                "mass_max_margin_msun": raw["mass_max_msun"] - floor,
-            }
             for k in o.scalars:
-                scalars[k][rows] = derived[k] if k in derived else raw[k]
+                scalars[k][rows] = raw["scalars"][k]
             for k in o.curves:
                 curves[k][rows] = raw["curves"][k]
             for k in o.at_mass:
@@ -202,16 +206,16 @@ def solve_chunk(spec, theta: np.ndarray) -> ChunkResult:
                     gap = (f"the stable branch starts above the node u = {lowest:.4g} "
                            f"(M = {m_max * (1 - lowest**2):.4g} Msun); lower solver.low_mass_msun")
                 if code:
-                    status[r], reason[r] = _FROM_SOLVER[code], STATUS_MESSAGES[code]
+                    status[r], reason[r] = code, Status(code).message
                 elif m_max < floor:  # rejected anyway: the floor is the reason, whatever else is missing
-                    status[r] = 2
+                    status[r] = Status.BELOW_FLOOR
                     reason[r] = f"M_max = {m_max:.4f} Msun is below the floor mass_max_floor_msun = {floor:g} Msun"
                     reason[r] += f"; {gap} (NaN there)." if gap else "."
                 elif gap:
-                    status[r], reason[r] = 4, gap + "."
+                    status[r], reason[r] = Status.SOLVER_FAILURE, gap + "."
                 elif np.isfinite(raw["not_found_mass"][pos]).any():
                     miss = raw["not_found_mass"][pos]
-                    status[r] = 4
+                    status[r] = Status.SOLVER_FAILURE
                     reason[r] = (f"no exact star found at M = {miss[np.isfinite(miss)][0]:.6g} Msun "
                                  f"within solver.mass_rtol = {spec.solver.mass_rtol:g}.")
     return ChunkResult(status, reason, scalars, curves, at_mass)

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .. import quantities
 from .._toml import array as _list
 from .._toml import check_keys as _check_keys
 from .._toml import in_file, load_toml
@@ -44,29 +45,21 @@ __all__ = [
     "parse_spec",
 ]
 
-#: Scalar outputs: name -> (unit, description).
-SCALARS = {
-    "mass_max_msun": ("Msun", "maximum mass of the stable branch (first maximum of M(p_c))"),
-    "radius_at_mass_max_km": ("km", "radius of the maximum-mass star"),
-    "central_pressure_at_mass_max_dyn_cm2": ("dyn/cm^2", "central pressure of the maximum-mass star"),
-    "max_sound_speed_sq": ("c^2", "largest c_s^2 of the EOS from the surface to the centre of the maximum-mass star"),
-    "causality_margin": ("1", "1 - max_sound_speed_sq (negative: acausal below M_max)"),
-    "mass_max_margin_msun": ("Msun", "mass_max_msun - mass_max_floor_msun of the spec"),
-    "twin_mass_max_msun": ("Msun", "maximum of a second stable branch (NaN if none; scan resolution)"),
-}
-#: Curve outputs, stored at the nodes of u = sqrt(1 - M / M_max): name -> (unit, description).
-CURVES = {
-    "mass_msun": ("Msun", "gravitational mass of the node star (M_max (1 - u^2) to mass_rtol)"),
-    "radius_km": ("km", "circumferential radius"),
-    "tidal_deformability": ("1", "dimensionless tidal deformability Lambda"),
-    "k2": ("1", "quadrupolar tidal Love number"),
-    "moment_of_inertia_1e45_g_cm2": ("1e45 g cm^2", "slow-rotation moment of inertia"),
-    "baryon_mass_msun": ("Msun", "baryon (rest) mass"),
-}
-#: Outputs at fixed masses (NaN above M_max): name -> (unit, description).
-AT_MASS = {k: CURVES[k] for k in ("radius_km", "tidal_deformability", "k2", "moment_of_inertia_1e45_g_cm2",
-                                  "baryon_mass_msun")}
-DEFAULT_AT_MASS = ("radius_km", "tidal_deformability", "moment_of_inertia_1e45_g_cm2")
+
+def _outputs(role: str) -> dict:
+    return {n: (quantities.get(n).unit, quantities.get(n).description) for n in quantities.grid_names(role)}
+
+
+#: Outputs a grid may store, from :mod:`tovforge.quantities`: name -> (unit, description).
+#: Scalars (one value per point):
+SCALARS = _outputs("scalar")
+#: curves at the nodes of u = sqrt(1 - M / M_max):
+CURVES = _outputs("curve")
+#: and values at fixed masses (NaN above M_max).
+AT_MASS = _outputs("at_mass")
+DEFAULT_SCALARS = quantities.grid_defaults("scalar")
+DEFAULT_CURVES = quantities.grid_defaults("curve")
+DEFAULT_AT_MASS = quantities.grid_defaults("at_mass")
 DEFAULT_MASSES = (1.0, 1.2, 1.4, 1.6, 1.8, 2.0, 2.2, 2.4)
 #: Design methods and the keys each takes besides ``method``.
 DESIGNS = {"regular": ("points_per_axis",), "latin-hypercube": ("points", "seed"), "sobol": ("points", "seed")}
@@ -110,7 +103,9 @@ class OutputSpec:
     Attributes
     ----------
     scalars : tuple of str
-        Names from :data:`SCALARS`.
+        Names from :data:`SCALARS` (default: those of
+        :func:`tovforge.quantities.grid_defaults`, as for ``curves`` and
+        ``at_mass``).
     curves : tuple of str
         Names from :data:`CURVES`, stored at ``u_nodes``.
     u_nodes : tuple of float
@@ -122,8 +117,8 @@ class OutputSpec:
         Fixed gravitational masses in Msun, increasing.
     """
 
-    scalars: tuple[str, ...] = tuple(SCALARS)
-    curves: tuple[str, ...] = tuple(CURVES)
+    scalars: tuple[str, ...] = DEFAULT_SCALARS
+    curves: tuple[str, ...] = DEFAULT_CURVES
     u_nodes: tuple[float, ...] = tuple(chebyshev_lobatto_nodes(24, 0.85).tolist())
     at_mass: tuple[str, ...] = DEFAULT_AT_MASS
     masses_msun: tuple[float, ...] = DEFAULT_MASSES

@@ -38,7 +38,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ._solve import STATUS_NAMES, ChunkResult
+from ..status import Status
+from ._solve import ChunkResult
 from ._spec import AT_MASS, CURVES, SCALARS
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "GridData", "read_grid", "write_grid", "write_chunk", "read_chunk",
@@ -87,7 +88,7 @@ def _write_rows(h5, theta: np.ndarray, result: ChunkResult) -> None:
     opts = dict(track_times=False)  # no timestamps inside: equal content, equal datasets
     h5.create_dataset("parameters/values", data=np.asarray(theta, np.float64), **opts)
     code = h5.create_dataset("status/code", data=np.asarray(result.status, np.int8), **opts)
-    code.attrs["names_json"] = json.dumps({str(k): v for k, v in STATUS_NAMES.items()})
+    code.attrs["names_json"] = _status_names_json()
     h5.create_dataset("status/reason", data=np.array(result.reason, dtype=object),
                       dtype=h5py.string_dtype("utf-8"), **opts)
     for group, values in (("scalars", result.scalars), ("curves", result.curves), ("at_mass", result.at_mass)):
@@ -97,6 +98,11 @@ def _write_rows(h5, theta: np.ndarray, result: ChunkResult) -> None:
             unit, description = _OUTPUT_GROUPS[group][name]
             ds.attrs["unit"] = unit
             ds.attrs["description"] = description
+
+
+def _status_names_json() -> str:
+    """Code -> label of every :class:`~tovforge.status.Status`, as stored in grid files."""
+    return json.dumps({str(k): v for k, v in Status.labels().items()})
 
 
 def _read_rows(h5, spec_outputs=None) -> tuple[np.ndarray, ChunkResult]:
@@ -180,7 +186,7 @@ def write_grid(path: Path, spec, theta: np.ndarray, result: ChunkResult, provena
             a["sequence_coordinate"] = "u = sqrt(1 - M / M_max); u = 0 is the maximum-mass star"
             a["stable_branch"] = ("connected branch of increasing central pressure up to the first maximum of "
                                   "M (turning-point criterion); twin_mass_max_msun records a second branch")
-            a["status_names_json"] = json.dumps({str(k): v for k, v in STATUS_NAMES.items()})
+            a["status_names_json"] = _status_names_json()
             a["spec_json"] = spec.to_json()
             a["spec_toml"] = spec.source
             a["spec_sha256"] = spec.sha256
@@ -283,26 +289,34 @@ def read_grid(path) -> GridData:
     Raises
     ------
     tovforge.errors.InputError
-        If the file does not exist or is not a tovforge grid.
+        If the file does not exist, is not a tovforge grid, or is damaged
+        (a dataset or attribute missing or unreadable).
     """
     with open_grid_file(path) as h5:
-        theta, res = _read_rows(h5)
-        curves = h5.get("curves")
-        at_mass = h5.get("at_mass")
-        return GridData(
-            path=Path(path),
-            family=_attr(h5.attrs["family"]),
-            parameter_names=tuple(h5["parameters/names"].asstr()[...]),
-            parameter_units=tuple(h5["parameters/units"].asstr()[...]),
-            box=h5["parameters/box"][...],
-            parameters=theta,
-            status=res.status,
-            reason=res.reason,
-            scalars=res.scalars,
-            u_nodes=curves["u"][...] if curves is not None and "u" in curves else np.empty(0),
-            curves=res.curves,
-            masses_msun=at_mass["masses_msun"][...] if at_mass is not None and "masses_msun" in at_mass
-            else np.empty(0),
-            at_mass=res.at_mass,
-            attrs={k: _attr(v) for k, v in h5.attrs.items()},
-        )
+        try:
+            return _grid_data(Path(path), h5)
+        except (OSError, KeyError, ValueError, TypeError) as exc:
+            raise InputError(f"{path}: cannot read grid file ({exc}).") from None
+
+
+def _grid_data(path: Path, h5) -> GridData:
+    theta, res = _read_rows(h5)
+    curves = h5.get("curves")
+    at_mass = h5.get("at_mass")
+    return GridData(
+        path=path,
+        family=_attr(h5.attrs["family"]),
+        parameter_names=tuple(h5["parameters/names"].asstr()[...]),
+        parameter_units=tuple(h5["parameters/units"].asstr()[...]),
+        box=h5["parameters/box"][...],
+        parameters=theta,
+        status=res.status,
+        reason=res.reason,
+        scalars=res.scalars,
+        u_nodes=curves["u"][...] if curves is not None and "u" in curves else np.empty(0),
+        curves=res.curves,
+        masses_msun=at_mass["masses_msun"][...] if at_mass is not None and "masses_msun" in at_mass
+        else np.empty(0),
+        at_mass=res.at_mass,
+        attrs={k: _attr(v) for k, v in h5.attrs.items()},
+    )

@@ -6,7 +6,11 @@ it integrates the textbook equations in ``r`` (TOV for ``m`` and the
 enthalpy ``h``, Hinderer's Riccati equation for ``y``, Hartle's second-order
 frame-dragging equation for ``omega`` written as two first-order equations,
 and the baryon mass) with :func:`scipy.integrate.solve_ivp` (DOP853,
-adaptive steps), and stops at the event ``h = 0``.
+adaptive steps), and stops at the event ``h = 0``.  At a jump of the energy
+density (a first-order phase transition at ``h_t``) it stops at the event
+``h = h_t``, applies ``y -> y - 4 pi r^3 Delta e / (m + 4 pi r^3 p)``
+(Damour & Nagar 2009, PRD 80, 084035) and restarts, so that every piece it
+integrates is smooth.
 """
 
 from __future__ import annotations
@@ -51,9 +55,14 @@ def baseline_star(eos, h_c: float, rtol: float = 1e-10, atol: float = 1e-14) -> 
     """
     lanes = eos.batch.lanes(np.zeros(1, dtype=np.intp))
     e_s = float(eos.batch.e_surface[0])
+    jumps = eos.batch.jumps[0]
+    jumps = np.sort(jumps[np.isfinite(jumps) & (jumps < h_c)])[::-1]  # met in this order from the centre
+    phase = [h_c]  # an enthalpy inside the phase being integrated: one-sided EOS values at a jump
 
     def eos_at(h):
-        p, e, rho, dedh = lanes.eval(np.array([max(h, 0.0)]))
+        h = max(h, 0.0)
+        loc = min(h, phase[0])
+        p, e, rho, dedh = lanes.eval(np.array([h]), np.array([loc]))
         return p[0], e[0], rho[0], dedh[0]
 
     p_c, e_c, rho_c, _ = eos_at(h_c)
@@ -79,10 +88,11 @@ def baseline_star(eos, h_c: float, rtol: float = 1e-10, atol: float = 1e-14) -> 
         return [dm, dh, dy, dom, dpsi, dmb]
 
     def surface(r, s):
-        return s[1]
+        return s[1] - h_stop[0]
 
     surface.terminal = True
     surface.direction = -1
+    h_stop = [0.0]
     r0 = 1e-5 * np.sqrt(3.0 * h_c / (2.0 * np.pi * (e_c + 3.0 * p_c)))
     om_prime = 16.0 * np.pi * w_c * r0 / 5.0
     s0 = [
@@ -93,11 +103,23 @@ def baseline_star(eos, h_c: float, rtol: float = 1e-10, atol: float = 1e-14) -> 
         r0**4 * om_prime,
         _FOUR_PI / 3.0 * rho_c * r0**3,
     ]
-    sol = solve_ivp(rhs, (r0, 1e4), s0, method="DOP853", rtol=rtol, atol=atol, events=surface)
-    if sol.status != 1 or len(sol.t_events[0]) == 0:
-        raise RuntimeError(f"baseline integration did not reach the surface: {sol.message}")
-    R = float(sol.t_events[0][0])
-    m, _, y, om, psi, mb = sol.y_events[0][0]
+    nfev = 0
+    for h_t in [*jumps, 0.0]:
+        h_stop[0] = h_t
+        sol = solve_ivp(rhs, (r0, 1e4), s0, method="DOP853", rtol=rtol, atol=atol, events=surface)
+        nfev += sol.nfev
+        if sol.status != 1 or len(sol.t_events[0]) == 0:
+            raise RuntimeError(f"baseline integration did not reach h = {h_t:g}: {sol.message}")
+        r0 = float(sol.t_events[0][0])
+        s0 = np.array(sol.y_events[0][0], float)
+        s0[1] = h_t
+        if h_t > 0.0:
+            p_t, e_in = lanes.eval(np.array([h_t]), np.array([h_t * (1.0 + 1e-9)]))[:2]
+            e_out = lanes.eval(np.array([h_t]), np.array([h_t * (1.0 - 1e-9)]))[1]
+            s0[2] -= _FOUR_PI * r0**3 * (e_in[0] - e_out[0]) / (s0[0] + _FOUR_PI * r0**3 * p_t[0])
+            phase[0] = h_t * (1.0 - 1e-9)
+    R = r0
+    m, _, y, om, psi, mb = s0
     C = m / R
     y_R = y - _FOUR_PI * R**3 * e_s / m
     k2 = float(love_k2(C, y_R))
@@ -111,7 +133,7 @@ def baseline_star(eos, h_c: float, rtol: float = 1e-10, atol: float = 1e-14) -> 
         tidal_deformability=float(tidal_deformability(C, k2)),
         moment_of_inertia_1e45_g_cm2=inertia * MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2,
         baryon_mass_msun=mb / MSUN_KM,
-        nfev=sol.nfev,
+        nfev=nfev,
     )
 
 

@@ -91,3 +91,7 @@ def bench_solver(quick: bool = False, echo=print) -> None:
              f"{e['Lambda']:>9.1e}{e['M_max']:>9.1e}")
     echo("errors: largest relative error over the branch against the same solver with 8x the steps")
     echo("('vs ours': time ratio to tovforge one EOS per call; > 1 means tovforge is faster)")
+
+    from ._bench_exact import bench_exact_rows
+
+    bench_exact_rows(quick, echo, repeat, fine)

@@ -1,4 +1,9 @@
-"""Result objects of the structure solver (frozen dataclasses, astronomers' units)."""
+"""Result objects of the structure solver (frozen dataclasses, astronomers' units).
+
+They are plain data: nothing here calls the solver.  Quantities derived from
+the solver's fields (declared in :mod:`tovforge.quantities`) are computed on
+request by :meth:`Stars.value`.
+"""
 
 from __future__ import annotations
 
@@ -6,16 +11,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["Stars", "MaximumMass", "StarSequence", "StarProfile", "STATUS_MESSAGES"]
+from .. import quantities
+from ..status import Status
 
-#: Status codes of a sequence solve.  A failed solve is a status, not an
-#: exception: grids store the code and the message for each point.
-STATUS_MESSAGES = {
-    0: "Stable branch solved up to the maximum mass.",
-    1: "No maximum of M(h_c) below the largest central enthalpy tried.",
-    2: "The EOS table ends before the maximum mass is reached.",
-    3: "Structure integration failed for too many stars.",
-}
+__all__ = ["Stars", "MaximumMass", "StarSequence", "StarProfile"]
 
 
 @dataclass(frozen=True)
@@ -64,16 +63,48 @@ class Stars:
     def __len__(self) -> int:
         return int(np.size(self.mass_msun))
 
+    def value(self, name: str) -> np.ndarray:
+        """A star quantity by name: a field, or a quantity derived from fields.
+
+        Parameters
+        ----------
+        name : str
+            Canonical name or alias of a star quantity of
+            :data:`tovforge.quantities.QUANTITIES` (``"radius_km"``,
+            ``"lambda"``, ``"moment_of_inertia_over_m3"``, ...).
+
+        Returns
+        -------
+        ndarray
+            Same shape as the fields, in the quantity's unit.
+
+        Raises
+        ------
+        KeyError
+            For an unknown name or a quantity of the whole sequence.
+        """
+        q = quantities.get(name)
+        if q.level != "star":
+            raise KeyError(f"{name!r} is a quantity of the whole sequence, not of each star")
+        if q.derive is None:
+            return getattr(self, q.name)
+        return q.derive({k: self.value(k) for k in q.needs})
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        """``stars[name]`` is :meth:`value`."""
+        return self.value(name)
+
     @property
     def moment_of_inertia_over_m3(self) -> np.ndarray:
-        """Dimensionless ``I / M^3`` (G = c = 1)."""
-        from ..units import MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2, MSUN_KM
+        """Dimensionless ``I / M^3`` (G = c = 1); an alias of ``value("moment_of_inertia_over_m3")``."""
+        return self.value("moment_of_inertia_over_m3")
 
-        i_km3 = self.moment_of_inertia_1e45_g_cm2 / MOMENT_OF_INERTIA_KM3_TO_1E45_G_CM2
-        return i_km3 / (self.mass_msun * MSUN_KM) ** 3
+    def select(self, index) -> Stars:
+        """The stars at ``index`` (any NumPy index, applied to every field)."""
+        return Stars(**{k: np.asarray(v)[index] for k, v in self.as_dict().items()})
 
     def as_dict(self) -> dict:
-        """Field name -> array, for tables and JSON."""
+        """Field name -> array (the solver's fields; derived quantities through :meth:`value`)."""
         return {k: getattr(self, k) for k in self.__dataclass_fields__}
 
 
@@ -119,9 +150,9 @@ class StarSequence:
     ----------
     family : str
     parameters : dict
-    status : int
-        0 on success; see :data:`STATUS_MESSAGES`.
-    message : str
+    status : Status
+        ``Status.OK`` on success; ``NO_MAXIMUM``, ``EOS_ENDS`` or
+        ``SOLVER_FAILURE`` otherwise (``status.message`` says it in words).
     branch : Stars
         Stars along the stable branch in increasing central pressure, from
         below 0.5 Msun (where the EOS allows) up to the maximum mass.
@@ -133,28 +164,30 @@ class StarSequence:
         Exact solves at the requested masses (NaN above M_max).
     nfev : int
         Right-hand-side evaluations (each over all stars of a pass).
+    error_estimate : BranchError or None
+        Estimated relative integration error of each branch star (step
+        doubling; computed for tabulated EOS, or on request).
     """
 
     family: str
     parameters: dict
-    status: int
-    message: str
+    status: Status
     branch: Stars
     mass_max: MaximumMass | None
     twin_mass_max_msun: float = float("nan")
     at_mass: Stars | None = None
     nfev: int = 0
     eos: object = field(default=None, repr=False, compare=False)
+    error_estimate: object = field(default=None, repr=False, compare=False)
 
     @property
     def success(self) -> bool:
-        return self.status == 0
+        return self.status == Status.OK
 
-    def at_masses(self, masses) -> Stars:
-        """Exact solves at the given masses (Msun); NaN above M_max."""
-        from ._sequence import solve_at_masses
-
-        return solve_at_masses(self, masses)
+    @property
+    def message(self) -> str:
+        """The status in words."""
+        return self.status.message
 
 
 @dataclass(frozen=True)

@@ -7,8 +7,8 @@ import numpy as np
 from ..errors import InputError
 from ..units import DENSITY_CGS_TO_GEOM, MSUN_KM, PRESSURE_CGS_TO_GEOM
 from ._result import StarProfile
-from ._sequence import _SV_KEYS, _stars
 from ._structure import StepSettings, integrate_stars
+from ._surface import surface_fields, to_stars
 
 __all__ = ["solve_star", "central_enthalpy"]
 
@@ -66,7 +66,7 @@ def solve_star(eos, central_pseudo_enthalpy=None, *, mass_msun=None, pressure_dy
         from ._sequence import solve_sequence
 
         seq = solve_sequence(eos, n_stars=24, masses=[mass_msun])
-        if seq.status != 0:
+        if not seq.success:
             raise InputError(f"cannot place a star of {mass_msun:g} Msun: {seq.message}")
         h_c = float(seq.at_mass.central_pseudo_enthalpy[0])
         if not np.isfinite(h_c):
@@ -94,7 +94,7 @@ def solve_star(eos, central_pseudo_enthalpy=None, *, mass_msun=None, pressure_dy
     p, e, rho, _ = eos.batch.lanes(np.zeros(H.size, dtype=np.intp)).eval(np.maximum(H, 0.0), loc)
     R, M = float(sv.radius[0]), float(sv.mass[0])
     alpha = 0.5 * np.log1p(-2.0 * M / R) - H
-    star = _stars(eos.batch, [0], [h_c], {k: np.asarray(getattr(sv, k)) for k in _SV_KEYS})
+    star = to_stars(eos.batch, [0], [h_c], surface_fields(sv))
     return StarProfile(
         radius_km=r,
         mass_msun=m / MSUN_KM,

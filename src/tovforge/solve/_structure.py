@@ -30,6 +30,17 @@ The y equation is that of Hinderer (2008, ApJ 677, 1216) and Postnikov,
 Prakash & Lattimer (2010, PRD 82, 024016); the eta equation is Hartle's
 (1967, ApJ 150, 1005) frame-dragging equation written for eta = d ln w/d ln r,
 which gives ``I = R^3 eta_R / (6 + 2 eta_R)``.
+
+First-order phase transitions.  Where the energy density jumps by
+``Delta e = e_inside - e_outside`` at an enthalpy ``h_t`` (a node of every
+star that contains it), ``r``, ``m``, ``p``, ``eta`` and ``M_b`` are
+continuous but ``y`` is not: ``c_s^-2`` holds a delta function there, and
+``y_out = y_in - 4 pi r^3 Delta e / (m + 4 pi r^3 p)`` (Damour & Nagar 2009,
+PRD 80, 084035; Postnikov, Prakash & Lattimer 2010, PRD 82, 024016), i.e.
+``y -= 4 pi Delta e / (v + 4 pi p)``: the interior form of the surface term.
+A star whose centre lies within ``centre_offset`` above ``h_t`` starts its
+integration at ``h_t`` itself (the series about the centre assumes one phase),
+with the jump applied there.
 """
 
 from __future__ import annotations
@@ -127,7 +138,7 @@ class SurfaceValues:
     states: np.ndarray | None = None
 
 
-def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None, n_steps_total=None):
+def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None, n_steps_total=None, h_start=None):
     """Integration nodes from ``h_c (1 - offset)`` down to 0 for each star.
 
     Steps are spread uniformly in the stretched coordinate
@@ -154,6 +165,8 @@ def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None, n_
 
     n_steps_total : int, optional
         Steps per star (default ``settings.n_steps``).
+    h_start : ndarray, shape (n,), optional
+        First node of each star (default ``h_c (1 - settings.centre_offset)``).
 
     Returns
     -------
@@ -170,7 +183,8 @@ def node_grid(h_c, kinks, settings: StepSettings, batch=None, eos_index=None, n_
     h_c = np.asarray(h_c, float)
     n_lanes = h_c.size
     hc = h_c[:, None]
-    h_start = h_c * (1.0 - settings.centre_offset)
+    if h_start is None:
+        h_start = h_c * (1.0 - settings.centre_offset)
     kinks = np.asarray(kinks, float).reshape(n_lanes, -1)
     valid = (kinks > 0.0) & (kinks < h_start[:, None] * (1.0 - 1e-9))
     # Fine reference grid: a few points inside every segment between kinks
@@ -306,6 +320,46 @@ def _rhs_sigma(sigma, Y, lanes, out, sigma_loc):
 _SIGMA_TINY = 1e-15
 
 
+class _Jumps:
+    """Jumps of the energy density met by the stars of one call.
+
+    ``h_c`` and ``h_start`` are the centre and first node of each star: a
+    star whose centre lies less than ``centre_offset`` above a jump starts at
+    the jump (less than 1e-8 above it: its dense core is below every
+    tolerance, and the star is solved as if its centre were at the jump).
+    """
+
+    # Relative distance below which a centre counts as sitting on the jump.
+    _ON_JUMP = 1e-8
+
+    def __init__(self, lanes, jumps, h_c, settings):
+        jumps = np.where(np.isfinite(jumps) & (jumps > 0), jumps, np.inf)
+        self.h = jumps
+        hj = np.where(np.isfinite(jumps), jumps, 1.0)
+        n_lanes, n_j = jumps.shape
+        self.delta_e = np.zeros((n_lanes, n_j))
+        self.p = np.zeros((n_lanes, n_j))
+        for j in range(n_j):  # a handful of transitions, not stars
+            p_in, e_in = lanes.eval(hj[:, j], hj[:, j] * (1.0 + 1e-9))[:2]
+            e_out = lanes.eval(hj[:, j], hj[:, j] * (1.0 - 1e-9))[1]
+            self.delta_e[:, j] = np.where(np.isfinite(jumps[:, j]), e_in - e_out, 0.0)
+            self.p[:, j] = p_in
+        h_start = h_c * (1.0 - settings.centre_offset)
+        inside = (jumps >= h_start[:, None]) & (jumps < h_c[:, None])
+        top = np.max(np.where(inside, jumps, -np.inf), axis=1)
+        on_jump = np.isfinite(top) & (h_c - top < self._ON_JUMP * h_c)
+        self.h_c = np.where(on_jump, top, h_c)
+        self.h_start = np.where(np.isfinite(top) & ~on_jump, top, self.h_c * (1.0 - settings.centre_offset))
+
+    def apply(self, h_node, Y):
+        """Apply ``y -= 4 pi Delta e / (v + 4 pi p)`` where the node ``h_node`` is a jump."""
+        at = self.h == h_node[:, None]
+        if at.any():
+            de = np.sum(np.where(at, self.delta_e, 0.0), axis=1)
+            p = np.sum(np.where(at, self.p, 0.0), axis=1)
+            Y[2] -= _FOUR_PI * de / (Y[1] + _FOUR_PI * p)
+
+
 def integrate_stars(batch, eos_index, h_c, settings: StepSettings = StepSettings(), record: bool = False):
     """Integrate one star per lane and return surface values.
 
@@ -328,8 +382,13 @@ def integrate_stars(batch, eos_index, h_c, settings: StepSettings = StepSettings
     kinks = batch.kinks[eos_index]
     n_kinks = int((np.isfinite(kinks) & (kinks > 0)).sum(axis=1).max(initial=0))
     n_steps = settings.n_steps + settings.steps_per_kink * n_kinks
-    H = node_grid(h_c, kinks, settings, batch, eos_index, n_steps)
-    Y = _centre_series(h_c, h_c - H[0], lanes)
+    jumps = batch.jumps[eos_index]
+    jump = _Jumps(lanes, jumps, h_c, settings) if np.isfinite(jumps).any() else None
+    h_c_series = h_c if jump is None else jump.h_c
+    H = node_grid(h_c_series, kinks, settings, batch, eos_index, n_steps, None if jump is None else jump.h_start)
+    Y = _centre_series(h_c_series, h_c_series - H[0], lanes)
+    if jump is not None:
+        jump.apply(H[0], Y)
     nfev = 1
     n_lanes = h_c.size
     n_stages = len(_STAGE_ROWS)
@@ -354,6 +413,8 @@ def integrate_stars(batch, eos_index, h_c, settings: StepSettings = StepSettings
                 _rhs_sigma(s0 + cj * ds, Ys, lanes, K[jstage], s0 + cloc * ds)
             Y = Y + np.dot(_B, K_flat).reshape(5, n_lanes) * ds
             nfev += n_stages
+            if jump is not None:
+                jump.apply(H[i + 1], Y)
             if record:
                 record_states[i + 1] = Y
     u, v, y, eta, b = Y

@@ -60,12 +60,7 @@ class CheckResult:
 def _read_holdout(path, model: Surrogate):
     from ..grid import read_grid
 
-    try:
-        g = read_grid(path)
-    except InputError:
-        raise
-    except (OSError, KeyError, ValueError) as exc:
-        raise InputError(f"{path}: cannot read grid file ({exc}).") from None
+    g = read_grid(path)  # raises InputError for a missing, foreign or damaged file
     if g.family != model.family:
         raise InputError(f"{path}: held-out grid of family {g.family!r}, but the model is of family {model.family!r}.")
     if list(g.parameter_names) != list(model.parameter_names):

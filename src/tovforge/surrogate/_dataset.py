@@ -19,12 +19,7 @@ USED_STATUSES = (0, 2)
 def _read(path):
     from ..grid import read_grid
 
-    try:
-        return read_grid(path)
-    except InputError:
-        raise
-    except (OSError, KeyError, ValueError) as exc:
-        raise InputError(f"{path}: cannot read grid file ({exc}).") from None
+    return read_grid(path)  # raises InputError for a missing, foreign or damaged file
 
 
 def read_training_data(path, family: str | None = None, min_points: int = 8) -> TrainingData:

@@ -4,7 +4,10 @@ Every table is a set of named columns with units, written as CSV, HDF5 or NPZ
 (chosen by the file extension) with its provenance, and read back by
 :func:`read_table`.
 
-- :func:`sequence_table`: the stable branch of one EOS (exact solves).
+- :func:`sequence_table`: the stable branch of one EOS (exact solves);
+  :func:`star_table`, :func:`stars_text` and :func:`sequence_json` write any
+  stars in the same columns (one per star quantity of
+  :mod:`tovforge.quantities`), as ``tovforge solve`` does.
 - :func:`box_table` / :func:`exact_box_table`: observables over a regular
   slice or grid of parameters, from a surrogate or from exact solves run by
   the grid machinery.
@@ -39,6 +42,17 @@ from ._box import DEFAULT_QUANTITIES, Axis, BoxPlan, box_table, exact_box_table,
 from ._quantities import QUANTITIES, Quantity, parse_quantities
 from ._samples import DEFAULT_SAMPLE_MASSES, DEFAULT_SAMPLE_QUANTITIES, Samples, read_samples, samples_table
 from ._sequence import SEQUENCE_COLUMNS, sequence_table
+from ._stars import (
+    STAR_COLUMNS,
+    profile_json,
+    profile_text,
+    sequence_json,
+    sequence_meta,
+    sequence_text,
+    star_block,
+    star_table,
+    stars_text,
+)
 from ._write import FORMAT, FORMAT_VERSION, Column, Table, TableSummary, TableWriter, read_table, table_format
 
 __all__ = [
@@ -50,6 +64,7 @@ __all__ = [
     "FORMAT_VERSION",
     "QUANTITIES",
     "SEQUENCE_COLUMNS",
+    "STAR_COLUMNS",
     "Axis",
     "BinaryDeformability",
     "BoxPlan",
@@ -71,9 +86,17 @@ __all__ = [
     "lambda_tilde",
     "parse_quantities",
     "plan_box",
+    "profile_json",
+    "profile_text",
     "read_samples",
     "read_table",
     "samples_table",
+    "sequence_json",
+    "sequence_meta",
     "sequence_table",
+    "sequence_text",
+    "star_block",
+    "star_table",
+    "stars_text",
     "table_format",
 ]

@@ -25,8 +25,7 @@ import numpy as np
 
 from .._progress import progress_bar
 from ..errors import InputError
-from ._quantities import (AT_MASS_FIELDS, QUANTITIES, mass_label, model_values, parameter_columns, provenance,
-                          quantity_columns)
+from ._quantities import QUANTITIES, mass_label, model_values, parameter_columns, provenance, quantity_columns
 from ._write import Column, TableSummary, TableWriter, table_format
 
 __all__ = ["Axis", "BoxPlan", "box_table", "exact_box_table", "plan_box", "DEFAULT_QUANTITIES"]
@@ -264,17 +263,6 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
 # exact solves through the grid machinery
 # ---------------------------------------------------------------------------
 
-# quantity -> (group, dataset) of the grid file
-_GRID_SCALARS = {
-    "mass_max": "mass_max_msun",
-    "radius_at_mass_max": "radius_at_mass_max_km",
-    "pressure_at_mass_max": "central_pressure_at_mass_max_dyn_cm2",
-    "max_sound_speed_sq": "max_sound_speed_sq",
-    "causality_margin": "causality_margin",
-    "mass_max_margin": "mass_max_margin_msun",
-}
-
-
 def _one_point_box(v: float) -> tuple[float, float]:
     """Bounds whose centre, as the regular design computes it, is exactly ``v``."""
     for scale in (2.0**-30, 2.0**-31, 2.0**-29, 3 * 2.0**-32, 2.0**-28):
@@ -294,7 +282,7 @@ def grid_spec_for(plan: BoxPlan, family: str, quantities, masses, mass_floor_msu
     for name, v in plan.fixed.items():
         counts[name] = 1
         box[name] = list(_one_point_box(v))
-    at_mass = [AT_MASS_FIELDS[q] for q in quantities if QUANTITIES[q].per_mass]
+    at_mass = [QUANTITIES[q].field for q in quantities if QUANTITIES[q].per_mass]
     n = plan.n_rows
     raw = {
         "description": f"exact box table of {family} ({n} points)",
@@ -351,7 +339,8 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
     import h5py
 
     from .. import eos
-    from ..grid import STATUS_NAMES, run_grid
+    from ..grid import run_grid
+    from ..status import Status
 
     t0 = time.monotonic()
     table_format(out)
@@ -385,7 +374,7 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
     meta = provenance(command, kind="box", source="exact", family=fam.name,
                       quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)),
                       mass_floor_msun=float(mass_floor_msun), sigma=False,
-                      status_names_json=json.dumps(STATUS_NAMES), grid_spec_sha256=spec.sha256,
+                      status_names_json=json.dumps(Status.labels()), grid_spec_sha256=spec.sha256,
                       grid_content_sha256=summary.content_sha256, **plan.meta())
     family_counts = [next((a.n for a in plan.axes if a.name == n), 1) for n in plan.names]
     order = [plan.names.index(a.name) for a in plan.axes] + [plan.names.index(n) for n in plan.fixed]
@@ -400,11 +389,11 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
         grid_masses = [float(m) for m in h5["at_mass/masses_msun"][...]] if "at_mass/masses_msun" in h5 else []
         for q in quantities:
             if QUANTITIES[q].per_mass:
-                data = h5["at_mass"][AT_MASS_FIELDS[q]][...][perm]
+                data = h5["at_mass"][QUANTITIES[q].field][...][perm]
                 for m in masses:
                     values[f"{q}@{mass_label(m)}"] = data[:, grid_masses.index(m)]
             else:
-                values[q] = h5["scalars"][_GRID_SCALARS[q]][...][perm]
+                values[q] = h5["scalars"][QUANTITIES[q].field][...][perm]
     block = dict(zip(plan.names, expected.T))
     block.update(values)
     with TableWriter(out, columns, meta) as w:
@@ -415,6 +404,6 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
     bad = {int(c): int(k) for c, k in zip(codes, n_codes) if c not in (0, 2)}
     notes = []
     if bad:
-        parts = ", ".join(f"{k} {STATUS_NAMES[c]}" for c, k in sorted(bad.items()))
+        parts = ", ".join(f"{k} {Status(c).label}" for c, k in sorted(bad.items()))
         notes.append(f"{sum(bad.values())} of {plan.n_rows} points have no values ({parts}); see the status column.")
     return TableSummary(out, w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0, tuple(notes))

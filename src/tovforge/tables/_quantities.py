@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import _provenance
+from .. import quantities as registry  # functions here take a `quantities` argument (table column names)
 from ..errors import InputError
 from ._write import Column
 
@@ -24,37 +25,45 @@ __all__ = ["Quantity", "QUANTITIES", "parse_quantities", "quantity_columns", "ma
 
 @dataclass(frozen=True)
 class Quantity:
-    """One observable.
+    """One observable of box and samples tables (a view of :data:`tovforge.quantities.QUANTITIES`).
 
     Attributes
     ----------
     name : str
-        Name on the command line and (with ``@<mass>`` for per-mass ones) in tables.
+        Name on the command line and (with ``@<mass>`` for per-mass ones) in
+        tables: the registry's ``column``.
     unit : str
     description : str
     per_mass : bool
         Evaluated at each requested mass (NaN above M_max).
+    field : str
+        The registry's canonical name: the dataset of a grid and the field
+        of :class:`tovforge.surrogate.MassPrediction` (per-mass quantities).
     """
 
     name: str
     unit: str
     description: str
     per_mass: bool = False
+    field: str = ""
+
+
+#: Sequence quantities a model table computes (:func:`model_values` has a rule for each); the exact
+#: tables read the same names from a grid.
+_SCALARS = ("mass_max_msun", "radius_at_mass_max_km", "central_pressure_at_mass_max_dyn_cm2", "max_sound_speed_sq",
+            "causality_margin", "mass_max_margin_msun")
+
+
+def _table_quantities() -> dict:
+    scalars = [registry.get(n) for n in _SCALARS]
+    # per mass: every star quantity a model answers at given masses (its ``query``)
+    per_mass = [q for q in registry.queries() if q.level == "star"]
+    return {q.column: Quantity(q.column, q.unit, q.description, q.level == "star", q.name)
+            for q in (*scalars, *per_mass)}
 
 
 #: Every quantity, by name, in the order tables list them.
-QUANTITIES = {q.name: q for q in (
-    Quantity("mass_max", "Msun", "maximum mass of the stable branch (first maximum of M(p_c))"),
-    Quantity("radius_at_mass_max", "km", "radius of the maximum-mass star"),
-    Quantity("pressure_at_mass_max", "dyn/cm^2", "central pressure of the maximum-mass star"),
-    Quantity("max_sound_speed_sq", "c^2", "largest c_s^2 from the surface to the centre of the maximum-mass star"),
-    Quantity("causality_margin", "1", "1 - max_sound_speed_sq (negative: acausal below M_max)"),
-    Quantity("mass_max_margin", "Msun", "M_max minus the floor mass (negative: below the floor)"),
-    Quantity("radius", "km", "circumferential radius", per_mass=True),
-    Quantity("lambda", "1", "dimensionless tidal deformability Lambda", per_mass=True),
-    Quantity("inertia", "1e45 g cm^2", "slow-rotation moment of inertia", per_mass=True),
-    Quantity("k2", "1", "quadrupolar tidal Love number", per_mass=True),
-)}
+QUANTITIES = _table_quantities()
 
 
 def parse_quantities(names) -> tuple[str, ...]:
@@ -102,11 +111,6 @@ def parameter_columns(names, units) -> list[Column]:
     return [Column(n, u, f"EOS parameter {n}") for n, u in zip(names, units)]
 
 
-#: Per-mass quantity -> field of tovforge.surrogate.MassPrediction (and dataset of a grid's at_mass group).
-AT_MASS_FIELDS = {"radius": "radius_km", "lambda": "tidal_deformability", "inertia": "moment_of_inertia_1e45_g_cm2",
-            "k2": "k2"}
-
-
 def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
     """Values of the quantity columns predicted by a surrogate.
 
@@ -151,8 +155,9 @@ def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
             spread = std["radius_km"][:, 0] if sigma else None
             columns = {name: (value, spread)}
         elif QUANTITIES[name].per_mass:
-            value = getattr(at, AT_MASS_FIELDS[name])
-            spread = at.std[AT_MASS_FIELDS[name]] if sigma else None
+            field = QUANTITIES[name].field
+            value = getattr(at, field)
+            spread = at.std[field] if sigma else None
             columns = {f"{name}@{mass_label(m)}": (value[:, j], None if spread is None else spread[:, j])
                        for j, m in enumerate(masses)}
         else:

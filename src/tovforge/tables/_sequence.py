@@ -2,48 +2,20 @@
 
 from __future__ import annotations
 
-import json
 import time
 import warnings
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
-from ._quantities import provenance
-from ._write import Column, TableSummary, TableWriter, table_format
+from ._stars import STAR_COLUMNS, sequence_meta, star_table
+from ._write import TableSummary, table_format
 
 __all__ = ["SEQUENCE_COLUMNS", "sequence_table", "central_enthalpies"]
 
-#: Columns of a sequence table: (column, unit, description, field of tovforge.solve.Stars).
-SEQUENCE_COLUMNS = (
-    Column("mass", "Msun", "gravitational mass"),
-    Column("radius", "km", "circumferential radius"),
-    Column("compactness", "1", "GM / (R c^2)"),
-    Column("k2", "1", "quadrupolar tidal Love number"),
-    Column("lambda", "1", "dimensionless tidal deformability Lambda = (2/3) k2 / C^5"),
-    Column("inertia", "1e45 g cm^2", "slow-rotation moment of inertia"),
-    Column("inertia_over_m3", "1", "I / M^3 in G = c = 1"),
-    Column("baryon_mass", "Msun", "baryon (rest) mass"),
-    Column("central_pressure", "dyn/cm^2", "central pressure"),
-    Column("central_energy_density", "g/cm^3", "central energy density divided by c^2"),
-    Column("central_density", "g/cm^3", "central rest-mass density"),
-    Column("central_sound_speed_sq", "c^2", "squared sound speed at the centre"),
-    Column("central_pseudo_enthalpy", "1", "central pseudo-enthalpy h_c"),
-)
-_FIELDS = {
-    "mass": "mass_msun", "radius": "radius_km", "compactness": "compactness", "k2": "k2",
-    "lambda": "tidal_deformability", "inertia": "moment_of_inertia_1e45_g_cm2",
-    "inertia_over_m3": "moment_of_inertia_over_m3", "baryon_mass": "baryon_mass_msun",
-    "central_pressure": "central_pressure_dyn_cm2", "central_energy_density": "central_energy_density_g_cm3",
-    "central_density": "central_rest_mass_density_g_cm3", "central_sound_speed_sq": "central_sound_speed_sq",
-    "central_pseudo_enthalpy": "central_pseudo_enthalpy",
-}
-
-
-def _stars_block(stars) -> dict:
-    return {c: np.asarray(getattr(stars, f), float) for c, f in _FIELDS.items()}
+#: Columns of a sequence table: one per star quantity of :mod:`tovforge.quantities`.
+SEQUENCE_COLUMNS = STAR_COLUMNS
 
 
 def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.ndarray:
@@ -73,13 +45,6 @@ def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.n
         lo = np.where(below, mid, lo)
         hi = np.where(below, hi, mid)
     return np.exp(0.5 * (lo + hi))
-
-
-def _stars_at_enthalpies(eos, h_c, steps):
-    # the solver's own conversion to Stars, so every column matches `tovforge solve`
-    from ..solve import solve_stars
-
-    return solve_stars(eos, h_c, steps)
 
 
 def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
@@ -114,7 +79,7 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
         If the EOS has no maximum mass (nothing to tabulate) or the options
         are out of range.
     """
-    from ..solve import SequenceSettings, solve_sequence
+    from ..solve import SequenceSettings, solve_sequence, solve_stars
 
     t0 = time.monotonic()
     table_format(out)
@@ -144,37 +109,18 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
         p = np.exp(np.linspace(np.log(p_lo), np.log(p_hi), int(points)))
         h_c = central_enthalpies(eos, p[1:-1], h_lo, h_hi)
         h_c = np.concatenate([[h_lo], h_c, [h_hi]])  # the end stars exactly, not re-found
-        block = _stars_block(_stars_at_enthalpies(eos, h_c, settings.steps))
-        columns = list(SEQUENCE_COLUMNS)
+        stars = solve_stars(eos, h_c, settings.steps)
         mode = "points"
     else:
-        block = _stars_block(seq.at_mass)
-        block["target_mass"] = masses
-        columns = [Column("target_mass", "Msun", "requested gravitational mass"), *SEQUENCE_COLUMNS]
+        stars = seq.at_mass
         mode = "masses"
-        missing = masses[~np.isfinite(block["mass"])]
+        missing = masses[~np.isfinite(stars.mass_msun)]
         if missing.size:
             notes.append(f"no stable star at {', '.join(f'{m:g}' for m in missing)} Msun "
                          f"(M_max = {mm.mass_msun:.4f} Msun; lightest branch star "
                          f"{float(seq.branch.mass_msun[0]):.3g} Msun): NaN rows.")
-    meta = provenance(
-        command,
-        kind="sequence",
-        mode=mode,
-        family=eos.family.name,
-        parameters_json=json.dumps(dict(eos.parameters)),
-        mass_max_msun=mm.mass_msun,
-        radius_at_mass_max_km=mm.radius_km,
-        max_sound_speed_sq=mm.max_sound_speed_sq,
-        twin_mass_max_msun=float(seq.twin_mass_max_msun),
-        stable_branch="connected branch of increasing central pressure up to the first maximum of M",
-        solver_settings_json=json.dumps({"n_steps": settings.steps.n_steps,
-                                         "steps_per_kink": settings.steps.steps_per_kink,
-                                         "mass_rtol": settings.mass_rtol}),
-    )
-    with TableWriter(out, columns, meta) as w:
-        w.append(block)
-    return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0, tuple(notes))
+    summary = star_table(out, stars, sequence_meta(seq, settings, mode, command), target_mass=masses)
+    return replace(summary, seconds=time.monotonic() - t0, notes=tuple(notes))
 
 
 def _params_text(eos) -> str:

@@ -82,7 +82,7 @@ def test_units_mev_fm3_and_whitespace(tmp_path, sly):
 @pytest.mark.parametrize(
     "header, rows, match",
     [
-        ("# pressure[dyn/cm^2], energy_density[g/cm^3]", [(1, 1), (2, 2), (1.5, 3), (4, 4)], r"bad\.csv:4: pressure must increase"),
+        ("# pressure[dyn/cm^2], energy_density[g/cm^3]", [(1, 1), (2, 2), (1.5, 3), (4, 4)], r"bad\.csv:4: pressure must not decrease"),
         ("# pressure[dyn/cm^2], energy_density[g/cm^3]", [(1, 1), (2, -2), (3, 3), (4, 4)], r"bad\.csv:3: energy_density must be a positive"),
         ("# pressure[dyn/cm^2], temperature[K]", [(1, 1), (2, 2), (3, 3), (4, 4)], r"bad\.csv:1: unknown column 'temperature'"),
         ("# pressure[dyn/cm^2]", [(1,), (2,), (3,), (4,)], r"missing column 'energy_density'"),

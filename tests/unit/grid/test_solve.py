@@ -12,6 +12,7 @@ from helpers import READ2009
 from tovforge import eos, solve
 from tovforge.grid import parse_spec, solve_chunk
 from tovforge.grid import _solve as grid_solve
+from tovforge.status import Status
 from tovforge.units import MSUN_KM
 
 SLY = np.array([list(READ2009["SLy"].values())])
@@ -91,19 +92,21 @@ def test_an_exception_fails_only_its_point(monkeypatch):
         np.testing.assert_array_equal(alone.curves["radius_km"][0], res.curves["radius_km"][i])
 
 
-def test_solver_statuses_map_to_grid_statuses(monkeypatch):
+def test_solver_statuses_are_stored_as_they_are(monkeypatch):
+    """One vocabulary: the grid stores the solver's status and its message (no remapping)."""
     real = solve.solve_sequences
+    failures = (Status.NO_MAXIMUM, Status.EOS_ENDS, Status.SOLVER_FAILURE)
 
     def fake(batch, **kw):
         res = real(batch, **kw)
         status = res.status.copy()
-        status[0], status[1], status[2] = 1, 2, 3
+        status[: len(failures)] = failures
         return dataclasses.replace(res, status=status)
 
     monkeypatch.setattr(solve, "solve_sequences", fake)
     res = solve_chunk(_spec(), _points())
-    assert res.status.tolist() == [3, 3, 4, 0, 0]
-    assert [res.reason[i] for i in range(3)] == [solve.STATUS_MESSAGES[c] for c in (1, 2, 3)]
+    assert res.status.tolist() == [3, 5, 4, 0, 0]
+    assert [res.reason[i] for i in range(3)] == [s.message for s in failures]
 
 
 def _mass_at(E, ln_h):

@@ -6,16 +6,12 @@ import json
 
 import numpy as np
 import pytest
-from tovforge import solve
+from tovforge import quantities, solve
 from tovforge.errors import InputError
 from tovforge.tables import SEQUENCE_COLUMNS, read_table, sequence_table
 
-# column -> field of tovforge.solve.Stars
-FIELDS = {"mass": "mass_msun", "radius": "radius_km", "compactness": "compactness", "k2": "k2",
-          "lambda": "tidal_deformability", "inertia": "moment_of_inertia_1e45_g_cm2",
-          "inertia_over_m3": "moment_of_inertia_over_m3", "baryon_mass": "baryon_mass_msun",
-          "central_pressure": "central_pressure_dyn_cm2", "central_energy_density": "central_energy_density_g_cm3",
-          "central_density": "central_rest_mass_density_g_cm3", "central_sound_speed_sq": "central_sound_speed_sq"}
+# column -> canonical name (every star quantity of the registry is a column)
+FIELDS = {q.column: q.name for q in quantities.star_quantities()}
 
 
 @pytest.fixture(scope="module")
@@ -26,7 +22,9 @@ def points_table(sly, tmp_path_factory):
 
 
 def test_every_column_has_its_unit(points_table):
-    assert list(points_table.columns) == [c.name for c in SEQUENCE_COLUMNS]
+    assert list(points_table.columns) == [c.name for c in SEQUENCE_COLUMNS] == list(FIELDS)
+    assert {"mass", "radius", "lambda", "k2", "inertia", "inertia_over_m3", "baryon_mass", "central_pressure",
+            "central_density", "central_pseudo_enthalpy"} <= set(FIELDS)
     assert points_table.units["radius"] == "km"
     assert points_table.units["central_pressure"] == "dyn/cm^2"
     assert points_table.units["inertia"] == "1e45 g cm^2"
@@ -36,8 +34,8 @@ def test_every_column_has_its_unit(points_table):
 def test_rows_are_the_solver_stars_at_their_central_pressure(sly, points_table, row):
     # the solver's own single-star solve with the sequence's step settings (16 steps + 3 per kink)
     star = solve.solve_star(sly, pressure_dyn_cm2=points_table["central_pressure"][row], n_steps=16).star
-    for col, field in FIELDS.items():
-        np.testing.assert_allclose(points_table[col][row], getattr(star, field)[0], rtol=1e-12, err_msg=col)
+    for col, name in FIELDS.items():
+        np.testing.assert_allclose(points_table[col][row], star.value(name)[0], rtol=1e-12, err_msg=col)
 
 
 def test_central_pressures_are_evenly_spaced_in_log(points_table):
@@ -69,7 +67,7 @@ def test_masses_mode_matches_exact_mass_queries(sly, tmp_path):
     with pytest.warns(UserWarning, match="exceed M_max"):
         ref = solve.solve_sequence(sly, masses=masses).at_mass
     for col in ("mass", "radius", "lambda", "inertia", "k2", "baryon_mass"):
-        np.testing.assert_allclose(t[col][:3], getattr(ref, FIELDS[col])[:3], rtol=1e-9, err_msg=col)
+        np.testing.assert_allclose(t[col][:3], ref.value(FIELDS[col])[:3], rtol=1e-9, err_msg=col)
     assert np.all(np.isnan([t[c][3] for c in FIELDS]))  # 2.2 Msun is above SLy's M_max
     assert "no stable star at 2.2 Msun" in summary.notes[0]
 
