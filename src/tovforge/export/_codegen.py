@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import ast
 import base64
-import datetime
 import hashlib
 import importlib.resources
 import importlib.util
@@ -39,6 +38,8 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
+from .._jsonfile import jsonable
+from .._provenance import provenance
 from ..errors import InputError
 
 __all__ = ["export_model", "ExportResult", "ExportError", "NAMESPACES"]
@@ -121,17 +122,10 @@ def _identifier(name, what: str) -> str:
 
 def _plain(obj, where="report"):
     """JSON-like data reduced to literals: dict (str keys), list, str, bool, int, finite float or None."""
-    if obj is None or isinstance(obj, (bool, str)):
-        return obj
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return float(obj) if math.isfinite(obj) else None  # nan is not a Python literal
-    if isinstance(obj, dict):
-        return {str(k): _plain(v, f"{where}.{k}") for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v, where) for v in obj]
-    raise ExportError(f"{where}: unsupported value of type {type(obj).__name__}.")
+    try:
+        return jsonable(obj, where=where)  # nan becomes None: nan is not a Python literal
+    except TypeError as exc:
+        raise ExportError(str(exc)) from None
 
 
 def _literal(obj) -> str:
@@ -154,7 +148,8 @@ def _read_report(report) -> dict | None:
     if path.is_dir():
         path = path / "report.json"
     if not path.is_file():
-        raise ExportError(f"{path}: no such report (write one with `tovforge check MODEL --holdout GRID --report DIR`).")
+        raise ExportError(f"{path}: no such report (a check of the model against held-out exact solves writes one "
+                          "into its report folder).")
     from .._jsonfile import read_json
 
     rep = read_json(path, ExportError)
@@ -172,19 +167,6 @@ def _check_report_matches(rep: dict, meta: dict) -> None:
         if got.get(k) != v:
             raise ExportError(f"the report was made for another model: its {k} is {_text(got.get(k))!r}, "
                               f"the model's is {_text(v)!r}.")
-
-
-def _git_commit() -> str:
-    """Commit of the tovforge source tree, marked when it has uncommitted changes."""
-    root = Path(__file__).resolve().parents[1]
-    try:
-        head = subprocess.run(["git", "-C", str(root), "rev-parse", "HEAD"], capture_output=True, text=True,
-                              timeout=20, check=True).stdout.strip()
-        dirty = subprocess.run(["git", "-C", str(root), "status", "--porcelain", "--untracked-files=no", "--", "."],
-                               capture_output=True, text=True, timeout=20, check=True).stdout.strip()
-    except (OSError, subprocess.SubprocessError):
-        return "unknown (not a git checkout)"
-    return head + (" with uncommitted changes to src/tovforge" if dirty else "")
 
 
 def _source(package: str, name: str) -> str:
@@ -380,10 +362,8 @@ def _assemble(header: str, constants: list[str], payload_b64: str) -> str:
 def _constants(meta: dict, arrays: dict, check, info: dict, index: list) -> list[str]:
     out = meta["outputs"]
     scalar_index = tuple((_identifier(k, "output name"), int(v)) for k, v in out["index"].items())
-    provenance = _plain({
-        "tovforge_version": __version__,
-        "git_commit": info["commit"],
-        "created_utc": info["created"],
+    record = _plain({
+        **info["provenance"],
         "training": {k: v for k, v in meta.get("training", {}).items()
                      if isinstance(v, (str, int, float, bool)) or v is None},
         "model_arrays_sha256": meta.get("arrays_sha256", ""),
@@ -399,7 +379,7 @@ def _constants(meta: dict, arrays: dict, check, info: dict, index: list) -> list
         f"MASS_FLOOR_MSUN = {_literal(float(out.get('mass_floor_msun', 0.0)))}",
         "#: The held-out error table of the header, as data (None: no check was supplied).",
         f"CHECK = {_literal(check)}",
-        f"PROVENANCE = {_literal(provenance)}",
+        f"PROVENANCE = {_literal(record)}",
         f"PAYLOAD_SHA256 = {_literal(info['payload_sha256'])}",
         f"_I_MASS_MAX = {int(out['index']['mass_max_msun'])}",
         f"_SCALAR_INDEX = {_literal(scalar_index)}",
@@ -474,8 +454,11 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     meta = _validated(model)
     out = Path(out)
     if out.suffix != ".py" or not _IDENTIFIER.match(out.stem):
-        raise ExportError(f"--out {_text(out)}: the file must end in .py and its stem must be a Python identifier "
+        raise ExportError(f"out {_text(out)}: the file must end in .py and its stem must be a Python identifier "
                           "(it is the module name users import).")
+    unknown = [n for n in namespaces if n not in NAMESPACES]
+    if unknown:
+        raise ExportError(f"namespaces: unknown namespace {_text(unknown[0])!r}; choose from {', '.join(NAMESPACES)}.")
     rep = _read_report(report)
     check = None
     if rep is not None:
@@ -489,10 +472,12 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     arrays = {k: np.asarray(v) for k, v in model.arrays.items()}
     raw, index = _payload(arrays)
     runtime = _source("tovforge.surrogate", "_runtime.py")
+    prov = provenance(created_utc=created_utc)
     info = {
         "module": out.stem,
-        "commit": _git_commit(),
-        "created": created_utc or datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "provenance": prov,
+        "commit": prov["git_commit"],
+        "created": prov["created_utc"],
         "payload_sha256": hashlib.sha256(raw).hexdigest(),
         "runtime_sha256": hashlib.sha256(runtime.encode("utf-8")).hexdigest(),
     }

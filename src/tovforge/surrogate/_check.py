@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-import datetime
 import json
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .._extras import pyplot, require
+from .._provenance import provenance
 from ..errors import InputError
 from . import _runtime as rt
 from ._model import Surrogate
@@ -72,7 +72,7 @@ def _read_holdout(path, model: Surrogate):
     return g
 
 
-def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckResult:
+def check(model: Surrogate, holdout_path, report_dir=None) -> CheckResult:
     """Compare a surrogate with held-out exact solves.
 
     Held-out points with status 0 inside the model's box are used; points
@@ -89,6 +89,8 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRes
     report_dir : path, optional
         Where to write ``report.json``, ``report.md`` and the PNG figures.
     """
+    if report_dir is not None:  # before the work, not after it
+        require("matplotlib", "plots", "the figures of a check report")
     g = _read_holdout(holdout_path, model)
     theta = np.asarray(g.parameters, float)
     inside = model.in_domain(theta)
@@ -126,8 +128,7 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRes
     outside = sel & ~np.isfinite(q["radius_km"][0])
     report = {
         "format": "tovforge-check",
-        "created_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-        "tovforge_version": __version__,
+        **provenance(),
         "model": {"kind": model.kind, "family": model.family, "n_train": model.meta["training"]["n_train"],
                   "training_grid": model.meta["training"].get("grid_path", ""),
                   "training_grid_sha256": model.meta["training"].get("grid_content_sha256", "")},
@@ -193,8 +194,6 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRes
         figures = _figures(model, g, ok, th, mm, mm_exact, q, finite, order, report_dir)
         (report_dir / "report.md").write_text(_markdown(report, figures))
         result = CheckResult(report, report_dir)
-    if log:
-        log(result.table())
     return result
 
 
@@ -259,11 +258,7 @@ def _markdown(report, figures) -> str:
 
 
 def _figures(model, g, ok, th, mm, mm_exact, q, finite, worst, out: Path) -> list[str]:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    plt = pyplot("the figures of a check report")
     files = []
 
     def save(fig, name):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -15,6 +16,8 @@ from . import _runtime as rt
 
 __all__ = ["TrainingData", "GPSettings", "SplineSettings", "fit_gp", "fit_rbf", "fit_tensor",
            "spline_cardinal_coefficients", "trend_powers"]
+
+logger = logging.getLogger(__name__)
 
 #: Outputs modelled, in this order: three scalars, then the node curves.
 #: M_max comes last, next to the radius curve, so that it can share a kernel with
@@ -416,7 +419,7 @@ def _space_filling_subset(x, n, seed):
     return np.array(sorted(chosen))
 
 
-def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
+def fit_gp(data: TrainingData, settings: GPSettings = GPSettings()):
     """Fit Gaussian processes: polynomial trend plus one Matern-5/2 kernel per output group.
 
     Each scalar output has its own kernel; the nodes of a curve are split
@@ -455,10 +458,10 @@ def fit_gp(data: TrainingData, settings: GPSettings = GPSettings(), log=None):
     degenerate = degenerate_kernels(x, sub, np.array([r[0] for r in fits]))
     for msg in degenerate:
         warnings.warn(f"GP {msg}", UserWarning, stacklevel=2)
-    if log:
+    if logger.isEnabledFor(logging.INFO):
         for k, (s, r) in enumerate(zip(sets, fits)):
             outs = ", ".join(f"{bounds[g]}..{bounds[g + 1] - 1}" for g in s)
-            log(f"  GP kernel {k + 1}/{len(sets)} (outputs {outs}): length scales "
+            logger.info(f"  GP kernel {k + 1}/{len(sets)} (outputs {outs}): length scales "
                 f"{np.array2string(r[0], precision=3)}, amplitude {np.sqrt(r[1]):.3g}, nugget {r[2]:.2g}, "
                 f"{r[4]:.1f} s")
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
@@ -507,7 +510,7 @@ def _anisotropy(x, Z, slices, settings: SplineSettings):
     return np.maximum(length.min() / length, MIN_STRETCH), length
 
 
-def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings(), log=None):
+def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings()):
     """Interpolate with the polyharmonic kernel r^5 plus a polynomial of ``settings.degree``.
 
     Solves the symmetric saddle-point system ``[[Phi, P], [P^T, 0]] [a; c] =
@@ -529,8 +532,7 @@ def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings(), log
         x = rt.unit_inputs(np, arrays, data.theta)[0]
         extra.update(input_scale=scale.tolist(), anisotropy_length_scales=length.tolist(),
                      anisotropy_subset=min(settings.n_subset, len(x)))
-        if log:
-            log(f"  input stretch {np.array2string(scale, precision=3)} (GP length scales "
+        logger.info(f"  input stretch {np.array2string(scale, precision=3)} (GP length scales "
                 f"{np.array2string(length, precision=3)} on {min(settings.n_subset, len(x))} points, "
                 f"{time.perf_counter() - t0:.1f} s)")
     powers = trend_powers(x.shape[1], degree)
@@ -544,13 +546,12 @@ def fit_rbf(data: TrainingData, settings: SplineSettings = SplineSettings(), log
     rhs = np.vstack([Z, np.zeros((t, Z.shape[1]))])
     t0 = time.perf_counter()
     sol = scipy.linalg.solve(A, rhs, assume_a="sym", check_finite=False)
-    if log:
-        log(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
+    logger.info(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
     return index, {"rbf": extra}, arrays
 
 
-def fit_tensor(data: TrainingData, log=None):
+def fit_tensor(data: TrainingData):
     """Tensor-product cubic interpolating splines on a complete regular grid.
 
     The coefficients come from interpolating along one axis after another
@@ -585,6 +586,5 @@ def fit_tensor(data: TrainingData, log=None):
     arrays.update(trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, Z.shape[1])),
                   knots=knot_arr, n_knots=np.array([len(k) for k in knots]), coef=coef.reshape(-1, Z.shape[1]),
                   coef_shape=np.array(shape))
-    if log:
-        log(f"  tensor-product cubic splines on a {' x '.join(map(str, shape))} grid")
+    logger.info(f"  tensor-product cubic splines on a {' x '.join(map(str, shape))} grid")
     return index, {"tensor": {"shape": list(shape)}}, arrays

@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import logging
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from .._provenance import provenance
 from ..errors import InputError
 from . import _runtime as rt
 from ._check import check
@@ -18,6 +20,8 @@ from ._model import Surrogate
 from ._train import train_on
 
 __all__ = ["refine", "RefineResult", "select_points"]
+
+logger = logging.getLogger(__name__)
 
 #: Scales that make the predictive sigmas of different outputs comparable: the
 #: accuracy goals (M_max 0.002 Msun, R 10 m, ln Lambda 0.005).
@@ -77,7 +81,7 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
     if model.kind != "gp":
         raise InputError(f"grid refine needs a Gaussian-process model (its sigma); this model is {model.kind}.")
     if budget < 1:
-        raise InputError(f"--budget must be at least 1. Got {budget}.")
+        raise InputError(f"budget must be at least 1 exact solve. Got {budget}.")
     fam = eos.get_family(model.family)
     lo, hi = model.arrays["lo"], model.arrays["hi"]
     cand = qmc.scale(qmc.Sobol(len(lo), seed=seed).random(n_candidates), lo, hi)
@@ -133,7 +137,7 @@ def _p95_row(model, holdout):
 
 
 def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None, log=None) -> RefineResult:
+           workers=None) -> RefineResult:
     """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
 
     Parameters
@@ -172,8 +176,7 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     g = read_grid(grid_path)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
-    if log:
-        log(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
+    logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
     result = _solve_points(spec, added, workers)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -182,8 +185,9 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
         description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
                     f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
-    write_grid(points_path, rspec, added, result, {"refinement_of": str(grid_path),
-                                                   "refinement_of_sha256": tr.get("grid_content_sha256", "")})
+    write_grid(points_path, rspec, added, result,
+               provenance("scipy", "h5py", refinement_of=str(grid_path),
+                          refinement_of_sha256=tr.get("grid_content_sha256", "")))
     new = training_data_from_arrays(
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
         parameter_units=tuple(model.meta["parameter_units"]), box=model.bounds, theta=added,
@@ -194,9 +198,8 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     stored = tr.get("gp", {})
     names = {f.name for f in dataclasses.fields(GPSettings)} - {"n_jobs"}
     settings = GPSettings(**{k: stored[k] for k in names if k in stored})
-    if log:
-        log(f"retraining on {len(data.theta)} points")
-    new_model = train_on(data, "gp", settings, log=log)
+    logger.info(f"retraining on {len(data.theta)} points")
+    new_model = train_on(data, "gp", settings)
     new_model.meta["training"]["refinement_grids"] = list(tr.get("refinement_grids", [])) + [str(points_path)]
     curve = list(model.meta.get("learning_curve", []))
     if holdout is not None:

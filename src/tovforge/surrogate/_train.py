@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import datetime
-import platform
 import time
 
 import numpy as np
 
-from .. import __version__
+from .._provenance import provenance
 from ..errors import InputError
 from ._dataset import read_training_data
 from ._fit import GPSettings, SplineSettings, TrainingData, fit_gp, fit_rbf, fit_tensor
@@ -19,7 +17,7 @@ __all__ = ["train", "train_on"]
 KINDS = ("gp", "spline")
 
 
-def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None, log=None,
+def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None,
           spline_settings: SplineSettings | None = None) -> Surrogate:
     """Train a surrogate on a grid file.
 
@@ -31,29 +29,31 @@ def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None, lo
         Gaussian process, or splines: tensor-product cubic splines on a
         complete regular grid, polyharmonic radial basis functions otherwise.
     gp_settings : GPSettings, optional
-    log : callable, optional
-        Receives progress lines.
     spline_settings : SplineSettings, optional
         Options of the radial-basis-function spline (scattered designs).
     """
     if kind not in KINDS:
-        raise InputError(f"--kind must be one of {', '.join(KINDS)}; got {kind!r}.")
+        raise InputError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}.")
     data = read_training_data(grid_path)
-    return train_on(data, kind, gp_settings, log, spline_settings)
+    return train_on(data, kind, gp_settings, spline_settings)
 
 
-def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | None = None, log=None,
+def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | None = None,
              spline_settings: SplineSettings | None = None) -> Surrogate:
-    """Train on in-memory :class:`TrainingData` (see :func:`train`)."""
+    """Train on in-memory :class:`TrainingData` (see :func:`train`).
+
+    Progress (kernels fitted, length scales, times) goes to the ``tovforge``
+    logger at level INFO.
+    """
     t0 = time.perf_counter()
     if kind == "gp":
-        index, extra, arrays = fit_gp(data, gp_settings or GPSettings(), log=log)
+        index, extra, arrays = fit_gp(data, gp_settings or GPSettings())
         model_kind = "gp"
     elif data.regular_shape is not None:
-        index, extra, arrays = fit_tensor(data, log=log)
+        index, extra, arrays = fit_tensor(data)
         model_kind = "tensor"
     else:
-        index, extra, arrays = fit_rbf(data, spline_settings or SplineSettings(), log=log)
+        index, extra, arrays = fit_rbf(data, spline_settings or SplineSettings())
         model_kind = "rbf"
     seconds = time.perf_counter() - t0
     meta = {
@@ -77,10 +77,7 @@ def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | Non
         "training": {
             "n_train": int(len(data.theta)),
             "seconds": seconds,
-            "created_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-            "tovforge_version": __version__,
-            "python_version": platform.python_version(),
-            "numpy_version": np.__version__,
+            **provenance("scipy", "scikit-learn"),
             **data.provenance,
             **extra,
         },
