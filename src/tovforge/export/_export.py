@@ -13,21 +13,21 @@ is kept in :mod:`._verify` (and :mod:`._probe` for other namespaces).
 
 from __future__ import annotations
 
-import datetime
 import hashlib
 import os
-import subprocess
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from .._provenance import provenance
 from ..surrogate import CheckReport
 from ..surrogate._check import read_report
 from ..surrogate._kinds import COMMON_STATIC, METHODS
 from ._payload import pack
-from ._render import SELF_CHECK_POINTS, ExportError, constants, header, identifier, is_identifier, plain, render, source, text
+from ._render import (SELF_CHECK_POINTS, ExportError, constants, header, identifier, is_identifier, plain, render,
+                      source, text)
 from ._verify import check_points, namespace_checks, rounding_noise, self_check
 
 __all__ = ["export_model", "ExportResult", "NAMESPACES"]
@@ -88,19 +88,6 @@ def _report(report, model) -> dict | None:
     return check
 
 
-def _git_commit() -> str:
-    """Commit of the tovforge source tree, marked when it has uncommitted changes."""
-    root = Path(__file__).resolve().parents[1]
-    try:
-        head = subprocess.run(["git", "-C", str(root), "rev-parse", "HEAD"], capture_output=True, text=True,
-                              timeout=20, check=True).stdout.strip()
-        dirty = subprocess.run(["git", "-C", str(root), "status", "--porcelain", "--untracked-files=no", "--", "."],
-                               capture_output=True, text=True, timeout=20, check=True).stdout.strip()
-    except (OSError, subprocess.SubprocessError):
-        return "unknown (not a git checkout)"
-    return head + (" with uncommitted changes to src/tovforge" if dirty else "")
-
-
 def _validated(model):
     """The model, if everything of it that reaches the source is safe to write."""
     meta = model.meta
@@ -146,8 +133,9 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     Raises
     ------
     ExportError
-        For names that are not identifiers, a report of another model, or a
-        file that does not reproduce the library model to 1e-10 relative.
+        For names that are not identifiers, an unknown namespace, a report of
+        another model, or a file that does not reproduce the library model to
+        1e-10 relative.
     """
     from ..surrogate import Surrogate, load
 
@@ -156,15 +144,20 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     _validated(model)
     out = Path(out)
     if out.suffix != ".py" or not is_identifier(out.stem):
-        raise ExportError(f"--out {text(out)}: the file must end in .py and its stem must be a Python identifier "
+        raise ExportError(f"out {text(out)}: the file must end in .py and its stem must be a Python identifier "
                           "(it is the module name users import).")
+    unknown = [n for n in namespaces if n not in NAMESPACES]
+    if unknown:
+        raise ExportError(f"namespaces: unknown namespace {text(unknown[0])!r}; choose from {', '.join(NAMESPACES)}.")
     check = _report(report, model)
     payload = pack(model.arrays)
     code = source("tovforge.surrogate", "_runtime.py") + source("tovforge.surrogate", "_contract.py")
+    prov = provenance(created_utc=created_utc)
     info = {
         "module": out.stem,
-        "commit": _git_commit(),
-        "created": created_utc or datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "provenance": prov,
+        "commit": prov["git_commit"],
+        "created": prov["created_utc"],
         "payload_sha256": payload.sha256,
         "runtime_sha256": hashlib.sha256(code.encode("utf-8")).hexdigest(),
         "static_arrays": COMMON_STATIC + model.method_info.static_arrays,

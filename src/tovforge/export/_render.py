@@ -13,12 +13,10 @@ from __future__ import annotations
 import ast
 import importlib.resources
 import json
-import math
 import re
 
-import numpy as np
-
 from .. import __version__, quantities
+from .._jsonfile import jsonable
 from ..errors import InputError
 from ..surrogate import Prediction
 
@@ -62,17 +60,10 @@ def identifier(name, what: str) -> str:
 
 def plain(obj, where="report"):
     """JSON-like data reduced to literals: dict (str keys), list, str, bool, int, finite float or None."""
-    if obj is None or isinstance(obj, (bool, str)):
-        return obj
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return float(obj) if math.isfinite(obj) else None  # nan is not a Python literal
-    if isinstance(obj, dict):
-        return {str(k): plain(v, f"{where}.{k}") for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [plain(v, where) for v in obj]
-    raise ExportError(f"{where}: unsupported value of type {type(obj).__name__}.")
+    try:
+        return jsonable(obj, where=where)  # nan becomes None: nan is not a Python literal
+    except TypeError as exc:
+        raise ExportError(str(exc)) from None
 
 
 def literal(obj) -> str:
@@ -246,10 +237,8 @@ def constants(model, check, info: dict, index: list) -> list[str]:
     outputs = tuple(tuple(o) for o in meta.outputs.runtime())
     for o in outputs:
         identifier(o[0], "output name")
-    provenance = plain({
-        "tovforge_version": __version__,
-        "git_commit": info["commit"],
-        "created_utc": info["created"],
+    record = plain({
+        **info["provenance"],
         "training": {k: v for k, v in meta.training.to_json().items()
                      if isinstance(v, (str, int, float, bool)) or v is None},
         "model_arrays_sha256": meta.arrays_sha256,
@@ -269,7 +258,7 @@ def constants(model, check, info: dict, index: list) -> list[str]:
         f"MASS_FLOOR_MSUN = {literal(float(meta.outputs.mass_floor_msun))}",
         "#: The held-out error table of the header, as data (None: no check was supplied).",
         f"CHECK = {literal(check)}",
-        f"PROVENANCE = {literal(provenance)}",
+        f"PROVENANCE = {literal(record)}",
         f"PAYLOAD_SHA256 = {literal(info['payload_sha256'])}",
         "#: The emulated outputs: (name, quantity, level, transform, query, first column, end column).",
         f"_OUTPUTS = {literal(outputs)}",

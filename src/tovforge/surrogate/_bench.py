@@ -6,12 +6,13 @@ from pathlib import Path
 
 import numpy as np
 
-from .._bench import register, timeit_median
+from .._bench import timeit_median
+
+__all__ = ["bench_surrogate"]
 
 _TRAIN = Path("grids/demo-train.h5")
 
 
-@register("surrogate")
 def bench_surrogate(quick: bool = False, echo=print) -> None:
     """Training time of GP and spline on the demo training grid; in-library prediction speed."""
     import dataclasses

@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 import dataclasses
-import datetime
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .._extras import require
+from .._provenance import provenance
 from ..errors import InputError
 from ..status import Status
 from ._meta import LearningPoint
@@ -126,7 +126,8 @@ class CheckReport(Record):
         The ten held-out EOS with the largest radius errors.
     learning_curve : tuple of LearningPoint
         The model's own learning curve (``grid refine``), if any.
-    created_utc, tovforge_version : str
+    created_utc, tovforge_version, python_version, numpy_version, git_commit : str
+        Provenance (:func:`tovforge._provenance.provenance`).
     report_dir : str or None
         Where the report files were written (not part of report.json).
     """
@@ -140,6 +141,9 @@ class CheckReport(Record):
     learning_curve: tuple = nested(LearningPoint, many=True, default=())
     created_utc: str = ""
     tovforge_version: str = ""
+    python_version: str = ""
+    numpy_version: str = ""
+    git_commit: str = ""
     format: str = REPORT_FORMAT
     report_dir: str | None = field(default=None, compare=False)
 
@@ -171,7 +175,8 @@ def read_report(path, error_cls=InputError) -> CheckReport:
     if path.is_dir():
         path = path / "report.json"
     if not path.is_file():
-        raise error_cls(f"{path}: no such report (write one with `tovforge check MODEL --holdout GRID --report DIR`).")
+        raise error_cls(f"{path}: no such report (a check of the model against held-out exact solves writes one "
+                        "into its report folder).")
     raw = read_json(path, error_cls)
     if not isinstance(raw, dict) or raw.get("format") != REPORT_FORMAT:
         got = raw.get("format") if isinstance(raw, dict) else None
@@ -219,7 +224,7 @@ def _coverage(err, sd) -> Coverage:
     return Coverage(within_1_sigma=float(np.mean(z <= 1.0)), within_2_sigma=float(np.mean(z <= 2.0)), n=int(z.size))
 
 
-def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckReport:
+def check(model: Surrogate, holdout_path, report_dir=None) -> CheckReport:
     """Compare a surrogate with held-out exact solves.
 
     Held-out points with status ok inside the model's box are used; points
@@ -241,6 +246,8 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRep
     -------
     CheckReport
     """
+    if report_dir is not None:  # before the work, not after it
+        require("matplotlib", "plots", "the figures of a check report")
     g = _read_holdout(holdout_path, model)
     theta = np.asarray(g.parameters, float)
     ok = (np.asarray(g.status) == Status.OK) & model.in_domain(theta)
@@ -295,8 +302,7 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRep
                         n_star_comparisons=int(sel.sum()), n_emulated_nan=int(outside.sum())),
         errors=errors, targets=targets, calibration=calibration, worst=worst,
         learning_curve=model.meta.learning_curve,
-        created_utc=datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-        tovforge_version=__version__,
+        **provenance(),
     )
     if report_dir is not None:
         from ._report_figures import figures
@@ -307,8 +313,6 @@ def check(model: Surrogate, holdout_path, report_dir=None, log=None) -> CheckRep
         (report_dir / "report.json").write_text(json.dumps(report.to_json(), indent=2))
         files = figures(model, g, ok, th, mm, mm_exact, q, finite, order, report_dir)
         (report_dir / "report.md").write_text(report.markdown(files))
-    if log:
-        log(report.table())
     return report
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -16,6 +17,8 @@ from ._prepare import (NOISE_BOUNDS, FitResult, degenerate_kernels, fit_gaussian
 from ._record import Record
 
 __all__ = ["GPSettings", "GPFit", "fit_gp", "describe_gp"]
+
+logger = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
@@ -225,7 +228,7 @@ def _loo_sigma_scale(x, R, sub, cf, alpha, length, amp2, noise):
     return np.median(np.abs(resid / sd), axis=0) / 0.6745
 
 
-def fit_gp(data: TrainingData, settings: GPSettings | None = None, log=None) -> FitResult:
+def fit_gp(data: TrainingData, settings: GPSettings | None = None) -> FitResult:
     """Fit Gaussian processes: polynomial trend plus one Matern-5/2 kernel per output group.
 
     Each scalar output has its own kernel; the nodes of a curve are split
@@ -235,7 +238,8 @@ def fit_gp(data: TrainingData, settings: GPSettings | None = None, log=None) -> 
     parameter, a small nugget) maximise the marginal likelihood on a
     space-filling subset, with restarts (scikit-learn's
     GaussianProcessRegressor); the weights then solve the full system by
-    Cholesky (Rasmussen & Williams 2006, Alg. 2.1).
+    Cholesky (Rasmussen & Williams 2006, Alg. 2.1).  Each kernel's
+    hyperparameters and time go to the logger at level INFO.
 
     Returns
     -------
@@ -267,12 +271,12 @@ def fit_gp(data: TrainingData, settings: GPSettings | None = None, log=None) -> 
     degenerate = degenerate_kernels(x, sub, np.array([f.length for f in fits]))
     for msg in degenerate:
         warnings.warn(f"GP {msg}", UserWarning, stacklevel=2)
-    if log:
+    if logger.isEnabledFor(logging.INFO):
         for k, (s, f) in enumerate(zip(sets, fits)):
             outs = ", ".join(f"{bounds[g]}..{bounds[g + 1] - 1}" for g in s)
-            log(f"  GP kernel {k + 1}/{len(sets)} (outputs {outs}): length scales "
-                f"{np.array2string(f.length, precision=3)}, amplitude {np.sqrt(f.amp2):.3g}, nugget {f.noise:.2g}, "
-                f"{f.seconds:.1f} s")
+            logger.info(f"  GP kernel {k + 1}/{len(sets)} (outputs {outs}): length scales "
+                        f"{np.array2string(f.length, precision=3)}, amplitude {np.sqrt(f.amp2):.3g}, "
+                        f"nugget {f.noise:.2g}, {f.seconds:.1f} s")
     arrays = dict(p.arrays)
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
     arrays.update(trend_powers=powers, trend_coef=coef, X=x, alpha=alpha * rscale, group_bounds=bounds,

@@ -7,7 +7,7 @@ is used (tensor splines on complete regular grids, the RBF otherwise).
 Models record both: ``kind`` (what users asked for, shown first) and
 ``method`` (the implementation, shown beside it).
 
-Adding a method: a module with its fit (``fit(data, settings, log) ->
+Adding a method: a module with its fit (``fit(data, settings) ->
 FitResult``), its settings and its record of what the fit found; a runtime
 part in ``_runtime.py`` (an entry of ``PARTS``, and of ``STD`` if it has a
 predictive sigma); and an entry in :data:`METHODS` here.  Training, saving,
@@ -51,7 +51,7 @@ class Method:
     description : str
         One line for file headers and listings.
     fit : callable
-        ``fit(data, settings, log) -> FitResult``.
+        ``fit(data, settings) -> FitResult`` (progress to the logger at level INFO).
     settings : type
         The options class users pass for this kind (shared by the methods of a kind).
     details : type

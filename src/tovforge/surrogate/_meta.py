@@ -93,7 +93,11 @@ class Outputs(Record):
 
 @dataclass(frozen=True)
 class Training(Record):
-    """Where a model's training data came from, and when and how long it trained."""
+    """Where a model's training data came from, when, with which versions and how long it trained.
+
+    The versions, ``git_commit`` and ``created_utc`` are those of
+    :func:`tovforge._provenance.provenance`.
+    """
 
     n_train: int = 0
     seconds: float = 0.0
@@ -101,6 +105,9 @@ class Training(Record):
     tovforge_version: str = ""
     python_version: str = ""
     numpy_version: str = ""
+    scipy_version: str = ""
+    scikit_learn_version: str = ""
+    git_commit: str = ""
     grid_path: str = ""
     grid_content_sha256: str = ""
     grid_spec_sha256: str = ""

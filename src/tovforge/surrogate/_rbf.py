@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -17,6 +18,8 @@ from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, mate
 from ._record import Record
 
 __all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH"]
+
+logger = logging.getLogger(__name__)
 
 #: Smallest stretch of a parameter's unit interval in the anisotropic RBF.
 MIN_STRETCH = 0.05
@@ -98,7 +101,7 @@ def _anisotropy(x, Z, slices, settings: SplineSettings):
     return np.maximum(length.min() / length, MIN_STRETCH), length
 
 
-def fit_rbf(data: TrainingData, settings: SplineSettings | None = None, log=None) -> FitResult:
+def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
     """Interpolate with the polyharmonic kernel r^5 plus a polynomial of ``settings.degree``.
 
     Solves the symmetric saddle-point system ``[[Phi, P], [P^T, 0]] [a; c] =
@@ -126,10 +129,9 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None, log=None
         details = RBFFit(input_warp=p.input_warp, input_scale=tuple(scale.tolist()),
                          anisotropy_length_scales=tuple(length.tolist()),
                          anisotropy_subset=min(settings.n_subset, len(x)))
-        if log:
-            log(f"  input stretch {np.array2string(scale, precision=3)} (GP length scales "
-                f"{np.array2string(length, precision=3)} on {min(settings.n_subset, len(x))} points, "
-                f"{time.perf_counter() - t0:.1f} s)")
+        logger.info(f"  input stretch {np.array2string(scale, precision=3)} (GP length scales "
+                    f"{np.array2string(length, precision=3)} on {min(settings.n_subset, len(x))} points, "
+                    f"{time.perf_counter() - t0:.1f} s)")
     powers = trend_powers(x.shape[1], degree)
     P = trend_matrix(x, powers)
     phi, _ = rt._polyharmonic(np, x, x, False)
@@ -141,7 +143,6 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None, log=None
     rhs = np.vstack([Z, np.zeros((t, Z.shape[1]))])
     t0 = time.perf_counter()
     sol = scipy.linalg.solve(A, rhs, assume_a="sym", check_finite=False)
-    if log:
-        log(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
+    logger.info(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
     return FitResult(arrays=arrays, settings=settings, details=details)

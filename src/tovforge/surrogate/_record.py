@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 
-import numpy as np
+from .._jsonfile import jsonable
 
 __all__ = ["Record", "nested", "plain"]
 
@@ -21,24 +21,15 @@ def nested(cls, *, many: bool = False, mapping: bool = False, **kw):
 
 
 def plain(obj):
-    """``obj`` as JSON-ready data: records and tuples become dicts and lists, NumPy scalars Python numbers."""
+    """``obj`` as JSON data: records become dicts (recursively), the rest goes through
+    :func:`tovforge._jsonfile.jsonable` (tuples to lists, NumPy to Python, NaN to None)."""
     if isinstance(obj, Record):
         return obj.to_json()
-    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return {f.name: plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
     if isinstance(obj, dict):
         return {str(k): plain(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
         return [plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return plain(obj.tolist())
-    if isinstance(obj, np.bool_):
-        return bool(obj)
-    if isinstance(obj, np.integer):
-        return int(obj)
-    if isinstance(obj, (np.floating, float)):
-        return float(obj)
-    return obj
+    return jsonable(obj)
 
 
 def _tuples(v):

@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import logging
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from .._provenance import provenance
 from ..errors import InputError
 from ._check import check
 from ._data import TrainingData, read_training_data, training_data_from_arrays
@@ -17,6 +19,8 @@ from ._model import Surrogate
 from ._train import train_on
 
 __all__ = ["refine", "RefineResult", "select_points"]
+
+logger = logging.getLogger(__name__)
 
 #: Scales that make the predictive sigmas of different outputs comparable: the
 #: accuracy goals (M_max 0.002 Msun, R 10 m, ln Lambda 0.005).
@@ -75,7 +79,7 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
         raise InputError(f"grid refine needs a model with a predictive sigma (a Gaussian process); this model is "
                          f"{model.kind} ({model.method}).")
     if budget < 1:
-        raise InputError(f"--budget must be at least 1. Got {budget}.")
+        raise InputError(f"budget must be at least 1 exact solve. Got {budget}.")
     fam = eos.get_family(model.family)
     lo, hi = model.bounds[:, 0], model.bounds[:, 1]
     cand = qmc.scale(qmc.Sobol(len(lo), seed=seed).random(n_candidates), lo, hi)
@@ -130,7 +134,7 @@ def _p95_row(model, holdout) -> LearningPoint:
 
 
 def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None, log=None) -> RefineResult:
+           workers=None) -> RefineResult:
     """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
 
     Parameters
@@ -169,8 +173,7 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     g = read_grid(grid_path)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
-    if log:
-        log(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
+    logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
     result = _solve_points(spec, added, workers)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -179,8 +182,8 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
         description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
                     f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
-    write_grid(points_path, rspec, added, result, {"refinement_of": str(grid_path),
-                                                   "refinement_of_sha256": tr.grid_content_sha256})
+    write_grid(points_path, rspec, added, result,
+               provenance("scipy", "h5py", refinement_of=str(grid_path), refinement_of_sha256=tr.grid_content_sha256))
     new = training_data_from_arrays(
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
         parameter_units=model.parameter_units, box=model.bounds, theta=added,
@@ -188,9 +191,8 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         attrs={"mass_max_floor_msun": spec.mass_max_floor_msun}, min_points=0)
     data = _merge(base, new)
     # retrain with the settings the model was trained with
-    if log:
-        log(f"retraining on {len(data.theta)} points")
-    new_model = train_on(data, model.kind, model.meta.settings, log=log)
+    logger.info(f"retraining on {len(data.theta)} points")
+    new_model = train_on(data, model.kind, model.meta.settings)
     new_model = new_model.with_meta(training={"refinement_grids": tr.refinement_grids + (str(points_path),)})
     curve = list(model.meta.learning_curve)
     if holdout is not None:

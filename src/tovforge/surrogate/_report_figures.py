@@ -6,6 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .._extras import pyplot
+
 __all__ = ["figures"]
 
 
@@ -17,11 +19,7 @@ def figures(model, g, ok, th, mm, mm_exact, q, finite, worst, out: Path) -> list
     ``(value, std, exact)`` at the held-out masses, ``finite`` the compared
     stars, ``worst`` the rows of the largest radius errors.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    plt = pyplot("the figures of a check report")
     files = []
 
     def save(fig, name):

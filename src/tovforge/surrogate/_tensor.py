@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 from dataclasses import dataclass
 
 import numpy as np
@@ -12,6 +13,8 @@ from ._prepare import FitResult, prepare
 from ._record import Record
 
 __all__ = ["TensorFit", "fit_tensor", "is_regular"]
+
+logger = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
@@ -32,7 +35,7 @@ def is_regular(data: TrainingData) -> bool:
     return data.regular_shape is not None
 
 
-def fit_tensor(data: TrainingData, settings=None, log=None) -> FitResult:
+def fit_tensor(data: TrainingData, settings=None) -> FitResult:
     """Tensor-product cubic interpolating splines on a complete regular grid.
 
     The coefficients come from interpolating along one axis after another
@@ -69,6 +72,5 @@ def fit_tensor(data: TrainingData, settings=None, log=None) -> FitResult:
     arrays.update(trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, Z.shape[1])),
                   knots=knot_arr, n_knots=np.array([len(k) for k in knots]), coef=coef.reshape(-1, Z.shape[1]),
                   coef_shape=np.array(shape))
-    if log:
-        log(f"  tensor-product cubic splines on a {' x '.join(map(str, shape))} grid")
+    logger.info(f"  tensor-product cubic splines on a {' x '.join(map(str, shape))} grid")
     return FitResult(arrays=arrays, settings=None, details=TensorFit(shape=shape))

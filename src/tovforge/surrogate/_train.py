@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import datetime
-import platform
 import time
 
 import numpy as np
 
-from .. import __version__
+from .._provenance import provenance
 from ..errors import InputError
 from ._data import TrainingData, emulated_outputs, read_training_data
 from ._kinds import check_kind, resolve
@@ -18,7 +16,7 @@ from ._model import Surrogate
 __all__ = ["train", "train_on"]
 
 
-def train(grid_path, kind: str = "gp", settings=None, log=None) -> Surrogate:
+def train(grid_path, kind: str = "gp", settings=None) -> Surrogate:
     """Train a surrogate on a grid file.
 
     Parameters
@@ -31,22 +29,24 @@ def train(grid_path, kind: str = "gp", settings=None, log=None) -> Surrogate:
         polyharmonic radial basis functions otherwise).
     settings : GPSettings or SplineSettings, optional
         Options of the kind (default: its defaults).
-    log : callable, optional
-        Receives progress lines.
     """
     check_kind(kind)  # before the grid is read
-    return train_on(read_training_data(grid_path), kind, settings, log)
+    return train_on(read_training_data(grid_path), kind, settings)
 
 
-def train_on(data: TrainingData, kind: str = "gp", settings=None, log=None) -> Surrogate:
-    """Train on in-memory :class:`TrainingData` (see :func:`train`)."""
+def train_on(data: TrainingData, kind: str = "gp", settings=None) -> Surrogate:
+    """Train on in-memory :class:`TrainingData` (see :func:`train`).
+
+    Progress (kernels fitted, length scales, times) goes to the ``tovforge``
+    logger at level INFO.
+    """
     m = resolve(kind, data)
     if settings is None:
         settings = m.settings()
     elif not isinstance(settings, m.settings):
         raise InputError(f"the {kind} kind takes {m.settings.__name__}, not {type(settings).__name__}.")
     t0 = time.perf_counter()
-    result = m.fit(data, settings, log=log)
+    result = m.fit(data, settings)
     seconds = time.perf_counter() - t0
     sequence, star = emulated_outputs()
     prov = data.provenance
@@ -61,10 +61,7 @@ def train_on(data: TrainingData, kind: str = "gp", settings=None, log=None) -> S
         training=Training(
             n_train=int(len(data.theta)),
             seconds=seconds,
-            created_utc=datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-            tovforge_version=__version__,
-            python_version=platform.python_version(),
-            numpy_version=np.__version__,
+            **provenance("scipy", "scikit-learn"),
             grid_path=str(prov.get("grid_path", "")),
             grid_content_sha256=str(prov.get("grid_content_sha256", "")),
             grid_spec_sha256=str(prov.get("grid_spec_sha256", "")),

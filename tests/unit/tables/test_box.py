@@ -76,13 +76,13 @@ def test_gp_adds_its_standard_deviations(tmp_path):
     ([Axis("gamma1", 1.5, 3.0, 3)], {"log_p1": 34.4, "gamma2": 3, "gamma3": 3},
      "outside the model's box: gamma1 must be in [2, 4]"),
     ([Axis("gamma1", 2.5, 3.0, 3)], {"log_p1": 35.5, "gamma2": 3, "gamma3": 3},
-     "--fix log_p1=35.5: outside the model's box"),
-    ([Axis("gamma1", 2.5, 3.0, 3)], {"log_p1": 34.4, "gamma2": 3}, "gamma3: neither an --axis nor a --fix"),
+     "fixed log_p1=35.5: outside the model's box"),
+    ([Axis("gamma1", 2.5, 3.0, 3)], {"log_p1": 34.4, "gamma2": 3}, "gamma3: neither an axis nor fixed"),
     ([Axis("gamma9", 2.5, 3.0, 3)], {}, "has no parameter 'gamma9'"),
     ([Axis("gamma1", 3.0, 2.5, 3)], {"log_p1": 34.4, "gamma2": 3, "gamma3": 3}, "LO must be below HI"),
     ([Axis("gamma1", 2.5, 3.0, 1)], {"log_p1": 34.4, "gamma2": 3, "gamma3": 3}, "N must be at least 2"),
-    ([Axis("gamma1", 2.5, 3.0, 3)], {"gamma1": 3.0, "log_p1": 34.4, "gamma2": 3, "gamma3": 3}, "also an --axis"),
-    ([], {"gamma1": 3.0, "log_p1": 34.4, "gamma2": 3, "gamma3": 3}, "at least one --axis"),
+    ([Axis("gamma1", 2.5, 3.0, 3)], {"gamma1": 3.0, "log_p1": 34.4, "gamma2": 3, "gamma3": 3}, "also an axis"),
+    ([], {"gamma1": 3.0, "log_p1": 34.4, "gamma2": 3, "gamma3": 3}, "at least one axis"),
 ])
 def test_bad_boxes_are_refused_before_any_work(tmp_path, axes, fixed, match):
     with pytest.raises(InputError, match=match.replace("[", r"\[").replace("]", r"\]")):
@@ -91,7 +91,7 @@ def test_bad_boxes_are_refused_before_any_work(tmp_path, axes, fixed, match):
 
 
 def test_per_mass_quantities_need_masses(tmp_path):
-    with pytest.raises(InputError, match="need --masses"):
+    with pytest.raises(InputError, match="need masses"):
         box_table(tmp_path / "b.csv", tiny_model("spline"), AXES, FIXED, ["radius"], [], progress=False)
 
 

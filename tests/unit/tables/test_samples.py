@@ -74,8 +74,8 @@ def test_bad_rows_are_reported_by_number_and_the_rest_kept(tmp_path):
 @pytest.mark.parametrize("header, ignore, match", [
     (["log_p1", "gamma1", "gamma2"], [], "missing column gamma3; the model needs log_p1, gamma1, gamma2, gamma3"),
     (["log_p1", "gamma1", "gamma2", "gamma3", "weight"], [], "extra column weight"),
-    (["log_p1", "gamma1", "gamma2", "gamma3", "w", "lnL"], [], "pass --ignore w,lnL"),
-    (["log_p1", "gamma1", "gamma2", "gamma3"], ["weight"], "--ignore weight: "),
+    (["log_p1", "gamma1", "gamma2", "gamma3", "w", "lnL"], [], "or ignore w,lnL"),
+    (["log_p1", "gamma1", "gamma2", "gamma3"], ["weight"], "ignore weight: "),
     (["log_p1", "gamma1", "gamma1", "gamma3"], [], "column 'gamma1' appears twice"),
 ])
 def test_column_problems_name_the_columns(tmp_path, header, ignore, match):
