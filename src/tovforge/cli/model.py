@@ -41,7 +41,7 @@ def train_cmd(
     def work():
         settings = {"gp": GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
                                      share_curve_kernels=share_kernels, warp_inputs=warp),
-                    "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic)}[kind.value]
+                    "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic)}.get(kind.value)
         model = train(grid, kind.value, settings)
         model.save(out)
         return model
