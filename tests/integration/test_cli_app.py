@@ -65,9 +65,9 @@ def test_enum_choices_are_the_librarys_lists():
     from tovforge._bench import SECTIONS
     from tovforge.cli.bench import Section
     from tovforge.export import NAMESPACES
-    from tovforge.surrogate._train import KINDS
+    from tovforge.surrogate import kinds
 
-    assert tuple(k.value for k in Kind) == KINDS
+    assert tuple(k.value for k in Kind) == kinds()
     assert tuple(n.value for n in Namespace) == NAMESPACES
     assert [s.value for s in Section] == list(SECTIONS)
 
@@ -117,8 +117,8 @@ def test_library_messages_are_printed_and_quiet_keeps_only_results(small_grid, t
     loud = runner.invoke(app, ["train", str(small_grid), "--kind", "spline", "--out", str(tmp_path / "a")])
     quiet = runner.invoke(app, ["-q", "train", str(small_grid), "--kind", "spline", "--out", str(tmp_path / "b")])
     assert loud.exit_code == 0 and quiet.exit_code == 0, loud.output + quiet.output
-    assert "RBF r^5 + degree-2 polynomial on" in loud.stdout  # logged by tovforge.surrogate._fit
-    assert "RBF r^5" not in quiet.stdout and "trained rbf on" in quiet.stdout
+    assert "RBF r^5 + degree-2 polynomial on" in loud.stdout  # logged by tovforge.surrogate._rbf
+    assert "RBF r^5" not in quiet.stdout and "trained spline (rbf) on" in quiet.stdout
     assert quiet.stdout.count("\n") == 1
 
 

@@ -48,7 +48,10 @@ ParametersArg = Annotated[
 
 
 class Kind(str, Enum):
-    """Surrogate kinds (``tovforge.surrogate._train.KINDS``; a test keeps the two equal)."""
+    """Surrogate kinds (``tovforge.surrogate.kinds()``, the table of kinds; a test keeps the two equal).
+
+    Written out rather than read from the table: the table imports the fits (SciPy), and the command line
+    must start without them."""
 
     gp = "gp"
     spline = "spline"

@@ -16,7 +16,8 @@ __all__ = ["check_cmd", "export_cmd", "refine_cmd", "train_cmd"]
 def train_cmd(
     grid: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)],
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
-    kind: Annotated[Kind, typer.Option("--kind", help="Gaussian process or spline.")] = Kind.gp,
+    kind: Annotated[Kind, typer.Option("--kind", help="Gaussian process, or spline (tensor splines on a regular "
+                                                      "grid, r^5 RBF otherwise).")] = Kind.gp,
     subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 512,
     restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 1,
     curve_groups: Annotated[
@@ -38,16 +39,16 @@ def train_cmd(
     from ..surrogate import GPSettings, SplineSettings, train
 
     def work():
-        settings = GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
-                              share_curve_kernels=share_kernels, warp_inputs=warp)
-        spline = SplineSettings(warp_inputs=warp, anisotropic=not isotropic)
-        model = train(grid, kind.value, settings, spline_settings=spline)
+        settings = {"gp": GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
+                                     share_curve_kernels=share_kernels, warp_inputs=warp),
+                    "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic)}.get(kind.value)
+        model = train(grid, kind.value, settings)
         model.save(out)
         return model
 
     model = run(work)
-    typer.echo(f"trained {model.kind} on {model.meta['training']['n_train']} points in "
-               f"{model.meta['training']['seconds']:.1f} s; saved to {out}")
+    label = model.kind if model.method == model.kind else f"{model.kind} ({model.method})"
+    typer.echo(f"trained {label} on {model.n_train} points in {model.meta.training.seconds:.1f} s; saved to {out}")
 
 
 def check_cmd(
@@ -59,8 +60,7 @@ def check_cmd(
     ] = None,
 ):
     """Compare a surrogate with held-out exact solves; print the error table."""
-    from ..surrogate import load
-    from ..surrogate._check import check
+    from ..surrogate import check, load
 
     res = run(lambda: check(load(model), holdout, report))
     typer.echo(res.table())
@@ -92,8 +92,8 @@ def refine_cmd(
     if res.learning_curve:
         typer.echo(f"{'training points':>16}{'M_max p95 [Msun]':>18}{'R p95 [m]':>11}{'Lambda p95':>12}")
         for row in res.learning_curve:
-            typer.echo(f"{row['n_train']:>16}{row['mass_max_p95']:>18.4g}{row['radius_p95_km'] * 1000:>11.2f}"
-                       f"{row['lambda_rel_p95']:>12.3%}")
+            typer.echo(f"{row.n_train:>16}{row.mass_max_p95:>18.4g}{row.radius_p95_km * 1000:>11.2f}"
+                       f"{row.lambda_rel_p95:>12.3%}")
 
 
 def _namespaces(text: str) -> tuple[str, ...]:

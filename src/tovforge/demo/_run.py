@@ -22,6 +22,7 @@ from .._jsonfile import jsonable
 from .._provenance import provenance
 from ..errors import InputError
 from ..surrogate import GPSettings
+from ..surrogate._kinds import kinds
 
 __all__ = ["DemoSettings", "DemoResult", "run_demo", "import_evaluator", "BAND_MASSES"]
 
@@ -29,7 +30,7 @@ logger = logging.getLogger(__name__)
 
 #: Masses of the posterior bands (Msun).
 BAND_MASSES = tuple(float(m) for m in np.round(np.arange(1.0, 2.401, 0.05), 2))
-KINDS = ("gp", "spline")
+KINDS = kinds()
 
 
 @dataclass(frozen=True)
@@ -205,8 +206,7 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None) -> DemoRes
 def _run_demo(out, settings) -> DemoResult:
     from ..export import ExportError, export_model
     from ..grid import load_spec, read_grid, run_grid
-    from ..surrogate import read_training_data, train_on
-    from ..surrogate._check import check
+    from ..surrogate import check, read_training_data, train_on
     from ..tables import read_table, samples_table
     from ._crosscheck import cross_check
     from ._likelihood import ExactModel, Posterior
@@ -279,9 +279,9 @@ def _run_demo(out, settings) -> DemoResult:
         model = train_on(data, kind, gp if kind == "gp" else None)
         folder = model.save(out / "models" / kind)
         models[kind] = model
-        say(f"  {kind:<7}{model.kind} on {len(data.theta)} points in {time.perf_counter() - t0:.1f} s -> {folder}")
+        say(f"  {kind:<7}{model.method} on {len(data.theta)} points in {time.perf_counter() - t0:.1f} s -> {folder}")
     numbers["training"] = {"n_train": int(len(data.theta)), "gp_settings": dataclasses.asdict(gp),
-                           "seconds": {k: models[k].meta["training"]["seconds"] for k in KINDS}}
+                           "seconds": {k: models[k].meta.training.seconds for k in KINDS}}
     done("train")
 
     # -- 3. check -------------------------------------------------------------------------------
@@ -289,15 +289,15 @@ def _run_demo(out, settings) -> DemoResult:
     reports = {}
     for kind in KINDS:
         res = check(models[kind], grid_paths["holdout"], out / "check" / kind)
-        reports[kind] = res.report
+        reports[kind] = res
         files[f"check_{kind}"] = out / "check" / kind / "report.md"
         say(f"  {kind}: report {files[f'check_{kind}']}")
         for line in res.table().splitlines():
             say(f"    {line}")
-    numbers["check"] = {k: {"mass_max_abs_p95_msun": r["errors"]["mass_max_msun"]["abs_p95"],
-                            "radius_abs_p95_km": r["errors"]["radius_km_at_mass"]["abs_p95"],
-                            "radius_abs_median_km": r["errors"]["radius_km_at_mass"]["abs_median"],
-                            "lambda_rel_p95": r["errors"]["tidal_deformability_at_mass"]["rel_p95"]}
+    numbers["check"] = {k: {"mass_max_abs_p95_msun": r.errors["mass_max_msun"].abs_p95,
+                            "radius_abs_p95_km": r.errors["radius_km_at_mass"].abs_p95,
+                            "radius_abs_median_km": r.errors["radius_km_at_mass"].abs_median,
+                            "lambda_rel_p95": r.errors["tidal_deformability_at_mass"].rel_p95}
                         for k, r in reports.items()}
     done("check")
 
@@ -416,7 +416,7 @@ def _run_demo(out, settings) -> DemoResult:
     if not np.isfinite(exact_post(one)[0]):
         say("  note: the exact likelihood is -inf at the timed theta, so its time is not that of a full solve")
     family = exact_model.family
-    mm_one = ev.mass_max(one)
+    mm_one = ev.mass_max(one).value
     solve_masses = np.concatenate([post.pulsar_masses(mm_one)[0]]
                                   + [m[0] for m1, m2, _ in post.merger_pairs(mm_one) for m in (m1, m2)])
     t_solve_one = _best_seconds(lambda: solve_sequences(family.build(one), n_stars=16, masses=solve_masses), 2)
@@ -448,15 +448,15 @@ def _run_demo(out, settings) -> DemoResult:
     timing["exact_solve_batch_ms_per_eos"] = cc.exact_solve_seconds / n * 1e3
     timing["speedup_one"] = t_exact_one / t_emu_one
     timing["speedup_batch"] = (cc.exact_seconds / n) / (t_emu_batch / len(batch))
-    stated = reports[s.sampler_model]["errors"]["radius_km_at_mass"]
-    stated_mm = reports[s.sampler_model]["errors"]["mass_max_msun"]
+    stated = reports[s.sampler_model].errors["radius_km_at_mass"]
+    stated_mm = reports[s.sampler_model].errors["mass_max_msun"]
     worst_band = max(cc.band_distance_km.values())
     if not cc.compared.any():
         verdict, ratio = "not compared", "no mass has enough samples with a star in both answers"
         verdict_text = f"the bands were not compared ({ratio})"
     else:
-        verdict = "inside" if worst_band <= stated["abs_p95"] else "OUTSIDE"
-        ratio = f"{worst_band / stated['abs_p95']:.2f} of it"
+        verdict = "inside" if worst_band <= stated.abs_p95 else "OUTSIDE"
+        ratio = f"{worst_band / stated.abs_p95:.2f} of it"
         verdict_text = f"the band distance is {verdict} it ({ratio})"
     say(f"  exact solves: {timing['exact_solve_batch_ms_per_eos']:.1f} ms per EOS in a batch of {n} "
          f"(M_max and {len(cc.masses)} stars); exact likelihood {timing['likelihood_exact_batch_ms_per_theta']:.1f}"
@@ -467,16 +467,16 @@ def _run_demo(out, settings) -> DemoResult:
          f"{int(cc.compared.sum())} masses: " + ", ".join(f"{k} {v * 1000:.1f} m" for k, v in cc.band_distance_km.items()))
     say(f"  {cc.n_star_mismatch} of {n * len(cc.masses)} (sample, mass) pairs have a star in one answer only "
          "(M_max on either side of the mass)")
-    say(f"  stated emulator error (held-out p95 of R(M)): {stated['abs_p95'] * 1000:.1f} m -> {verdict_text}")
+    say(f"  stated emulator error (held-out p95 of R(M)): {stated.abs_p95 * 1000:.1f} m -> {verdict_text}")
     say(f"  per sample: |R error| p95 {cc.radius_abs_p95_km * 1000:.1f} m, max {cc.radius_abs_max_km * 1000:.1f} m;"
-         f" |M_max error| p95 {cc.mass_max_abs_p95_msun:.2e} Msun (held-out p95 {stated_mm['abs_p95']:.2e});"
+         f" |M_max error| p95 {cc.mass_max_abs_p95_msun:.2e} Msun (held-out p95 {stated_mm.abs_p95:.2e});"
          f" |log L error| median {cc.log_like_abs_median:.3f}, p95 {cc.log_like_abs_p95:.3f}")
     numbers["timing"] = timing
     numbers["cross_check"] = {
         "n_samples": n, "masses_compared": [float(m) for m in cc.masses[cc.compared]],
         "band_distance_km": cc.band_distance_km, "n_star_mismatch": cc.n_star_mismatch,
-        "n_pairs": n * len(cc.masses), "stated_radius_abs_p95_km": stated["abs_p95"],
-        "stated_mass_max_abs_p95_msun": stated_mm["abs_p95"], "verdict": verdict, "verdict_detail": ratio,
+        "n_pairs": n * len(cc.masses), "stated_radius_abs_p95_km": stated.abs_p95,
+        "stated_mass_max_abs_p95_msun": stated_mm.abs_p95, "verdict": verdict, "verdict_detail": ratio,
         "verdict_text": verdict_text,
         "radius_abs_p95_km": cc.radius_abs_p95_km, "radius_abs_max_km": cc.radius_abs_max_km,
         "mass_max_abs_p95_msun": cc.mass_max_abs_p95_msun, "mass_max_abs_max_msun": cc.mass_max_abs_max_msun,

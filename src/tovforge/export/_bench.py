@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from .._bench import demo_box_points, timeit_median
-from ._codegen import _import_file
+from ._verify import import_file as _import_file
 
 __all__ = ["bench_export"]
 

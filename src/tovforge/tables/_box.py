@@ -234,15 +234,15 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
             return f"outside the model's box: {name} must be in [{blo:g}, {bhi:g}] (the box it was trained on)."
         return ""
 
-    plan = plan_box(model.parameter_names, model.meta.get("parameter_units", ["1"] * len(bounds)), axes,
+    plan = plan_box(model.parameter_names, model.parameter_units, axes,
                     fixed or {}, allowed, where=f"the model ({model.family})")
-    sigma = bool(sigma and model.kind == "gp")
+    sigma = bool(sigma and model.has_std)
     qcols = quantity_columns(quantities, masses, sigma)
     columns = parameter_columns(plan.names, plan.units) + qcols
     meta = provenance(command, kind="box", source="model", model=label, model_kind=model.kind,
-                      model_arrays_sha256=str(model.meta.get("arrays_sha256", "")), family=model.family,
+                      model_arrays_sha256=model.meta.arrays_sha256, family=model.family,
                       quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)),
-                      mass_floor_msun=float(model.meta["outputs"]["mass_floor_msun"]), sigma=sigma, **plan.meta())
+                      mass_floor_msun=model.meta.outputs.mass_floor_msun, sigma=sigma, **plan.meta())
     n = plan.n_rows
     bar = progress_bar(n, Path(out).name, unit="rows", enabled=progress, stream=stream)
     try:

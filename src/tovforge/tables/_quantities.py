@@ -136,11 +136,10 @@ def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
     at = model.predict_at_masses(theta, masses, return_std=sigma)
     pred = at.prediction
     std = pred.std or {}
-    p_max = 10.0 ** pred.log10_central_pressure_at_mass_max
     scalars = {
         "mass_max": (pred.mass_max_msun, std.get("mass_max_msun")),
-        "pressure_at_mass_max": (p_max, p_max * np.log(10.0) * std["log10_central_pressure_at_mass_max"]
-                                 if sigma else None),
+        "pressure_at_mass_max": (pred.central_pressure_at_mass_max_dyn_cm2,
+                                 std.get("central_pressure_at_mass_max_dyn_cm2")),
         "max_sound_speed_sq": (pred.max_sound_speed_sq, std.get("max_sound_speed_sq")),
         "causality_margin": (pred.causality_margin, std.get("max_sound_speed_sq")),
         "mass_max_margin": (pred.mass_max_margin_msun, std.get("mass_max_msun")),

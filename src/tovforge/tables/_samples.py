@@ -291,13 +291,13 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
         raise InputError(f"{samples}: the samples file would be overwritten; choose other output files.")
     names = model.parameter_names
     data = read_samples(samples, names, ignore, bounds=model.bounds)
-    sigma = bool(sigma and model.kind == "gp")
-    units = model.meta.get("parameter_units", ["1"] * len(names))
+    sigma = bool(sigma and model.has_std)
+    units = model.parameter_units
     sample_col = Column("sample", "1", "data row of the samples file (from 1)", dtype="int64")
     qcols = quantity_columns(quantities, masses, sigma)
     columns = [sample_col] + parameter_columns(names, units) + qcols
     source = dict(source="model", model=label, model_kind=model.kind,
-                  model_arrays_sha256=str(model.meta.get("arrays_sha256", "")), family=model.family,
+                  model_arrays_sha256=model.meta.arrays_sha256, family=model.family,
                   samples=str(samples), samples_rows=data.n_rows, samples_skipped=len(data.bad),
                   quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)))
     meta = provenance(command, kind="samples", sigma=sigma, **source)
@@ -362,14 +362,14 @@ def _plot_band(path, model, theta, masses, mass_max, label):
     plt = pyplot("the samples plot")
     stride = max(1, -(-len(theta) // PLOT_MAX_SAMPLES))
     sub = theta[::stride]
-    mm = model.mass_max(sub) if mass_max is None else mass_max[::stride]
+    mm = model.mass_max(sub).value if mass_max is None else mass_max[::stride]
     fine = mm[np.isfinite(mm)]
     if fine.size == 0:
         raise InputError("no sample has a maximum mass; nothing to plot.")
     m_hi = float(np.quantile(fine, 0.95))
     m_lo = min(1.0, float(min(masses))) if masses else 1.0
     grid = np.linspace(m_lo, m_hi, 80)
-    R = np.concatenate([model.radius(sub[i:i + CHUNK_ROWS], grid) for i in range(0, len(sub), CHUNK_ROWS)])
+    R = np.concatenate([model.radius(sub[i:i + CHUNK_ROWS], grid).value for i in range(0, len(sub), CHUNK_ROWS)])
     med, lo, hi, frac = (np.empty(grid.size) for _ in range(4))
     for j in range(grid.size):
         qs = _quantiles(R[:, j])

@@ -38,8 +38,7 @@ def test_missing_package_is_recorded_not_raised():
 
 def test_grid_model_check_and_table_share_keys_and_format(tmp_path):
     """Grid attributes, the model's training record, the check report and a table's metadata."""
-    from tovforge.surrogate import train
-    from tovforge.surrogate._check import check
+    from tovforge.surrogate import check, train
     from tovforge.tables import box_table, read_table
     from tovforge.tables import Axis
 
@@ -53,12 +52,12 @@ def test_grid_model_check_and_table_share_keys_and_format(tmp_path):
     with h5py.File(train_path, "r") as h5:
         attrs = {k: h5.attrs[k] for k in h5.attrs}
     model = train(train_path, "spline")
-    report = check(model, held_path).report
+    report = check(model, held_path).to_json()
     table = tmp_path / "t.csv"
     box_table(table, model, [Axis("gamma1", 2.5, 3.0, 2)], {"log_p1": 34.5, "gamma2": 3.0, "gamma3": 3.0},
               ["mass_max"], progress=False)
     meta = read_table(table).meta
-    for where, record in (("grid", attrs), ("model", model.meta["training"]), ("check", report), ("table", meta)):
+    for where, record in (("grid", attrs), ("model", model.meta.training.to_json()), ("check", report), ("table", meta)):
         for key in COMMON:
             assert key in record, (where, key)
         assert UTC.match(str(record["created_utc"])), (where, record["created_utc"])
