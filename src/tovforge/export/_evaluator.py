@@ -10,7 +10,11 @@ of the generated file; inside the package this module is only read as text.
 
 The queries are the contract's ``query_*`` functions bound to the model in
 the caller's array namespace: the library's ``Surrogate`` answers through
-the same functions, so both give the same types, shapes and values.
+the same functions, so both give the same types, shapes and values.  Under
+NumPy they run on the code generated for the model: one theta through the
+fast path of :mod:`._fast` (``_fast_*``, None when it leaves a call to the
+contract), batches through the contract with the generated kernel sums
+(the runtime model ``_GM``).
 
 Rules for this code: import nothing beyond what the generated file imports
 (``base64``, ``dataclasses``, ``hashlib``, ``io``, ``math``, ``zlib``,
@@ -30,6 +34,9 @@ import numpy as np
 from ..surrogate._contract import (QUERY_DOCS, device_of, query_at_mass, query_curve, query_in_domain,
                                    query_mass_max, query_predict, query_predict_at_masses)
 from ..surrogate._runtime import Model
+from ._fast import _fast_at_mass, _fast_curve, _fast_mass_max, _one_theta
+
+_M = _GM = _PLANS = None  # set at the end of every exported file
 
 # ---- the exported code starts below this line ----
 
@@ -107,7 +114,7 @@ def _bind(theta):
     """The namespace of ``theta`` and the model in it, on its device (converted once, then cached)."""
     xp = _namespace(theta)
     if xp is _NUMPY or xp is np:
-        return _NUMPY, _M
+        return _NUMPY, _GM
     on = device_of(theta)
     key = (id(xp), str(on))
     m = _MODEL_CACHE.get(key)
@@ -123,31 +130,48 @@ def in_domain(theta):
 
 
 def mass_max(theta, return_grad=False, return_std=False, strict=False):
+    if _PLANS is not None:
+        one = _one_theta(theta)
+        if one is not None:
+            return _fast_mass_max(one[0], one[1], return_grad, return_std, strict)
     xp, m = _bind(theta)
     return query_mass_max(xp, m, theta, return_grad, return_std, strict)
 
 
-def radius(theta, mass, return_grad=False, return_std=False, strict=False):
+def _at_mass(query, theta, mass, return_grad, return_std, strict):
+    if _PLANS is not None:
+        one = _one_theta(theta)
+        if one is not None:
+            r = _fast_at_mass(query, one[0], one[1], mass, return_grad, return_std, strict)
+            if r is not None:
+                return r
     xp, m = _bind(theta)
-    return query_at_mass(xp, m, "radius", theta, mass, return_grad, return_std, strict)
+    return query_at_mass(xp, m, query, theta, mass, return_grad, return_std, strict)
+
+
+def radius(theta, mass, return_grad=False, return_std=False, strict=False):
+    return _at_mass("radius", theta, mass, return_grad, return_std, strict)
 
 
 def tidal_deformability(theta, mass, return_grad=False, return_std=False, strict=False):
-    xp, m = _bind(theta)
-    return query_at_mass(xp, m, "tidal_deformability", theta, mass, return_grad, return_std, strict)
+    return _at_mass("tidal_deformability", theta, mass, return_grad, return_std, strict)
 
 
 def moment_of_inertia(theta, mass, return_grad=False, return_std=False, strict=False):
-    xp, m = _bind(theta)
-    return query_at_mass(xp, m, "moment_of_inertia", theta, mass, return_grad, return_std, strict)
+    return _at_mass("moment_of_inertia", theta, mass, return_grad, return_std, strict)
 
 
 def k2(theta, mass, return_grad=False, return_std=False, strict=False):
-    xp, m = _bind(theta)
-    return query_at_mass(xp, m, "k2", theta, mass, return_grad, return_std, strict)
+    return _at_mass("k2", theta, mass, return_grad, return_std, strict)
 
 
 def curve(theta, n=100, strict=False):
+    if _PLANS is not None:
+        one = _one_theta(theta)
+        if one is not None:
+            r = _fast_curve(one[0], one[1], n, strict)
+            if r is not None:
+                return r
     xp, m = _bind(theta)
     return query_curve(xp, m, theta, n, strict)
 

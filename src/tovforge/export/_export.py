@@ -25,6 +25,7 @@ from .._provenance import provenance
 from ..surrogate import CheckReport
 from ..surrogate._check import read_report
 from ..surrogate._kinds import COMMON_STATIC, METHODS
+from ._codegen import generate
 from ._payload import pack
 from ._render import (SELF_CHECK_POINTS, ExportError, constants, header, identifier, is_identifier, plain, render,
                       source, text)
@@ -164,9 +165,10 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     }
     lines = constants(model, check, info, payload.index)
     b64 = payload.lines()
+    generated = generate(model)
 
     def write(path: Path, ns_lines: dict) -> None:
-        path.write_text(render(header(model, check, info, ns_lines), lines, b64), encoding="utf-8")
+        path.write_text(render(header(model, check, info, ns_lines), lines, b64, generated.source), encoding="utf-8")
 
     out.parent.mkdir(parents=True, exist_ok=True)
     with tempfile.TemporaryDirectory() as tmp:

@@ -11,7 +11,10 @@ Adding a method: a module with its fit (``fit(data, settings) ->
 FitResult``), its settings and its record of what the fit found; a runtime
 part in ``_runtime.py`` (an entry of ``PARTS``, and of ``STD`` if it has a
 predictive sigma); and an entry in :data:`METHODS` here.  Training, saving,
-loading, checks, export and the tables then take it as it is.
+loading, checks, export and the tables then take it as it is.  For fast
+exported files, a template of generated code beside it (``_<name>_code.py``,
+see :mod:`._codegen`); without one, exported files evaluate the method with
+its runtime part.
 """
 
 from __future__ import annotations
@@ -20,6 +23,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from ..errors import InputError
+from . import _gp_code, _rbf_code, _tensor_code
+from ._codegen import Template
 from ._data import TrainingData
 from ._gp import GPFit, GPSettings, describe_gp, fit_gp
 from ._rbf import RBFFit, SplineSettings, fit_rbf
@@ -71,6 +76,9 @@ class Method:
         ``applies(data) -> bool``: whether it can fit these training data.
     describe : callable or None
         ``describe(arrays) -> str``: a few words on a fitted model's structure.
+    template : Template or None
+        The generated code of its exported files (:mod:`tovforge.surrogate._codegen`);
+        None: exported files evaluate it with its general runtime part.
     """
 
     name: str
@@ -86,6 +94,7 @@ class Method:
     has_std: bool = False
     applies: Callable[[TrainingData], bool] = _always
     describe: Callable | None = None
+    template: Template | None = None
 
 
 #: Every method, by name, in the order in which the methods of a kind are tried.
@@ -95,13 +104,14 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            fit_gp, GPSettings, GPFit,
            arrays=("X", "alpha", "group_bounds", "length", "amp2", "noise", "resid_scale"),
            static_arrays=("group_bounds", "group_kernel"), training_rows=("X", "alpha"), has_std=True,
-           describe=describe_gp),
+           describe=describe_gp, template=_gp_code.TEMPLATE),
     Method("tensor", "spline", "tensor-product cubic B-splines on a regular grid",
            fit_tensor, SplineSettings, TensorFit, settings_recorded=False,
            arrays=("knots", "n_knots", "coef", "coef_shape"), static_arrays=("n_knots", "coef_shape", "knots"),
-           applies=is_regular),
+           applies=is_regular, template=_tensor_code.TEMPLATE),
     Method("rbf", "spline", "polyharmonic splines: r^5 radial basis functions plus a quadratic polynomial",
-           fit_rbf, SplineSettings, RBFFit, arrays=("X", "alpha"), training_rows=("X", "alpha")),
+           fit_rbf, SplineSettings, RBFFit, arrays=("X", "alpha"), training_rows=("X", "alpha"),
+           template=_rbf_code.TEMPLATE),
 )}
 
 

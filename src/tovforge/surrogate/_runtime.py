@@ -282,56 +282,123 @@ def _weight_block(xp, m, weights, name, a, b):
     return m.cache.array(xp, name, (a, b), lambda: weights[:, a:b] * 1.0)
 
 
-def _scaled_points(xp, m, groups, inv):
-    """Training points scaled by sqrt5 / l of each kernel, transposed (G, d, N), and their squared norms
-    (G, 1, N); cached for NumPy per set of kernels."""
-    def make():
-        b = m["X"][None, :, :] * (SQRT5 * inv)[:, None, :]  # (G, N, d)
-        return xp.permute_dims(b, (0, 2, 1)) * 1.0, xp.sum(b * b, axis=-1)[:, None, :]  # * 1.0: C-ordered
-
-    return m.cache.array(xp, "scaled_points", tuple(groups), make)
+def _cached(xp, m, name, key, make):
+    """``make()`` kept in the model's cache (NumPy only); made anew for a plain dict of arrays (fits)."""
+    cache = getattr(m, "cache", None)
+    return make() if cache is None else cache.array(xp, name, key, make)
 
 
-def _matern(xp, x, m, groups, grad, diffs=None):
-    """Matern-5/2 kernel rows k(x, X) / amp2 of the given kernel groups at once, (G, n, N).
+def kernel_stack(xp, m, kernels):
+    """What the Matern kernels ``kernels`` (kernel groups) need, stacked on a leading axis G; cached for NumPy.
 
-    The amplitude is folded into the weights (see :func:`_folded_weights`);
-    the arithmetic runs in place on one (G, n, N) array.  With ``grad`` (and the
-    column differences ``diffs``), also the d arrays (G, n, N) of the
-    derivatives d/dx_i.
+    A dict: ``s = sqrt5 / l`` (G, d); the training points scaled by it and
+    transposed, ``bT`` (G, d, N) (C-ordered under NumPy: BLAS multiplies a
+    row by it 2-3 times faster than by the transposed view), and their
+    squared norms ``b2`` (G, 1, N); ``inv2 = 1 / l^2`` (G, d) and ``w``, the
+    same made as the sigma makes it; ``length`` (G, 1, 1, d); ``amp2``
+    (G, 1, 1) and the diagonal ``jitter`` (G, 1, 1, 1) of the local GP.
     """
-    pick = xp.asarray(groups, dtype=xp.int64)
-    G = len(groups)
-    inv = 1.0 / xp.take(m["length"], pick, axis=0)  # (G, d)
-    # 5 r^2 = |a|^2 + |b|^2 - 2 a.b with a = sqrt5 x / l, b = sqrt5 X / l: one batched matrix
-    # product instead of d passes per kernel.  The cancellation costs ~1e-16 |a|^2 absolute in
-    # r^2, where the kernel is flat (k = 1 - 5 r^2 / 6 + ...): below the model's own rounding noise
-    # (~1e-8, see the exporter's report); each kernel is its own product, so a query's bits do not
-    # depend on which other kernels it reads
-    bT, b2 = _scaled_points(xp, m, groups, inv)  # (G, d, N), (G, 1, N)
-    a = x[None, :, :] * (SQRT5 * inv)[:, None, :]  # (G, n, d)
-    q = xp.matmul(a, bT)
-    q *= -2.0
+    def make():
+        pick = xp.asarray(list(kernels), dtype=xp.int64)
+        length = xp.take(m["length"], pick, axis=0)
+        inv = 1.0 / length
+        s = SQRT5 * inv
+        b = m["X"][None, :, :] * s[:, None, :]  # (G, N, d)
+        bT = xp.permute_dims(b, (0, 2, 1))
+        if _is_numpy(xp):
+            bT = xp.ascontiguousarray(bT)
+        amp2 = xp.take(m["amp2"], pick, axis=0)
+        noise = xp.take(m["noise"], pick, axis=0)
+        return {"s": s, "bT": bT, "b2": xp.sum(b * b, axis=-1)[:, None, :], "inv2": inv * inv,
+                "w": 1.0 / (length * length), "length": length[:, None, None, :],
+                "amp2": xp.reshape(amp2, (-1, 1, 1)), "jitter": xp.reshape(noise + 1e-10 * amp2, (-1, 1, 1, 1))}
+
+    return _cached(xp, m, "kernel_stack", tuple(kernels), make)
+
+
+def scaled_distances(xp, x, k):
+    """``q = 5 r^2`` between rows x (n, d) and the training points in the metric of each kernel of ``k``, (G, n, N).
+
+    5 r^2 = |a|^2 + |b|^2 - 2 a.b with a = sqrt5 x / l, b = sqrt5 X / l: one
+    matrix product per kernel instead of d passes.  The cancellation costs
+    ~1e-16 |a|^2 absolute in r^2, where the kernel is flat (k = 1 - 5 r^2 / 6
+    + ...): below the model's own rounding noise (~1e-8, see the exporter's
+    report); each kernel is its own product, so a query's bits do not depend
+    on which other kernels it reads.  ``-2 a``: scaling by a power of two is
+    exact and saves a pass over q.
+    """
+    a = x[None, :, :] * k["s"][:, None, :]  # (G, n, d)
+    q = xp.matmul(a * -2.0, k["bT"])
     q += xp.sum(a * a, axis=-1)[:, :, None]
-    q += b2
+    q += k["b2"]
+    return q
+
+
+def matern_values(xp, q, grad):
+    """Matern-5/2 rows k / amp2 from ``q = 5 r^2`` (in place), and for gradients ``c = -(5/3)(1 + sqrt5 r) e^(-sqrt5 r)``."""
     q = xp.where(q > 0.0, q, 0.0)
     msr = xp.sqrt(q)
     msr *= -1.0  # -sqrt(5) r
     e = xp.exp(msr)
+    c = None
+    if grad:
+        c = (1.0 - msr) * e
+        c *= -5.0 / 3.0
     q *= 1.0 / 3.0  # (5/3) r^2
     q -= msr
     q += 1.0
     q *= e  # (1 + sqrt5 r + 5 r^2 / 3) exp(-sqrt5 r)
-    dk = None
+    return q, c
+
+
+def matern_gradients(xp, x, X, k, c):
+    """d/dx_i of Matern rows, ``c (x_i - X_i) / l_i^2``: d arrays (G, n, N); ``c`` from :func:`matern_values`."""
+    G = k["inv2"].shape[0]
+    return [c * ((x[:, i : i + 1] - X[:, i])[None, :, :] * xp.reshape(k["inv2"][:, i], (G, 1, 1)))
+            for i in range(x.shape[1])]
+
+
+def _matern(xp, x, m, groups, grad):
+    """Matern-5/2 kernel rows k(x, X) / amp2 of the given kernel groups at once, (G, n, N).
+
+    The amplitude is folded into the weights (see :func:`_folded_weights`).
+    With ``grad``, also the d arrays (G, n, N) of the derivatives d/dx_i.
+    """
+    k = kernel_stack(xp, m, groups)
+    q, c = matern_values(xp, scaled_distances(xp, x, k), grad)
+    return q, (matern_gradients(xp, x, m["X"], k, c) if grad else None)
+
+
+def rbf_points(xp, m):
+    """The training points transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N); cached."""
+    def make():
+        X = m["X"]
+        XT = xp.permute_dims(X, (1, 0))
+        if _is_numpy(xp):
+            XT = xp.ascontiguousarray(XT)
+        return XT, xp.reshape(xp.sum(X * X, axis=-1), (1, -1))
+
+    return _cached(xp, m, "rbf_points", None, make)
+
+
+def polyharmonic_rows(xp, x, XT, X2, grad):
+    """r^5 rows (n, N) at rows x from the training points ``XT`` (d, N) and ``X2`` (1, N); with ``grad`` d(r^5)/dx_i.
+
+    r^2 = |x|^2 + |X|^2 - 2 x.X by one matrix product (see
+    :func:`scaled_distances`; r^5 is flat where the cancellation bites).
+    """
+    q = xp.matmul(x * -2.0, XT)
+    q += xp.sum(x * x, axis=-1)[:, None]
+    q += X2
+    q = xp.where(q > 0.0, q, 0.0)
+    r = xp.sqrt(q)
+    phi = q * q
+    phi *= r
+    dphi = None
     if grad:
-        if diffs is None:
-            diffs = _column_differences(xp, x, m["X"])
-        # d/dx_i = -(5/3) (1 + sqrt5 r) exp(-sqrt5 r) (x_i - X_i) / l_i^2
-        c = (1.0 - msr) * e
-        c *= -5.0 / 3.0
-        inv2 = inv * inv
-        dk = [c * (diffs[i][None, :, :] * xp.reshape(inv2[:, i], (G, 1, 1))) for i in range(len(diffs))]
-    return q, dk
+        c = 5.0 * q * r
+        dphi = [c * (x[:, i : i + 1] - XT[i]) for i in range(x.shape[1])]
+    return phi, dphi
 
 
 def _polyharmonic(xp, x, X, grad):
@@ -475,24 +542,27 @@ def _gp_part(xp, m, x, grad, columns):
     return _chunked(xp, _gp_rows, x, m["X"].shape[0], m, grad, groups)
 
 
+def gp_kernels_of(m):
+    """The kernel of each group: the first group with the same hyperparameters (``group_kernel``), else itself."""
+    share = m.get("group_kernel")
+    n_groups = m["length"].shape[0]
+    return [int(share[g]) if share is not None else g for g in range(n_groups)]
+
+
 def _gp_rows(xp, x, m, grad, groups=None):
     """Kernel sums of a GP model at rows x (n, d): (n, n_out) and (n, n_out, d).
 
     ``groups``: the kernel groups to evaluate (default all); the outputs of the
-    others are NaN.  The column differences to the training points (needed for
-    gradients) are formed once and shared by every kernel group.
+    others are NaN.  Groups that share a kernel (same hyperparameters) name the
+    same first group in ``group_kernel``: each kernel is evaluated once.
     """
-    diffs = _column_differences(xp, x, m["X"]) if grad else None
     parts, dparts = [], []
     n_groups = m["length"].shape[0]
     if groups is None:
         groups = list(range(n_groups))
-    # groups that share a kernel (same hyperparameters) name the same first group in
-    # ``group_kernel``: each kernel is evaluated once
-    share = m.get("group_kernel")
-    kernel_of = [int(share[g]) if share is not None else g for g in range(n_groups)]
+    kernel_of = gp_kernels_of(m)
     kernels = sorted({kernel_of[g] for g in groups})
-    k, dk = _matern(xp, x, m, kernels, grad, diffs)
+    k, dk = _matern(xp, x, m, kernels, grad)
     folded = _folded_weights(xp, m)
     for g in range(n_groups):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
@@ -529,8 +599,7 @@ def _rbf_blocks(m, columns):
 
 def _rbf_rows(xp, x, m, grad, spans):
     """RBF kernel sums phi @ alpha at rows x (and their x-derivatives), for the output ranges ``spans`` only."""
-    diffs = _column_differences(xp, x, m["X"])
-    phi, dphi = _polyharmonic_columns(xp, diffs, grad)
+    phi, dphi = polyharmonic_rows(xp, x, *rbf_points(xp, m), grad)
     alpha = m["alpha"]
     n_out = alpha.shape[1]
     n, d = phi.shape[0], len(dphi) if dphi is not None else 0
@@ -597,52 +666,75 @@ def gp_local_std(xp, m, x, n_neighbours=48, columns=None, skip_nearest=0):
     return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours, columns, skip_nearest)[0]
 
 
-def _nearest(xp, d2, K):
-    """Indices (n, K) of the K smallest entries of each row of ``d2``, nearest first."""
-    if hasattr(xp, "argpartition") and K < d2.shape[1]:
-        # NumPy: select in O(N), then sort only the K chosen (the same order as a full sort)
-        part = xp.argpartition(d2, K - 1, axis=1)[:, :K]
-        order = xp.argsort(xp.take_along_axis(d2, part, axis=1), axis=1)
-        return xp.take_along_axis(part, order, axis=1)
-    return xp.argsort(d2, axis=1)[:, :K]
+def nearest(xp, q, K):
+    """Indices (..., K) of the K smallest entries along the last axis of ``q``, in no particular order."""
+    if hasattr(xp, "argpartition") and K < q.shape[-1]:
+        return xp.argpartition(q, K - 1, axis=-1)[..., :K]  # NumPy: select in O(N)
+    return xp.argsort(q, axis=-1)[..., :K]
+
+
+def local_sd(xp, x, X, nn, k, skip=0):
+    """The GP's standard deviation / sqrt(amp2) ... conditioned on training points ``nn`` (G, n, K + skip), (G, n).
+
+    For each kernel of ``k`` (:func:`kernel_stack`) and row of x (n, d):
+    the chosen points' squared distances in the kernel's metric, summed in
+    parameter order, order them nearest first; the ``skip`` nearest are left
+    out; the posterior variance of a GP on the K others (Matern-5/2 kernel
+    matrix with the nugget and a 1e-10 jitter, one solve), clipped at zero.
+    Returns the standard deviation in kernel units, shape (G, n).
+    """
+    G, n, Kt = nn.shape
+    d = x.shape[1]
+    Xn = xp.reshape(xp.take(X, xp.reshape(nn, (-1,)), axis=0), (G, n, Kt, d))
+    d2 = None
+    for i in range(d):
+        s = x[None, :, None, i] - Xn[:, :, :, i]
+        t = (s * s) * xp.reshape(k["w"][:, i], (G, 1, 1))
+        d2 = t if d2 is None else d2 + t
+    order = xp.argsort(d2, axis=-1)[..., skip:]
+    d2 = xp.take_along_axis(d2, order, axis=-1)
+    nn = xp.take_along_axis(nn, order, axis=-1)
+    K = Kt - skip
+    # the chosen points scaled by 1/l, one contiguous (G, n, K) array per parameter
+    Xs = xp.reshape(xp.take(X, xp.reshape(nn, (-1,)), axis=0), (G, n, K, d)) / k["length"]
+    r2 = None
+    for i in range(d):
+        c = Xs[:, :, :, i]
+        s = c[:, :, :, None] - c[:, :, None, :]
+        r2 = s * s if r2 is None else r2 + s * s
+    r = xp.sqrt(r2)
+    amp2 = k["amp2"]  # (G, 1, 1)
+    a4 = amp2[..., None]
+    Kmat = a4 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * xp.exp(-SQRT5 * r)
+    Kmat = Kmat + k["jitter"] * xp.eye(K, dtype=x.dtype)
+    rk = xp.sqrt(d2)
+    kv = amp2 * (1.0 + SQRT5 * rk + (5.0 / 3.0) * rk * rk) * xp.exp(-SQRT5 * rk)
+    sol = xp.linalg.solve(Kmat, kv[..., None])[..., 0]
+    var = amp2[..., 0] - xp.sum(kv * sol, axis=-1)
+    var = xp.where(var > 0.0, var, 0.0)
+    return xp.sqrt(var)
 
 
 def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None, skip_nearest=0):
     X = m["X"]
     K = min(n_neighbours, X.shape[0] - skip_nearest)
-    squares = [s * s for s in _column_differences(xp, x, X)]
+    kernel_of = gp_kernels_of(m)
+    gb = [int(v) for v in m["group_bounds"]]
+    groups = [g for g in range(len(gb) - 1) if columns is None or _touches(gb[g], gb[g + 1], columns)]
+    kernels = sorted({kernel_of[g] for g in groups})
+    sd = None
+    if kernels:
+        # the nearest points in each kernel's metric by the squared distances of the mean
+        # (scaled_distances), ordered by distances formed point by point (local_sd)
+        k = kernel_stack(xp, m, kernels)
+        sd = local_sd(xp, x, X, nearest(xp, scaled_distances(xp, x, k), K + skip_nearest), k, skip_nearest)
     parts = []
-    share = m.get("group_kernel")
-    sd_of_kernel = {}
-    for g in range(m["length"].shape[0]):
-        a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
-        if columns is not None and not _touches(a, b, columns):
+    for g in range(len(gb) - 1):
+        a, b = gb[g], gb[g + 1]
+        if g not in groups:
             parts.append(_nan_block(xp, x.shape[0], b - a, x))
             continue
-        kg = int(share[g]) if share is not None else g
-        if kg in sd_of_kernel:  # a kernel shared with an earlier group: the same sigma
-            parts.append(sd_of_kernel[kg][:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
-            continue
-        length = m["length"][g]
-        amp2 = m["amp2"][g]
-        w = 1.0 / (length * length)
-        d2 = squares[0] * w[0]
-        for i in range(1, len(squares)):
-            d2 = d2 + squares[i] * w[i]
-        nn = _nearest(xp, d2, K + skip_nearest)[:, skip_nearest:]
-        Xn = xp.take(X, xp.reshape(nn, (-1,)), axis=0)
-        Xn = xp.reshape(Xn, (x.shape[0], K, X.shape[1])) / length
-        dd = Xn[:, :, None, :] - Xn[:, None, :, :]
-        r = xp.sqrt(xp.sum(dd * dd, axis=-1))
-        Kmat = amp2 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * xp.exp(-SQRT5 * r)
-        Kmat = Kmat + (m["noise"][g] + 1e-10 * amp2) * xp.eye(K, dtype=x.dtype)
-        rk = xp.sqrt(xp.take_along_axis(d2, nn, axis=1))
-        kv = amp2 * (1.0 + SQRT5 * rk + (5.0 / 3.0) * rk * rk) * xp.exp(-SQRT5 * rk)
-        sol = xp.linalg.solve(Kmat, kv[:, :, None])[:, :, 0]
-        var = amp2 - xp.sum(kv * sol, axis=-1)
-        var = xp.where(var > 0.0, var, 0.0)
-        sd_of_kernel[kg] = xp.sqrt(var)
-        parts.append(sd_of_kernel[kg][:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
+        parts.append(sd[kernels.index(kernel_of[g])][:, None] * m["resid_scale"][a:b] * m["out_scale"][a:b])
     return (xp.concat(parts, axis=-1),)
 
 

@@ -87,7 +87,7 @@ def test_only_numpy_and_the_standard_library_are_imported(exported):
             imports |= {a.name.split(".")[0] for a in node.names}
         elif isinstance(node, ast.ImportFrom):
             imports.add((node.module or "").split(".")[0])
-    assert imports == {"base64", "dataclasses", "hashlib", "io", "math", "zlib", "numpy", "array_api_compat"}
+    assert imports == {"base64", "bisect", "dataclasses", "hashlib", "io", "math", "zlib", "numpy", "array_api_compat"}
     # array_api_compat: imported only when a caller passes a tensor of a library without the standard's hook
     assert src.count("import array_api_compat") == 1
     flags = [k.value for k in ast.walk(ast.parse(src)) if isinstance(k, ast.keyword) and k.arg == "allow_pickle"]

@@ -1,0 +1,331 @@
+"""The fixed part of the generated queries: one theta without batching overhead, generated sums behind batches.
+
+:func:`tovforge.export.export_model` copies the source below the marker line
+verbatim into each exported file, after the section generated for the model
+(:mod:`._codegen`: ``_D``, ``_N_OUT``, ``_PLAN_BLOCKS``,
+``_PLAN_OF_COLUMNS``, ``_GENERATED_PARTS``, ``_unit_one``, ``_span_one``,
+``_trend_one``, ``_dtrend_one``, ``_method_parts``) and before the
+interface (:mod:`._evaluator`), which calls it.  Inside the package this
+module is only read as text.
+
+Two paths use the generated code under NumPy:
+
+- One theta (shape (d,) or (1, d), a list or an array) with a scalar mass,
+  masses (q,), or for a (1, d) theta one row of masses (1, q): ``mass_max``,
+  the queries at a mass and ``curve`` run through :func:`_fast_mass_max`,
+  :func:`_fast_at_mass` and :func:`_fast_curve`: inputs, trend and the spline
+  in u on plain floats and small arrays, the kernel sums of the query's plan
+  only, the result built directly in the contract's shapes and types.
+- Everything else (batches, ``predict``, ``predict_at_masses``, other mass
+  shapes) goes through the query contract as in the library, with the
+  runtime model ``_GM`` whose method is the generated kernel sums
+  (:func:`_generated_part`, :func:`_generated_std` in the runtime's ``PARTS``
+  and ``STD``).
+
+Both give the library's numbers to rounding (see :mod:`._verify`); other
+array namespaces use the general runtime (``_M``).
+"""
+
+import bisect
+import math
+
+import numpy as np
+
+from ..surrogate._contract import Curve, Estimate, QueryError, _require_inside, _require_on_branch
+from ..surrogate._runtime import DERIVED, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights, _inverse_with
+
+# ---- the exported code starts below this line ----
+
+_NAN = float("nan")
+
+
+class _Plan:
+    """What one plan's code reads, in its own column layout: the plan's output blocks side by side.
+
+    ``mean``, ``scale`` (width,), the trend coefficients ``tc`` (n_terms,
+    width) and their transpose ``tct``: contiguous copies of the model's
+    columns; ``i_mmax`` the local column of M_max; ``curves``: query ->
+    (first, end local column, transform) of the curve it reads.
+    """
+
+    def __init__(self, m, blocks, parts):
+        cols = [c for a, b in blocks for c in range(a, b)]
+        idx = np.asarray(cols, dtype=np.intp)
+        local = {c: k for k, c in enumerate(cols)}
+        self.idx, self.width = idx, len(cols)
+        self.part, self.std, self.part_std = parts
+        self.mean = np.ascontiguousarray(m["out_mean"][idx])
+        self.scale = np.ascontiguousarray(m["out_scale"][idx])
+        self.tc = np.ascontiguousarray(m["trend_coef"][:, idx])
+        self.tct = np.ascontiguousarray(self.tc.T)
+        self.i_mmax = local.get(m.i_mass_max)
+        self.curves = {o[4]: (local[o[5]], local[o[5]] + o[6] - o[5], o[3])
+                       for o in m.outputs if o[2] == "star" and o[4] and o[5] in local}
+
+
+class _Spline:
+    """The cubic spline in u of the node curves, laid out for one theta: interval coefficients per node."""
+
+    def __init__(self, m):
+        un = m["u_nodes"]
+        C = m["spline_c"]  # (4, n_int, n_u)
+        self.nodes = [float(v) for v in un]
+        self.un = un
+        self.umax = float(un[-1])
+        self.n_int = int(un.shape[0]) - 1
+        self.cj = np.ascontiguousarray(np.transpose(C, (1, 0, 2)))  # (n_int, 4, n_u)
+
+
+def _setup_generated(m):
+    """Plans, the spline layout and the NumPy runtime model of the generated code (once, at import)."""
+    global _PLANS, _SPLINE, _GM
+    parts = _method_parts(m)
+    _PLANS = {name: _Plan(m, blocks, parts[name]) for name, blocks in _PLAN_BLOCKS.items()}
+    _SPLINE = _Spline(m)
+    _GM = m
+    if _GENERATED_PARTS:
+        method = m.method + "+generated"
+        PARTS[method] = _generated_part
+        if m.method in STD:
+            STD[method] = _generated_std
+        _GM = Model(m.arrays, method, m.outputs, m.parameters, m.bounds, m.mass_floor_msun)
+
+
+def _general_only(on=True):
+    """Answer every query through the general runtime (``on``) or the generated code (for comparisons)."""
+    global _PLANS, _GM, _SAVED
+    if on and _PLANS is not None:
+        _SAVED, _PLANS, _GM = (_PLANS, _GM), None, _M
+    elif not on and _PLANS is None:
+        _PLANS, _GM = _SAVED
+
+
+_PLANS = None
+_SPLINE = None
+_GM = None
+_SAVED = None
+_CURVES = {}
+
+
+def _runtime_parts(m, columns):
+    """``(part, std, None)`` of a plan from the method's general runtime part (methods without a template)."""
+    def part(x, grad):
+        return PARTS[m.method](_NUMPY, m, x, grad, columns)
+
+    def std(x):
+        return STD[m.method](_NUMPY, m, x, columns)
+
+    return part, (std if m.method in STD else None), None
+
+
+def _plan_of(columns):
+    return _PLANS[_PLAN_OF_COLUMNS.get(None if columns is None else tuple(tuple(c) for c in columns), "all")]
+
+
+def _generated_part(xp, m, x, grad, columns):
+    """The runtime part of the NumPy model: the generated kernel sums of the plan of ``columns``."""
+    plan = _plan_of(columns)
+    z, dz = plan.part(x, grad)
+    full = np.full((x.shape[0], _N_OUT), _NAN)
+    full[:, plan.idx] = z
+    dfull = None
+    if grad:
+        dfull = np.full((x.shape[0], _N_OUT, x.shape[1]), _NAN)
+        dfull[:, plan.idx, :] = dz
+    return full, dfull
+
+
+def _generated_std(xp, m, x, columns):
+    """The runtime sigma of the NumPy model: the generated sigma of the plan of ``columns``."""
+    plan = _plan_of(columns)
+    full = np.full((x.shape[0], _N_OUT), _NAN)
+    full[:, plan.idx] = plan.std(x)
+    return full
+
+
+def _one_theta(theta):
+    """``(d floats, leading axes)`` if ``theta`` is one NumPy/list theta, else None (the general path)."""
+    if type(theta) is np.ndarray:
+        if theta.dtype.kind not in "fiu" or theta.ndim not in (1, 2) or theta.size != _D or theta.shape[-1] != _D:
+            return None
+        return tuple(float(v) for v in theta.reshape(-1).tolist()), theta.shape[:-1]
+    if type(theta) in (list, tuple) and len(theta) == _D:
+        for v in theta:
+            if not isinstance(v, (int, float, np.integer, np.floating)):
+                return None
+        return tuple(float(v) for v in theta), ()
+    return None
+
+
+def _one_masses(mass, lead):
+    """Masses (q,) float64 and the mass axes of the answer for one theta; None for other forms."""
+    if type(mass) is float or type(mass) is int:
+        return np.array([float(mass)]), ()
+    try:
+        a = np.asarray(mass, dtype=np.float64)
+    except (TypeError, ValueError):
+        return None
+    if a.ndim == 0:
+        return a.reshape(1), ()
+    if a.ndim == 1:
+        return a, a.shape
+    if a.ndim == 2 and lead == (1,) and a.shape[0] == 1:
+        return a[0], a.shape[1:]
+    return None
+
+
+def _outputs_one(plan, t, grad, std):
+    """The plan's outputs at one theta inside the box: y (width,), dy (width, d) or None, sd (width,) or None.
+
+    None outside the box (every answer is then NaN).  The runtime's
+    ``outputs``: trend plus kernel sums, then ``out_mean + out_scale z``.
+    """
+    x, inside = _unit_one(t)
+    if not inside:
+        return None
+    xr = np.array([x])
+    s = None
+    if std and plan.part_std is not None:
+        z, dz, s = plan.part_std(xr, grad)
+    else:
+        z, dz = plan.part(xr, grad)
+        if std and plan.std is not None:
+            s = plan.std(xr)
+    z = np.dot(_trend_one(x), plan.tc) + z[0]
+    y = plan.mean + plan.scale * z
+    dy = sd = None
+    if grad:
+        dz = np.dot(plan.tct, _dtrend_one(x)) + dz[0]
+        dy = (plan.scale[:, None] * dz) / np.array(_span_one(t))
+    if std:
+        sd = s[0] if s is not None else np.full(plan.width, _NAN)
+    return y, dy, sd
+
+
+def _strict_inside(t):
+    """Raise the contract's error for a theta outside the box."""
+    _require_inside(_NUMPY, _M, np.array([t]), np.array([False]))
+
+
+def _nan_estimate(shape, grad, std):
+    return Estimate(value=np.full(shape, _NAN), grad=np.full(shape + (_D,), _NAN) if grad else None,
+                    std=np.full(shape, _NAN) if std else None)
+
+
+def _fast_mass_max(t, lead, grad, std, strict):
+    """M_max at one theta, as the contract's ``query_mass_max``."""
+    plan = _PLANS["mass_max"]
+    out = _outputs_one(plan, t, grad, std)
+    if out is None:
+        if strict:
+            _strict_inside(t)
+        return _nan_estimate(lead, grad, std)
+    y, dy, sd = out
+    i = plan.i_mmax
+    return Estimate(value=y[i:i + 1].reshape(lead), grad=dy[i].reshape(lead + (_D,)) if grad else None,
+                    std=sd[i:i + 1].reshape(lead) if std else None)
+
+
+def _at_u(v, mmax, mass):
+    """A node curve v (n_u,) at one mass (a float) through u = sqrt(1 - M / M_max): a float (NaN off the branch)."""
+    ratio = mass / mmax
+    if not (mass > 0.0 and ratio <= 1.0):
+        return _NAN
+    u = math.sqrt(1.0 - ratio)
+    sp = _SPLINE
+    if not u <= sp.umax:
+        return _NAN
+    j = min(max(bisect.bisect_right(sp.nodes, u) - 1, 0), sp.n_int - 1)
+    t = u - sp.nodes[j]
+    c0, c1, c2, c3 = np.dot(sp.cj[j], v).tolist()
+    return ((c0 * t + c1) * t + c2) * t + c3
+
+
+def _curve_one(plan, query, y, dy, sd, masses, grad, std):
+    """The runtime's ``curve_at_mass`` for one theta: value, grad (q, d) and std (q,) at masses (q,)."""
+    a, b, transform = plan.curves[query]
+    im = plan.i_mmax
+    mmax = float(y[im])
+    v = y[a:b]
+    if masses.shape[0] == 1 and not grad and not std:
+        val = np.array([_at_u(v, mmax, float(masses[0]))])
+        return _inverse_with(np, transform, val[None, :], None, None)[0][0], None, None
+    sp = _SPLINE
+    ratio = masses / mmax
+    ok = (masses > 0.0) & (ratio <= 1.0)
+    u = np.sqrt(np.where(ok, 1.0 - ratio, _NAN))
+    safe = np.where(u == u, u, 0.0)
+    j = np.clip(np.searchsorted(sp.un, safe, side="right") - 1, 0, sp.n_int - 1)
+    t = safe - sp.un[j]
+    cj = sp.cj[j]  # (q, 4, n_u)
+    c = np.matmul(cj, v)
+    c0, c1, c2, c3 = c[:, 0], c[:, 1], c[:, 2], c[:, 3]
+    good = (u >= 0.0) & (u <= sp.umax)
+    val = np.where(good, ((c0 * t + c1) * t + c2) * t + c3, _NAN)
+    der = np.where(good, (3.0 * c0 * t + 2.0 * c1) * t + c2, _NAN)
+    g = s = None
+    if grad or std:
+        tw = t[:, None]
+        w = ((cj[:, 0] * tw + cj[:, 1]) * tw + cj[:, 2]) * tw + cj[:, 3]  # (q, n_u)
+        dudm = masses / (2.0 * u * mmax * mmax)
+        if grad:
+            g = np.dot(w, dy[a:b]) + (der * dudm)[:, None] * dy[im][None, :]
+        if std:
+            s_nodes = np.sum(np.abs(w) * sd[a:b], axis=-1)
+            s = np.sqrt(s_nodes ** 2 + (der * dudm * sd[im]) ** 2)
+    val, g, s = _inverse_with(np, transform, val[None, :], None if g is None else g[None], None if s is None else s[None])
+    return val[0], (g[0] if grad else None), (s[0] if std else None)
+
+
+def _fast_at_mass(query, t, lead, mass, grad, std, strict):
+    """A query at masses for one theta, as the contract's ``query_at_mass``; None for mass forms it leaves to it."""
+    parsed = _one_masses(mass, lead)
+    if parsed is None:
+        return None
+    masses, tail = parsed
+    plan = _PLANS[query]
+    out = _outputs_one(plan, t, grad, std)
+    if out is None:
+        if strict:
+            _strict_inside(t)
+        return _nan_estimate(lead + tail, grad, std)
+    y, dy, sd = out
+    if query in DERIVED:
+        needs, rule = DERIVED[query]
+        got = [_curve_one(plan, q, y, dy, sd, masses, grad, std) for q in needs]
+        val, g, s = rule(np, masses[None, :], [(v[None], None if gg is None else gg[None], None if ss is None else ss[None])
+                                               for v, gg, ss in got], grad, std)
+        val, g, s = val[0], (g[0] if grad else None), (s[0] if std else None)
+    else:
+        val, g, s = _curve_one(plan, query, y, dy, sd, masses, grad, std)
+    if strict:
+        _require_on_branch(_NUMPY, _M, val[None, :], masses[None, :], np.array([y[plan.i_mmax]]))
+    shape = lead + tail
+    return Estimate(value=val.reshape(shape), grad=g.reshape(shape + (_D,)) if grad else None,
+                    std=s.reshape(shape) if std else None)
+
+
+def _fast_curve(t, lead, n, strict):
+    """The stable branch at n points for one theta, as the contract's ``query_curve``; None for an unusual n."""
+    if type(n) is not int or n < 1:
+        return None
+    plan = _PLANS["curve"]
+    out = _outputs_one(plan, t, False, False)
+    shape = lead + (n,)
+    if out is None:
+        if strict:
+            _strict_inside(t)
+        return Curve(*(np.full(shape, _NAN) for _ in range(3)))
+    y = out[0]
+    got = _CURVES.get(n)
+    if got is None:
+        u = _SPLINE.un[-1] * np.linspace(1.0, 0.0, n, dtype=np.float64)
+        got = (1.0 - u * u, _curve_weights(_NUMPY, _M, u))
+        if len(_CURVES) < 64:
+            _CURVES[n] = got
+    shrink, W = got
+    fields = [y[plan.i_mmax] * shrink]
+    for query in ("radius", "tidal_deformability"):
+        a, b, transform = plan.curves[query]
+        fields.append(_inverse_with(np, transform, np.dot(y[a:b], W)[None, :], None, None)[0][0])
+    return Curve(*(f.reshape(shape) for f in fields))

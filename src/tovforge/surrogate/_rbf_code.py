@@ -1,0 +1,91 @@
+"""Generated code of polyharmonic-spline models (method ``rbf``) in exported evaluators.
+
+The template (see :mod:`tovforge.surrogate._codegen`) of the runtime part
+``_rbf_part`` of :mod:`._runtime`: its r^5 rows (``polyharmonic_rows``) on its
+chunks of rows, each output block (the scalars, then each curve) multiplied
+by its own contiguous block of weights, made once at import: the runtime's
+numbers bit for bit.  One row of kernel values serves every block a query
+reads.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ._codegen import Template
+from ._runtime import PAIRS_PER_CHUNK, polyharmonic_rows
+
+__all__ = ["TEMPLATE"]
+
+# ---- the exported code starts below this line ----
+
+
+def _rbf_sums(x, grad, XT, X2, blocks, width):
+    """r^5 kernel sums of the blocks ``((weights (N, o), first column), ...)`` at rows x: z (n, width), dz."""
+    n, d = x.shape
+    phi, dphi = polyharmonic_rows(np, x, XT, X2, grad)
+    z = np.empty((n, width))
+    dz = np.empty((n, width, d)) if grad else None
+    for W, at in blocks:
+        o = W.shape[1]
+        z[:, at:at + o] = phi @ W
+        if grad:
+            for i in range(d):
+                dz[:, at:at + o, i] = dphi[i] @ W
+    return z, dz
+
+
+def _rbf_part(x, grad, XT, X2, blocks, width):
+    """``(z, dz)`` of the blocks at rows x, in the runtime's chunks of rows (its products, its bits)."""
+    step = max(1, PAIRS_PER_CHUNK // XT.shape[1])
+    if x.shape[0] <= step:
+        return _rbf_sums(x, grad, XT, X2, blocks, width)
+    pieces = [_rbf_sums(x[i:i + step], grad, XT, X2, blocks, width) for i in range(0, x.shape[0], step)]
+    return (np.concatenate([p[0] for p in pieces]),
+            np.concatenate([p[1] for p in pieces]) if grad else None)
+
+
+# ---- the exported code ends above this line ----
+
+
+def _blocks(arrays) -> list[tuple[int, int]]:
+    """The runtime's blocks (``_rbf_blocks``): the scalars, then each curve."""
+    cs = arrays["curve_slices"]
+    return [(0, int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
+
+
+def emit(arrays, plans) -> list[str]:
+    """The lines of ``_method_parts(m)`` for an RBF model and the plans (name -> block indices)."""
+    bounds = _blocks(arrays)
+    lines = [
+        "def _method_parts(m):",
+        '    """r^5 kernel sums of this RBF model for each plan (generated: output blocks resolved)."""',
+        "    XT, X2 = rbf_points(np, m)",
+        "    alpha = m['alpha']",
+        "    W = [" + ", ".join(f"np.ascontiguousarray(alpha[:, {a}:{b}])" for a, b in bounds) + "]",
+        "    parts = {}",
+    ]
+    done = {}
+    for name, blocks in plans.items():
+        blocks = tuple(blocks)
+        if blocks in done:
+            lines.append(f"    parts[{name!r}] = parts[{done[blocks]!r}]")
+            continue
+        done[blocks] = name
+        items, at = [], 0
+        for g in blocks:
+            a, b = bounds[g]
+            items.append(f"(W[{g}], {at})")
+            at += b - a
+        v = f"_{len(done)}"
+        lines += [
+            f"    # plan {name}: columns {', '.join(f'{bounds[g][0]}:{bounds[g][1]}' for g in blocks)}",
+            f"    b{v} = ({', '.join(items)},)",
+            f"    parts[{name!r}] = (lambda x, grad, b=b{v}: _rbf_part(x, grad, XT, X2, b, {at}), None, None)",
+        ]
+    lines.append("    return parts")
+    return lines
+
+
+#: The generated code of method ``rbf``.
+TEMPLATE = Template(source="_rbf_code.py", blocks=_blocks, emit=emit)
