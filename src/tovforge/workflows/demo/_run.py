@@ -17,10 +17,10 @@ from ... import __version__
 from ..._extras import require
 from ..._provenance import provenance
 from ...errors import InputError
-from ...surrogate import GPSettings, kinds
+from ...surrogate import GPSettings
 from ._compare import compare_with_exact, time_likelihoods
 from ._fit import sample_posterior
-from ._stages import build_grids, check_models, export_models, read_inputs, train_models
+from ._stages import KINDS, build_grids, check_models, export_models, read_inputs, train_models
 from ._summary import draw_figures, settings_numbers, write_summary
 
 __all__ = ["DemoSettings", "DemoResult", "run_demo", "BAND_MASSES"]
@@ -29,7 +29,6 @@ logger = logging.getLogger(__name__)
 
 #: Masses of the posterior bands (Msun).
 BAND_MASSES = tuple(float(m) for m in np.round(np.arange(1.0, 2.401, 0.05), 2))
-KINDS = kinds()
 say = logger.info  # every line of the demo's report
 
 
