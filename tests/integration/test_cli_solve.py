@@ -40,7 +40,7 @@ def test_json_output_has_the_documented_keys():
     assert set(out["sequence"]) == star_keys and set(out["at_mass"][0]) == star_keys
     assert out["at_mass"][0]["mass_msun"] == pytest.approx(1.4)
     assert out["at_mass"][2]["radius_km"] is None  # above M_max: null, not a crash
-    assert "exceed M_max" in res.stderr
+    assert "above M_max" in res.stderr
     assert out["mass_max"]["mass_msun"] == pytest.approx(2.05, abs=0.02)
 
 

@@ -64,7 +64,7 @@ def test_masses_mode_matches_exact_mass_queries(sly, tmp_path):
     summary = sequence_table(tmp_path / "m.csv", sly, masses=masses)
     t = read_table(tmp_path / "m.csv")
     np.testing.assert_array_equal(t["target_mass"], masses)
-    with pytest.warns(UserWarning, match="exceed M_max"):
+    with pytest.warns(UserWarning, match="above M_max"):
         ref = solve.solve_sequence(sly, masses=masses).at_mass
     for col in ("mass", "radius", "lambda", "inertia", "k2", "baryon_mass"):
         np.testing.assert_allclose(t[col][:3], ref.value(FIELDS[col])[:3], rtol=1e-9, err_msg=col)
