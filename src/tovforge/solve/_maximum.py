@@ -20,18 +20,20 @@ to the passes, not passes:
    interpolated through the cluster's polynomials (agrees to about 1e-9).
 
 Two kinds of lane depart from the smooth case, both at a first-order
-transition above Seidov's limit (Seidov 1971, Sov. Astron. 15, 347), where
-``M(h_c)`` has a cusp at the transition enthalpy ``h_t``:
+transition (a jump of the energy density at the enthalpy ``h_t``):
 
-- *cusp*: the maximum is the star centred on the transition.  The cluster
-  ends on ``h_t`` (its last node) and the maximum is that node, solved
-  exactly; the other nodes are stars of the branch below it;
-- *after a jump* (``origin``): the minimum that follows a cusp.  Just above
-  ``h_t`` the star has a core of the dense phase whose radius grows like
-  ``sqrt(h_c - h_t)``, and ``M`` is a smooth function of that radius, not of
-  ``h_c``.  The cluster coordinate is then ``x = sqrt(ln h_c - ln h_t)``
-  (from 0 at the transition), and the cluster is narrowed around the
-  minimum until its value changes by less than 1e-11.
+- *cusp*: above Seidov's limit (Seidov 1971, Sov. Astron. 15, 347) the
+  maximum is the star centred on the transition, where ``M(h_c)`` turns
+  down with a kink.  The cluster ends on ``h_t`` (its last node) and the
+  maximum is that node, solved exactly; the other nodes are stars of the
+  branch below it;
+- *after a jump* (``origin``): an extremum just above a jump (the minimum
+  that follows a cusp, or a shallow maximum and minimum close above a
+  smaller jump).  There the star has a core of the dense phase whose radius
+  grows like ``sqrt(h_c - h_t)``, and ``M`` is a smooth function of that
+  radius, not of ``h_c``.  The cluster coordinate is then ``x = sqrt(ln h_c
+  - ln h_t)`` (from 0 at the transition), and the cluster is narrowed
+  around the extremum until it settles (to 1e-11 of the mass).
 """
 
 from __future__ import annotations
@@ -50,8 +52,9 @@ _Z_CLUSTER_CACHE: dict[int, tuple[np.ndarray, np.ndarray]] = {}
 
 #: Half-width of a first cluster, in scan spacings of ``ln h_c``.
 _HALF_WIDTH = 0.6
-#: Passes that narrow the cluster of a minimum after a jump (each eightfold),
-#: until the minimum changes by less than this relative amount.
+#: Passes that narrow the cluster of an extremum after a jump (each eightfold),
+#: until it changes by less than this relative amount, or the cluster
+#: polynomial's last two Chebyshev coefficients do.
 _POLISH_PASSES = 4
 _POLISH_RTOL = 1e-11
 
@@ -400,9 +403,11 @@ def refine_extrema(batch, guess: ExtremumGuess, ok, settings, co_solve=None) -> 
         edge = np.abs(z) > 0.9
         new_centre = centre[rr] + width[rr] * np.clip(z, -1.5, 1.5)
         again = (~bad) & (edge | (kink_in & (width[rr] > w[rr] / 20.0))) & ~cusp[rr] & ~aj
-        # a minimum after a jump: narrow eightfold around it until it settles
+        # an extremum after a jump: narrow eightfold around it until it settles
         m_now = _cheb.chebval(z, cf, tensor=False)
-        settled = np.abs(m_now - m_prev[rr]) <= _POLISH_RTOL * np.abs(m_now)
+        # settled: the extremum no longer moves, or the polynomial's last two coefficients are negligible
+        settled = ((np.abs(m_now - m_prev[rr]) <= _POLISH_RTOL * np.abs(m_now))
+                   | (np.abs(cf[-2:]).sum(axis=0) <= _POLISH_RTOL * np.abs(m_now)))
         m_prev[rr] = m_now
         polish = (~bad) & aj & ~settled & (attempt < passes - 1)
         todo[:] = False

@@ -30,7 +30,7 @@ holds the public wrappers for one EOS.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -351,8 +351,11 @@ def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSetti
         branch returned also holds the few cluster stars below the maximum and
         the maximum-mass star itself).
     masses : array_like, optional
-        Gravitational masses (Msun) at which to solve exactly.  Masses above
-        the maximum give NaN and a warning.
+        Gravitational masses (Msun) at which to solve exactly, on the stable
+        branch (``at_mass``) and on a twin branch (``twin.at_mass``).  The
+        branch starts below the lightest of them (if the EOS has such
+        stars).  Masses without a star on the stable branch give NaN, a
+        warning, and their reason in :meth:`StarSequence.at_mass_reasons`.
     settings : SequenceSettings, optional
     error_estimate : bool, optional
         Estimate the integration error of every branch star by step doubling
@@ -374,6 +377,10 @@ def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSetti
     from ._accuracy import checked_sequence
 
     settings = settings or SequenceSettings()
+    if masses is not None:
+        lightest = float(np.min(np.asarray(masses, float), initial=np.inf))
+        if 0.0 < 0.9 * lightest < settings.low_mass_msun:  # start the branch below the lightest request
+            settings = replace(settings, low_mass_msun=0.9 * lightest)
     res = solve_sequences(eos.batch, n_stars=n_stars, masses=masses, settings=settings)
     return checked_sequence(_sequence_from_batch(eos, res, 0, masses), settings.steps, error_estimate)
 
