@@ -92,7 +92,8 @@ def test_twin_minimum_and_maximum_against_a_fine_scan(dip):
     assert b.mass_msun[0] == tw.mass_min_msun and b.mass_msun[-1] == tw.mass_max.mass_msun
     assert np.all(np.diff(b.central_pseudo_enthalpy) > 0) and np.all(np.diff(b.mass_msun) >= 0)
     k = len(b) // 2
-    assert b.radius_km[k] == solve.solve_stars(E, [b.central_pseudo_enthalpy[k]]).radius_km[0]
+    assert b.radius_km[k] == pytest.approx(solve.solve_stars(E, [b.central_pseudo_enthalpy[k]]).radius_km[0],
+                                           rel=1e-14)
     assert tw.mass_max.acausal is False and tw.mass_max.max_sound_speed_sq == pytest.approx(1.0)
 
 
@@ -107,8 +108,9 @@ def test_shallow_dips_on_both_sides_of_seidovs_limit(offset):
     h_t = float(E.batch.h_t[0])
     m_t = _mass(E, h_t)
     ref_max, _ = _fine_extremum(E, h_t * (1 - 1e-3), h_t * (1 + 1e-3), +1, n=81)
-    # below the limit the maximum rises only 2e-9 of M above M(h_t): 1e-10 is 5 % of that rise
-    assert seq.mass_max.mass_msun == pytest.approx(ref_max, rel=1e-10)
+    # below the limit the maximum rises only 2e-9 of M above M(h_t), within 1e-5 h_t of the transition,
+    # where stars carry about 3e-9 of integration error (measured: 16 against 128 steps)
+    assert seq.mass_max.mass_msun == pytest.approx(ref_max, rel=1e-9)
     assert seq.mass_max.mass_msun == pytest.approx(m_t, rel=1e-8)  # at the transition, or a hair above it
     tw = seq.twin
     assert tw is not None and 5e-5 < seq.mass_max.mass_msun - tw.mass_min_msun < 3e-4
