@@ -2,35 +2,39 @@
 
 Every section prints absolute times and ratios measured side by side in the
 same run (machines are shared and noisy: ratios travel better than seconds).
-Sections register themselves in :data:`SECTIONS`; later stages add theirs.
+The sections are listed in :data:`SECTIONS`; a stage adds one by writing a
+function ``fn(quick, echo)`` in its ``_bench.py`` and adding a line there.
 """
 
 from __future__ import annotations
 
+import importlib
 import os
 import platform
 import time
-from collections.abc import Callable
 
-import numpy as np
+__all__ = ["SECTIONS", "demo_box_points", "run_benchmarks", "section", "timeit_median"]
 
-__all__ = ["SECTIONS", "register", "run_benchmarks", "timeit_median", "demo_box_points"]
+#: Every benchmark section, in the order they run: name -> "module:function".  The module is
+#: imported only when its section runs, and an import that fails is an error, not a skipped section.
+SECTIONS: dict[str, str] = {
+    "solver": "tovforge.solve._bench:bench_solver",
+    "grid": "tovforge.grid._bench:bench_grid",
+    "surrogate": "tovforge.surrogate._bench:bench_surrogate",
+    "export": "tovforge.export._bench:bench_export",
+}
 
-SECTIONS: dict[str, Callable] = {}
 
-
-def register(name: str):
-    """Decorator adding a benchmark section ``fn(quick, echo)``."""
-
-    def deco(fn):
-        SECTIONS[name] = fn
-        return fn
-
-    return deco
+def section(name: str):
+    """The function of benchmark section ``name``."""
+    module, function = SECTIONS[name].split(":")
+    return getattr(importlib.import_module(module), function)
 
 
 def timeit_median(fn, repeat: int) -> float:
     """Median wall time of ``fn()`` over ``repeat`` runs, in seconds."""
+    import numpy as np
+
     times = []
     for _ in range(repeat):
         t0 = time.perf_counter()
@@ -41,6 +45,7 @@ def timeit_median(fn, repeat: int) -> float:
 
 def demo_box_points(family: str, n: int, seed: int = 2026) -> np.ndarray:
     """``n`` valid Sobol points of a family's demo box (deterministic)."""
+    import numpy as np
     from scipy.stats import qmc
 
     from . import eos
@@ -60,17 +65,14 @@ def _machine() -> str:
 
 
 def run_benchmarks(quick: bool = False, only=None, echo=print) -> None:
-    """Run the registered sections (all, or those named in ``only``)."""
-    import importlib
+    """Run the sections of :data:`SECTIONS` (all, or those named in ``only``, in that order).
 
-    # Stages register their sections on import.
-    for mod in ("tovforge.solve._bench", "tovforge.grid._bench", "tovforge.surrogate._bench",
-                "tovforge.export._bench"):
-        try:
-            importlib.import_module(mod)
-        except ModuleNotFoundError:
-            pass
-    names = list(SECTIONS) if not only else only
+    Raises
+    ------
+    tovforge.errors.InputError
+        For a name that is not a section.
+    """
+    names = list(SECTIONS) if not only else list(only)
     unknown = [n for n in names if n not in SECTIONS]
     if unknown:
         from .errors import InputError
@@ -80,4 +82,4 @@ def run_benchmarks(quick: bool = False, only=None, echo=print) -> None:
     for name in names:
         echo("")
         echo(f"== {name} ==")
-        SECTIONS[name](quick=quick, echo=echo)
+        section(name)(quick=quick, echo=echo)

@@ -13,6 +13,7 @@ __all__ = [
     "InvalidEOSParameter",
     "UnknownFamily",
     "TableFormatError",
+    "MissingExtra",
 ]
 
 
@@ -30,3 +31,7 @@ class UnknownFamily(InputError):
 
 class TableFormatError(InputError):
     """A tabulated EOS file cannot be read; the message names file and line."""
+
+
+class MissingExtra(InputError):
+    """A feature needs an optional dependency (an extra of the tovforge package) that is not installed."""

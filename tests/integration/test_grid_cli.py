@@ -69,7 +69,7 @@ def test_run_info_and_refusal_through_the_cli(tmp_path):
     res = runner.invoke(app, ["grid", "run", str(other), "--out", str(out)])
     assert res.exit_code == 2
     assert res.stderr.strip() == (f"error: {out} exists and was made from a different spec "
-                                  f"({read_grid(out).attrs['spec_sha256'][:12]}...); pass --overwrite to replace it.")
+                                  f"({read_grid(out).attrs['spec_sha256'][:12]}...); pass overwrite=True to replace it.")
     res = runner.invoke(app, ["grid", "info", str(tmp_path / "missing.h5")])
     assert res.exit_code == 2 and res.stderr.startswith("error: ") and "no such file" in res.stderr
 

@@ -33,6 +33,6 @@ def test_local_cluster_equals_local_backend(tmp_path):
 def test_unreachable_scheduler_is_an_input_error(tmp_path, monkeypatch):
     monkeypatch.setattr(grid_run, "CONNECT_TIMEOUT", "1s")
     out = tmp_path / "g.h5"
-    with pytest.raises(InputError, match="--scheduler tcp://127.0.0.1:9: cannot connect to a Dask scheduler"):
+    with pytest.raises(InputError, match="scheduler tcp://127.0.0.1:9: cannot connect to a Dask scheduler"):
         run_grid(_spec(), out, scheduler="tcp://127.0.0.1:9", progress=False)
     assert not parts_folder(out).exists()  # nothing started

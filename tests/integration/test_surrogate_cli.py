@@ -32,12 +32,16 @@ def test_train_writes_models_with_the_options_given(trained):
     assert gp.exit_code == 0, gp.output
     assert sp.exit_code == 0, sp.output
     # 512 rows: status 0 and status 2 (M_max below the floor, curves complete) are both learnt
-    assert "trained gp on 512 points" in gp.stdout and "trained rbf on 512 points" in sp.stdout
-    meta_gp = json.loads((d / "gp" / "model.json").read_text())["training"]["gp"]
-    assert meta_gp["n_subset"] == 64 and meta_gp["share_curve_kernels"] and meta_gp["warp_inputs"]
-    assert meta_gp["input_warp"] == {f"gamma{i}": f"ln(gamma{i} - 1)" for i in (1, 2, 3)}
-    meta_sp = json.loads((d / "spline" / "model.json").read_text())["training"]["rbf"]
-    assert meta_sp["warp_inputs"] is False and meta_sp["anisotropic"] is False and meta_sp["input_warp"] == {}
+    assert "trained gp on 512 points" in gp.stdout and "trained spline (rbf) on 512 points" in sp.stdout
+    meta_gp = json.loads((d / "gp" / "model.json").read_text())
+    assert meta_gp["kind"] == meta_gp["method"] == "gp"
+    assert meta_gp["settings"]["n_subset"] == 64 and meta_gp["settings"]["share_curve_kernels"]
+    assert meta_gp["settings"]["warp_inputs"]
+    assert meta_gp["fit"]["input_warp"] == {f"gamma{i}": f"ln(gamma{i} - 1)" for i in (1, 2, 3)}
+    meta_sp = json.loads((d / "spline" / "model.json").read_text())
+    assert meta_sp["kind"] == "spline" and meta_sp["method"] == "rbf"
+    assert meta_sp["settings"]["warp_inputs"] is False and meta_sp["settings"]["anisotropic"] is False
+    assert meta_sp["fit"]["input_warp"] == {}
 
 
 def test_check_prints_the_table_and_writes_the_report(trained):
@@ -46,7 +50,8 @@ def test_check_prints_the_table_and_writes_the_report(trained):
     assert res.exit_code == 0, res.output
     assert "radius_km_at_mass" in res.stdout and "targets (p95)" in res.stdout
     report = json.loads((d / "rep" / "report.json").read_text())
-    assert report["holdout"]["n_used"] > 3000 and report["model"]["kind"] == "rbf"
+    assert report["holdout"]["n_used"] > 3000 and report["model"]["kind"] == "spline"
+    assert report["model"]["method"] == "rbf" and "check of a spline (rbf) model" in res.stdout
     assert (d / "rep" / "report.md").is_file()
 
 

@@ -83,7 +83,7 @@ def test_box_from_a_model_equals_the_model(tmp_path, model_dir):
     t = tables.read_table(out)
     theta = np.stack([t[n] for n in NAMES], axis=1)
     model = tiny_model("spline")  # the model saved in model_dir
-    np.testing.assert_allclose(t["lambda@1.4"], model.tidal_deformability(theta, [1.4])[:, 0], rtol=1e-12)
+    np.testing.assert_allclose(t["lambda@1.4"], model.tidal_deformability(theta, 1.4).value, rtol=1e-12)
     assert t.meta["model"] == str(model_dir) and len(t) == 20
 
 
@@ -115,7 +115,7 @@ def test_samples_left_out_rows_exit_2_and_the_rest_is_written(tmp_path, model_di
     t = tables.read_table(out)
     assert len(t) == 38 and 3 not in t["sample"] and 17 not in t["sample"]
     keep = np.setdiff1d(np.arange(40), [2, 16])
-    np.testing.assert_allclose(t["radius@1.4"], tiny_model("spline").radius(th[keep], [1.4])[:, 0], rtol=1e-12)
+    np.testing.assert_allclose(t["radius@1.4"], tiny_model("spline").radius(th[keep], 1.4).value, rtol=1e-12)
     assert (tmp_path / "post.csv.out.band.npz").is_file() and (tmp_path / "mr.png").is_file()
 
 
@@ -138,19 +138,19 @@ def test_samples_from_npy(tmp_path, model_dir):
     (["box", "{model}", "--axis", "gamma1=2:4:3", "--fix", "log_p1=34.4", "--fix", "gamma2=3", "--fix", "gamma3=3",
       "--quantities", "mass_max,radius_at_1.4"], ["unknown quantity 'radius_at_1.4'", "mass_max"]),
     (["box", "{model}", "--axis", "gamma1=1:4:3", "--fix", "log_p1=34.4", "--fix", "gamma2=3", "--fix", "gamma3=3"],
-     ["--axis gamma1=1:4:3", "outside the model's box", "[2, 4]"]),
+     ["axis gamma1=1:4:3", "outside the model's box", "[2, 4]"]),
     (["box", "{model}", "--axis", "gamma1=2:4", "--fix", "log_p1=34.4"], ["expects NAME=LO:HI:N"]),
-    (["box", "{model}", "--axis", "gamma1=2:4:3", "--fix", "log_p1=34.4"], ["neither an --axis nor a --fix"]),
+    (["box", "{model}", "--axis", "gamma1=2:4:3", "--fix", "log_p1=34.4"], ["neither an axis nor fixed"]),
     (["box", "--axis", "gamma1=2:4:3"], ["give a MODEL folder or --exact FAMILY"]),
     (["box", "--exact", "piecewise-polytrope", "--axis", "gamma1=0.5:4:3", "--fix", "log_p1=34.4", "--fix",
       "gamma2=3", "--fix", "gamma3=3"], ["outside the allowed range of gamma1"]),
     (["box", "{model}", "--axis", "gamma1=2:4:3", "--fix", "log_p1=34.4", "--fix", "gamma2=3", "--fix", "gamma3=3",
       "--out", "{tmp}/b.txt"], ["unknown table format '.txt'"]),
-    (["samples", "{model}", "--samples", "{tmp}/post.csv"], ["extra column weight", "--ignore weight"]),
+    (["samples", "{model}", "--samples", "{tmp}/post.csv"], ["extra column weight", "or ignore weight"]),
     (["samples", "{model}", "--samples", "{tmp}/short.csv"], ["missing column gamma3"]),
     (["samples", "{model}", "--samples", "{tmp}/post.csv", "--ignore", "weight", "--quantities", "radius,mass"],
      ["unknown quantity 'mass'"]),
-    (["sequence", "piecewise-polytrope", *SLY, "--points", "1"], ["--points must be an integer in [2, 100000]"]),
+    (["sequence", "piecewise-polytrope", *SLY, "--points", "1"], ["Invalid value for '--points'", "greater than or equal to 2"]),
     (["sequence", "piecewise-polytrope", *SLY[:3]], ["needs parameter 'gamma3'"]),
     (["sequence", "piecewise-polytrope", *SLY, "--points", "5", "--masses", "1.4"], ["--points or --masses"]),
     (["binary", "piecewise-polytrope", *SLY, "--m1", "1.4"], ["--m1 and --m2 go together"]),
@@ -199,7 +199,7 @@ def test_console_script_reports_bad_input_on_one_line(tmp_path):
                            "--exact", "piecewise-polytrope", "--axis", "gamma1=2:4:3", "--quantities", "nope",
                            "--out", str(tmp_path / "x.csv")], capture_output=True, text=True)
     assert proc.returncode == 2
-    assert proc.stderr.startswith("error: --quantities: unknown quantity 'nope'") and proc.stderr.count("\n") == 1
+    assert proc.stderr.startswith("error: quantities: unknown quantity 'nope'") and proc.stderr.count("\n") == 1
     assert "Traceback" not in proc.stderr + proc.stdout
 
 

@@ -115,9 +115,9 @@ def cross_check(posterior, exact_posterior, samples, masses) -> CrossCheck:
     samples = np.asarray(samples, float)
     masses = np.asarray(masses, float)
     t0 = time.perf_counter()
-    r_exact = exact_posterior.model.radius(samples, masses)
+    r_exact = exact_posterior.model.radius(samples, masses).value
     t_solve = time.perf_counter() - t0
-    r_emu = np.asarray(posterior.model.radius(samples, masses), float)
+    r_emu = np.asarray(posterior.model.radius(samples, masses).value, float)
 
     t0 = time.perf_counter()
     ll_exact, mm_exact = exact_posterior.terms(samples)

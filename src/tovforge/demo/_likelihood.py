@@ -2,7 +2,8 @@
 
 The model is anything with the query interface of an exported evaluator
 (``mass_max(theta)``, ``radius(theta, mass)``, ``tidal_deformability(theta,
-mass)`` with one row of masses per theta, NaN where there is no stable star):
+mass)`` with one row of masses per theta, each returning an Estimate whose
+``value`` is NaN where there is no stable star):
 the exported file itself, or :class:`ExactModel`, which answers the same
 queries with the exact solver so that the same arithmetic can be timed and
 cross-checked.
@@ -39,6 +40,8 @@ import numpy as np
 from scipy.special import logsumexp
 
 from ..errors import InputError
+from ..status import Status
+from ..surrogate import Estimate
 from ..tables import component_masses, lambda_tilde
 from ._observations import Observations
 
@@ -180,7 +183,7 @@ class Posterior:
         rows = np.flatnonzero(inside)
         if rows.size == 0:
             return out, mmax
-        mmax[rows] = self.model.mass_max(theta[rows])
+        mmax[rows] = self.model.mass_max(theta[rows]).value
         rows = rows[np.isfinite(mmax[rows]) & (mmax[rows] > self.mass_low_msun)]
         if rows.size == 0:
             return out, mmax
@@ -189,7 +192,7 @@ class Posterior:
         col = 0
         if obs.pulsars:
             masses = self.pulsar_masses(mmax[rows])
-            radii = np.asarray(self.model.radius(t, masses), float)
+            radii = np.asarray(self.model.radius(t, masses).value, float)
             for p in obs.pulsars:
                 out[rows, col] = self._mass_radius(p, masses, radii)
                 col += 1
@@ -197,7 +200,7 @@ class Posterior:
             pairs = self.merger_pairs(mmax[rows])
             # every merger's m1 and m2 in one query (one model evaluation)
             lam = np.asarray(self.model.tidal_deformability(t, np.concatenate(
-                [m for m1, m2, _ in pairs for m in (m1, m2)], axis=1)), float)
+                [m for m1, m2, _ in pairs for m in (m1, m2)], axis=1)).value, float)
             k = self._t.size
             for j, (mg, (m1, m2, log_frac)) in enumerate(zip(obs.mergers, pairs)):
                 lam1, lam2 = lam[:, 2 * j * k:(2 * j + 1) * k], lam[:, (2 * j + 1) * k:(2 * j + 2) * k]
@@ -260,27 +263,27 @@ class ExactModel:
             res = solve_sequences(self.family.build(theta[ok]), n_stars=self.n_stars, masses=m, exact_maximum=True)
         return ok, res
 
-    def mass_max(self, theta) -> np.ndarray:
-        """Maximum mass in Msun, shape (n,); NaN where the solve failed."""
+    def mass_max(self, theta) -> Estimate:
+        """Maximum mass in Msun, value of shape (n,); NaN where the solve failed."""
         ok, res = self._solve(theta)
         out = np.full(ok.shape, np.nan)
         if res is not None:
-            out[ok] = np.where(res.status == 0, res.mass_max.mass_msun, np.nan)
-        return out
+            out[ok] = np.where(res.status == Status.OK, res.mass_max.mass_msun, np.nan)
+        return Estimate(out)
 
-    def _at(self, field: str, theta, mass) -> np.ndarray:
+    def _at(self, field: str, theta, mass) -> Estimate:
         mass = np.asarray(mass, float)
         ok, res = self._solve(theta, mass)
         out = np.full((ok.size, mass.shape[-1]), np.nan)
         if res is not None:
             vals = getattr(res.at_mass, field)
-            out[ok] = np.where((res.status == 0)[:, None], vals, np.nan)
-        return out
+            out[ok] = np.where((res.status == Status.OK)[:, None], vals, np.nan)
+        return Estimate(out)
 
-    def radius(self, theta, mass) -> np.ndarray:
-        """Radius in km at masses (Msun), shape (n, q); NaN above M_max."""
+    def radius(self, theta, mass) -> Estimate:
+        """Radius in km at masses (Msun), value of shape (n, q); NaN above M_max."""
         return self._at("radius_km", theta, mass)
 
-    def tidal_deformability(self, theta, mass) -> np.ndarray:
-        """Lambda at masses (Msun), shape (n, q); NaN above M_max."""
+    def tidal_deformability(self, theta, mass) -> Estimate:
+        """Lambda at masses (Msun), value of shape (n, q); NaN above M_max."""
         return self._at("tidal_deformability", theta, mass)

@@ -8,11 +8,10 @@ binary merger.  Users swap in their own file of the same layout with
 
 from __future__ import annotations
 
-import math
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
+from .. import _toml as toml
 from ..errors import InputError
 
 __all__ = ["INVENTED_DATA", "MassRadius", "MergerTides", "Observations", "ErrorRatio", "error_budget",
@@ -96,41 +95,34 @@ class Observations:
         return tuple(o.name for o in self.pulsars + self.mergers)
 
 
-_PULSAR_KEYS = {"name": str, "mass_msun": float, "mass_sigma_msun": float, "radius_km": float,
-                "radius_sigma_km": float, "correlation": float}
-_MERGER_KEYS = {"name": str, "chirp_mass_msun": float, "mass_ratio_min": float, "mass_ratio_max": float,
-                "lambda_tilde": float, "lambda_tilde_sigma": float}
+#: Keys of each table: name -> (lower bound, open lower bound, upper bound, open upper bound), or None for
+#: the name (a non-empty string).  Masses, radii and widths are positive.
+_POSITIVE = (0.0, True, None, False)
+_ANY = (None, False, None, False)
+_PULSAR_KEYS = {"name": None, "mass_msun": _POSITIVE, "mass_sigma_msun": _POSITIVE, "radius_km": _POSITIVE,
+                "radius_sigma_km": _POSITIVE, "correlation": (-1.0, True, 1.0, True)}
+_MERGER_KEYS = {"name": None, "chirp_mass_msun": _POSITIVE, "mass_ratio_min": _ANY, "mass_ratio_max": _ANY,
+                "lambda_tilde": _ANY, "lambda_tilde_sigma": _POSITIVE}
 _OPTIONAL = {"correlation"}
 
 
-def _entry(path, where: str, raw, keys: dict) -> dict:
-    if not isinstance(raw, dict):
-        raise InputError(f"{path}: {where} must be a table.")
-    unknown = sorted(set(raw) - set(keys))
-    if unknown:
-        raise InputError(f"{path}: {where}.{unknown[0]} is not a known key (known: {', '.join(keys)}).")
-    out = {}
-    for key, kind in keys.items():
-        if key not in raw:
-            if key in _OPTIONAL:
+def _entries(raw: dict, key: str, keys: dict) -> list[dict]:
+    """The checked ``[[key]]`` tables of the document."""
+    out = []
+    for i, item in enumerate(toml.array(raw.get(key, []), key)):
+        where = toml.join(key, i)
+        tbl = toml.table(item, where)
+        toml.check_keys(tbl, keys, where)
+        entry = {}
+        for name, limits in keys.items():
+            if name not in tbl and name in _OPTIONAL:
                 continue
-            raise InputError(f"{path}: {where}.{key} is missing.")
-        v = raw[key]
-        if kind is str:
-            if not isinstance(v, str) or not v.strip():
-                raise InputError(f"{path}: {where}.{key} must be a non-empty string. Got {v!r}.")
-            out[key] = v.strip()
-            continue
-        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-            raise InputError(f"{path}: {where}.{key} must be a finite number. Got {v!r}.")
-        out[key] = float(v)
+            value = toml.required(tbl, name, where)
+            path = toml.join(where, name)
+            entry[name] = (toml.string(value, path, nonempty=True).strip() if limits is None
+                           else toml.number(value, path, limits[0], limits[2], limits[1], limits[3]))
+        out.append(entry)
     return out
-
-
-def _positive(path, where, entry, keys):
-    for k in keys:
-        if not entry[k] > 0:
-            raise InputError(f"{path}: {where}.{k} must be > 0. Got {entry[k]:g}.")
 
 
 def load_observations(path=None) -> Observations:
@@ -156,43 +148,24 @@ def load_observations(path=None) -> Observations:
         With the file and the key path of the first problem.
     """
     path = Path(INVENTED_DATA if path is None else path)
-    try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read the observations ({exc.strerror}).") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"{path}: not valid TOML: {exc}.") from None
-    unknown = sorted(set(raw) - {"note", "pulsar", "merger", "generator"})
-    if unknown:
-        raise InputError(f"{path}: {unknown[0]} is not a known key (known: note, pulsar, merger, generator).")
-    pulsars, mergers = [], []
-    for i, item in enumerate(raw.get("pulsar", [])):
-        where = f"pulsar[{i}]"
-        e = _entry(path, where, item, _PULSAR_KEYS)
-        _positive(path, where, e, ("mass_msun", "mass_sigma_msun", "radius_km", "radius_sigma_km"))
-        if not -1.0 < e.get("correlation", 0.0) < 1.0:
-            raise InputError(f"{path}: {where}.correlation must be in (-1, 1). Got {e['correlation']:g}.")
-        pulsars.append(MassRadius(**e))
-    for i, item in enumerate(raw.get("merger", [])):
-        where = f"merger[{i}]"
-        e = _entry(path, where, item, _MERGER_KEYS)
-        _positive(path, where, e, ("chirp_mass_msun", "lambda_tilde_sigma"))
-        if not 0.0 < e["mass_ratio_min"] < e["mass_ratio_max"] <= 1.0:
-            raise InputError(f"{path}: {where} needs 0 < mass_ratio_min < mass_ratio_max <= 1. "
-                             f"Got {e['mass_ratio_min']:g} and {e['mass_ratio_max']:g}.")
-        mergers.append(MergerTides(**e))
-    if not pulsars and not mergers:
-        raise InputError(f"{path}: no [[pulsar]] or [[merger]] table; nothing to fit.")
-    names = [o.name for o in pulsars + mergers]
-    dup = sorted({n for n in names if names.count(n) > 1})
-    if dup:
-        raise InputError(f"{path}: the name {dup[0]!r} is used twice.")
-    generator = raw.get("generator", {})
-    if not isinstance(generator, dict):
-        raise InputError(f"{path}: generator must be a table.")
-    note = raw.get("note", "")
-    if not isinstance(note, str):
-        raise InputError(f"{path}: note must be a string.")
+    raw, _ = toml.load_toml(path, "observations")
+    with toml.in_file(path):
+        toml.check_keys(raw, ("note", "pulsar", "merger", "generator"), "")
+        pulsars = [MassRadius(**e) for e in _entries(raw, "pulsar", _PULSAR_KEYS)]
+        mergers = []
+        for i, e in enumerate(_entries(raw, "merger", _MERGER_KEYS)):
+            if not 0.0 < e["mass_ratio_min"] < e["mass_ratio_max"] <= 1.0:
+                raise InputError(f"merger[{i}]: needs 0 < mass_ratio_min < mass_ratio_max <= 1. "
+                                 f"Got {e['mass_ratio_min']:g} and {e['mass_ratio_max']:g}.")
+            mergers.append(MergerTides(**e))
+        if not pulsars and not mergers:
+            raise InputError("no [[pulsar]] or [[merger]] table; nothing to fit.")
+        names = [o.name for o in pulsars + mergers]
+        dup = sorted({n for n in names if names.count(n) > 1})
+        if dup:
+            raise InputError(f"the name {dup[0]!r} is used twice.")
+        generator = toml.table(raw.get("generator", {}), "generator")
+        note = toml.string(raw.get("note", ""), "note")
     return Observations(tuple(pulsars), tuple(mergers), note, dict(generator), path)
 
 

@@ -10,16 +10,13 @@ from pathlib import Path
 
 import numpy as np
 
+from .._extras import pyplot
+
 __all__ = ["corner_plot", "band_plot", "trace_plot", "credible_levels"]
 
 
 def _pyplot():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
+    return pyplot("the demo's figures")
 
 
 def credible_levels(hist: np.ndarray, fractions=(0.68, 0.95)) -> list[float]:

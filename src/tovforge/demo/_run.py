@@ -7,10 +7,9 @@ figures, tables and ``summary.md`` land in one output folder.
 from __future__ import annotations
 
 import dataclasses
-import datetime
 import importlib.util
 import json
-import sys
+import logging
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -18,14 +17,20 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
+from .._extras import require
+from .._jsonfile import jsonable
+from .._provenance import provenance
 from ..errors import InputError
 from ..surrogate import GPSettings
+from ..surrogate._kinds import kinds
 
 __all__ = ["DemoSettings", "DemoResult", "run_demo", "import_evaluator", "BAND_MASSES"]
 
+logger = logging.getLogger(__name__)
+
 #: Masses of the posterior bands (Msun).
 BAND_MASSES = tuple(float(m) for m in np.round(np.arange(1.0, 2.401, 0.05), 2))
-KINDS = ("gp", "spline")
+KINDS = kinds()
 
 
 @dataclass(frozen=True)
@@ -88,13 +93,14 @@ class DemoSettings:
     def check(self) -> None:
         """Raise InputError for settings that cannot work."""
         if self.sampler_model not in KINDS:
-            raise InputError(f"--sampler must be one of {', '.join(KINDS)}; got {self.sampler_model!r}.")
+            raise InputError(f"sampler_model must be one of {', '.join(KINDS)}; got {self.sampler_model!r}.")
         if self.n_train is not None and self.n_train < 16:
             raise InputError(f"n_train must be at least 16. Got {self.n_train}.")
         if not 0 <= self.n_burn < self.n_steps:
-            raise InputError(f"--burn ({self.n_burn} steps) must be shorter than --steps ({self.n_steps}).")
+            raise InputError(f"the burn-in n_burn ({self.n_burn} steps) must be shorter than the chain n_steps "
+                             f"({self.n_steps}).")
         if self.n_cross_check < 2:
-            raise InputError(f"--cross-check must be at least 2. Got {self.n_cross_check}.")
+            raise InputError(f"n_cross_check must be at least 2. Got {self.n_cross_check}.")
         for key in ("n_mass", "n_mass_ratio"):
             v = getattr(self, key)
             if v < 3 or v % 2 == 0:
@@ -161,7 +167,7 @@ def _subset(data, n):
         curves={k: v[:n] for k, v in data.curves.items()}, regular_shape=None)
 
 
-def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print) -> DemoResult:
+def run_demo(out="demo-output", settings: DemoSettings | None = None) -> DemoResult:
     """Run the whole demo and write its outputs into ``out``.
 
     BLAS runs on one thread (grid workers and GP hyperparameter workers are
@@ -175,8 +181,10 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print
     out : path-like
         Output folder (created).
     settings : DemoSettings, optional
-    echo : callable
-        Receives every line the demo prints.
+
+    Every stage reports what it does and measures through the ``tovforge``
+    logger at level INFO: ``tovforge demo`` prints these lines; from Python,
+    ``logging.basicConfig(level=logging.INFO)`` shows them.
 
     Returns
     -------
@@ -187,17 +195,18 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None, echo=print
     tovforge.errors.InputError
         For bad settings, specs or observations (checked before the long stages).
     """
+    for module in ("emcee", "matplotlib", "threadpoolctl"):  # before the work, not after it
+        require(module, "demo", "the demo")
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(limits=1):
-        return _run_demo(out, settings, echo)
+        return _run_demo(out, settings)
 
 
-def _run_demo(out, settings, echo) -> DemoResult:
+def _run_demo(out, settings) -> DemoResult:
     from ..export import ExportError, export_model
     from ..grid import load_spec, read_grid, run_grid
-    from ..surrogate import read_training_data, train_on
-    from ..surrogate._check import check
+    from ..surrogate import check, read_training_data, train_on
     from ..tables import read_table, samples_table
     from ._crosscheck import cross_check
     from ._likelihood import ExactModel, Posterior
@@ -205,22 +214,23 @@ def _run_demo(out, settings, echo) -> DemoResult:
     from ._plots import band_plot, corner_plot, trace_plot
     from ._sampler import run_chain
 
+    say = logger.info  # every line of the demo's report
     s = settings or DemoSettings()
     s.check()
     t_start = time.perf_counter()
     out = Path(out)
     # read everything the user supplied before the long stages
     obs = load_observations(s.data)
-    for flag, spec_path in (("--train-spec", s.train_spec), ("--holdout-spec", s.holdout_spec)):
+    for role, spec_path in (("training", s.train_spec), ("held-out", s.holdout_spec)):
         if not Path(spec_path).is_file():
             raise InputError(f"{spec_path}: no such grid spec; run the demo from the tovforge repository "
-                             f"(make demo) or give {flag}.")
+                             f"(make demo) or give the {role} grid's spec.")
     specs = {"train": load_spec(s.train_spec), "holdout": load_spec(s.holdout_spec)}
     # the EOS the data were made around (an exact solve; also checks its parameters now)
     marker, gen_curve = _generator(obs, specs["train"].family, specs["train"].parameter_names)
     out.mkdir(parents=True, exist_ok=True)
     files: dict = {}
-    numbers: dict = {"tovforge_version": __version__, "settings": {}, "stages_seconds": {}}
+    numbers: dict = {**provenance("scipy", "scikit-learn", "emcee"), "settings": {}, "stages_seconds": {}}
     failures: list[str] = []
     stage_t = time.perf_counter()
     n_stages = 8
@@ -228,18 +238,18 @@ def _run_demo(out, settings, echo) -> DemoResult:
     def stage(k: int, name: str, what: str) -> None:
         nonlocal stage_t
         now = time.perf_counter()
-        echo("")
-        echo(f"[{k}/{n_stages}] {name}: {what}")
+        say("")
+        say(f"[{k}/{n_stages}] {name}: {what}")
         stage_t = now
 
     def done(name: str) -> None:
         numbers["stages_seconds"][name] = time.perf_counter() - stage_t
-        echo(f"  ({name} took {numbers['stages_seconds'][name]:.1f} s)")
+        say(f"  ({name} took {numbers['stages_seconds'][name]:.1f} s)")
 
-    echo(f"tovforge {__version__} demo -> {out}/")
-    echo(f"observations: {obs.path}")
+    say(f"tovforge {__version__} demo -> {out}/")
+    say(f"observations: {obs.path}")
     if obs.note:
-        echo(f"  NOTE: {obs.note}")
+        say(f"  NOTE: {obs.note}")
 
     # -- 1. grids ---------------------------------------------------------------------------
     stage(1, "grids", "exact solves over the EOS box (reused when the file of the same spec exists)")
@@ -250,7 +260,7 @@ def _run_demo(out, settings, echo) -> DemoResult:
         summary = run_grid(spec, gpath, workers=s.workers, progress=s.progress)
         ok = summary.status_counts.get(0, 0)
         how = "reused" if summary.already_complete else f"built in {summary.seconds:.1f} s"
-        echo(f"  {role:<8}{gpath}: {spec.n_points} points ({spec.design.method}), {ok} solved, {how}; "
+        say(f"  {role:<8}{gpath}: {spec.n_points} points ({spec.design.method}), {ok} solved, {how}; "
              f"spec {spec.sha256[:12]}")
         grid_paths[role] = gpath
     g_train = read_grid(grid_paths["train"])
@@ -266,12 +276,12 @@ def _run_demo(out, settings, echo) -> DemoResult:
     models = {}
     for kind in KINDS:
         t0 = time.perf_counter()
-        model = train_on(data, kind, gp if kind == "gp" else None, log=None)
+        model = train_on(data, kind, gp if kind == "gp" else None)
         folder = model.save(out / "models" / kind)
         models[kind] = model
-        echo(f"  {kind:<7}{model.kind} on {len(data.theta)} points in {time.perf_counter() - t0:.1f} s -> {folder}")
+        say(f"  {kind:<7}{model.method} on {len(data.theta)} points in {time.perf_counter() - t0:.1f} s -> {folder}")
     numbers["training"] = {"n_train": int(len(data.theta)), "gp_settings": dataclasses.asdict(gp),
-                           "seconds": {k: models[k].meta["training"]["seconds"] for k in KINDS}}
+                           "seconds": {k: models[k].meta.training.seconds for k in KINDS}}
     done("train")
 
     # -- 3. check -------------------------------------------------------------------------------
@@ -279,15 +289,15 @@ def _run_demo(out, settings, echo) -> DemoResult:
     reports = {}
     for kind in KINDS:
         res = check(models[kind], grid_paths["holdout"], out / "check" / kind)
-        reports[kind] = res.report
+        reports[kind] = res
         files[f"check_{kind}"] = out / "check" / kind / "report.md"
-        echo(f"  {kind}: report {files[f'check_{kind}']}")
+        say(f"  {kind}: report {files[f'check_{kind}']}")
         for line in res.table().splitlines():
-            echo(f"    {line}")
-    numbers["check"] = {k: {"mass_max_abs_p95_msun": r["errors"]["mass_max_msun"]["abs_p95"],
-                            "radius_abs_p95_km": r["errors"]["radius_km_at_mass"]["abs_p95"],
-                            "radius_abs_median_km": r["errors"]["radius_km_at_mass"]["abs_median"],
-                            "lambda_rel_p95": r["errors"]["tidal_deformability_at_mass"]["rel_p95"]}
+            say(f"    {line}")
+    numbers["check"] = {k: {"mass_max_abs_p95_msun": r.errors["mass_max_msun"].abs_p95,
+                            "radius_abs_p95_km": r.errors["radius_km_at_mass"].abs_p95,
+                            "radius_abs_median_km": r.errors["radius_km_at_mass"].abs_median,
+                            "lambda_rel_p95": r.errors["tidal_deformability_at_mass"].rel_p95}
                         for k, r in reports.items()}
     done("check")
 
@@ -301,16 +311,16 @@ def _run_demo(out, settings, echo) -> DemoResult:
             res = export_model(models[kind], target, reports[kind])
         except ExportError as exc:
             failures.append(f"export of the {kind} model: {exc}")
-            echo(f"  {kind}: EXPORT FAILED: {exc}")
+            say(f"  {kind}: EXPORT FAILED: {exc}")
             continue
         evaluators[kind] = import_evaluator(target, f"_tovforge_demo_{kind}_{id(res)}")
         files[f"evaluator_{kind}"] = target
         numbers["export"][kind] = {"path": str(target), "size_bytes": res.size_bytes,
                                    "max_rel_diff": res.max_rel_diff}
-        echo(f"  {kind}: {target} ({res.size_bytes / 1e6:.2f} MB); differs from the library model by at most "
+        say(f"  {kind}: {target} ({res.size_bytes / 1e6:.2f} MB); differs from the library model by at most "
              f"{res.max_rel_diff:.1e} (relative)")
         for ns, verdict in res.namespaces.items():
-            echo(f"    {ns}: {verdict}")
+            say(f"    {ns}: {verdict}")
     if s.sampler_model not in evaluators:
         raise InputError(f"the {s.sampler_model} evaluator could not be exported, so the fit cannot run: "
                          f"{failures[-1]}")
@@ -321,36 +331,35 @@ def _run_demo(out, settings, echo) -> DemoResult:
     stage(5, "fit", f"posterior of ({', '.join(names)}) with the exported {s.sampler_model} evaluator, "
                     f"uniform prior on the box, emcee with {s.n_walkers} walkers x {s.n_steps} steps")
     for p in obs.pulsars:
-        echo(f"  pulsar {p.name:<20} M = {p.mass_msun:.3f} +- {p.mass_sigma_msun:.3f} Msun, "
+        say(f"  pulsar {p.name:<20} M = {p.mass_msun:.3f} +- {p.mass_sigma_msun:.3f} Msun, "
              f"R = {p.radius_km:.2f} +- {p.radius_sigma_km:.2f} km, correlation {p.correlation:+.2f}")
     for m in obs.mergers:
-        echo(f"  merger {m.name:<20} chirp mass {m.chirp_mass_msun:.4f} Msun, q in [{m.mass_ratio_min:g}, "
+        say(f"  merger {m.name:<20} chirp mass {m.chirp_mass_msun:.4f} Msun, q in [{m.mass_ratio_min:g}, "
              f"{m.mass_ratio_max:g}], Lambda-tilde = {m.lambda_tilde:g} +- {m.lambda_tilde_sigma:g}")
     budget = error_budget(ev.CHECK, obs) if ev.CHECK else ()
     for b in budget:
         unit = " km" if b.quantity == "radius" else ""
-        echo(f"  {b.name:<27} emulator error (held-out p95) {b.emulator_p95:.3g}{unit} = {b.ratio:.2f} of the "
+        say(f"  {b.name:<27} emulator error (held-out p95) {b.emulator_p95:.3g}{unit} = {b.ratio:.2f} of the "
              f"{b.quantity} sigma" + ("" if not b.too_large else
                                        f"  WARNING: above {WARN_RATIO:g}: the emulator's error may bias this fit; "
                                        "train on more points or use the exact solver"))
     if any(b.too_large for b in budget):
-        echo(f"  WARNING: {sum(b.too_large for b in budget)} measurement(s) are as sharp as the emulator's error; "
+        say(f"  WARNING: {sum(b.too_large for b in budget)} measurement(s) are as sharp as the emulator's error; "
              "read the posterior with care.")
     post = Posterior(ev, obs, mass_low_msun=s.mass_low_msun, n_mass=s.n_mass, n_mass_ratio=s.n_mass_ratio)
-    chain = run_chain(post, ev.BOUNDS, n_walkers=s.n_walkers, n_steps=s.n_steps, n_burn=s.n_burn, seed=s.seed,
-                      echo=echo)
+    chain = run_chain(post, ev.BOUNDS, n_walkers=s.n_walkers, n_steps=s.n_steps, n_burn=s.n_burn, seed=s.seed)
     tau = chain.autocorr_steps
-    echo(f"  {chain.n_evaluations} posterior evaluations in {chain.seconds:.1f} s; acceptance "
+    say(f"  {chain.n_evaluations} posterior evaluations in {chain.seconds:.1f} s; acceptance "
          f"{chain.acceptance_fraction:.2f}; autocorrelation time {np.nanmax(tau):.0f} steps "
          f"({(s.n_steps - s.n_burn) / np.nanmax(tau):.0f} times shorter than the kept chain); "
          f"{len(chain.samples)} samples kept (one step in {chain.thin} after the first {s.n_burn})")
     if not np.nanmax(tau) * 10 < s.n_steps - s.n_burn:
-        echo("  note: the kept chain is shorter than 10 autocorrelation times: take the intervals as rough")
+        say("  note: the kept chain is shorter than 10 autocorrelation times: take the intervals as rough")
     posterior_numbers = {}
     for i, name in enumerate(names):
         med, lo, hi = _interval(chain.samples[:, i])
         posterior_numbers[name] = {"median": med, "p05": lo, "p95": hi}
-        echo(f"  {name:<10} {med:.4g}  (90 %: {lo:.4g} .. {hi:.4g})")
+        say(f"  {name:<10} {med:.4g}  (90 %: {lo:.4g} .. {hi:.4g})")
     samples_csv = out / "posterior_samples.csv"
     header = ",".join(names) + ",log_posterior"
     np.savetxt(samples_csv, np.column_stack([chain.samples, chain.log_prob]), delimiter=",", header=header,
@@ -369,7 +378,7 @@ def _run_demo(out, settings, echo) -> DemoResult:
                "radius_1.4_km": {k: float(band_dict[f"radius_{k}"][i14]) for k in ("median", "p05", "p95")},
                "lambda_1.4": {k: float(band_dict[f"lambda_{k}"][i14]) for k in ("median", "p05", "p95")}}
     for k, v in derived.items():
-        echo(f"  {k:<14} {v['median']:.4g}  (90 %: {v['p05']:.4g} .. {v['p95']:.4g})")
+        say(f"  {k:<14} {v['median']:.4g}  (90 %: {v['p05']:.4g} .. {v['p95']:.4g})")
     numbers["fit"] = {"sampler_model": s.sampler_model, "n_walkers": s.n_walkers, "n_steps": s.n_steps,
                       "n_burn": s.n_burn, "thin": chain.thin, "n_samples": int(len(chain.samples)),
                       "acceptance": chain.acceptance_fraction, "autocorr_steps": tau.tolist(),
@@ -405,9 +414,9 @@ def _run_demo(out, settings, echo) -> DemoResult:
                             _best_seconds(lambda: p_other(batch), 5) / len(batch) * 1e6)
     t_exact_one = _best_seconds(lambda: exact_post(one), 2)
     if not np.isfinite(exact_post(one)[0]):
-        echo("  note: the exact likelihood is -inf at the timed theta, so its time is not that of a full solve")
+        say("  note: the exact likelihood is -inf at the timed theta, so its time is not that of a full solve")
     family = exact_model.family
-    mm_one = ev.mass_max(one)
+    mm_one = ev.mass_max(one).value
     solve_masses = np.concatenate([post.pulsar_masses(mm_one)[0]]
                                   + [m[0] for m1, m2, _ in post.merger_pairs(mm_one) for m in (m1, m2)])
     t_solve_one = _best_seconds(lambda: solve_sequences(family.build(one), n_stars=16, masses=solve_masses), 2)
@@ -420,14 +429,14 @@ def _run_demo(out, settings, echo) -> DemoResult:
         "exact_solve_masses": int(solve_masses.size),
         "other_evaluators_us": {k: {"one": v[0], "batch_per_theta": v[1]} for k, v in others.items()},
     }
-    echo(f"  likelihood, exported {s.sampler_model} evaluator: {timing['likelihood_emulated_one_us']:.0f} us per "
+    say(f"  likelihood, exported {s.sampler_model} evaluator: {timing['likelihood_emulated_one_us']:.0f} us per "
          f"call (one theta); {timing['likelihood_emulated_batch_us_per_theta']:.0f} us per theta in a call of "
          f"{len(batch)} walkers")
     for kind, (one_us, batch_us) in others.items():
-        echo(f"  likelihood, exported {kind} evaluator (not used by the sampler): {one_us:.0f} us per call (one "
+        say(f"  likelihood, exported {kind} evaluator (not used by the sampler): {one_us:.0f} us per call (one "
              f"theta); {batch_us:.0f} us per theta in a call of {len(batch)} walkers")
-    echo(f"  exact solve of one EOS (M_max and {solve_masses.size} stars): {timing['exact_solve_one_ms']:.1f} ms")
-    echo(f"  likelihood with exact solves (one theta, three solves): {timing['likelihood_exact_one_ms']:.1f} ms")
+    say(f"  exact solve of one EOS (M_max and {solve_masses.size} stars): {timing['exact_solve_one_ms']:.1f} ms")
+    say(f"  likelihood with exact solves (one theta, three solves): {timing['likelihood_exact_one_ms']:.1f} ms")
     done("timing")
 
     # -- 7. cross-check -------------------------------------------------------------------------------
@@ -439,35 +448,35 @@ def _run_demo(out, settings, echo) -> DemoResult:
     timing["exact_solve_batch_ms_per_eos"] = cc.exact_solve_seconds / n * 1e3
     timing["speedup_one"] = t_exact_one / t_emu_one
     timing["speedup_batch"] = (cc.exact_seconds / n) / (t_emu_batch / len(batch))
-    stated = reports[s.sampler_model]["errors"]["radius_km_at_mass"]
-    stated_mm = reports[s.sampler_model]["errors"]["mass_max_msun"]
+    stated = reports[s.sampler_model].errors["radius_km_at_mass"]
+    stated_mm = reports[s.sampler_model].errors["mass_max_msun"]
     worst_band = max(cc.band_distance_km.values())
     if not cc.compared.any():
         verdict, ratio = "not compared", "no mass has enough samples with a star in both answers"
         verdict_text = f"the bands were not compared ({ratio})"
     else:
-        verdict = "inside" if worst_band <= stated["abs_p95"] else "OUTSIDE"
-        ratio = f"{worst_band / stated['abs_p95']:.2f} of it"
+        verdict = "inside" if worst_band <= stated.abs_p95 else "OUTSIDE"
+        ratio = f"{worst_band / stated.abs_p95:.2f} of it"
         verdict_text = f"the band distance is {verdict} it ({ratio})"
-    echo(f"  exact solves: {timing['exact_solve_batch_ms_per_eos']:.1f} ms per EOS in a batch of {n} "
+    say(f"  exact solves: {timing['exact_solve_batch_ms_per_eos']:.1f} ms per EOS in a batch of {n} "
          f"(M_max and {len(cc.masses)} stars); exact likelihood {timing['likelihood_exact_batch_ms_per_theta']:.1f}"
          f" ms per theta in a batch")
-    echo(f"  speed-up of the likelihood: {timing['speedup_one']:.0f}x for one theta, "
+    say(f"  speed-up of the likelihood: {timing['speedup_one']:.0f}x for one theta, "
          f"{timing['speedup_batch']:.0f}x per theta in batches")
-    echo(f"  R(M) band, emulated vs exact (the same samples at each mass), largest distance over "
+    say(f"  R(M) band, emulated vs exact (the same samples at each mass), largest distance over "
          f"{int(cc.compared.sum())} masses: " + ", ".join(f"{k} {v * 1000:.1f} m" for k, v in cc.band_distance_km.items()))
-    echo(f"  {cc.n_star_mismatch} of {n * len(cc.masses)} (sample, mass) pairs have a star in one answer only "
+    say(f"  {cc.n_star_mismatch} of {n * len(cc.masses)} (sample, mass) pairs have a star in one answer only "
          "(M_max on either side of the mass)")
-    echo(f"  stated emulator error (held-out p95 of R(M)): {stated['abs_p95'] * 1000:.1f} m -> {verdict_text}")
-    echo(f"  per sample: |R error| p95 {cc.radius_abs_p95_km * 1000:.1f} m, max {cc.radius_abs_max_km * 1000:.1f} m;"
-         f" |M_max error| p95 {cc.mass_max_abs_p95_msun:.2e} Msun (held-out p95 {stated_mm['abs_p95']:.2e});"
+    say(f"  stated emulator error (held-out p95 of R(M)): {stated.abs_p95 * 1000:.1f} m -> {verdict_text}")
+    say(f"  per sample: |R error| p95 {cc.radius_abs_p95_km * 1000:.1f} m, max {cc.radius_abs_max_km * 1000:.1f} m;"
+         f" |M_max error| p95 {cc.mass_max_abs_p95_msun:.2e} Msun (held-out p95 {stated_mm.abs_p95:.2e});"
          f" |log L error| median {cc.log_like_abs_median:.3f}, p95 {cc.log_like_abs_p95:.3f}")
     numbers["timing"] = timing
     numbers["cross_check"] = {
         "n_samples": n, "masses_compared": [float(m) for m in cc.masses[cc.compared]],
         "band_distance_km": cc.band_distance_km, "n_star_mismatch": cc.n_star_mismatch,
-        "n_pairs": n * len(cc.masses), "stated_radius_abs_p95_km": stated["abs_p95"],
-        "stated_mass_max_abs_p95_msun": stated_mm["abs_p95"], "verdict": verdict, "verdict_detail": ratio,
+        "n_pairs": n * len(cc.masses), "stated_radius_abs_p95_km": stated.abs_p95,
+        "stated_mass_max_abs_p95_msun": stated_mm.abs_p95, "verdict": verdict, "verdict_detail": ratio,
         "verdict_text": verdict_text,
         "radius_abs_p95_km": cc.radius_abs_p95_km, "radius_abs_max_km": cc.radius_abs_max_km,
         "mass_max_abs_p95_msun": cc.mass_max_abs_p95_msun, "mass_max_abs_max_msun": cc.mass_max_abs_max_msun,
@@ -489,24 +498,14 @@ def _run_demo(out, settings, echo) -> DemoResult:
     files["summary"] = out / "summary.md"
     numbers["stages_seconds"]["figures"] = time.perf_counter() - stage_t
     numbers["total_seconds"] = time.perf_counter() - t_start
-    files["summary_json"].write_text(json.dumps(numbers, indent=2, default=_jsonable))
+    files["summary_json"].write_text(json.dumps(jsonable(numbers, strict=False), indent=2))
     files["summary"].write_text(_summary_md(numbers, obs, files, out, reports))
     for k in ("corner", "mass_radius", "trace", "summary"):
-        echo(f"  {files[k]}")
-    echo("")
-    echo(f"demo finished in {numbers['total_seconds']:.0f} s" +
+        say(f"  {files[k]}")
+    say("")
+    say(f"demo finished in {numbers['total_seconds']:.0f} s" +
          (f" with {len(failures)} failure(s): " + "; ".join(failures) if failures else "") + f"; see {files['summary']}")
     return DemoResult(out, files, numbers, tuple(failures))
-
-
-def _jsonable(x):
-    if isinstance(x, np.ndarray):
-        return x.tolist()
-    if isinstance(x, (np.floating, np.integer)):
-        return x.item()
-    if isinstance(x, Path):
-        return str(x)
-    return str(x)
 
 
 def _generator(obs, family: str, names):
@@ -542,8 +541,8 @@ def _summary_md(nb: dict, obs, files: dict, out: Path, reports: dict) -> str:
     gp = tr["gp_settings"]
     lines = [
         "# tovforge demo", "",
-        f"tovforge {nb['tovforge_version']}, {datetime.datetime.now(datetime.timezone.utc):%Y-%m-%d %H:%M} UTC, "
-        f"Python {sys.version.split()[0]}; total wall time {nb['total_seconds']:.0f} s.", "",
+        f"tovforge {nb['tovforge_version']} (git commit {nb['git_commit']}), {nb['created_utc']}, "
+        f"Python {nb['python_version']}; total wall time {nb['total_seconds']:.0f} s.", "",
     ]
     if "invent" in obs.note.lower():
         lines += ["**The observations are INVENTED for this demo** (`" + _rel(obs.path, out) + "`): "

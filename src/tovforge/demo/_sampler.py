@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+import logging
 import time
 from dataclasses import dataclass
 
 import numpy as np
 
+from .._extras import require
 from ..errors import InputError
 
 __all__ = ["Chain", "run_chain"]
+
+logger = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
@@ -49,12 +53,13 @@ class Chain:
 
 
 def run_chain(log_prob, bounds, *, n_walkers: int = 32, n_steps: int = 1500, n_burn: int = 500,
-              seed: int = 0, start_factor: int = 16, echo=None) -> Chain:
+              seed: int = 0, start_factor: int = 16) -> Chain:
     """Sample a posterior on a box with emcee's affine-invariant ensemble sampler.
 
     The walkers start at the ``n_walkers`` best of ``start_factor * n_walkers``
     uniform draws from the box (one vectorised call), which puts them in the
-    region the data allow and leaves the burn-in to spread them out.
+    region the data allow and leaves the burn-in to spread them out.  A
+    progress line goes to the ``tovforge`` logger (INFO) every fifth of the run.
 
     Parameters
     ----------
@@ -64,19 +69,17 @@ def run_chain(log_prob, bounds, *, n_walkers: int = 32, n_steps: int = 1500, n_b
     n_walkers, n_steps, n_burn : int
     seed : int
         Seeds the start and the sampler's own random state (never the global one).
-    echo : callable, optional
-        Receives a progress line every fifth of the run.
 
     Returns
     -------
     Chain
     """
-    import emcee
+    emcee = require("emcee", "demo", "the demo's sampler")
 
     b = np.asarray(bounds, float)
     d = b.shape[0]
     if n_walkers < 2 * d:
-        raise InputError(f"--walkers must be at least twice the number of parameters ({2 * d}). Got {n_walkers}.")
+        raise InputError(f"n_walkers must be at least twice the number of parameters ({2 * d}). Got {n_walkers}.")
     if not 0 <= n_burn < n_steps:
         raise InputError(f"the burn-in ({n_burn} steps) must be shorter than the chain ({n_steps} steps).")
     rng = np.random.default_rng(seed)
@@ -93,8 +96,8 @@ def run_chain(log_prob, bounds, *, n_walkers: int = 32, n_steps: int = 1500, n_b
     sampler.random_state = np.random.RandomState(int(rng.integers(2**32))).get_state()
     report = max(1, n_steps // 5)
     for i, _ in enumerate(sampler.sample(start, iterations=n_steps), start=1):
-        if echo is not None and (i % report == 0 or i == n_steps):
-            echo(f"  step {i}/{n_steps}: mean acceptance {np.mean(sampler.acceptance_fraction):.2f}, "
+        if i % report == 0 or i == n_steps:
+            logger.info(f"  step {i}/{n_steps}: mean acceptance {np.mean(sampler.acceptance_fraction):.2f}, "
                  f"{time.perf_counter() - t0:.1f} s")
     tau = np.asarray(sampler.get_autocorr_time(discard=n_burn, quiet=True, tol=0), float)
     thin = max(1, int(np.nanmax(tau) // 2)) if np.all(np.isfinite(tau)) else 1

@@ -8,8 +8,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .._bench import demo_box_points, register, timeit_median
-from ._codegen import _import_file
+from .._bench import demo_box_points, timeit_median
+from ._verify import import_file as _import_file
+
+__all__ = ["bench_export"]
 
 DEMO_FILES = ("demo_gp.py", "demo_spline.py")
 
@@ -60,7 +62,6 @@ def _tensor_demo(folder: Path):
     return _import_file(path, "bench_tensor")
 
 
-@register("export")
 def bench_export(quick: bool = False, echo=print) -> None:
     """Latency for one theta and throughput for 10^4 theta of the exported files, beside the exact solver.
 

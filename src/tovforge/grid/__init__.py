@@ -18,7 +18,7 @@ from __future__ import annotations
 
 from ._design import design_points
 from ._info import describe_grid
-from ._run import Progress, RunSummary, parts_folder, run_grid
+from ._run import RunSummary, parts_folder, run_grid
 from ._solve import ChunkResult, solve_chunk
 from ._spec import (
     AT_MASS,
@@ -47,7 +47,6 @@ __all__ = [
     "GridData",
     "GridSpec",
     "OutputSpec",
-    "Progress",
     "RunSummary",
     "SolverSpec",
     "chebyshev_lobatto_nodes",

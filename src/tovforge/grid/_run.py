@@ -17,20 +17,19 @@ from __future__ import annotations
 
 import hashlib
 import json
-import math
 import os
-import platform
 import shutil
-import sys
 import time
 import warnings
 from dataclasses import asdict, dataclass
-from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
 
 from .. import __version__
+from .._extras import require
+from .._progress import progress_bar
+from .._provenance import provenance, utc_now
 from ..errors import InputError
 from ..status import Status
 from ._design import design_points
@@ -98,63 +97,6 @@ def _theta_sha256(theta: np.ndarray) -> str:
     return hashlib.sha256(np.ascontiguousarray(theta, np.float64).tobytes()).hexdigest()
 
 
-def _utc_now() -> str:
-    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-
-
-class Progress:
-    """A one-line progress bar on stderr: points done, rate and ETA.
-
-    On a terminal the line is redrawn in place; otherwise (logs, CI) a line
-    is printed at most every ``log_every`` seconds.
-    """
-
-    def __init__(self, total: int, done: int, label: str, stream=None, enabled: bool = True,
-                 log_every: float = 10.0):
-        self.total, self.done, self.label = total, done, label
-        self.stream = stream if stream is not None else sys.stderr
-        self.enabled = enabled
-        self.tty = enabled and hasattr(self.stream, "isatty") and self.stream.isatty()
-        self.t0 = time.monotonic()
-        self.start_done = done
-        self.log_every = log_every
-        self.last = -math.inf
-        self.show(force=True)
-
-    def _line(self) -> str:
-        frac = self.done / self.total if self.total else 1.0
-        width = 24
-        bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
-        elapsed = time.monotonic() - self.t0
-        new = self.done - self.start_done
-        rate = new / elapsed if elapsed > 0 and new else 0.0
-        eta = (self.total - self.done) / rate if rate else math.nan
-        eta_s = "--:--" if not math.isfinite(eta) else f"{int(eta // 60):d}:{int(eta % 60):02d}"
-        return (f"{self.label} [{bar}] {self.done}/{self.total} EOS {100 * frac:5.1f}%  "
-                f"{rate:7.1f} EOS/s  ETA {eta_s}")
-
-    def show(self, force: bool = False) -> None:
-        if not self.enabled:
-            return
-        now = time.monotonic()
-        if self.tty:
-            self.stream.write("\r" + self._line())
-            self.stream.flush()
-        elif force or now - self.last >= self.log_every or self.done == self.total:
-            self.stream.write(self._line() + "\n")
-            self.stream.flush()
-            self.last = now
-
-    def update(self, n: int) -> None:
-        self.done += n
-        self.show()
-
-    def close(self) -> None:
-        if self.enabled and self.tty:
-            self.stream.write("\n")
-            self.stream.flush()
-
-
 def _solve_task(spec, k: int, theta: np.ndarray) -> tuple[int, ChunkResult]:
     """One unit of work (runs in a worker): solve chunk ``k``."""
     return k, solve_chunk(spec, theta)
@@ -166,12 +108,11 @@ CONNECT_TIMEOUT = "20s"
 
 def _connect(scheduler: str):
     """A dask.distributed client of the scheduler at ``scheduler`` (one-line error if unreachable)."""
-    from dask.distributed import Client
-
+    Client = require("dask.distributed", "cluster", "running on a Dask scheduler").Client
     try:
         return Client(scheduler, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
-        raise InputError(f"--scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
+        raise InputError(f"scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
 
 
 def _execute(spec, theta, todo, workers: int | None, client):
@@ -211,7 +152,7 @@ def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
     if overwrite:
         return False
     what = "is not a tovforge grid file" if found is None else f"was made from a different spec ({found[:12]}...)"
-    raise InputError(f"{out} exists and {what}; pass --overwrite to replace it.")
+    raise InputError(f"{out} exists and {what}; pass overwrite=True to replace it.")
 
 
 def _prepare_parts(parts: Path, spec, theta_hash: str, overwrite: bool) -> dict:
@@ -229,10 +170,10 @@ def _prepare_parts(parts: Path, spec, theta_hash: str, overwrite: bool) -> dict:
         if not overwrite:
             why = ("holds no readable manifest" if manifest is None else
                    "holds chunks of a different spec, design or tovforge version")
-            raise InputError(f"{parts} {why}; pass --overwrite to discard them, or choose another --out.")
+            raise InputError(f"{parts} {why}; pass overwrite=True to discard them, or choose another output file.")
         shutil.rmtree(parts)
     parts.mkdir(parents=True)
-    manifest = {**expected, "started_utc": _utc_now(), "spec": json.loads(spec.to_json())}
+    manifest = {**expected, "started_utc": utc_now(), "spec": json.loads(spec.to_json())}
     tmp = atomic_path(manifest_path)
     tmp.write_text(json.dumps(manifest, indent=1))
     os.replace(tmp, manifest_path)
@@ -268,22 +209,14 @@ def _assemble(parts: Path, spec) -> tuple[np.ndarray, ChunkResult]:
 
 
 def _provenance(spec, manifest: dict) -> dict:
-    import h5py
-    import scipy
-
     settings = spec.solver.sequence_settings()
-    return {
-        "tovforge_version": __version__,
-        "python_version": platform.python_version(),
-        "numpy_version": np.__version__,
-        "scipy_version": scipy.__version__,
-        "h5py_version": h5py.__version__,
-        "created_utc": _utc_now(),
-        "started_utc": manifest.get("started_utc", ""),
-        "solver_settings_json": json.dumps({**asdict(settings), "branch_stars": spec.solver.branch_stars,
-                                            "mass_rtol": spec.solver.mass_rtol}, sort_keys=True),
-        "design_sha256": manifest["design_sha256"],
-    }
+    return provenance(
+        "scipy", "h5py",
+        started_utc=manifest.get("started_utc", ""),
+        solver_settings_json=json.dumps({**asdict(settings), "branch_stars": spec.solver.branch_stars,
+                                         "mass_rtol": spec.solver.mass_rtol}, sort_keys=True),
+        design_sha256=manifest["design_sha256"],
+    )
 
 
 def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
@@ -323,7 +256,7 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
     t0 = time.monotonic()
     out = Path(out)
     if workers is not None and workers < 1:
-        raise InputError(f"--workers must be at least 1. Got {workers}.")
+        raise InputError(f"workers must be at least 1. Got {workers}.")
     if not out.parent.exists():
         raise InputError(f"{out.parent}: no such folder for the output.")
     if _check_existing_output(out, spec, overwrite):
@@ -343,14 +276,11 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
         done = _finished_chunks(parts, spec)
         todo = [k for k in range(spec.n_chunks) if k not in done]
         n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
-        bar = Progress(spec.n_points, int(n_done), out.name, stream=stream, enabled=progress)
-        try:
+        with progress_bar(spec.n_points, out.name, done=int(n_done), enabled=progress, stream=stream) as bar:
             for k, result in _execute(spec, theta, todo, workers, client):
                 start, stop = spec.chunk_bounds(k)
                 write_chunk(_chunk_path(parts, k), spec, k, theta[start:stop], result)
                 bar.update(stop - start)
-        finally:
-            bar.close()
     finally:
         if client is not None:
             client.close()

@@ -11,18 +11,24 @@ key order and spelling out a default do not change it.
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import json
-import math
-import tomllib
 import warnings
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from .. import quantities
+from .._toml import array as _list
+from .._toml import check_keys as _check_keys
+from .._toml import in_file, load_toml
+from .._toml import increasing as _increasing
+from .._toml import integer as _int
+from .._toml import join as _join
+from .._toml import names as _names
+from .._toml import number as _float
+from .._toml import string as _str
+from .._toml import table as _table
 from ..errors import InputError
 
 __all__ = [
@@ -240,96 +246,6 @@ class GridSpec:
 _TOP_KEYS = ("description", "family", "chunk_size", "mass_max_floor_msun", "design", "box", "outputs", "solver")
 _OUTPUT_KEYS = ("scalars", "curves", "u_nodes", "u_max", "at_mass", "masses_msun")
 _SOLVER_KEYS = tuple(SolverSpec.__dataclass_fields__)
-_TYPE_NAMES = {str: "a string", bool: "a boolean", int: "an integer", float: "a number", list: "an array",
-               dict: "a table"}
-
-
-def _kind(value) -> str:
-    for t in (bool, int, float, str, list, dict):  # bool before int: True is an int in Python
-        if isinstance(value, t):
-            return _TYPE_NAMES[t]
-    return type(value).__name__
-
-
-def _check_keys(table: dict, allowed, path: str) -> None:
-    where = f"[{path}]" if path else "the top level"
-    for key in table:
-        if key not in allowed:
-            hint = difflib.get_close_matches(key, allowed, n=1)
-            did = f" (did you mean {hint[0]!r}?)" if hint else ""
-            raise InputError(f"{_join(path, key)}: unknown key {key!r} in {where}{did}; "
-                             f"allowed keys: {', '.join(allowed)}.")
-
-
-def _join(path: str, key) -> str:
-    if isinstance(key, int):
-        return f"{path}[{key}]"
-    return f"{path}.{key}" if path else str(key)
-
-
-def _table(value, path: str) -> dict:
-    if not isinstance(value, dict):
-        raise InputError(f"{path}: expected a table, got {_kind(value)} ({value!r}).")
-    return value
-
-
-def _int(value, path: str, lo: int | None = None, hi: int | None = None) -> int:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise InputError(f"{path}: expected an integer, got {_kind(value)} ({value!r}).")
-    if (lo is not None and value < lo) or (hi is not None and value > hi):
-        rng = f">= {lo}" if hi is None else f"in [{lo}, {hi}]"
-        raise InputError(f"{path}: must be an integer {rng}. Got {value}.")
-    return value
-
-
-def _float(value, path: str, lo: float | None = None, hi: float | None = None, open_lo: bool = False,
-           open_hi: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{path}: expected a number, got {_kind(value)} ({value!r}).")
-    v = float(value)
-    bad = not math.isfinite(v)
-    if lo is not None:
-        bad |= v <= lo if open_lo else v < lo
-    if hi is not None:
-        bad |= v >= hi if open_hi else v > hi
-    if bad:
-        left = "-inf" if lo is None else f"{lo:g}"
-        right = "inf" if hi is None else f"{hi:g}"
-        rng = f"{'(' if open_lo or lo is None else '['}{left}, {right}{')' if open_hi or hi is None else ']'}"
-        raise InputError(f"{path}: must be a finite number in {rng}. Got {value}.")
-    return v
-
-
-def _str(value, path: str, choices=None) -> str:
-    if not isinstance(value, str):
-        raise InputError(f"{path}: expected a string, got {_kind(value)} ({value!r}).")
-    if choices is not None and value not in choices:
-        hint = difflib.get_close_matches(value, list(choices), n=1)
-        did = f" (did you mean {hint[0]!r}?)" if hint else ""
-        raise InputError(f"{path}: {value!r} is not one of {', '.join(choices)}{did}.")
-    return value
-
-
-def _list(value, path: str) -> list:
-    if not isinstance(value, list):
-        raise InputError(f"{path}: expected an array, got {_kind(value)} ({value!r}).")
-    return value
-
-
-def _names(value, path: str, choices: dict) -> tuple[str, ...]:
-    items = [_str(v, _join(path, i), choices) for i, v in enumerate(_list(value, path))]
-    for i, v in enumerate(items):
-        if v in items[:i]:
-            raise InputError(f"{_join(path, i)}: {v!r} is listed twice.")
-    return tuple(items)
-
-
-def _increasing(values, path: str, lo: float, hi: float, open_lo: bool, open_hi: bool) -> tuple[float, ...]:
-    vals = [_float(v, _join(path, i), lo, hi, open_lo, open_hi) for i, v in enumerate(_list(values, path))]
-    for i in range(1, len(vals)):
-        if not vals[i] > vals[i - 1]:
-            raise InputError(f"{_join(path, i)}: values must increase; {vals[i]:g} follows {vals[i - 1]:g}.")
-    return tuple(vals)
 
 
 def _read_family(raw: dict):
@@ -481,16 +397,6 @@ def load_spec(path) -> GridSpec:
 
     Errors name the file before the key path.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read the spec ({exc.strerror}).") from None
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"{path}: not valid TOML: {exc}.") from None
-    try:
+    raw, text = load_toml(path, "spec")
+    with in_file(path):
         return parse_spec(raw, source=text)
-    except InputError as exc:
-        raise InputError(f"{path}: {exc}") from None

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._bench import demo_box_points, register, timeit_median
+from .._bench import demo_box_points, timeit_median
 from ..units import MSUN_KM
+
+__all__ = ["bench_solver"]
 
 
 def _max_rel(a, b):
@@ -13,7 +15,6 @@ def _max_rel(a, b):
     return float(np.nanmax(np.abs(a / b - 1.0)))
 
 
-@register("solver")
 def bench_solver(quick: bool = False, echo=print) -> None:
     """Median time per sequence (100 stars + M_max), ours vs solve_ivp, with errors."""
     from .. import eos

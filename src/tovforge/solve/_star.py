@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy.optimize import brentq
 
 from ..errors import InputError
 from ..units import DENSITY_CGS_TO_GEOM, MSUN_KM, PRESSURE_CGS_TO_GEOM
@@ -39,6 +38,8 @@ def central_enthalpy(eos, *, pressure_dyn_cm2=None, rest_mass_density_g_cm3=None
     if not np.isfinite(value) or value <= 0 or f(h_hi) < 0 or f(1e-12) > 0:
         top = lanes.eval(np.array([h_hi]))[col][0] / factor
         raise InputError(f"{name} must be in (0, {top:.4g}] for this EOS. Got {value:g} instead.")
+    from scipy.optimize import brentq  # here, not at import: importing tovforge.solve stays light
+
     return brentq(f, 1e-12, h_hi, xtol=1e-15, rtol=1e-14)
 
 

@@ -11,19 +11,13 @@ import numpy as np
 
 from .._jsonfile import read_json
 from ..errors import InputError
+from . import _contract as qc
 from . import _runtime as rt
+from ._contract import Curve, Estimate, MassPrediction, Prediction
+from ._kinds import COMMON_ARRAYS, METHODS, Method, method
+from ._meta import FORMAT, FORMAT_VERSION, ModelMeta
 
-__all__ = ["Surrogate", "Prediction", "MassPrediction", "load", "ModelFormatError"]
-
-FORMAT = "tovforge-surrogate"
-FORMAT_VERSION = 1
-_ARRAY_KEYS = {
-    "common": ("lo", "hi", "out_mean", "out_scale", "trend_powers", "trend_coef", "u_nodes", "spline_c",
-               "curve_slices"),
-    "gp": ("X", "alpha", "group_bounds", "length", "amp2", "noise", "resid_scale"),
-    "rbf": ("X", "alpha"),
-    "tensor": ("knots", "n_knots", "coef", "coef_shape"),
-}
+__all__ = ["Surrogate", "Evaluation", "load", "ModelFormatError"]
 
 
 class ModelFormatError(InputError):
@@ -31,237 +25,223 @@ class ModelFormatError(InputError):
 
 
 @dataclass(frozen=True)
-class Prediction:
-    """Everything a surrogate predicts at a set of parameter points.
+class Evaluation:
+    """Every emulated output of a model at rows of parameters, in the model's own terms.
 
-    Arrays have a leading axis of length ``n_theta`` (even for one point).
-
-    Attributes
-    ----------
-    mass_max_msun, log10_central_pressure_at_mass_max, max_sound_speed_sq : ndarray (n,)
-    u_nodes : ndarray (n_u,)
-        The sequence coordinate ``u = sqrt(1 - M / M_max)`` of the curve nodes.
-    mass_msun, radius_km, tidal_deformability, moment_of_inertia_1e45_g_cm2 : ndarray (n, n_u)
-        The stable branch at the nodes.
-    mass_max_margin_msun : ndarray (n,)
-        ``M_max`` minus the model's floor (negative: below the floor).
-    causality_margin : ndarray (n,)
-        ``1 - max c_s^2``; negative means the EOS is acausal below M_max.
-    out_of_box : ndarray of bool (n,)
-        True where the parameters lie outside the trained box (values are NaN).
-    std : dict or None
-        Predictive standard deviations (GP models) of the same fields.
-    """
-
-    mass_max_msun: np.ndarray
-    log10_central_pressure_at_mass_max: np.ndarray
-    max_sound_speed_sq: np.ndarray
-    u_nodes: np.ndarray
-    mass_msun: np.ndarray
-    radius_km: np.ndarray
-    tidal_deformability: np.ndarray
-    moment_of_inertia_1e45_g_cm2: np.ndarray
-    mass_max_margin_msun: np.ndarray
-    causality_margin: np.ndarray
-    out_of_box: np.ndarray
-    std: dict | None = None
-
-
-@dataclass(frozen=True)
-class MassPrediction:
-    """A surrogate's predictions at given masses, with everything of :class:`Prediction`.
-
-    Made by :meth:`Surrogate.predict_at_masses` from one evaluation of the model
-    (the queries ``radius``, ``tidal_deformability``, ... each evaluate it anew).
+    Values are in the model's output units (the transformed quantities:
+    ``log10`` of the central pressure, ``ln Lambda``, ...), one column per
+    scalar and one per node of each curve; :meth:`Surrogate.output_columns`
+    names the columns.
 
     Attributes
     ----------
-    prediction : Prediction
-        Scalars and node curves at the same parameters.
-    masses_msun : ndarray (q,)
-        The gravitational masses asked for.
-    radius_km, tidal_deformability, moment_of_inertia_1e45_g_cm2, k2 : ndarray (n, q)
-        Radius (km), dimensionless Lambda, I (1e45 g cm^2) and the Love number k2
-        at each mass; NaN above M_max, below the emulated branch or outside the box.
-    std : dict or None
-        Predictive standard deviations of the four per-mass arrays (GP models).
+    values : ndarray (n, n_out)
+        NaN outside the box (and, for outputs not asked for, possibly elsewhere).
+    inside : ndarray of bool (n,)
+    grad : ndarray (n, n_out, d) or None
+        d values / d theta.
+    std : ndarray (n, n_out) or None
+        Predictive standard deviations (NaN for methods without one).
     """
 
-    prediction: Prediction
-    masses_msun: np.ndarray
-    radius_km: np.ndarray
-    tidal_deformability: np.ndarray
-    moment_of_inertia_1e45_g_cm2: np.ndarray
-    k2: np.ndarray
-    std: dict | None = None
-
-
-#: Per-mass fields of MassPrediction and the runtime's name of each quantity.
-_AT_MASS_FIELDS = {"radius_km": "radius_km", "tidal_deformability": "tidal_deformability",
-                   "moment_of_inertia_1e45_g_cm2": "moment_of_inertia", "k2": "k2"}
+    values: np.ndarray
+    inside: np.ndarray
+    grad: np.ndarray | None = None
+    std: np.ndarray | None = None
 
 
 class Surrogate:
     """A trained emulator of an EOS family's stable branch.
 
+    The queries (``mass_max``, ``radius``, ``tidal_deformability``,
+    ``moment_of_inertia``, ``k2``, ``curve``, ``predict``,
+    ``predict_at_masses``, ``in_domain``) follow the contract shared with
+    the exported files (docs/reference/query-contract.md).
+
     Parameters
     ----------
-    meta : dict
-        JSON-serialisable description (family, parameters, units, box, kind,
-        outputs, training provenance, error table once checked).
+    meta : ModelMeta
+        What the model says about itself (family, parameters, box, kind and
+        method, outputs, training provenance, settings and fit record).
     arrays : dict of ndarray
-        The numbers (see :mod:`tovforge.surrogate._runtime`).
+        The numbers (see :mod:`tovforge.surrogate._runtime`); kept read-only.
     """
 
-    def __init__(self, meta: dict, arrays: dict):
+    def __init__(self, meta: ModelMeta, arrays: dict):
+        if not isinstance(meta, ModelMeta):
+            raise TypeError(f"meta must be a ModelMeta, not {type(meta).__name__}")
         self.meta = meta
-        self.arrays = arrays
-        self._m = dict(arrays)
-        self._m["kind"] = meta["kind"]
-        self._m["i_mass_max"] = meta["outputs"]["index"]["mass_max_msun"]
+        self.arrays = {k: _read_only(v) for k, v in arrays.items()}
+        self._model = rt.Model(self.arrays, meta.method, meta.outputs.runtime(), meta.parameters, meta.bounds,
+                               meta.outputs.mass_floor_msun)
 
     # -- description ------------------------------------------------------------
     @property
     def kind(self) -> str:
-        return self.meta["kind"]
+        """What was asked for: ``gp`` or ``spline``."""
+        return self.meta.kind
+
+    @property
+    def method(self) -> str:
+        """The implementation: ``gp``, ``rbf`` or ``tensor``."""
+        return self.meta.method
+
+    @property
+    def method_info(self) -> Method:
+        """The method's entry in the table of kinds."""
+        return METHODS[self.meta.method]
+
+    @property
+    def has_std(self) -> bool:
+        """True if the model has a predictive standard deviation (otherwise ``std`` fields are NaN)."""
+        return self.method_info.has_std
 
     @property
     def family(self) -> str:
-        return self.meta["family"]
+        return self.meta.family
 
     @property
     def parameter_names(self) -> tuple[str, ...]:
-        return tuple(self.meta["parameters"])
+        return tuple(self.meta.parameters)
+
+    @property
+    def parameter_units(self) -> tuple[str, ...]:
+        return tuple(self.meta.parameter_units)
 
     @property
     def bounds(self) -> np.ndarray:
+        """The trained box, shape (d, 2)."""
         return np.stack([self.arrays["lo"], self.arrays["hi"]], axis=1)
 
+    @property
+    def n_train(self) -> int:
+        return self.meta.training.n_train
+
+    @property
+    def star_queries(self) -> tuple[str, ...]:
+        """The queries at a mass this model answers (``radius``, ``tidal_deformability``, ..., ``k2``)."""
+        return rt.star_queries(self._model)
+
+    def output_columns(self) -> dict[str, slice]:
+        """The columns of :meth:`evaluate`'s arrays that hold each output, by output name."""
+        return self.meta.outputs.columns()
+
     def __repr__(self) -> str:
-        return (f"<Surrogate {self.kind} of {self.family} ({', '.join(self.parameter_names)}), "
-                f"{self.meta['training']['n_train']} training points>")
+        return (f"<Surrogate {self.kind} ({self.method}) of {self.family} ({', '.join(self.parameter_names)}), "
+                f"{self.n_train} training points>")
+
+    # -- copies ---------------------------------------------------------------------
+    def with_meta(self, **changes) -> Surrogate:
+        """The same model with some metadata changed (see :meth:`ModelMeta.replace`)."""
+        return Surrogate(self.meta.replace(**changes), self.arrays)
+
+    def with_arrays(self, **arrays) -> Surrogate:
+        """The same model with some arrays replaced (e.g. to measure its rounding noise)."""
+        return Surrogate(self.meta, {**self.arrays, **arrays})
 
     # -- evaluation -------------------------------------------------------------
-    def _theta(self, theta) -> np.ndarray:
-        t = np.asarray(theta, dtype=float)
-        d = len(self.parameter_names)
-        if t.ndim == 0 or t.shape[-1] != d:
-            raise InputError(f"theta must have shape ({d},) or (n, {d}) for parameters "
-                             f"{', '.join(self.parameter_names)}; got shape {t.shape}.")
-        return t.reshape(-1, d)
-
-    def in_domain(self, theta) -> np.ndarray:
-        """True where ``theta`` lies inside the trained box."""
-        return rt.unit_inputs(np, self._m, self._theta(theta))[1]
-
-    def predict(self, theta, return_std: bool = False) -> Prediction:
-        """Predict scalars and node curves at ``theta`` (d,) or (n, d)."""
-        t = self._theta(theta)
-        y, inside, _ = rt.outputs(np, self._m, t)
-        sd = rt.output_std(np, self._m, t) if return_std else None
-        return self._prediction(y, inside, sd)
-
-    def predict_at_masses(self, theta, masses, return_std: bool = False) -> MassPrediction:
-        """Everything :meth:`predict` gives, plus R, Lambda, I and k2 at ``masses``, from one evaluation.
+    def evaluate(self, theta, columns=None, grad: bool = False, std: bool = False) -> Evaluation:
+        """Every output in the model's own terms (see :class:`Evaluation`).
 
         Parameters
         ----------
         theta : array_like, shape (d,) or (n, d)
-        masses : array_like, shape (q,)
-            Gravitational masses in Msun (the same for every row).
-        return_std : bool
-            Also the predictive standard deviations (GP models; zeros otherwise).
-
-        Returns
-        -------
-        MassPrediction
+            Rows of parameters (one row for a (d,) theta).
+        columns : sequence of str, optional
+            Names of the outputs needed (default all); the others may be NaN.
+        grad, std : bool
+            Also the derivatives with respect to theta, and the predictive
+            standard deviations.
         """
-        t = self._theta(theta)
-        mass = np.atleast_1d(np.asarray(masses, float))
-        if mass.ndim != 1:
-            raise InputError(f"masses must be a list of values in Msun; got shape {mass.shape}.")
-        y, inside, _ = rt.outputs(np, self._m, t)
-        sd = rt.output_std(np, self._m, t) if return_std else None
-        values, std = {}, ({} if return_std else None)
-        for field, quantity in _AT_MASS_FIELDS.items():
-            v, _, s = rt.curve_at_mass(np, self._m, y, None, sd, mass, quantity)
-            values[field] = v
-            if return_std:
-                std[field] = s
-        return MassPrediction(prediction=self._prediction(y, inside, sd), masses_msun=mass, std=std, **values)
+        t = np.asarray(theta, dtype=float)
+        d = len(self.parameter_names)
+        if t.ndim not in (1, 2) or t.shape[-1] != d:
+            raise InputError(f"theta must have shape ({d},) or (n, {d}); got shape {t.shape}.")
+        t = t.reshape(-1, d)
+        ranges = None
+        if columns is not None:
+            known = self.output_columns()
+            unknown = [c for c in columns if c not in known]
+            if unknown:
+                raise InputError(f"unknown output {unknown[0]!r}; this model has {', '.join(known)}.")
+            ranges = [(known[c].start, known[c].stop) for c in columns]
+        y, inside, dy = rt.outputs(np, self._model, t, grad, ranges)
+        sd = rt.output_std(np, self._model, t, ranges) if std else None
+        return Evaluation(values=y, inside=inside, grad=dy, std=sd)
 
-    def _prediction(self, y, inside, sd) -> Prediction:
-        index = self.meta["outputs"]["index"].items()
-        fields = rt.named_outputs(np, self._m, y, index)
-        std = rt.named_std(np, self._m, sd, fields, index) if sd is not None else None
-        floor = self.meta["outputs"]["mass_floor_msun"]
-        return Prediction(
-            mass_max_margin_msun=fields["mass_max_msun"] - floor,
-            causality_margin=1.0 - fields["max_sound_speed_sq"],
-            out_of_box=~inside,
-            std=std,
-            **fields,
-        )
+    def coincides_with_training(self, theta, tol: float = 1e-10) -> np.ndarray:
+        """True for rows of ``theta`` (n, d) within ``tol`` (in the model's unit inputs) of a training point.
 
-    def mass_max(self, theta, return_grad: bool = False, return_std: bool = False):
-        """Maximum mass in Msun (NaN outside the box)."""
-        t = self._theta(theta)
-        i = self._m["i_mass_max"]
-        columns = rt.needed_columns(self._m, ())
-        y, _, dy = rt.outputs(np, self._m, t, return_grad, columns)
-        out = [y[:, i]]
-        if return_grad:
-            out.append(dy[:, i, :])
-        if return_std:
-            out.append(rt.output_std(np, self._m, t, columns)[:, i])
-        return out[0] if len(out) == 1 else tuple(out)
+        All False for methods that do not keep their training points (tensor splines).
+        """
+        t = np.atleast_2d(np.asarray(theta, dtype=float))
+        X = self.arrays.get("X")
+        if X is None:
+            return np.zeros(len(t), dtype=bool)
+        x = rt.unit_inputs(np, self._model, t)[0]
+        d2 = ((x[:, None, :] - X[None, :, :]) ** 2).sum(-1).min(axis=1)
+        return d2 < tol * tol
 
-    def _at(self, quantity, theta, mass, return_grad, return_std):
-        t = self._theta(theta)
-        mass = np.atleast_1d(np.asarray(mass, float))
-        val, g, s = rt.at_mass(np, self._m, t, mass, quantity, grad=return_grad, std=return_std)
-        out = [val]
-        if return_grad:
-            out.append(g)
-        if return_std:
-            out.append(s)
-        return out[0] if len(out) == 1 else tuple(out)
+    def _ask(self, fn, *args):
+        """Answer a query of the contract with NumPy; its shape errors become InputError."""
+        try:
+            return fn(np, self._model, *args)
+        except qc.QueryError as exc:
+            raise InputError(str(exc)) from None
 
-    def radius(self, theta, mass, return_grad: bool = False, return_std: bool = False):
-        """Radius in km at masses (Msun), shape (n_theta, n_mass); NaN above M_max."""
-        return self._at("radius_km", theta, mass, return_grad, return_std)
+    def in_domain(self, theta) -> np.ndarray:
+        return self._ask(qc.query_in_domain, theta)
 
-    def tidal_deformability(self, theta, mass, return_grad: bool = False, return_std: bool = False):
-        """Dimensionless Lambda at masses (Msun); NaN above M_max."""
-        return self._at("tidal_deformability", theta, mass, return_grad, return_std)
+    def mass_max(self, theta, return_grad: bool = False, return_std: bool = False, strict: bool = False) -> Estimate:
+        return self._ask(qc.query_mass_max, theta, return_grad, return_std, strict)
 
-    def moment_of_inertia(self, theta, mass, return_grad: bool = False, return_std: bool = False):
-        """Moment of inertia in 1e45 g cm^2 at masses (Msun); NaN above M_max."""
-        return self._at("moment_of_inertia", theta, mass, return_grad, return_std)
+    def radius(self, theta, mass, return_grad: bool = False, return_std: bool = False,
+               strict: bool = False) -> Estimate:
+        return self._ask(qc.query_at_mass, "radius", theta, mass, return_grad, return_std, strict)
 
-    def k2(self, theta, mass, return_grad: bool = False, return_std: bool = False):
-        """Love number k2 = (3/2) Lambda C^5 at masses (Msun); NaN above M_max."""
-        return self._at("k2", theta, mass, return_grad, return_std)
+    def tidal_deformability(self, theta, mass, return_grad: bool = False, return_std: bool = False,
+                            strict: bool = False) -> Estimate:
+        return self._ask(qc.query_at_mass, "tidal_deformability", theta, mass, return_grad, return_std, strict)
 
-    def curve(self, theta, n: int = 100):
-        """The emulated stable branch: masses, radii, Lambdas (n_theta, n), from the
-        lowest emulated mass up to M_max."""
-        t = self._theta(theta)
-        # one evaluation serves M_max and both curves (the masses then sit exactly on the branch)
-        y, _, _ = rt.outputs(np, self._m, t, False, rt.needed_columns(self._m, ("radius_km", "tidal_deformability")))
-        return rt.branch_curve(np, self._m, y, np.linspace(1.0, 0.0, n))
+    def moment_of_inertia(self, theta, mass, return_grad: bool = False, return_std: bool = False,
+                          strict: bool = False) -> Estimate:
+        return self._ask(qc.query_at_mass, "moment_of_inertia", theta, mass, return_grad, return_std, strict)
+
+    def k2(self, theta, mass, return_grad: bool = False, return_std: bool = False, strict: bool = False) -> Estimate:
+        return self._ask(qc.query_at_mass, "k2", theta, mass, return_grad, return_std, strict)
+
+    def curve(self, theta, n: int = 100, strict: bool = False) -> Curve:
+        return self._ask(qc.query_curve, theta, n, strict)
+
+    def predict(self, theta, return_std: bool = False, strict: bool = False) -> Prediction:
+        return self._ask(qc.query_predict, theta, return_std, strict)
+
+    def predict_at_masses(self, theta, masses, return_std: bool = False, strict: bool = False) -> MassPrediction:
+        return self._ask(qc.query_predict_at_masses, theta, masses, return_std, strict)
 
     # -- storage --------------------------------------------------------------------
     def save(self, folder) -> Path:
         """Write ``model.json`` and ``arrays.npz`` into ``folder`` (created if needed)."""
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)
-        arrays = {k: np.asarray(v) for k, v in self.arrays.items()}
-        np.savez(folder / "arrays.npz", **arrays)
-        meta = dict(self.meta)
-        meta["arrays_sha256"] = _sha256(folder / "arrays.npz")
-        (folder / "model.json").write_text(json.dumps(meta, indent=2, sort_keys=True))
+        np.savez(folder / "arrays.npz", **{k: np.asarray(v) for k, v in self.arrays.items()})
+        self.meta = self.meta.replace(arrays_sha256=_sha256(folder / "arrays.npz"))
+        (folder / "model.json").write_text(json.dumps(self.meta.to_json(), indent=2, sort_keys=True))
         return folder
+
+
+# one text per query, shared with the exported files
+for _name, _doc in qc.QUERY_DOCS.items():
+    getattr(Surrogate, _name).__doc__ = _doc
+del _name, _doc
+
+
+def _read_only(a):
+    a = np.asarray(a)
+    if a.flags.writeable:
+        a = a.view()
+        a.flags.writeable = False
+    return a
 
 
 def _sha256(path: Path) -> str:
@@ -275,6 +255,8 @@ def _sha256(path: Path) -> str:
 def load(folder) -> Surrogate:
     """Load a model folder written by :meth:`Surrogate.save` (never unpickles).
 
+    Reads format versions 1 and 2 of ``model.json``.
+
     Raises
     ------
     ModelFormatError
@@ -286,13 +268,20 @@ def load(folder) -> Surrogate:
     for p in (meta_path, arr_path):
         if not p.is_file():
             raise ModelFormatError(f"{folder}: not a tovforge model folder (missing {p.name}).")
-    meta = read_json(meta_path, ModelFormatError)
-    if meta.get("format") != FORMAT:
-        raise ModelFormatError(f"{meta_path}: not a tovforge surrogate (format {meta.get('format')!r}).")
-    if meta.get("format_version") != FORMAT_VERSION:
-        raise ModelFormatError(f"{meta_path}: format version {meta.get('format_version')} is not supported "
-                               f"(this tovforge reads version {FORMAT_VERSION}).")
-    want = meta.get("arrays_sha256")
+    raw = read_json(meta_path, ModelFormatError)
+    if not isinstance(raw, dict) or raw.get("format") != FORMAT:
+        raise ModelFormatError(f"{meta_path}: not a tovforge surrogate "
+                               f"(format {raw.get('format') if isinstance(raw, dict) else None!r}).")
+    if raw.get("format_version") not in (1, FORMAT_VERSION):
+        raise ModelFormatError(f"{meta_path}: format version {raw.get('format_version')} is not supported "
+                               f"(this tovforge reads versions 1 and {FORMAT_VERSION}).")
+    try:
+        meta = ModelMeta.from_json(raw)
+    except InputError as exc:
+        raise ModelFormatError(f"{meta_path}: {exc}") from None
+    except (TypeError, KeyError, ValueError) as exc:
+        raise ModelFormatError(f"{meta_path}: incomplete or damaged model metadata ({exc}).") from None
+    want = meta.arrays_sha256
     if want and _sha256(arr_path) != want:
         raise ModelFormatError(f"{arr_path}: contents do not match the checksum in model.json (file altered?).")
     try:
@@ -300,8 +289,13 @@ def load(folder) -> Surrogate:
             arrays = {k: npz[k] for k in npz.files}
     except (ValueError, OSError) as exc:
         raise ModelFormatError(f"{arr_path}: cannot read arrays ({exc}).") from None
-    needed = _ARRAY_KEYS["common"] + _ARRAY_KEYS.get(meta.get("kind"), ())
+    needed = COMMON_ARRAYS + method(meta.method).arrays
     missing = [k for k in needed if k not in arrays]
     if missing:
-        raise ModelFormatError(f"{arr_path}: missing array {missing[0]!r} for a {meta.get('kind')} model.")
+        raise ModelFormatError(f"{arr_path}: missing array {missing[0]!r} for a {meta.method} model.")
+    want_slices = [[c.start, c.stop] for c in list(meta.outputs.columns().values())[len(meta.outputs.scalars):]]
+    if np.asarray(arrays["curve_slices"]).tolist() != want_slices:
+        raise ModelFormatError(f"{arr_path}: curve_slices {np.asarray(arrays['curve_slices']).tolist()} do not match "
+                               f"the outputs of model.json ({want_slices}).")
     return Surrogate(meta, arrays)
+

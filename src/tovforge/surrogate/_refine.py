@@ -4,20 +4,23 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import logging
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from .._provenance import provenance
 from ..errors import InputError
-from . import _runtime as rt
 from ._check import check
-from ._dataset import read_training_data, training_data_from_arrays
-from ._fit import GPSettings, TrainingData
+from ._data import TrainingData, read_training_data, training_data_from_arrays
+from ._meta import LearningPoint
 from ._model import Surrogate
 from ._train import train_on
 
 __all__ = ["refine", "RefineResult", "select_points"]
+
+logger = logging.getLogger(__name__)
 
 #: Scales that make the predictive sigmas of different outputs comparable: the
 #: accuracy goals (M_max 0.002 Msun, R 10 m, ln Lambda 0.005).
@@ -36,7 +39,7 @@ class RefineResult:
         The parameters that were solved.
     points_path : Path
         Grid file with the added exact solves.
-    learning_curve : list of dict
+    learning_curve : tuple of LearningPoint
         Training size and held-out p95 errors, before and after (if a
         held-out grid was given).
     """
@@ -44,21 +47,19 @@ class RefineResult:
     model: Surrogate
     added: np.ndarray
     points_path: Path
-    learning_curve: list
+    learning_curve: tuple
 
 
 def _score(model: Surrogate, theta: np.ndarray) -> np.ndarray:
     """Largest predictive sigma over M_max, the radius and ln Lambda nodes, in units of the goals."""
-    m = model._m
-    sd = rt.output_std(np, m, theta)
-    idx = model.meta["outputs"]["index"]
-    score = sd[:, idx["mass_max_msun"]] / _SIGMA_SCALES["mass_max_msun"]
+    ev = model.evaluate(theta, std=True)
+    cols = model.output_columns()
+    score = ev.std[:, cols["mass_max_msun"]][:, 0] / _SIGMA_SCALES["mass_max_msun"]
     for name in ("radius_km", "log_tidal_deformability"):
-        a, b = rt._curve_slice(m, name)
-        score = np.maximum(score, sd[:, a:b].max(axis=1) / _SIGMA_SCALES[name])
+        score = np.maximum(score, ev.std[:, cols[name]].max(axis=1) / _SIGMA_SCALES[name])
     # points whose M_max is far below the floor matter less to users
-    mm = rt.outputs(np, m, theta)[0][:, idx["mass_max_msun"]]
-    floor = model.meta["outputs"]["mass_floor_msun"]
+    mm = ev.values[:, cols["mass_max_msun"]][:, 0]
+    floor = model.meta.outputs.mass_floor_msun
     return np.where(mm >= floor - 0.1, score, 0.1 * score)
 
 
@@ -74,17 +75,18 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
 
     from .. import eos
 
-    if model.kind != "gp":
-        raise InputError(f"grid refine needs a Gaussian-process model (its sigma); this model is {model.kind}.")
+    if not model.has_std:
+        raise InputError(f"grid refine needs a model with a predictive sigma (a Gaussian process); this model is "
+                         f"{model.kind} ({model.method}).")
     if budget < 1:
-        raise InputError(f"--budget must be at least 1. Got {budget}.")
+        raise InputError(f"budget must be at least 1 exact solve. Got {budget}.")
     fam = eos.get_family(model.family)
-    lo, hi = model.arrays["lo"], model.arrays["hi"]
+    lo, hi = model.bounds[:, 0], model.bounds[:, 1]
     cand = qmc.scale(qmc.Sobol(len(lo), seed=seed).random(n_candidates), lo, hi)
     cand = cand[[not msg for msg in fam.validate_rows(cand)]]
     scores = np.concatenate([_score(model, c) for c in np.array_split(cand, max(1, len(cand) // 512))])
     x = (cand - lo) / (hi - lo)
-    spacing = (1.0 / max(model.meta["training"]["n_train"], 1)) ** (1.0 / len(lo))
+    spacing = (1.0 / max(model.n_train, 1)) ** (1.0 / len(lo))
     chosen = []
     for _ in range(min(budget, len(cand))):
         i = int(np.argmax(scores))
@@ -124,16 +126,15 @@ def _merge(a: TrainingData, b: TrainingData) -> TrainingData:
     )
 
 
-def _p95_row(model, holdout):
-    rep = check(model, holdout).report
-    return {"n_train": model.meta["training"]["n_train"],
-            "mass_max_p95": rep["errors"]["mass_max_msun"]["abs_p95"],
-            "radius_p95_km": rep["errors"]["radius_km_at_mass"]["abs_p95"],
-            "lambda_rel_p95": rep["errors"]["tidal_deformability_at_mass"]["rel_p95"]}
+def _p95_row(model, holdout) -> LearningPoint:
+    rep = check(model, holdout)
+    return LearningPoint(n_train=model.n_train, mass_max_p95=rep.errors["mass_max_msun"].abs_p95,
+                         radius_p95_km=rep.errors["radius_km_at_mass"].abs_p95,
+                         lambda_rel_p95=rep.errors["tidal_deformability_at_mass"].rel_p95)
 
 
 def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None, log=None) -> RefineResult:
+           workers=None) -> RefineResult:
     """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
 
     Parameters
@@ -152,28 +153,27 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     from ..grid import DesignSpec, parse_spec, read_grid
     from ..grid._store import write_grid
 
-    tr = model.meta["training"]
-    grid_path = tr.get("grid_path")
+    tr = model.meta.training
+    grid_path = tr.grid_path
     if not grid_path or not Path(grid_path).is_file():
         raise InputError(f"the model's training grid {grid_path!r} is not available; refine needs it.")
     base = read_training_data(grid_path, family=model.family)
-    want = tr.get("grid_content_sha256", "")
+    want = tr.grid_content_sha256
     if want and base.provenance["grid_content_sha256"] != want:
         raise InputError(f"{grid_path}: the training grid changed since the model was trained "
                          "(content hash differs); retrain first.")
-    for extra in tr.get("refinement_grids", []):
+    for extra in tr.refinement_grids:
         base = _merge(base, read_training_data(extra, family=model.family, min_points=0))
-    if len(base.theta) != int(tr.get("n_train", len(base.theta))):
+    if len(base.theta) != tr.n_train:
         # e.g. a model trained in memory on part of the grid: retraining on the whole file would
         # silently change what the learning curve compares
-        raise InputError(f"the model was trained on {tr['n_train']} points, but {grid_path} and its refinements "
+        raise InputError(f"the model was trained on {tr.n_train} points, but {grid_path} and its refinements "
                          f"hold {len(base.theta)} usable points; refine needs a model trained on the whole "
                          "grid file (tovforge train GRID).")
     g = read_grid(grid_path)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
-    if log:
-        log(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
+    logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
     result = _solve_points(spec, added, workers)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -182,28 +182,23 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
         description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
                     f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
-    write_grid(points_path, rspec, added, result, {"refinement_of": str(grid_path),
-                                                   "refinement_of_sha256": tr.get("grid_content_sha256", "")})
+    write_grid(points_path, rspec, added, result,
+               provenance("scipy", "h5py", refinement_of=str(grid_path), refinement_of_sha256=tr.grid_content_sha256))
     new = training_data_from_arrays(
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
-        parameter_units=tuple(model.meta["parameter_units"]), box=model.bounds, theta=added,
+        parameter_units=model.parameter_units, box=model.bounds, theta=added,
         status=result.status, scalars=result.scalars, curves=result.curves, u_nodes=spec.outputs.u_nodes,
         attrs={"mass_max_floor_msun": spec.mass_max_floor_msun}, min_points=0)
     data = _merge(base, new)
-    # retrain with the settings the model was trained with (those it recorded; defaults otherwise)
-    stored = tr.get("gp", {})
-    names = {f.name for f in dataclasses.fields(GPSettings)} - {"n_jobs"}
-    settings = GPSettings(**{k: stored[k] for k in names if k in stored})
-    if log:
-        log(f"retraining on {len(data.theta)} points")
-    new_model = train_on(data, "gp", settings, log=log)
-    new_model.meta["training"]["refinement_grids"] = list(tr.get("refinement_grids", [])) + [str(points_path)]
-    curve = list(model.meta.get("learning_curve", []))
+    # retrain with the settings the model was trained with
+    logger.info(f"retraining on {len(data.theta)} points")
+    new_model = train_on(data, model.kind, model.meta.settings)
+    new_model = new_model.with_meta(training={"refinement_grids": tr.refinement_grids + (str(points_path),)})
+    curve = list(model.meta.learning_curve)
     if holdout is not None:
         if not curve:
             curve.append(_p95_row(model, holdout))
         curve.append(_p95_row(new_model, holdout))
-        new_model.meta["learning_curve"] = curve
-        new_model.meta["learning_curve_holdout"] = str(holdout)
+        new_model = new_model.with_meta(learning_curve=tuple(curve), learning_curve_holdout=str(holdout))
     new_model.save(out)
-    return RefineResult(new_model, added, points_path, curve)
+    return RefineResult(new_model, added, points_path, tuple(curve))

@@ -6,7 +6,10 @@ copies its source verbatim into each standalone evaluator, so the two cannot
 drift apart.  It must therefore import nothing but ``math``; the array
 namespace ``xp`` is passed in (NumPy, or the namespace of the caller's arrays).
 
-A model is a dict ``m`` of arrays and a few numbers:
+A model is a :class:`Model`: its arrays (plain data, never written to), the
+name of its method (the runtime part that evaluates it, :data:`PARTS`), its
+outputs, and a :class:`Cache` of what the runtime derives from the arrays.
+The arrays:
 
 ``lo, hi`` (d,)
     Parameter box; inputs are mapped to ``x = (theta - lo) / (hi - lo)``.
@@ -19,33 +22,126 @@ A model is a dict ``m`` of arrays and a few numbers:
     Outputs are standardised: ``y = out_mean + out_scale * z``.
 ``trend_powers`` (n_terms, d), ``trend_coef`` (n_terms, n_out)
     Polynomial trend in ``x``, fitted by least squares.
-``kind``
-    ``"gp"``: ``X`` (n, d), ``alpha`` (n, n_out), ``group_bounds`` (n_groups + 1,):
+``curve_slices`` (n_curves, 2)
+    The output columns of each curve.
+``u_nodes`` (n_u,), ``spline_c`` (4, n_u - 1, n_u)
+    Nodes of the sequence coordinate ``u = sqrt(1 - M/M_max)`` and the
+    cubic-spline cardinal coefficients: the not-a-knot cubic spline through
+    node values ``v`` is ``sum_p spline_c[p, j] . v (u - u_j)^(3 - p)`` on
+    interval ``j``.
+and those of the method:
+
+``"gp"``
+    ``X`` (n, d), ``alpha`` (n, n_out), ``group_bounds`` (n_groups + 1,):
     outputs ``group_bounds[g]:group_bounds[g+1]`` share kernel ``g`` with
     ``length`` (n_groups, d), ``amp2``, ``noise`` (n_groups,), optionally
     ``group_kernel`` (n_groups,: the first group with the same kernel; groups
     that share hyperparameters share one kernel evaluation) and
     ``resid_scale`` (n_out,: turns the kernel's sigma into standardised output
     units; the residual's scale times a leave-one-out calibration factor);
-    Matern-5/2 kernels with one length scale per
-    parameter, on the residual of the trend.
-    ``"rbf"``: ``X`` (n, d), ``alpha`` (n, n_out); the polyharmonic kernel r^5.
-    ``"tensor"``: ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened, n_out),
-    ``coef_shape`` (d,); tensor-product cubic B-splines.
-``u_nodes`` (n_u,), ``spline_c`` (4, n_u - 1, n_u)
-    Nodes of the sequence coordinate ``u = sqrt(1 - M/M_max)`` and the
-    cubic-spline cardinal coefficients: the not-a-knot cubic spline through
-    node values ``v`` is ``sum_p spline_c[p, j] . v (u - u_j)^(3 - p)`` on
-    interval ``j``.
+    Matern-5/2 kernels with one length scale per parameter, on the residual
+    of the trend.
+``"rbf"``
+    ``X`` (n, d), ``alpha`` (n, n_out); the polyharmonic kernel r^5.
+``"tensor"``
+    ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened,
+    n_out), ``coef_shape`` (d,); tensor-product cubic B-splines.
+
+A new method is a function ``part(xp, m, x, grad, columns) -> (z, dz)`` here,
+an entry in :data:`PARTS` (and in :data:`STD` if it has a predictive sigma),
+and an entry in the library's table of kinds (``surrogate/_kinds.py``).
 """
 
 import math
 
 SQRT5 = math.sqrt(5.0)
+LN10 = math.log(10.0)
 MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 nominal)
 #: Kernel models evaluate at most this many (query, training point) pairs at a
 #: time: the temporaries then stay in cache and memory stays bounded for any batch.
 PAIRS_PER_CHUNK = 1 << 15
+#: The output every model has: the maximum mass (queries at a mass go through it).
+MASS_MAX = "mass_max_msun"
+
+
+def _is_numpy(xp) -> bool:
+    return getattr(xp, "__name__", "") == "numpy"
+
+
+class Cache:
+    """What the runtime derives from a model's arrays, made on first use and kept per model.
+
+    Arrays are kept only under NumPy: under another namespace (e.g. inside
+    jax.jit) a cached array could be a tracer of an earlier call, so
+    :meth:`array` makes it anew every time.  Plain Python values (index plans)
+    are kept under every namespace.
+    """
+
+    def __init__(self):
+        self._store = {}
+
+    def array(self, xp, name, key, make):
+        """``make()``, kept under ``(name, key)`` (NumPy only)."""
+        if not _is_numpy(xp):
+            return make()
+        return self.plain(name, key, make)
+
+    def plain(self, name, key, make):
+        """``make()``, kept under ``(name, key)`` whatever the namespace (plain Python values only)."""
+        store = self._store.setdefault(name, {})
+        if key not in store:
+            store[key] = make()
+        return store[key]
+
+
+class Model:
+    """A trained surrogate as the runtime sees it.
+
+    Parameters
+    ----------
+    arrays : dict of arrays
+        The model's numbers (see the module docstring); read, never written.
+    method : str
+        The runtime part that evaluates it (a key of :data:`PARTS`).
+    outputs : sequence of tuple
+        One ``(name, quantity, level, transform, query, start, stop)`` per
+        emulated output, in column order: the output's name in the model, the
+        quantity it is (its unit is the quantity's), ``"sequence"`` (one value
+        per EOS) or ``"star"`` (a curve at the nodes of u), how the model
+        transformed it (``"identity"``, ``"ln"``, ``"log10"``; M_max must be
+        ``"identity"``), the query that answers it (at a mass, for curves) and
+        its columns ``start:stop``.
+    parameters : sequence of str
+        Parameter names, in the order of the columns of theta.
+    bounds : sequence of (float, float)
+        The trained box (plain floats, for messages).
+    mass_floor_msun : float
+        The floor of M_max of the training grid.
+
+    Indexing (``m["X"]``, ``m.get("warp_log")``) reads the arrays; the
+    :class:`Cache` in ``m.cache`` holds what the runtime derives from them.
+    """
+
+    def __init__(self, arrays, method=None, outputs=(), parameters=(), bounds=(), mass_floor_msun=0.0):
+        self.arrays = arrays
+        self.method = method
+        self.outputs = tuple(tuple(o) for o in outputs)
+        self.parameters = tuple(parameters)
+        self.bounds = tuple((float(a), float(b)) for a, b in bounds)
+        self.mass_floor_msun = float(mass_floor_msun)
+        self.cache = Cache()
+        self.i_mass_max = next((int(o[5]) for o in self.outputs if o[1] == MASS_MAX), None)
+
+    def __getitem__(self, name):
+        return self.arrays[name]
+
+    def get(self, name, default=None):
+        return self.arrays.get(name, default)
+
+    def replace(self, **arrays):
+        """The same model with some arrays replaced (and a cache of its own)."""
+        return Model({**self.arrays, **arrays}, self.method, self.outputs, self.parameters, self.bounds,
+                     self.mass_floor_msun)
 
 
 def _column_differences(xp, x, X):
@@ -116,64 +212,51 @@ def input_span(xp, m, theta):
     return span if scale is None else span / scale
 
 
+def trend_plan(powers):
+    """How :func:`trend_terms` gathers the factors of each term: ``(top power, flat indices)`` (plain Python)."""
+    n_terms, d = powers.shape
+    top = max([int(powers[t, i]) for t in range(n_terms) for i in range(d)] + [0])
+    return top, [i * (top + 1) + int(powers[t, i]) for t in range(n_terms) for i in range(d)]
+
+
 def _trend(xp, m, x, grad):
-    """Polynomial trend terms (n, n_terms) and, if asked, their x-derivatives (n, n_terms, d)."""
+    """Polynomial trend terms of model ``m`` (n, n_terms) and, if asked, their x-derivatives (n, n_terms, d)."""
     powers = m["trend_powers"]
+    # the gather plan is plain Python, made once per model (it costs more than the arithmetic)
+    plan = m.cache.plain("trend_plan", None, lambda: trend_plan(powers))
+    return trend_terms(xp, powers, plan, x, grad)
+
+
+def trend_terms(xp, powers, plan, x, grad):
+    """Monomials ``powers`` (n_terms, d) at x (n, d): (n, n_terms) and, with ``grad``, (n, n_terms, d).
+
+    ``plan`` is :func:`trend_plan` of ``powers``.
+    """
     n_terms, d = powers.shape
     # every term at once: the powers x_i^p (p = 0..top, by the same integer powers as a
-    # term-by-term loop), the factors of each term gathered, multiplied in parameter order;
-    # the gather plan is plain Python, made once per model (it costs more than the arithmetic)
-    plan = m.get("_trend_plan")
-    if plan is None or plan[0] is not powers:
-        top = max([int(powers[t, i]) for t in range(n_terms) for i in range(d)] + [0])
-        plan = (powers, top, [i * (top + 1) + int(powers[t, i]) for t in range(n_terms) for i in range(d)])
-        m["_trend_plan"] = plan
-    top = plan[1]
+    # term-by-term loop), the factors of each term gathered, multiplied in parameter order
+    top = plan[0]
     n = x.shape[0]
     XP = xp.stack([xp.ones(x.shape, dtype=x.dtype)] + [x**p for p in range(1, top + 1)], axis=-1)  # (n, d, top+1)
-    pick = xp.asarray(plan[2], dtype=xp.int64)
+    pick = xp.asarray(plan[1], dtype=xp.int64)
     F = xp.prod(xp.reshape(xp.take(xp.reshape(XP, (n, d * (top + 1))), pick, axis=1), (n, n_terms, d)), axis=-1)
     dcols = []
     for t in range(n_terms if grad else 0):
-        if grad:
-            dd = []
-            for i in range(d):
-                p = int(powers[t, i])
-                if p == 0:
-                    dd.append(xp.zeros(x.shape[0], dtype=x.dtype))
-                    continue
-                g = p * x[:, i] ** (p - 1)
-                for j in range(d):
-                    q = int(powers[t, j])
-                    if j != i and q:
-                        g = g * x[:, j] ** q
-                dd.append(g)
-            dcols.append(xp.stack(dd, axis=-1))
+        dd = []
+        for i in range(d):
+            p = int(powers[t, i])
+            if p == 0:
+                dd.append(xp.zeros(x.shape[0], dtype=x.dtype))
+                continue
+            g = p * x[:, i] ** (p - 1)
+            for j in range(d):
+                q = int(powers[t, j])
+                if j != i and q:
+                    g = g * x[:, j] ** q
+            dd.append(g)
+        dcols.append(xp.stack(dd, axis=-1))
     dF = xp.stack(dcols, axis=1) if grad else None
     return F, dF
-
-
-def _is_numpy(xp) -> bool:
-    return getattr(xp, "__name__", "") == "numpy"
-
-
-def _cached(xp, m, name, source, key, make):
-    """``make()``, kept in ``m[name]`` under ``key`` while ``source`` (one of m's arrays) stays the same object.
-
-    Only under NumPy: under another namespace (e.g. inside jax.jit) a cached
-    array could be a tracer of an earlier call, so ``make()`` runs every time.
-    The identity test on ``source`` guards against a copied dict holding other
-    arrays.
-    """
-    if not _is_numpy(xp):
-        return make()
-    cache = m.get(name)
-    if cache is None or cache[0] is not source:
-        cache = (source, {})
-        m[name] = cache
-    if key not in cache[1]:
-        cache[1][key] = make()
-    return cache[1][key]
 
 
 def _folded_weights(xp, m):
@@ -184,20 +267,19 @@ def _folded_weights(xp, m):
                          for g in range(len(gb) - 1)])
         return m["alpha"] * amp
 
-    return _cached(xp, m, "_folded_alpha", m["alpha"], None, make)
+    return m.cache.array(xp, "folded_alpha", None, make)
 
 
-def _weight_block(xp, m, a, b):
-    """Columns ``a:b`` of the kernel weights (folded with the amplitude for GPs), contiguous.
+def _weight_block(xp, m, weights, name, a, b):
+    """Columns ``a:b`` of kernel weights (``weights``, cached under ``name``), contiguous.
 
     A query multiplies kernel rows by a block of output columns; a contiguous
     copy reads a third of the memory a strided slice does.  Cached for NumPy.
     """
-    alpha = _folded_weights(xp, m) if m["kind"] == "gp" else m["alpha"]
     if not _is_numpy(xp):
-        return alpha[:, a:b]
+        return weights[:, a:b]
     # * 1.0: a C-ordered copy, the same numbers (NumPy 1 lacks asarray(copy=))
-    return _cached(xp, m, "_weight_blocks", alpha, (a, b), lambda: alpha[:, a:b] * 1.0)
+    return m.cache.array(xp, name, (a, b), lambda: weights[:, a:b] * 1.0)
 
 
 def _scaled_points(xp, m, groups, inv):
@@ -207,7 +289,7 @@ def _scaled_points(xp, m, groups, inv):
         b = m["X"][None, :, :] * (SQRT5 * inv)[:, None, :]  # (G, N, d)
         return xp.permute_dims(b, (0, 2, 1)) * 1.0, xp.sum(b * b, axis=-1)[:, None, :]  # * 1.0: C-ordered
 
-    return _cached(xp, m, "_scaled_points", m["X"], tuple(groups), make)
+    return m.cache.array(xp, "scaled_points", tuple(groups), make)
 
 
 def _matern(xp, x, m, groups, grad, diffs=None):
@@ -324,7 +406,7 @@ def _bspline_local(xp, knots, n_knots, n_coef, x, deg=3):
     return first, N, dN
 
 
-def _tensor_part(xp, x, m, grad):
+def _tensor_rows(xp, x, m, grad):
     """Tensor-product spline sum at rows x (n, d): (n, n_out) and (n, n_out, d).
 
     Only the (deg + 1)^d coefficients whose B-splines cover a point are
@@ -362,49 +444,74 @@ def _tensor_part(xp, x, m, grad):
     return out[:, 0, :], (xp.permute_dims(out[:, 1:, :], (0, 2, 1)) if grad else None)
 
 
-def _bmm(xp, a, b):
-    """(n, p, q) batched times (q, r) -> (n, p, r) without einsum (array-API friendly)."""
-    return xp.matmul(a, b)
-
-
 def _touches(a, b, columns):
     """True if the output range ``a:b`` overlaps any of the ranges ``columns``."""
     return any(c0 < b and a < c1 for c0, c1 in columns)
 
 
-def standardised_outputs(xp, m, x, grad=False, columns=None):
-    """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d).
+def _nan_block(xp, n, width, like, d=None):
+    shape = (n, width) if d is None else (n, width, d)
+    return xp.full(shape, float("nan"), dtype=like.dtype)
 
-    ``columns``: optional list of output ranges ``(a, b)`` that are needed; GP
-    kernel groups that serve none of them, and RBF outputs outside them, are
-    skipped and their outputs are NaN.
+
+# ---------------------------------------------------------------------------
+# The runtime part of each method: standardised outputs z (n, n_out) at unit-cube
+# inputs x (n, d), and dz/dx (n, n_out, d) with ``grad``.  ``columns``: None (every
+# output) or the output ranges ``(a, b)`` a query needs; a part may skip the others
+# (their outputs are NaN, never stale numbers), but the outputs it returns have the
+# bits of a full evaluation.
+# ---------------------------------------------------------------------------
+
+
+def _gp_part(xp, m, x, grad, columns):
+    """Gaussian processes: Matern-5/2 kernel sums, one kernel per group of outputs."""
+    groups = None
+    if columns is not None:
+        gb = [int(v) for v in m["group_bounds"]]
+        groups = [g for g in range(len(gb) - 1) if _touches(gb[g], gb[g + 1], columns)]
+    # rows per chunk from the training points alone, not from how many kernel groups a
+    # query reads: every group then sees the same rows, so a query that skips groups gives
+    # the same bits as a full evaluation
+    return _chunked(xp, _gp_rows, x, m["X"].shape[0], m, grad, groups)
+
+
+def _gp_rows(xp, x, m, grad, groups=None):
+    """Kernel sums of a GP model at rows x (n, d): (n, n_out) and (n, n_out, d).
+
+    ``groups``: the kernel groups to evaluate (default all); the outputs of the
+    others are NaN.  The column differences to the training points (needed for
+    gradients) are formed once and shared by every kernel group.
     """
-    F, dF = _trend(xp, m, x, grad)
-    z = F @ m["trend_coef"]
-    # dF (n, t, d) -> (n, d, t) @ (t, o) -> (n, d, o) -> (n, o, d)
-    dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
-    kind = m["kind"]
-    if kind in ("gp", "rbf"):
-        groups = None
-        if kind == "gp" and columns is not None:
-            gb = [int(v) for v in m["group_bounds"]]
-            groups = [g for g in range(len(gb) - 1) if _touches(gb[g], gb[g + 1], columns)]
-        # rows per chunk from the training points alone, not from how many kernel groups a
-        # query reads: every group then sees the same rows, so a query that skips groups gives
-        # the same bits as a full evaluation
-        per_row = m["X"].shape[0]
-        spans = _rbf_blocks(m, columns) if kind == "rbf" else None
-        kz, kdz = _chunked(xp, _kernel_part, x, per_row, m, grad, groups, spans)
-        z = z + kz
-        if grad:
-            dz = dz + kdz
-    elif kind == "tensor":
-        per_row = int(m["coef"].shape[1]) * 4 ** x.shape[1] // 8  # gathered coefficients per row, scaled
-        tz, tdz = _chunked(xp, _tensor_part, x, per_row, m, grad)
-        z = z + tz
-        if grad:
-            dz = dz + tdz
-    return z, dz
+    diffs = _column_differences(xp, x, m["X"]) if grad else None
+    parts, dparts = [], []
+    n_groups = m["length"].shape[0]
+    if groups is None:
+        groups = list(range(n_groups))
+    # groups that share a kernel (same hyperparameters) name the same first group in
+    # ``group_kernel``: each kernel is evaluated once
+    share = m.get("group_kernel")
+    kernel_of = [int(share[g]) if share is not None else g for g in range(n_groups)]
+    kernels = sorted({kernel_of[g] for g in groups})
+    k, dk = _matern(xp, x, m, kernels, grad, diffs)
+    folded = _folded_weights(xp, m)
+    for g in range(n_groups):
+        a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
+        if g not in groups:
+            parts.append(_nan_block(xp, x.shape[0], b - a, x))
+            if grad:
+                dparts.append(_nan_block(xp, x.shape[0], b - a, x, x.shape[1]))
+            continue
+        j = kernels.index(kernel_of[g])
+        alpha = _weight_block(xp, m, folded, "gp_weight_blocks", a, b)
+        parts.append(k[j] @ alpha)
+        if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
+            dparts.append(xp.stack([c[j] @ alpha for c in dk], axis=-1))
+    return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
+
+
+def _rbf_part(xp, m, x, grad, columns):
+    """Polyharmonic splines: r^5 kernel sums, by fixed output blocks (:func:`_rbf_blocks`)."""
+    return _chunked(xp, _rbf_rows, x, m["X"].shape[0], m, grad, _rbf_blocks(m, columns))
 
 
 def _rbf_blocks(m, columns):
@@ -420,19 +527,21 @@ def _rbf_blocks(m, columns):
     return [(a, b) for a, b in blocks if _touches(a, b, columns)]
 
 
-def _rbf_part(xp, m, phi, dphi, spans):
-    """RBF kernel sums phi @ alpha (and their x-derivatives) for the output ranges ``spans`` only."""
+def _rbf_rows(xp, x, m, grad, spans):
+    """RBF kernel sums phi @ alpha at rows x (and their x-derivatives), for the output ranges ``spans`` only."""
+    diffs = _column_differences(xp, x, m["X"])
+    phi, dphi = _polyharmonic_columns(xp, diffs, grad)
     alpha = m["alpha"]
     n_out = alpha.shape[1]
     n, d = phi.shape[0], len(dphi) if dphi is not None else 0
     parts, dparts, at = [], [], 0
     for a, b in spans + [(n_out, n_out)]:
         if a > at:  # not needed: NaN, never a stale number
-            parts.append(xp.full((n, a - at), float("nan"), dtype=phi.dtype))
+            parts.append(_nan_block(xp, n, a - at, phi))
             if dphi is not None:
-                dparts.append(xp.full((n, a - at, d), float("nan"), dtype=phi.dtype))
+                dparts.append(_nan_block(xp, n, a - at, phi, d))
         if b > a:
-            w = _weight_block(xp, m, a, b)
+            w = _weight_block(xp, m, alpha, "rbf_weight_blocks", a, b)
             parts.append(phi @ w)
             if dphi is not None:
                 dparts.append(xp.stack([c @ w for c in dphi], axis=-1))
@@ -440,43 +549,37 @@ def _rbf_part(xp, m, phi, dphi, spans):
     return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if dphi is not None else None)
 
 
-def _kernel_part(xp, x, m, grad, groups=None, spans=None):
-    """Kernel sum of a GP or RBF model at rows x (n, d): (n, n_out) and (n, n_out, d).
+def _tensor_part(xp, m, x, grad, columns):
+    """Tensor-product cubic B-splines (every output: the gathered coefficients serve them all)."""
+    per_row = int(m["coef"].shape[1]) * 4 ** x.shape[1] // 8  # gathered coefficients per row, scaled
+    return _chunked(xp, _tensor_rows, x, per_row, m, grad)
 
-    The column differences to the training points are formed once and shared
-    by every kernel group (the groups share the points, not the length scales).
-    ``groups``: the GP kernel groups to evaluate (default all); the outputs of
-    the others are NaN.  ``spans``: for RBF models, the output blocks to
-    evaluate (:func:`_rbf_blocks`; the others are NaN).
+
+#: The runtime part of each method (``Model.method``).
+PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part}
+
+
+def _bmm(xp, a, b):
+    """(n, p, q) batched times (q, r) -> (n, p, r) without einsum (array-API friendly)."""
+    return xp.matmul(a, b)
+
+
+def standardised_outputs(xp, m, x, grad=False, columns=None):
+    """Standardised outputs z (n, n_out) at unit-cube inputs x (n, d); and dz/dx (n, n_out, d).
+
+    The polynomial trend plus the method's part (:data:`PARTS`).  ``columns``:
+    optional list of output ranges ``(a, b)`` that are needed; outputs outside
+    them may be skipped (NaN).
     """
-    if m["kind"] == "rbf":
-        diffs = _column_differences(xp, x, m["X"])
-        phi, dphi = _polyharmonic_columns(xp, diffs, grad)
-        return _rbf_part(xp, m, phi, dphi, spans)
-    diffs = _column_differences(xp, x, m["X"]) if grad else None
-    parts, dparts = [], []
-    n_groups = m["length"].shape[0]
-    if groups is None:
-        groups = list(range(n_groups))
-    # groups that share a kernel (same hyperparameters) name the same first group in
-    # ``group_kernel``: each kernel is evaluated once
-    share = m.get("group_kernel")
-    kernel_of = [int(share[g]) if share is not None else g for g in range(n_groups)]
-    kernels = sorted({kernel_of[g] for g in groups})
-    k, dk = _matern(xp, x, m, kernels, grad, diffs)
-    for g in range(n_groups):
-        a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
-        if g not in groups:
-            parts.append(xp.full((x.shape[0], b - a), float("nan"), dtype=x.dtype))
-            if grad:
-                dparts.append(xp.full((x.shape[0], b - a, x.shape[1]), float("nan"), dtype=x.dtype))
-            continue
-        j = kernels.index(kernel_of[g])
-        alpha = _weight_block(xp, m, a, b)
-        parts.append(k[j] @ alpha)
-        if grad:  # d arrays (n, N) @ (N, o) -> (n, o, d)
-            dparts.append(xp.stack([c[j] @ alpha for c in dk], axis=-1))
-    return xp.concat(parts, axis=-1), (xp.concat(dparts, axis=1) if grad else None)
+    F, dF = _trend(xp, m, x, grad)
+    z = F @ m["trend_coef"]
+    # dF (n, t, d) -> (n, d, t) @ (t, o) -> (n, d, o) -> (n, o, d)
+    dz = xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), m["trend_coef"]), (0, 2, 1)) if grad else None
+    pz, pdz = PARTS[m.method](xp, m, x, grad, columns)
+    z = z + pz
+    if grad:
+        dz = dz + pdz
+    return z, dz
 
 
 def gp_local_std(xp, m, x, n_neighbours=48, columns=None, skip_nearest=0):
@@ -514,7 +617,7 @@ def _gp_local_std_rows(xp, x, m, n_neighbours, columns=None, skip_nearest=0):
     for g in range(m["length"].shape[0]):
         a, b = int(m["group_bounds"][g]), int(m["group_bounds"][g + 1])
         if columns is not None and not _touches(a, b, columns):
-            parts.append(xp.full((x.shape[0], b - a), float("nan"), dtype=x.dtype))
+            parts.append(_nan_block(xp, x.shape[0], b - a, x))
             continue
         kg = int(share[g]) if share is not None else g
         if kg in sd_of_kernel:  # a kernel shared with an earlier group: the same sigma
@@ -581,7 +684,13 @@ def spline_in_u(xp, m, values, u, weights=True):
 # Predictions in physical units, and queries at given masses
 # ---------------------------------------------------------------------------
 
-CURVES = ("radius_km", "log_tidal_deformability", "log_moment_of_inertia")
+
+def _gp_std(xp, m, x, columns):
+    return gp_local_std(xp, m, x, columns=columns)
+
+
+#: Methods with a predictive standard deviation; the others have none (NaN, see :func:`output_std`).
+STD = {"gp": _gp_std}
 
 
 def outputs(xp, m, theta, grad=False, columns=None):
@@ -606,76 +715,120 @@ def outputs(xp, m, theta, grad=False, columns=None):
 
 
 def output_std(xp, m, theta, columns=None):
-    """Predictive standard deviation of every output (GP models; zeros otherwise).
+    """Predictive standard deviation of every output (n, n_out), in the model's output units.
 
-    ``columns``: optional output ranges a query needs (as in :func:`outputs`);
-    GP outputs outside them may be NaN.
+    NaN for methods without one (not in :data:`STD`): they carry no error
+    estimate, and zeros would claim they are exact.  ``columns``: optional
+    output ranges a query needs (as in :func:`outputs`); outputs outside them
+    may be NaN.
     """
     x, inside = unit_inputs(xp, m, theta)
-    if m["kind"] != "gp":
-        return xp.zeros((x.shape[0], m["out_mean"].shape[0]), dtype=x.dtype)
-    s = gp_local_std(xp, m, x, columns=columns)
-    return xp.where(inside[:, None], s, float("nan"))
+    nan = float("nan")
+    part = STD.get(m.method)
+    if part is None:
+        return xp.full((x.shape[0], m["out_mean"].shape[0]), nan, dtype=x.dtype)
+    s = part(xp, m, x, columns)
+    return xp.where(inside[:, None], s, nan)
 
 
-def named_outputs(xp, m, y, scalar_index, transform=True):
-    """Split outputs (n, n_out) into named scalars and node curves.
+def inverse(xp, transform, v):
+    """A quantity from its modelled value: undoes the model transform (``identity``, ``ln``, ``log10``)."""
+    if transform == "ln":
+        return xp.exp(v)
+    if transform == "log10":
+        return 10.0 ** v
+    return v
 
-    ``scalar_index``: pairs (name, column) of the scalar outputs.  The log-
-    modelled curves become Lambda and I (in 1e45 g cm^2) when ``transform``;
-    ``mass_msun`` (n, n_u) is M_max (1 - u^2) at the nodes.
+
+def _inverse_with(xp, transform, val, g, s):
+    """:func:`inverse` of a value (n, q) with its gradient (n, q, d) and sigma (n, q) (each may be None)."""
+    if transform == "identity":
+        return val, g, s
+    val = inverse(xp, transform, val)
+    f = val if transform == "ln" else val * LN10  # d quantity / d modelled value
+    if g is not None:
+        g = f[:, :, None] * g
+    if s is not None:
+        s = f * s
+    return val, g, s
+
+
+def _column(o, y):
+    """The columns of output ``o`` in y (n, n_out): (n,) for a sequence quantity, (n, n_u) for a curve."""
+    return y[:, o[5]] if o[2] == "sequence" else y[:, o[5] : o[6]]
+
+
+def named_outputs(xp, m, y):
+    """Every emulated quantity, by its name, from outputs y (n, n_out).
+
+    Sequence quantities (n,) and curves at the nodes (n, n_u), in their own
+    units (the model transform undone); also ``u_nodes`` (n_u,) and
+    ``mass_msun`` (n, n_u), M_max (1 - u^2) at the nodes.
     """
-    f = {name: y[:, int(i)] for name, i in scalar_index}
+    f = {o[1]: inverse(xp, o[3], _column(o, y)) for o in m.outputs}
     f["u_nodes"] = m["u_nodes"]
-    f["mass_msun"] = f["mass_max_msun"][:, None] * (1.0 - m["u_nodes"] ** 2)
-    for name, key in (("radius_km", "radius_km"), ("log_tidal_deformability", "tidal_deformability"),
-                      ("log_moment_of_inertia", "moment_of_inertia_1e45_g_cm2")):
-        a, b = _curve_slice(m, name)
-        v = y[:, a:b]
-        f[key] = xp.exp(v) if (transform and name.startswith("log_")) else v
+    f["mass_msun"] = f[MASS_MAX][:, None] * (1.0 - m["u_nodes"] ** 2)
     return f
 
 
-def named_std(xp, m, sd, fields, scalar_index):
-    """Standard deviations (from :func:`output_std`) of the fields of :func:`named_outputs`.
+def named_std(xp, m, sd, fields):
+    """Standard deviations (from :func:`output_std`) of the quantities of :func:`named_outputs` (``fields``).
 
-    ln Lambda and ln I are modelled, so their sigma is relative: it is
-    multiplied by the predicted value.  ``fields``: the predicted fields.
+    For a modelled ln q (log10 q) the sigma of q is q (q ln 10) times that of the modelled value.
     """
-    std = named_outputs(xp, m, sd, scalar_index, transform=False)
-    std["tidal_deformability"] = fields["tidal_deformability"] * std["tidal_deformability"]
-    std["moment_of_inertia_1e45_g_cm2"] = fields["moment_of_inertia_1e45_g_cm2"] * std["moment_of_inertia_1e45_g_cm2"]
-    return {k: v for k, v in std.items() if k not in ("u_nodes", "mass_msun")}
+    std = {}
+    for o in m.outputs:
+        s = _column(o, sd)
+        if o[3] == "ln":
+            s = fields[o[1]] * s
+        elif o[3] == "log10":
+            s = fields[o[1]] * LN10 * s
+        std[o[1]] = s
+    return std
 
 
-def needed_columns(m, quantities):
-    """Output ranges ``(a, b)`` that M_max and the given queries (names of :func:`at_mass`) read."""
-    im = int(m["i_mass_max"])
+def _k2(xp, mass, parts, grad, std):
+    """k2 = (3/2) Lambda C^5 at masses (n, q), from the radius and Lambda there (each (value, grad, std))."""
+    (R, dR, sR), (L, dL, sL) = parts
+    c5 = (mass * MSUN_KM / R) ** 5
+    val = 1.5 * L * c5
+    g = None
+    if grad:
+        # d ln k2 = d ln Lambda - 5 d ln R
+        g = val[:, :, None] * (dL / L[:, :, None] - 5.0 * dR / R[:, :, None])
+    s = None
+    if std:
+        s = val * xp.sqrt((sL / L) ** 2 + (5.0 * sR / R) ** 2)
+    return val, g, s
+
+
+#: Queries at a mass computed from others: name -> (the queries it reads, the rule).
+DERIVED = {"k2": (("radius", "tidal_deformability"), _k2)}
+
+
+def _star_output(m, query):
+    """The curve output a query at a mass reads."""
+    for o in m.outputs:
+        if o[2] == "star" and o[4] == query:
+            return o
+    raise KeyError(query)
+
+
+def star_queries(m):
+    """The queries at a mass the model answers: its emulated curves, then those derived from them."""
+    own = [o[4] for o in m.outputs if o[2] == "star" and o[4]]
+    return tuple(own + [q for q, (needs, _) in DERIVED.items() if all(n in own for n in needs)])
+
+
+def needed_columns(m, queries):
+    """Output ranges ``(a, b)`` that M_max and the given queries at a mass read."""
+    im = m.i_mass_max
     cols = [(im, im + 1)]
-    names = {"radius_km": ("radius_km",), "tidal_deformability": ("log_tidal_deformability",),
-             "moment_of_inertia": ("log_moment_of_inertia",), "k2": ("radius_km", "log_tidal_deformability")}
-    for q in quantities:
-        cols += [_curve_slice(m, name) for name in names[q]]
+    for q in queries:
+        for base in (DERIVED[q][0] if q in DERIVED else (q,)):
+            o = _star_output(m, base)
+            cols.append((o[5], o[6]))
     return cols
-
-
-def _curve_slice(m, name):
-    k = CURVES.index(name)
-    return int(m["curve_slices"][k, 0]), int(m["curve_slices"][k, 1])
-
-
-def at_mass(xp, m, theta, mass, quantity, grad=False, std=False):
-    """A curve quantity at gravitational masses, through u = sqrt(1 - M / M_max).
-
-    ``theta`` (n, d); ``mass`` broadcastable to (n, q) in Msun.  ``quantity``
-    is ``radius_km``, ``tidal_deformability``, ``moment_of_inertia`` or ``k2``.
-    Returns ``(value, grad, std)``: value (n, q) with NaN above M_max, below the
-    emulated range or outside the box; grad (n, q, d) and std (n, q) or None.
-    """
-    columns = needed_columns(m, (quantity,))
-    y, inside, dy = outputs(xp, m, theta, grad, columns)
-    sd = output_std(xp, m, theta, columns) if std else None
-    return curve_at_mass(xp, m, y, dy, sd, mass, quantity)
 
 
 def _curve_weights(xp, m, u):
@@ -686,7 +839,7 @@ def _curve_weights(xp, m, u):
         return spline_in_u(xp, m, eye, xp.broadcast_to(u[None, :], (n_u, u.shape[0])), weights=False)[0]
 
     key = u.tobytes() if _is_numpy(xp) else None  # exactly these points
-    return _cached(xp, m, "_curve_weights", m["u_nodes"], key, make)
+    return m.cache.array(xp, "curve_weights", key, make)
 
 
 def branch_curve(xp, m, y, s):
@@ -699,46 +852,38 @@ def branch_curve(xp, m, y, s):
     """
     un = m["u_nodes"]
     u = un[-1] * s
-    masses = y[:, int(m["i_mass_max"])][:, None] * (1.0 - u * u)[None, :]
+    masses = y[:, m.i_mass_max][:, None] * (1.0 - u * u)[None, :]
     W = _curve_weights(xp, m, u)
-    a, b = _curve_slice(m, "radius_km")
-    R = y[:, a:b] @ W
-    a, b = _curve_slice(m, "log_tidal_deformability")
-    L = xp.exp(y[:, a:b] @ W)
-    return masses, R, L
+    out = [masses]
+    for query in ("radius", "tidal_deformability"):
+        o = _star_output(m, query)
+        out.append(inverse(xp, o[3], y[:, o[5] : o[6]] @ W))
+    return tuple(out)
 
 
-def curve_at_mass(xp, m, y, dy, sd, mass, quantity):
-    """:func:`at_mass` from outputs already evaluated (several queries, one model evaluation).
+def curve_at_mass(xp, m, y, dy, sd, mass, query):
+    """A query at gravitational masses, through u = sqrt(1 - M / M_max), from outputs already evaluated.
 
     ``y`` (n, n_out) and ``dy`` (n, n_out, d) or None from :func:`outputs`;
-    ``sd`` (n, n_out) or None from :func:`output_std`.
+    ``sd`` (n, n_out) or None from :func:`output_std`; ``mass`` broadcastable
+    to (n, q) in Msun; ``query`` one of :func:`star_queries`.  Returns
+    ``(value, grad, std)``: value (n, q), NaN above M_max, below the emulated
+    range or outside the box; grad (n, q, d) and std (n, q), or None.
     """
     grad, std = dy is not None, sd is not None
     n = y.shape[0]
     mass = xp.asarray(mass, dtype=y.dtype) if not hasattr(mass, "shape") else mass
     mass = xp.broadcast_to(xp.reshape(mass, (1, -1)) if mass.ndim < 2 else mass, (n, mass.shape[-1] if mass.ndim else 1))
-    im = int(m["i_mass_max"])
+    if query in DERIVED:
+        needs, rule = DERIVED[query]
+        return rule(xp, mass, [curve_at_mass(xp, m, y, dy, sd, mass, q) for q in needs], grad, std)
+    im = m.i_mass_max
     mmax = y[:, im][:, None]
     ratio = mass / mmax
     ok = (mass > 0.0) & (ratio <= 1.0)
     u = xp.sqrt(xp.where(ok, 1.0 - ratio, float("nan")))
-    if quantity == "k2":
-        R, dR, sR = curve_at_mass(xp, m, y, dy, sd, mass, "radius_km")
-        L, dL, sL = curve_at_mass(xp, m, y, dy, sd, mass, "tidal_deformability")
-        c5 = (mass * MSUN_KM / R) ** 5
-        val = 1.5 * L * c5
-        g = None
-        if grad:
-            # d ln k2 = d ln Lambda - 5 d ln R
-            g = val[:, :, None] * (dL / L[:, :, None] - 5.0 * dR / R[:, :, None])
-        s = None
-        if std:
-            s = val * xp.sqrt((sL / L) ** 2 + (5.0 * sR / R) ** 2)
-        return val, g, s
-    name = {"radius_km": "radius_km", "tidal_deformability": "log_tidal_deformability",
-            "moment_of_inertia": "log_moment_of_inertia"}[quantity]
-    a, b = _curve_slice(m, name)
+    o = _star_output(m, query)
+    a, b = o[5], o[6]
     val, der, w = spline_in_u(xp, m, y[:, a:b], u, weights=grad or std)
     g = None
     if grad:
@@ -752,10 +897,4 @@ def curve_at_mass(xp, m, y, dy, sd, mass, quantity):
         dudm = mass / (2.0 * u * mmax * mmax)
         s_nodes = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
         s = xp.sqrt(s_nodes**2 + (der * dudm * sd[:, im][:, None]) ** 2)
-    if name.startswith("log_"):
-        val = xp.exp(val)
-        if grad:
-            g = val[:, :, None] * g
-        if std:
-            s = val * s
-    return val, g, s
+    return _inverse_with(xp, o[3], val, g, s)

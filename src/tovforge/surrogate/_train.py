@@ -2,87 +2,75 @@
 
 from __future__ import annotations
 
-import datetime
-import platform
 import time
 
 import numpy as np
 
-from .. import __version__
+from .._provenance import provenance
 from ..errors import InputError
-from ._dataset import read_training_data
-from ._fit import GPSettings, SplineSettings, TrainingData, fit_gp, fit_rbf, fit_tensor
-from ._model import FORMAT, FORMAT_VERSION, Surrogate
+from ._data import TrainingData, emulated_outputs, read_training_data
+from ._kinds import check_kind, resolve
+from ._meta import ModelMeta, Training, new_outputs
+from ._model import Surrogate
 
 __all__ = ["train", "train_on"]
 
-KINDS = ("gp", "spline")
 
-
-def train(grid_path, kind: str = "gp", gp_settings: GPSettings | None = None, log=None,
-          spline_settings: SplineSettings | None = None) -> Surrogate:
+def train(grid_path, kind: str = "gp", settings=None) -> Surrogate:
     """Train a surrogate on a grid file.
 
     Parameters
     ----------
     grid_path : path
         A grid written by ``tovforge grid run``.
-    kind : {"gp", "spline"}
-        Gaussian process, or splines: tensor-product cubic splines on a
-        complete regular grid, polyharmonic radial basis functions otherwise.
-    gp_settings : GPSettings, optional
-    log : callable, optional
-        Receives progress lines.
-    spline_settings : SplineSettings, optional
-        Options of the radial-basis-function spline (scattered designs).
+    kind : str
+        One of :func:`tovforge.surrogate.kinds` (``"gp"``: Gaussian process;
+        ``"spline"``: tensor-product cubic splines on a complete regular grid,
+        polyharmonic radial basis functions otherwise).
+    settings : GPSettings or SplineSettings, optional
+        Options of the kind (default: its defaults).
     """
-    if kind not in KINDS:
-        raise InputError(f"--kind must be one of {', '.join(KINDS)}; got {kind!r}.")
-    data = read_training_data(grid_path)
-    return train_on(data, kind, gp_settings, log, spline_settings)
+    check_kind(kind)  # before the grid is read
+    return train_on(read_training_data(grid_path), kind, settings)
 
 
-def train_on(data: TrainingData, kind: str = "gp", gp_settings: GPSettings | None = None, log=None,
-             spline_settings: SplineSettings | None = None) -> Surrogate:
-    """Train on in-memory :class:`TrainingData` (see :func:`train`)."""
+def train_on(data: TrainingData, kind: str = "gp", settings=None) -> Surrogate:
+    """Train on in-memory :class:`TrainingData` (see :func:`train`).
+
+    Progress (kernels fitted, length scales, times) goes to the ``tovforge``
+    logger at level INFO.
+    """
+    m = resolve(kind, data)
+    if settings is None:
+        settings = m.settings()
+    elif not isinstance(settings, m.settings):
+        raise InputError(f"the {kind} kind takes {m.settings.__name__}, not {type(settings).__name__}.")
     t0 = time.perf_counter()
-    if kind == "gp":
-        index, extra, arrays = fit_gp(data, gp_settings or GPSettings(), log=log)
-        model_kind = "gp"
-    elif data.regular_shape is not None:
-        index, extra, arrays = fit_tensor(data, log=log)
-        model_kind = "tensor"
-    else:
-        index, extra, arrays = fit_rbf(data, spline_settings or SplineSettings(), log=log)
-        model_kind = "rbf"
+    result = m.fit(data, settings)
     seconds = time.perf_counter() - t0
-    meta = {
-        "format": FORMAT,
-        "format_version": FORMAT_VERSION,
-        "kind": model_kind,
-        "requested_kind": kind,
-        "family": data.family,
-        "parameters": list(data.parameter_names),
-        "parameter_units": list(data.parameter_units),
-        "bounds": np.asarray(data.bounds).tolist(),
-        "outputs": {
-            "index": index,
-            "scalars": list(index),
-            "curves": ["radius_km", "log_tidal_deformability", "log_moment_of_inertia"],
-            "curve_units": ["km", "ln(Lambda)", "ln(I / 1e45 g cm^2)"],
-            "sequence_coordinate": "u = sqrt(1 - M / M_max)",
-            "u_nodes": np.asarray(data.u_nodes).tolist(),
-            "mass_floor_msun": data.mass_floor_msun,
-        },
-        "training": {
-            "n_train": int(len(data.theta)),
-            "seconds": seconds,
-            "created_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-            "tovforge_version": __version__,
-            "python_version": platform.python_version(),
-            "numpy_version": np.__version__,
-            **data.provenance,
-            **extra,
-        },
-    }
-    return Surrogate(meta, arrays)
+    sequence, star = emulated_outputs()
+    prov = data.provenance
+    meta = ModelMeta(
+        kind=kind,
+        method=m.name,
+        family=data.family,
+        parameters=tuple(data.parameter_names),
+        parameter_units=tuple(data.parameter_units),
+        bounds=tuple((float(a), float(b)) for a, b in np.asarray(data.bounds, float)),
+        outputs=new_outputs(sequence, star, data.u_nodes, data.mass_floor_msun),
+        training=Training(
+            n_train=int(len(data.theta)),
+            seconds=seconds,
+            **provenance("scipy", "scikit-learn"),
+            grid_path=str(prov.get("grid_path", "")),
+            grid_content_sha256=str(prov.get("grid_content_sha256", "")),
+            grid_spec_sha256=str(prov.get("grid_spec_sha256", "")),
+            grid_description=str(prov.get("grid_description", "")),
+            grid_points=int(prov.get("grid_points", len(data.theta))),
+            grid_points_used=int(prov.get("grid_points_used", len(data.theta))),
+            refinement_points=int(prov.get("refinement_points", 0)),
+        ),
+        settings=result.settings if m.settings_recorded else None,
+        fit=result.details,
+    )
+    return Surrogate(meta, result.arrays)

@@ -152,7 +152,7 @@ def lambda_from_model(model, theta):
     theta = np.asarray(theta, float).reshape(1, -1)
 
     def lam(masses):
-        return model.tidal_deformability(theta, np.asarray(masses, float).ravel())[0]
+        return model.tidal_deformability(theta, np.asarray(masses, float).ravel()).value[0]
 
     return lam
 

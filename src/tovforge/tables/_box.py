@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._progress import progress_bar
 from ..errors import InputError
 from ._quantities import QUANTITIES, mass_label, model_values, parameter_columns, provenance, quantity_columns
 from ._write import Column, TableSummary, TableWriter, table_format
@@ -129,47 +130,41 @@ def plan_box(names, units, axes, fixed, allowed=None, where: str = "") -> BoxPla
     seen = set()
     for a in axes:
         if a.name not in names:
-            raise InputError(f"--axis {a.name}: {where} has no parameter {a.name!r}; its parameters are "
+            raise InputError(f"axis {a.name}: {where} has no parameter {a.name!r}; its parameters are "
                              f"{', '.join(names)}.")
         if a.name in seen:
-            raise InputError(f"--axis {a.name}: the parameter is given twice.")
+            raise InputError(f"axis {a.name}: the parameter is given twice.")
         seen.add(a.name)
         if not (math.isfinite(a.lo) and math.isfinite(a.hi) and a.lo < a.hi):
-            raise InputError(f"--axis {a.name}={a.lo:g}:{a.hi:g}:{a.n}: LO must be below HI (both finite).")
+            raise InputError(f"axis {a.name}={a.lo:g}:{a.hi:g}:{a.n}: LO must be below HI (both finite).")
         if a.n < 2:
-            raise InputError(f"--axis {a.name}={a.lo:g}:{a.hi:g}:{a.n}: N must be at least 2 "
-                             f"(use --fix {a.name}=VALUE for one value).")
+            raise InputError(f"axis {a.name}={a.lo:g}:{a.hi:g}:{a.n}: N must be at least 2 "
+                             f"(fix {a.name} instead for one value).")
     for name, v in fixed.items():
         if name not in names:
-            raise InputError(f"--fix {name}: {where} has no parameter {name!r}; its parameters are "
+            raise InputError(f"fixed {name}: {where} has no parameter {name!r}; its parameters are "
                              f"{', '.join(names)}.")
         if name in seen:
-            raise InputError(f"--fix {name}: the parameter is also an --axis; give it once.")
+            raise InputError(f"fixed {name}: the parameter is also an axis; give it once.")
         seen.add(name)
         if not math.isfinite(v):
-            raise InputError(f"--fix {name}={v}: the value must be a finite number.")
+            raise InputError(f"fixed {name}={v}: the value must be a finite number.")
     missing = [n for n in names if n not in seen]
     if missing:
-        raise InputError(f"{', '.join(missing)}: neither an --axis nor a --fix; every parameter of {where} "
-                         f"needs one (e.g. --fix {missing[0]}=VALUE).")
+        raise InputError(f"{', '.join(missing)}: neither an axis nor fixed; every parameter of {where} "
+                         f"is either varied along an axis or fixed to a value.")
     if not axes:
-        raise InputError("give at least one --axis NAME=LO:HI:N.")
+        raise InputError("give at least one axis (a parameter varied from LO to HI in N points).")
     if allowed is not None:
         for a in axes:
             msg = allowed(a.name, a.lo, a.hi)
             if msg:
-                raise InputError(f"--axis {a.name}={a.lo:g}:{a.hi:g}:{a.n}: {msg}")
+                raise InputError(f"axis {a.name}={a.lo:g}:{a.hi:g}:{a.n}: {msg}")
         for name, v in fixed.items():
             msg = allowed(name, v, v)
             if msg:
-                raise InputError(f"--fix {name}={v:g}: {msg}")
+                raise InputError(f"fixed {name}={v:g}: {msg}")
     return BoxPlan(names, tuple(units), tuple(axes), {k: float(v) for k, v in fixed.items()})
-
-
-def _progress(total: int, label: str, enabled: bool, stream=None):
-    from ..grid import Progress  # the grid's progress bar, so both look alike
-
-    return Progress(total, 0, label, stream=stream, enabled=enabled)
 
 
 def _check_masses(quantities, masses) -> tuple:
@@ -177,11 +172,11 @@ def _check_masses(quantities, masses) -> tuple:
     if any(QUANTITIES[q].per_mass for q in quantities):
         if not masses:
             per = [q for q in quantities if QUANTITIES[q].per_mass]
-            raise InputError(f"--quantities {', '.join(per)} need --masses (Msun).")
+            raise InputError(f"quantities {', '.join(per)} need masses (Msun).")
         if not all(math.isfinite(m) and m > 0 for m in masses):
-            raise InputError("--masses must be positive numbers (Msun).")
+            raise InputError("masses must be positive numbers (Msun).")
         if len({mass_label(m) for m in masses}) != len(masses):
-            raise InputError("--masses lists a mass twice.")
+            raise InputError("masses lists a mass twice.")
     return masses
 
 
@@ -239,17 +234,17 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
             return f"outside the model's box: {name} must be in [{blo:g}, {bhi:g}] (the box it was trained on)."
         return ""
 
-    plan = plan_box(model.parameter_names, model.meta.get("parameter_units", ["1"] * len(bounds)), axes,
+    plan = plan_box(model.parameter_names, model.parameter_units, axes,
                     fixed or {}, allowed, where=f"the model ({model.family})")
-    sigma = bool(sigma and model.kind == "gp")
+    sigma = bool(sigma and model.has_std)
     qcols = quantity_columns(quantities, masses, sigma)
     columns = parameter_columns(plan.names, plan.units) + qcols
     meta = provenance(command, kind="box", source="model", model=label, model_kind=model.kind,
-                      model_arrays_sha256=str(model.meta.get("arrays_sha256", "")), family=model.family,
+                      model_arrays_sha256=model.meta.arrays_sha256, family=model.family,
                       quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)),
-                      mass_floor_msun=float(model.meta["outputs"]["mass_floor_msun"]), sigma=sigma, **plan.meta())
+                      mass_floor_msun=model.meta.outputs.mass_floor_msun, sigma=sigma, **plan.meta())
     n = plan.n_rows
-    bar = _progress(n, Path(out).name, progress, stream)
+    bar = progress_bar(n, Path(out).name, unit="rows", enabled=progress, stream=stream)
     try:
         with TableWriter(out, columns, meta) as w:
             for start in range(0, n, chunk_rows):
@@ -351,11 +346,11 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
     table_format(out)
     fam = eos.get_family(family)
     if not fam.numeric:
-        raise InputError(f"--exact {family}: the family has no numeric parameters to span a box.")
+        raise InputError(f"family {family}: the family has no numeric parameters to span a box.")
     quantities = tuple(quantities)
     masses = _check_masses(quantities, masses)
     if not (math.isfinite(mass_floor_msun) and mass_floor_msun >= 0):
-        raise InputError(f"--mass-floor must be a number >= 0 (Msun). Got {mass_floor_msun}.")
+        raise InputError(f"mass_floor_msun must be a number >= 0 (Msun). Got {mass_floor_msun}.")
 
     def allowed(name, lo, hi):
         par = fam.parameter(name)

@@ -9,14 +9,12 @@ after each value column.
 
 from __future__ import annotations
 
-import platform
 import sys
 from dataclasses import dataclass
-from datetime import datetime, timezone
 
 import numpy as np
 
-from .. import __version__
+from .. import _provenance
 from .. import quantities as registry  # functions here take a `quantities` argument (table column names)
 from ..errors import InputError
 from ._write import Column
@@ -80,12 +78,12 @@ def parse_quantities(names) -> tuple[str, ...]:
         names = [n.strip() for n in names.split(",") if n.strip()]
     names = list(names)
     if not names:
-        raise InputError(f"--quantities needs at least one of: {', '.join(QUANTITIES)}.")
+        raise InputError(f"quantities needs at least one of: {', '.join(QUANTITIES)}.")
     for n in names:
         if n not in QUANTITIES:
-            raise InputError(f"--quantities: unknown quantity {n!r}; choose from {', '.join(QUANTITIES)}.")
+            raise InputError(f"quantities: unknown quantity {n!r}; choose from {', '.join(QUANTITIES)}.")
         if names.count(n) > 1:
-            raise InputError(f"--quantities: {n!r} is listed twice.")
+            raise InputError(f"quantities: {n!r} is listed twice.")
     return tuple(names)
 
 
@@ -138,11 +136,10 @@ def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
     at = model.predict_at_masses(theta, masses, return_std=sigma)
     pred = at.prediction
     std = pred.std or {}
-    p_max = 10.0 ** pred.log10_central_pressure_at_mass_max
     scalars = {
         "mass_max": (pred.mass_max_msun, std.get("mass_max_msun")),
-        "pressure_at_mass_max": (p_max, p_max * np.log(10.0) * std["log10_central_pressure_at_mass_max"]
-                                 if sigma else None),
+        "pressure_at_mass_max": (pred.central_pressure_at_mass_max_dyn_cm2,
+                                 std.get("central_pressure_at_mass_max_dyn_cm2")),
         "max_sound_speed_sq": (pred.max_sound_speed_sq, std.get("max_sound_speed_sq")),
         "causality_margin": (pred.causality_margin, std.get("max_sound_speed_sq")),
         "mass_max_margin": (pred.mass_max_margin_msun, std.get("mass_max_msun")),
@@ -181,11 +178,4 @@ def provenance(command: str | None, **source) -> dict:
     **source
         What the table was made from (str, int, float or bool values).
     """
-    return {
-        "tovforge_version": __version__,
-        "python_version": platform.python_version(),
-        "numpy_version": np.__version__,
-        "created_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "command": command if command is not None else " ".join(sys.argv),
-        **source,
-    }
+    return _provenance.provenance(command=command if command is not None else " ".join(sys.argv), **source)

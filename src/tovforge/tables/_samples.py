@@ -26,8 +26,10 @@ from pathlib import Path
 
 import numpy as np
 
+from .._extras import pyplot, require
+from .._progress import progress_bar
 from ..errors import InputError
-from ._box import CHUNK_ROWS, _check_masses, _progress
+from ._box import CHUNK_ROWS, _check_masses
 from ._quantities import QUANTITIES, mass_label, model_values, parameter_columns, provenance, quantity_columns
 from ._write import Column, TableSummary, TableWriter, table_format
 
@@ -75,7 +77,7 @@ def _check_names(path, names, parameter_names, ignore):
         raise InputError(f"{path}: column {dup[0]!r} appears twice.")
     unknown_ignore = [n for n in ignore if n not in names]
     if unknown_ignore:
-        raise InputError(f"--ignore {unknown_ignore[0]}: {path} has no such column; its columns are {', '.join(names)}.")
+        raise InputError(f"ignore {unknown_ignore[0]}: {path} has no such column; its columns are {', '.join(names)}.")
     missing = [n for n in parameter_names if n not in names]
     if missing:
         raise InputError(f"{path}: missing column{'s' if len(missing) > 1 else ''} {', '.join(missing)}; the model "
@@ -84,7 +86,7 @@ def _check_names(path, names, parameter_names, ignore):
     if extra:
         raise InputError(f"{path}: extra column{'s' if len(extra) > 1 else ''} {', '.join(extra)} "
                          f"(the model's parameters are {', '.join(parameter_names)}); remove "
-                         f"{'them' if len(extra) > 1 else 'it'} or pass --ignore {','.join(extra)}.")
+                         f"{'them' if len(extra) > 1 else 'it'} or ignore {','.join(extra)}.")
 
 
 def _read_csv(path: Path, parameter_names, ignore):
@@ -280,20 +282,22 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     for p in (out, band):
         table_format(p)
     if plot is not None and Path(plot).suffix.lower() != ".png":
-        raise InputError(f"--plot {plot}: the plot is written as PNG; give a file name ending in .png.")
+        raise InputError(f"plot {plot}: the plot is written as PNG; give a file name ending in .png.")
+    if plot is not None:  # before the work, not after it
+        require("matplotlib", "plots", "the samples plot")
     if Path(band).resolve() == Path(out).resolve():
-        raise InputError(f"--band {band}: the band table needs a file of its own, not --out.")
+        raise InputError(f"band {band}: the band table needs a file of its own, not that of the table.")
     if Path(samples).resolve() in (Path(out).resolve(), Path(band).resolve()):
-        raise InputError(f"{samples}: the samples file would be overwritten; choose another --out or --band.")
+        raise InputError(f"{samples}: the samples file would be overwritten; choose other output files.")
     names = model.parameter_names
     data = read_samples(samples, names, ignore, bounds=model.bounds)
-    sigma = bool(sigma and model.kind == "gp")
-    units = model.meta.get("parameter_units", ["1"] * len(names))
+    sigma = bool(sigma and model.has_std)
+    units = model.parameter_units
     sample_col = Column("sample", "1", "data row of the samples file (from 1)", dtype="int64")
     qcols = quantity_columns(quantities, masses, sigma)
     columns = [sample_col] + parameter_columns(names, units) + qcols
     source = dict(source="model", model=label, model_kind=model.kind,
-                  model_arrays_sha256=str(model.meta.get("arrays_sha256", "")), family=model.family,
+                  model_arrays_sha256=model.meta.arrays_sha256, family=model.family,
                   samples=str(samples), samples_rows=data.n_rows, samples_skipped=len(data.bad),
                   quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)))
     meta = provenance(command, kind="samples", sigma=sigma, **source)
@@ -301,7 +305,7 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     kept = [c.name for c in qcols if not c.name.startswith("sigma_")]
     n = len(data.theta)
     store = {k: np.empty(n) for k in kept}
-    bar = _progress(n, Path(out).name, progress, stream)
+    bar = progress_bar(n, Path(out).name, unit="rows", enabled=progress, stream=stream)
     try:
         with TableWriter(out, columns, meta) as w:
             for start in range(0, n, chunk_rows):
@@ -355,21 +359,17 @@ def _write_band(path, store, quantities, masses, n, meta):
 
 def _plot_band(path, model, theta, masses, mass_max, label):
     """Median and 90 % band of R(M) over the samples (at most PLOT_MAX_SAMPLES of them)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    plt = pyplot("the samples plot")
     stride = max(1, -(-len(theta) // PLOT_MAX_SAMPLES))
     sub = theta[::stride]
-    mm = model.mass_max(sub) if mass_max is None else mass_max[::stride]
+    mm = model.mass_max(sub).value if mass_max is None else mass_max[::stride]
     fine = mm[np.isfinite(mm)]
     if fine.size == 0:
         raise InputError("no sample has a maximum mass; nothing to plot.")
     m_hi = float(np.quantile(fine, 0.95))
     m_lo = min(1.0, float(min(masses))) if masses else 1.0
     grid = np.linspace(m_lo, m_hi, 80)
-    R = np.concatenate([model.radius(sub[i:i + CHUNK_ROWS], grid) for i in range(0, len(sub), CHUNK_ROWS)])
+    R = np.concatenate([model.radius(sub[i:i + CHUNK_ROWS], grid).value for i in range(0, len(sub), CHUNK_ROWS)])
     med, lo, hi, frac = (np.empty(grid.size) for _ in range(4))
     for j in range(grid.size):
         qs = _quantiles(R[:, j])

@@ -112,13 +112,13 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
     if masses is not None:
         masses = np.asarray(masses, float).ravel()
         if masses.size == 0 or not np.all(np.isfinite(masses) & (masses > 0)):
-            raise InputError("--masses must be positive numbers (Msun).")
+            raise InputError("masses must be positive numbers (Msun).")
         # start the branch below the lightest request, so that light stars are found too
         settings = replace(settings, low_mass_msun=min(settings.low_mass_msun, 0.9 * float(masses.min())))
     elif points is None or not 2 <= int(points) <= 100_000:
-        raise InputError(f"--points must be an integer in [2, 100000]. Got {points}.")
+        raise InputError(f"points must be an integer in [2, 100000]. Got {points}.")
     if not 0 < min_mass_msun < 3:
-        raise InputError(f"--min-mass must be in (0, 3) Msun. Got {min_mass_msun:g}.")
+        raise InputError(f"min_mass_msun must be in (0, 3) Msun. Got {min_mass_msun:g}.")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # masses without a stable star become a note below
         seq = solve_sequence(eos, n_stars=16, masses=masses, settings=settings)

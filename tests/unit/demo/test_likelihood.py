@@ -8,6 +8,7 @@ from scipy import integrate, stats
 from scipy.optimize import brentq
 from tovforge.demo import MassRadius, MergerTides, Observations, Posterior, lowest_mass_ratio, simpson_weights
 from tovforge.tables import component_masses, lambda_tilde
+from tovforge.surrogate import Estimate
 
 
 class LineModel:
@@ -24,19 +25,19 @@ class LineModel:
 
     def mass_max(self, theta):
         self.calls += 1
-        return 1.8 + 0.6 * theta[:, 0]
+        return Estimate(1.8 + 0.6 * theta[:, 0])
 
     def _rows(self, theta, mass):
         mass = np.broadcast_to(np.asarray(mass, float), (len(theta), np.shape(mass)[-1]))
-        return mass, (mass <= self.mass_max(theta)[:, None])
+        return mass, (mass <= self.mass_max(theta).value[:, None])
 
     def radius(self, theta, mass):
         mass, ok = self._rows(theta, mass)
-        return np.where(ok, 11.0 + 2.0 * theta[:, 1:2] - 0.8 * (mass - 1.4), np.nan)
+        return Estimate(np.where(ok, 11.0 + 2.0 * theta[:, 1:2] - 0.8 * (mass - 1.4), np.nan))
 
     def tidal_deformability(self, theta, mass):
         mass, ok = self._rows(theta, mass)
-        return np.where(ok, 400.0 * (1.4 / mass) ** 6 * (1.0 + theta[:, 1:2]), np.nan)
+        return Estimate(np.where(ok, 400.0 * (1.4 / mass) ** 6 * (1.0 + theta[:, 1:2]), np.nan))
 
 
 PULSAR = MassRadius("P", 1.5, 0.1, 11.8, 0.6, 0.4)
@@ -51,13 +52,13 @@ def _obs(pulsars=(), mergers=()):
 def _pulsar_reference(model, theta, p, m_low=1.0):
     """(1 / (M_max - M_low)) * integral of the 2-D Gaussian along the branch, by adaptive quadrature."""
     t = np.asarray(theta, float)[None, :]
-    mmax = float(model.mass_max(t)[0])
+    mmax = float(model.mass_max(t).value[0])
     cov = [[p.mass_sigma_msun**2, p.correlation * p.mass_sigma_msun * p.radius_sigma_km],
            [p.correlation * p.mass_sigma_msun * p.radius_sigma_km, p.radius_sigma_km**2]]
     dist = stats.multivariate_normal([p.mass_msun, p.radius_km], cov)
 
     def f(m):
-        return dist.pdf([m, float(model.radius(t, [m])[0, 0])])
+        return dist.pdf([m, float(model.radius(t, [m]).value[0, 0])])
 
     val, _ = integrate.quad(f, m_low, mmax, epsabs=0, epsrel=1e-12, limit=200)
     return np.log(val / (mmax - m_low))
@@ -66,13 +67,13 @@ def _pulsar_reference(model, theta, p, m_low=1.0):
 def _merger_reference(model, theta, mg):
     """(1 / (q_max - q_min)) * integral over q of N(Lambda_tilde(q)), zero where m1 > M_max."""
     t = np.asarray(theta, float)[None, :]
-    mmax = float(model.mass_max(t)[0])
+    mmax = float(model.mass_max(t).value[0])
 
     def f(q):
         m1, m2 = component_masses(mg.chirp_mass_msun, q)
         if m1 > mmax:
             return 0.0
-        lam = model.tidal_deformability(t, [m1, m2])[0]
+        lam = model.tidal_deformability(t, [m1, m2]).value[0]
         return stats.norm.pdf(lambda_tilde(m1, m2, lam[0], lam[1]), mg.lambda_tilde, mg.lambda_tilde_sigma)
 
     # the integrand jumps to zero where m1(q) = M_max: start there
@@ -94,7 +95,7 @@ def test_pulsar_term_equals_quadrature(p):
     model = LineModel()
     post = Posterior(model, _obs([p]), n_mass=1001)
     got, mmax = post.terms(THETAS)
-    np.testing.assert_allclose(mmax, model.mass_max(THETAS), rtol=0)
+    np.testing.assert_allclose(mmax, model.mass_max(THETAS).value, rtol=0)
     want = [_pulsar_reference(model, t, p) for t in THETAS]
     # Simpson's rule on a smooth integrand: error ~ h^4, about 1e-12 here
     np.testing.assert_allclose(got[:, 0], want, rtol=0, atol=1e-8)

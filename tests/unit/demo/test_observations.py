@@ -79,15 +79,21 @@ def test_a_users_file_of_the_same_layout_loads(tmp_path):
 
 
 @pytest.mark.parametrize("text, match", [
-    (GOOD_PULSAR.replace("mass_msun = 1.4\n", ""), r"pulsar\[0\]\.mass_msun is missing"),
-    (GOOD_PULSAR + "correlation = 1.0\n", r"pulsar\[0\]\.correlation must be in \(-1, 1\)\. Got 1"),
-    (GOOD_PULSAR.replace("radius_sigma_km = 0.5", "radius_sigma_km = -0.5"), r"radius_sigma_km must be > 0"),
-    (GOOD_PULSAR.replace("mass_msun = 1.4", 'mass_msun = "heavy"'), r"mass_msun must be a finite number"),
-    (GOOD_PULSAR + "colour = 3\n", r"pulsar\[0\]\.colour is not a known key"),
-    (GOOD_MERGER.replace("mass_ratio_min = 0.7", "mass_ratio_min = 1.2"), r"merger\[0\] needs 0 < mass_ratio_min"),
+    (GOOD_PULSAR.replace("mass_msun = 1.4\n", ""), r"bad\.toml: pulsar\[0\]\.mass_msun: missing"),
+    (GOOD_PULSAR + "correlation = 1.0\n", r"pulsar\[0\]\.correlation: must be a finite number in \(-1, 1\)\. Got 1"),
+    (GOOD_PULSAR.replace("radius_sigma_km = 0.5", "radius_sigma_km = -0.5"),
+     r"pulsar\[0\]\.radius_sigma_km: must be a finite number in \(0, inf\)\. Got -0\.5"),
+    (GOOD_PULSAR.replace("mass_msun = 1.4", 'mass_msun = "heavy"'),
+     r"pulsar\[0\]\.mass_msun: expected a number, got a string \('heavy'\)"),
+    (GOOD_PULSAR.replace('name = "A"', 'name = " "'), r"pulsar\[0\]\.name: must not be empty"),
+    (GOOD_PULSAR + "colour = 3\n", r"pulsar\[0\]\.colour: unknown key 'colour' in \[pulsar\[0\]\]"),
+    (GOOD_PULSAR + "radius = 3\n", r"unknown key 'radius' .*\(did you mean 'radius_km'\?\)"),
+    (GOOD_MERGER.replace("mass_ratio_min = 0.7", "mass_ratio_min = 1.2"), r"merger\[0\]: needs 0 < mass_ratio_min"),
     (GOOD_PULSAR + GOOD_PULSAR, r"the name 'A' is used twice"),
     ('note = "nothing"\n', r"no \[\[pulsar\]\] or \[\[merger\]\] table"),
-    ("pulsars = 3\n", r"pulsars is not a known key"),
+    ("pulsars = 3\n", r"pulsars: unknown key 'pulsars' in the top level \(did you mean 'pulsar'\?\)"),
+    ("[pulsar]\nname = 'A'\n", r"pulsar: expected an array, got a table"),
+    ("note = 3\n" + GOOD_PULSAR, r"note: expected a string, got an integer"),
     ("[[pulsar]\n", r"not valid TOML"),
 ])
 def test_bad_files_are_refused_with_the_key_path(tmp_path, text, match):

@@ -56,7 +56,7 @@ def models():
         "rbf": train_on(data, "spline"),
         "tensor": train_on(synthetic_training_data(5), "spline"),
     }
-    assert [m.kind for m in out.values()] == [k.split("-")[0] for k in KINDS]
+    assert [m.method for m in out.values()] == [k.split("-")[0] for k in KINDS]
     return out
 
 

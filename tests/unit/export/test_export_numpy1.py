@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from conftest import ROOT
 
-from tovforge.export._codegen import max_rel_diff
+from tovforge.export._verify import max_rel_diff
 
 NUMPY1 = "numpy==1.26.4"
 PROBE = r"""
@@ -29,12 +29,12 @@ mod = importlib.util.module_from_spec(spec)
 spec.loader.exec_module(mod)
 lo = np.array([b[0] for b in mod.BOUNDS]); hi = np.array([b[1] for b in mod.BOUNDS])
 theta = lo + (hi - lo) * np.array(json.loads(sys.argv[2]))
-r, g = mod.radius(theta, [1.2, 1.4], return_grad=True)
-m, c, L = mod.curve(theta, n=20)
+r = mod.radius(theta, [1.2, 1.4], return_grad=True)
+c = mod.curve(theta, n=20)
 p = mod.predict(theta)
-print(json.dumps({"numpy": np.__version__, "mass_max": mod.mass_max(theta).tolist(), "radius": r.tolist(),
-                  "grad": g.tolist(), "curve_r": c.tolist(), "curve_lambda": L.tolist(),
-                  "inertia": p["moment_of_inertia_1e45_g_cm2"].tolist()}))
+print(json.dumps({"numpy": np.__version__, "mass_max": mod.mass_max(theta).value.tolist(), "radius": r.value.tolist(),
+                  "grad": r.grad.tolist(), "curve_r": c.radius_km.tolist(), "curve_lambda": c.tidal_deformability.tolist(),
+                  "inertia": p.moment_of_inertia_1e45_g_cm2.tolist()}))
 """
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ast
+import dataclasses
 import json
 import re
 import subprocess
@@ -16,7 +17,6 @@ from typer.testing import CliRunner
 
 from tovforge.cli import app
 from tovforge.export import ExportError, export_model
-from tovforge.surrogate import Surrogate
 
 BLOCKING_RUN = textwrap.dedent(r'''
     import importlib.abc, json, sys
@@ -38,10 +38,10 @@ BLOCKING_RUN = textwrap.dedent(r'''
     lo, hi = np.array(mod.BOUNDS).T
     theta = lo + (hi - lo) * np.linspace(0.2, 0.8, 5)[:, None]
     out = {
-        "mass_max": mod.mass_max(theta).tolist(),
-        "radius": mod.radius(theta, 1.3, return_grad=True)[0].tolist(),
-        "curve": mod.curve(theta[0], n=8)[1].tolist(),
-        "sigma": None if mod.KIND != "gp" else mod.predict(theta)["std"]["radius_km"].tolist(),
+        "mass_max": mod.mass_max(theta).value.tolist(),
+        "radius": mod.radius(theta, 1.3, return_grad=True).value.tolist(),
+        "curve": mod.curve(theta[0], n=8).radius_km.tolist(),
+        "sigma": mod.predict(theta, return_std=True).std["radius_km"].tolist() if mod.HAS_STD else None,
     }
     new = {m.split(".")[0] for m in set(sys.modules) - before}
     out["foreign_modules"] = sorted(m for m in new if m not in sys.stdlib_module_names and m not in ("numpy", "evaluator"))
@@ -66,10 +66,10 @@ def test_runs_with_scipy_sklearn_joblib_and_tovforge_blocked(kind, exported, mod
     assert out["foreign_modules"] == []
     lo, hi = models[kind].bounds.T
     theta = lo + (hi - lo) * np.linspace(0.2, 0.8, 5)[:, None]
-    np.testing.assert_allclose(out["mass_max"], models[kind].mass_max(theta), rtol=1e-12)
-    np.testing.assert_allclose(out["radius"], models[kind].radius(theta, 1.3)[:, 0], rtol=1e-12)
+    np.testing.assert_allclose(out["mass_max"], models[kind].mass_max(theta).value, rtol=1e-12)
+    np.testing.assert_allclose(out["radius"], models[kind].radius(theta, 1.3).value, rtol=1e-12)
     assert np.isfinite(out["curve"]).all()
-    if models[kind].kind == "gp":
+    if models[kind].has_std:
         assert np.all(np.asarray(out["sigma"]) > 0)
 
 
@@ -87,7 +87,7 @@ def test_only_numpy_and_the_standard_library_are_imported(exported):
             imports |= {a.name.split(".")[0] for a in node.names}
         elif isinstance(node, ast.ImportFrom):
             imports.add((node.module or "").split(".")[0])
-    assert imports == {"base64", "hashlib", "io", "math", "zlib", "numpy", "array_api_compat"}
+    assert imports == {"base64", "dataclasses", "hashlib", "io", "math", "zlib", "numpy", "array_api_compat"}
     # array_api_compat: imported only when a caller passes a tensor of a library without the standard's hook
     assert src.count("import array_api_compat") == 1
     flags = [k.value for k in ast.walk(ast.parse(src)) if isinstance(k, ast.keyword) and k.arg == "allow_pickle"]
@@ -135,12 +135,8 @@ NASTY = [
 @pytest.mark.parametrize("nasty", NASTY)
 def test_metadata_strings_are_written_inertly(nasty, models, tmp_path):
     m = models["rbf"]
-    meta = json.loads(json.dumps(m.meta))
-    meta["family"] = nasty
-    meta["parameter_units"] = [nasty, "1", "1", '"""']
-    meta["training"]["grid_description"] = nasty
-    meta["training"]["grid_path"] = nasty
-    evil = Surrogate(meta, m.arrays)
+    evil = m.with_meta(family=nasty, parameter_units=(nasty, "1", "1", '"""'),
+                       training={"grid_description": nasty, "grid_path": nasty})
     report = _report_for(evil, nasty)
     path = tmp_path / "nasty.py"
     export_model(evil, path, report, namespaces=("numpy",))
@@ -160,8 +156,8 @@ def test_metadata_strings_are_written_inertly(nasty, models, tmp_path):
 def _report_for(model, name):
     stats = {k: 0.001 for k in ("abs_median", "abs_p95", "abs_max", "rel_median", "rel_p95", "rel_max")}
     return {"format": "tovforge-check", "created_utc": "2026-01-01T00:00:00+00:00", "tovforge_version": name,
-            "model": {"kind": model.kind, "n_train": model.meta["training"]["n_train"],
-                      "training_grid_sha256": model.meta["training"].get("grid_content_sha256", "")},
+            "model": {"kind": model.kind, "method": model.method, "n_train": model.n_train,
+                      "training_grid_sha256": model.meta.training.grid_content_sha256},
             "holdout": {"path": name, "content_sha256": name, "n_points": 1, "n_used": 1,
                         "n_star_comparisons": 1, "mass_rule": name},
             "errors": {name: dict(stats, n=1), "mass_max_msun": dict(stats, abs_p95=float("nan"), n=1)},
@@ -175,13 +171,14 @@ def _report_for(model, name):
 ])
 def test_names_that_are_not_identifiers_are_refused(where, value, match, models, tmp_path):
     m = models["rbf"]
-    meta = json.loads(json.dumps(m.meta))
     if where == "parameter":
-        meta["parameters"][1] = value
+        bad = m.with_meta(parameters=(m.parameter_names[0], value, *m.parameter_names[2:]))
     else:
-        meta["outputs"]["index"][value] = 1
+        outputs = m.meta.outputs
+        first = dataclasses.replace(outputs.scalars[0], name=value)
+        bad = m.with_meta(outputs=dataclasses.replace(outputs, scalars=(first, *outputs.scalars[1:])))
     with pytest.raises(ExportError, match=match):
-        export_model(Surrogate(meta, m.arrays), tmp_path / "x.py", namespaces=("numpy",))
+        export_model(bad, tmp_path / "x.py", namespaces=("numpy",))
     assert not (tmp_path / "x.py").exists()
 
 
@@ -205,7 +202,7 @@ def test_cli_exports_and_reports_bad_input_in_one_line(models, tmp_path):
     assert "wrote" in res.output and (tmp_path / "spline_demo.py").is_file()
     mod = import_file(tmp_path / "spline_demo.py")
     theta = models["tensor"].bounds.mean(axis=1)
-    assert float(mod.mass_max(theta)) == pytest.approx(float(models["tensor"].mass_max(theta)[0]), rel=1e-12)
+    assert float(mod.mass_max(theta).value) == pytest.approx(float(models["tensor"].mass_max(theta).value), rel=1e-12)
     res = runner.invoke(app, ["export", str(folder), "--out", str(tmp_path / "bad-name.py"), "--namespaces", "numpy"])
     assert res.exit_code == 2
     assert "stem must be a Python identifier" in res.output and "Traceback" not in res.output

@@ -138,7 +138,7 @@ def test_existing_outputs_of_another_spec_are_refused_unless_overwrite(tmp_path)
 
     stranger = tmp_path / "notes.h5"
     stranger.write_text("not a grid")
-    with pytest.raises(InputError, match="is not a tovforge grid file; pass --overwrite"):
+    with pytest.raises(InputError, match="is not a tovforge grid file; pass overwrite=True"):
         run_grid(spec, stranger, workers=1, progress=False)
 
 

@@ -14,8 +14,7 @@ from typer.testing import CliRunner
 from tovforge import surrogate
 from tovforge.cli import app
 from tovforge.errors import InputError
-from tovforge.surrogate import GPSettings, read_training_data, train_on
-from tovforge.surrogate._check import check
+from tovforge.surrogate import CheckReport, GPSettings, check, read_training_data, train_on
 
 ROOT = Path(__file__).resolve().parents[3]
 TRAIN = ROOT / "grids" / "demo-train.h5"
@@ -44,6 +43,7 @@ def gp_model():
 def test_report_numbers_equal_an_independent_recomputation(spline_model, tmp_path):
     res = check(spline_model, HOLDOUT, tmp_path / "rep")
     saved = json.loads((tmp_path / "rep" / "report.json").read_text())
+    assert CheckReport.from_json(saved) == res  # the typed report is what the file holds
     for name in ("report.md", "parity.png", "error_histograms.png", "error_vs_parameters.png",
                  "worst_mass_radius.png"):
         assert (tmp_path / "rep" / name).stat().st_size > 0
@@ -56,9 +56,9 @@ def test_report_numbers_equal_an_independent_recomputation(spline_model, tmp_pat
         r_exact = f["at_mass/radius_km"][...][ok]
         l_exact = f["at_mass/tidal_deformability"][...][ok]
     sel = (masses[None, :] >= 1.0) & (masses[None, :] <= mmax[:, None] - 0.02) & np.isfinite(r_exact)
-    r = spline_model.radius(theta, masses)
-    lam = spline_model.tidal_deformability(theta, masses)
-    dm = np.abs(spline_model.mass_max(theta) - mmax)
+    r = spline_model.radius(theta, masses).value
+    lam = spline_model.tidal_deformability(theta, masses).value
+    dm = np.abs(spline_model.mass_max(theta).value - mmax)
     assert saved["errors"]["mass_max_msun"]["abs_p95"] == pytest.approx(np.percentile(dm, 95), rel=1e-12)
     assert saved["errors"]["mass_max_msun"]["abs_max"] == pytest.approx(dm.max(), rel=1e-12)
     dr = np.abs(r - r_exact)[sel]
@@ -67,15 +67,16 @@ def test_report_numbers_equal_an_independent_recomputation(spline_model, tmp_pat
     dl = np.abs(lam / l_exact - 1)[sel]
     assert saved["errors"]["tidal_deformability_at_mass"]["rel_p95"] == pytest.approx(np.percentile(dl, 95), rel=1e-12)
     assert saved["holdout"]["n_star_comparisons"] == int(sel.sum())
-    assert res.report["errors"] == saved["errors"]
-    assert len(saved["worst"]) == 10
+    assert res.to_json()["errors"] == saved["errors"]
+    assert len(saved["worst"]) == 10 and saved["model"]["kind"] == "spline" and saved["model"]["method"] == "rbf"
+    assert saved["calibration"] == {}  # a spline has no sigma to calibrate
 
 
 def test_gp_sigma_is_calibrated_on_the_demo_grids(gp_model):
     """Fraction of held-out errors inside 2 predicted sigma: between 85 % and 99.5 %."""
-    rep = check(gp_model, HOLDOUT).report
+    rep = check(gp_model, HOLDOUT)
     for name in ("mass_max_msun", "radius_km", "tidal_deformability"):
-        frac = rep["calibration"][name]["within_2_sigma"]
+        frac = rep.calibration[name].within_2_sigma
         assert 0.85 <= frac <= 0.995, (name, frac)
 
 

@@ -11,17 +11,25 @@ from tovforge import surrogate
 from tovforge.errors import InputError
 from tovforge.surrogate import GPSettings, train_on
 from tovforge.surrogate import _runtime as rt
-from tovforge.surrogate._fit import SCALARS
+from tovforge.surrogate._data import emulated_outputs
+
+SCALARS = tuple(q.model_name for q in emulated_outputs()[0])
+CURVES = tuple(q.model_name for q in emulated_outputs()[1])
 
 
 def _all_outputs(model, theta):
-    y, _, _ = rt.outputs(np, model._m, theta)
-    return y
+    return model.evaluate(theta).values
 
 
 def _truth_matrix(theta):
     s, c = truth(theta)
-    return np.hstack([s[k][:, None] for k in SCALARS] + [c[k] for k in rt.CURVES])
+    return np.hstack([s[k][:, None] for k in SCALARS] + [c[k] for k in CURVES])
+
+
+def test_output_order_is_the_registry_order_with_mass_max_last_among_the_scalars():
+    """Today's column order: log10 p_c(M_max), max c_s^2, M_max (next to the radius nodes), then R, ln Lambda, ln I."""
+    assert SCALARS == ("log10_central_pressure_at_mass_max", "max_sound_speed_sq", "mass_max_msun")
+    assert CURVES == ("radius_km", "log_tidal_deformability", "log_moment_of_inertia")
 
 
 @pytest.mark.parametrize("shape", [None, (5, 4, 4, 4)])
@@ -29,7 +37,7 @@ def test_spline_reproduces_its_training_points(shape):
     """RBF (scattered) and tensor-product splines (regular) interpolate their data."""
     data = synthetic(300, regular_shape=shape)
     model = train_on(data, "spline")
-    assert model.kind == ("tensor" if shape else "rbf")
+    assert model.kind == "spline" and model.method == ("tensor" if shape else "rbf")
     np.testing.assert_allclose(_all_outputs(model, data.theta), _truth_matrix(data.theta), rtol=1e-8, atol=1e-8)
 
 
@@ -64,20 +72,20 @@ def test_gp_inputs_are_warped_to_ln_gamma_minus_one():
     data = dataclasses.replace(base, scalars=s, curves=c)
     test = qmc.scale(qmc.LatinHypercube(4, seed=7).random(200), BOX[:, 0], BOX[:, 1])
     s, c = truth(_log_scale(test))
-    want = np.hstack([s[k][:, None] for k in SCALARS] + [c[k] for k in rt.CURVES])
+    want = np.hstack([s[k][:, None] for k in SCALARS] + [c[k] for k in CURVES])
     errors = {}
     for warp in (True, False):
         settings = GPSettings(n_subset=128, n_restarts=0, curve_groups=2, n_jobs=1, warp_inputs=warp)
         model = train_on(data, "gp", settings)
         errors[warp] = np.max(np.abs(_all_outputs(model, test) / want - 1.0))
         if warp:
-            assert model.meta["training"]["gp"]["input_warp"] == {f"gamma{i}": f"ln(gamma{i} - 1)" for i in (1, 2, 3)}
-            x, inside = rt.unit_inputs(np, model._m, np.vstack([BOX[:, 0], BOX[:, 1], test[:3]]))
+            assert model.meta.fit.input_warp == {f"gamma{i}": f"ln(gamma{i} - 1)" for i in (1, 2, 3)}
+            x, inside = rt.unit_inputs(np, model.arrays, np.vstack([BOX[:, 0], BOX[:, 1], test[:3]]))
             np.testing.assert_array_equal(x[0], 0.0)
             np.testing.assert_array_equal(x[1], 1.0)
             np.testing.assert_allclose(x[2:, 1:], (np.log(test[:3, 1:] - 1.0) - np.log(BOX[1:, 0] - 1.0))
                                        / (np.log(BOX[1:, 1] - 1.0) - np.log(BOX[1:, 0] - 1.0)), rtol=1e-14)
-            assert inside.all() and not model.in_domain(BOX[:, 1] + [0, 0.01, 0, 0])[0]
+            assert inside.all() and not model.in_domain(BOX[:, 1] + [0, 0.01, 0, 0])
         else:
             assert "warp_log" not in model.arrays
     assert errors[True] < 5e-3 and errors[False] > 10.0 * errors[True], errors
@@ -88,29 +96,32 @@ def test_queries_go_through_u_and_the_maximum():
     data = synthetic(300)
     model = train_on(data, "spline")
     theta = data.theta[:3]
-    mmax = model.mass_max(theta)
+    mmax = model.mass_max(theta).value
     masses = np.array([1.0, 1.2])
-    r = model.radius(theta, masses)
+    r = model.radius(theta, masses).value
     u = np.sqrt(1.0 - masses[None, :] / mmax[:, None])
     expect = 11.0 + 2.0 * ((theta[:, :1] - 34.0)) + 1.5 * u**2 + 0.3 * np.sin(3.0 * u + (theta[:, 1:2] - 2.0) / 2.0)
     np.testing.assert_allclose(r, expect, rtol=1e-5)
-    assert np.all(np.isnan(model.radius(theta, mmax.max() + 0.01)))
+    assert np.all(np.isnan(model.radius(theta, mmax.max() + 0.01).value))
     outside = theta[0].copy()
     outside[1] = 4.5
-    assert np.isnan(model.mass_max(outside)[0]) and not model.in_domain(outside)[0]
-    assert model.predict(outside).out_of_box[0]
+    assert np.isnan(model.mass_max(outside).value) and not model.in_domain(outside)
+    assert model.predict(outside).out_of_box
 
 
 @pytest.mark.parametrize("kind", ["gp", "spline"])
 def test_save_then_load_gives_identical_predictions(tmp_path, kind):
     settings = GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1)
-    model = train_on(synthetic(128), kind, settings)
+    model = train_on(synthetic(128), kind, settings if kind == "gp" else None)
     model.save(tmp_path / "m")
     again = surrogate.load(tmp_path / "m")
     theta = qmc.scale(qmc.Sobol(4, seed=3).random(32), BOX[:, 0], BOX[:, 1])
     masses = np.array([1.1, 1.7])
+    assert again.meta == model.meta  # typed metadata survives JSON
     for fn in ("radius", "tidal_deformability", "moment_of_inertia", "k2"):
-        np.testing.assert_array_equal(getattr(model, fn)(theta, masses), getattr(again, fn)(theta, masses))
+        a, b = getattr(model, fn)(theta, masses, True, True), getattr(again, fn)(theta, masses, True, True)
+        for field in ("value", "grad", "std"):
+            np.testing.assert_array_equal(getattr(a, field), getattr(b, field))
     a, b = model.predict(theta, return_std=True), again.predict(theta, return_std=True)
     np.testing.assert_array_equal(a.radius_km, b.radius_km)
     for k in a.std:
@@ -123,17 +134,18 @@ def test_gradients_match_finite_differences():
     model = train_on(synthetic(200), "gp", GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1))
     theta = np.array([[34.4, 3.1, 2.2, 3.0]])
     for fn in ("radius", "tidal_deformability", "k2"):
-        val, grad = getattr(model, fn)(theta, [1.3], return_grad=True)
+        e = getattr(model, fn)(theta, [1.3], return_grad=True)
+        val, grad = e.value, e.grad
         for i in range(4):
             step = 1e-4 * (BOX[i, 1] - BOX[i, 0])
             tp, tm = theta.copy(), theta.copy()
             tp[0, i] += step
             tm[0, i] -= step
-            fd = (getattr(model, fn)(tp, [1.3]) - getattr(model, fn)(tm, [1.3])) / (2 * step)
+            fd = (getattr(model, fn)(tp, [1.3]).value - getattr(model, fn)(tm, [1.3]).value) / (2 * step)
             assert grad[0, 0, i] == pytest.approx(fd[0, 0], rel=1e-4, abs=1e-7 * abs(val[0, 0]))
-    mm, g = model.mass_max(theta, return_grad=True)
+    g = model.mass_max(theta, return_grad=True).grad
     step = 1e-4 * (BOX[1, 1] - BOX[1, 0])
-    fd = (model.mass_max(theta + [0, step, 0, 0]) - model.mass_max(theta - [0, step, 0, 0])) / (2 * step)
+    fd = (model.mass_max(theta + [0, step, 0, 0]).value - model.mass_max(theta - [0, step, 0, 0]).value) / (2 * step)
     assert g.shape == (1, 4) and g[0, 1] == pytest.approx(fd[0], rel=1e-4)
 
 
@@ -143,17 +155,19 @@ def test_shared_curve_kernels_serve_every_curve_block_once():
     settings = GPSettings(n_subset=128, n_restarts=0, curve_groups=2, n_jobs=1, share_curve_kernels=True,
                           warp_inputs=False)  # the test function is smooth in the parameters themselves
     model = train_on(synthetic(256), "gp", settings)
-    m = model._m
+    m = model.arrays
     bounds, kernel_of, slices = m["group_bounds"], m["group_kernel"], m["curve_slices"]
-    assert model.meta["training"]["gp"]["n_kernels"] == len(set(kernel_of.tolist())) == 2 + 2
+    assert model.meta.fit.n_kernels == len(set(kernel_of.tolist())) == 2 + 2
     for g in range(len(kernel_of)):
         np.testing.assert_array_equal(m["length"][g], m["length"][kernel_of[g]])
         if bounds[g] >= slices[0][1]:  # a Lambda or I block: shares a radius block's kernel
             assert bounds[kernel_of[g] + 1] <= slices[0][1]
     theta = qmc.scale(qmc.LatinHypercube(4, seed=8).random(100), BOX[:, 0], BOX[:, 1])
-    separate = {k: v for k, v in m.items() if k != "group_kernel"}  # every group evaluates its own kernel
-    np.testing.assert_allclose(rt.outputs(np, m, theta)[0], rt.outputs(np, separate, theta)[0], rtol=1e-12)
-    np.testing.assert_allclose(rt.output_std(np, m, theta), rt.output_std(np, separate, theta), rtol=1e-12)
+    # every group evaluates its own kernel
+    separate = surrogate.Surrogate(model.meta, {k: v for k, v in m.items() if k != "group_kernel"})
+    a, b = model.evaluate(theta, std=True), separate.evaluate(theta, std=True)
+    np.testing.assert_allclose(a.values, b.values, rtol=1e-12)
+    np.testing.assert_allclose(a.std, b.std, rtol=1e-12)
     np.testing.assert_allclose(_all_outputs(model, theta), _truth_matrix(theta), rtol=1e-3)
 
 
@@ -161,34 +175,33 @@ def test_shared_curve_kernels_serve_every_curve_block_once():
 def test_predict_at_masses_equals_the_single_queries(kind):
     """One evaluation for everything gives the same numbers as predict() and each query at masses."""
     settings = GPSettings(n_subset=64, n_restarts=0, curve_groups=2, n_jobs=1)
-    model = train_on(synthetic(128), kind, settings)
+    model = train_on(synthetic(128), kind, settings if kind == "gp" else None)
     theta = qmc.scale(qmc.Sobol(4, seed=5).random(16), BOX[:, 0], BOX[:, 1])
     theta[0, 2] = BOX[2, 1] + 0.1  # outside: NaN everywhere
     masses = [1.0, 1.5, 2.2]
-    sigma = kind == "gp"
-    at = model.predict_at_masses(theta, masses, return_std=sigma)
-    ref = model.predict(theta, return_std=sigma)
+    at = model.predict_at_masses(theta, masses, return_std=True)
+    ref = model.predict(theta, return_std=True)
     np.testing.assert_array_equal(at.prediction.radius_km, ref.radius_km)
     np.testing.assert_array_equal(at.prediction.mass_max_msun, ref.mass_max_msun)
     for field, query in [("radius_km", "radius"), ("tidal_deformability", "tidal_deformability"),
                          ("moment_of_inertia_1e45_g_cm2", "moment_of_inertia"), ("k2", "k2")]:
-        want = getattr(model, query)(theta, masses, return_std=sigma)
-        if sigma:
-            np.testing.assert_array_equal(getattr(at, field), want[0])
-            np.testing.assert_array_equal(at.std[field], want[1])
-        else:
-            np.testing.assert_array_equal(getattr(at, field), want)
+        want = getattr(model, query)(theta, masses, return_std=True)
+        np.testing.assert_array_equal(getattr(at, field), want.value)
+        np.testing.assert_array_equal(at.std[field], want.std)
         assert np.isnan(getattr(at, field)[0]).all()
         assert np.isfinite(getattr(at, field)[1:, 0]).any()
-    with pytest.raises(InputError, match="masses"):
-        model.predict_at_masses(theta, [[1.0, 1.2]])
+        # a sigma where the model has one; NaN (no error estimate, never a false zero) for splines
+        assert (np.all(want.std[1:][np.isfinite(want.value[1:])] > 0) if model.has_std
+                else np.isnan(want.std).all())
+    with pytest.raises(InputError, match="mass must be a scalar"):
+        model.predict_at_masses(theta, [[1.0, 1.2], [1.1, 1.3]])
 
 
 def test_leave_one_out_sigma_at_a_training_point_equals_sigma_without_it():
     """gp_local_std(skip_nearest=1) at training points, used to calibrate sigma, is the sigma of the
     same model with that point removed."""
     model = train_on(synthetic(96), "gp", GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1))
-    m = model._m
+    m = model.arrays
     for i in (0, 17, 95):
         without = {**m, "X": np.delete(m["X"], i, axis=0)}
         x = m["X"][i:i + 1]
@@ -209,11 +222,11 @@ def test_a_degenerate_fit_is_reported_loudly():
     settings = GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1, warp_inputs=False)
     with pytest.warns(UserWarning, match=r"GP kernel \d: neighbouring training points are nearly uncorrelated"):
         model = train_on(noisy, "gp", settings)
-    assert model.meta["training"]["gp"]["degenerate_kernels"]
+    assert model.meta.fit.degenerate_kernels
     with warnings.catch_warnings():
         warnings.simplefilter("error", UserWarning)
         smooth = train_on(data, "gp", settings)
-    assert smooth.meta["training"]["gp"]["degenerate_kernels"] == []
+    assert smooth.meta.fit.degenerate_kernels == ()
 
 
 def test_spline_stretch_follows_the_length_scales_and_falls_back_when_degenerate():
@@ -222,16 +235,16 @@ def test_spline_stretch_follows_the_length_scales_and_falls_back_when_degenerate
     import dataclasses
 
     from tovforge.surrogate import SplineSettings
-    from tovforge.surrogate._fit import MIN_STRETCH
+    from tovforge.surrogate._rbf import MIN_STRETCH
 
     data = synthetic(128)
-    model = train_on(data, "spline", spline_settings=SplineSettings(warp_inputs=False))
-    info = model.meta["training"]["rbf"]
-    length = np.array(info["anisotropy_length_scales"])
+    model = train_on(data, "spline", SplineSettings(warp_inputs=False))
+    info = model.meta.fit
+    length = np.array(info.anisotropy_length_scales)
     np.testing.assert_allclose(model.arrays["input_scale"], np.maximum(length.min() / length, MIN_STRETCH))
     assert model.arrays["input_scale"].max() == 1.0 and model.arrays["input_scale"].min() < 1.0
     rng = np.random.default_rng(1)
     noise = dataclasses.replace(data, curves={k: rng.normal(size=v.shape) for k, v in data.curves.items()})
     with pytest.warns(UserWarning, match="input stretch came out degenerate"):
-        flat = train_on(noise, "spline", spline_settings=SplineSettings(warp_inputs=False))
+        flat = train_on(noise, "spline", SplineSettings(warp_inputs=False))
     np.testing.assert_array_equal(flat.arrays["input_scale"], 1.0)

@@ -45,7 +45,7 @@ def small_gp(tmp_path_factory):
 
 def test_refine_adds_solves_where_sigma_is_largest_and_retrains(small_gp, tmp_path):
     model, _ = small_gp
-    n0 = model.meta["training"]["n_train"]
+    n0 = model.n_train
     res = refine(model, 6, tmp_path / "refined", holdout=HOLDOUT, n_candidates=512, workers=1)
     # the added points: inside the box, new, and among the largest-sigma candidates
     lo, hi = model.bounds.T
@@ -57,12 +57,13 @@ def test_refine_adds_solves_where_sigma_is_largest_and_retrains(small_gp, tmp_pa
     added = read_grid(res.points_path)
     n_ok = len(read_training_data(res.points_path, min_points=0).theta)  # the rows training keeps
     assert len(added.parameters) == 6 and n_ok >= 1
-    assert res.model.meta["training"]["n_train"] == n0 + n_ok
-    assert res.model.meta["training"]["refinement_grids"] == [str(res.points_path)]
+    assert res.model.n_train == n0 + n_ok
+    assert res.model.meta.training.refinement_grids == (str(res.points_path),)
+    assert res.model.meta.settings == model.meta.settings  # retrained as it was trained
     # the learning curve: before and after, on the held-out grid, and the model stored it
-    assert [row["n_train"] for row in res.learning_curve] == [n0, n0 + n_ok]
-    assert all(np.isfinite(row["radius_p95_km"]) and row["radius_p95_km"] > 0 for row in res.learning_curve)
-    assert res.model.meta["learning_curve"] == res.learning_curve
+    assert [row.n_train for row in res.learning_curve] == [n0, n0 + n_ok]
+    assert all(np.isfinite(row.radius_p95_km) and row.radius_p95_km > 0 for row in res.learning_curve)
+    assert res.model.meta.learning_curve == res.learning_curve
 
 
 def test_selected_points_have_larger_sigma_than_typical_candidates(small_gp):
@@ -92,5 +93,5 @@ def test_refine_of_a_spline_model_is_one_line_with_exit_2(small_gp, tmp_path):
     _, d = small_gp
     train(d / "small.h5", "spline").save(tmp_path / "spline")
     res = runner.invoke(app, ["grid", "refine", str(tmp_path / "spline"), "--budget", "4"])
-    assert res.exit_code == 2 and "needs a Gaussian-process model" in res.stderr
+    assert res.exit_code == 2 and "needs a model with a predictive sigma" in res.stderr
     assert res.stderr.count("\n") == 1 and "Traceback" not in res.output

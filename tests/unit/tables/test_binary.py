@@ -58,7 +58,7 @@ def test_model_source_uses_the_model_lambdas():
     model = tiny_model("spline")
     theta = np.array([THETA_SLY[n] for n in model.parameter_names])
     res = binary_deformability(lambda_from_model(model, theta), [1.4, 1.5, 3.0], [1.3, 1.2, 1.0])
-    lam = model.tidal_deformability(theta[None, :], [1.4, 1.5, 3.0, 1.3, 1.2, 1.0])[0]
+    lam = model.tidal_deformability(theta, [1.4, 1.5, 3.0, 1.3, 1.2, 1.0]).value
     np.testing.assert_array_equal(res.lambda1, lam[:3])
     np.testing.assert_array_equal(res.lambda2, lam[3:])
     np.testing.assert_allclose(res.lambda_tilde[:2], lambda_tilde(res.m1_msun, res.m2_msun, lam[:3], lam[3:])[:2],

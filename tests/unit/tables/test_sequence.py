@@ -80,9 +80,9 @@ def test_light_masses_are_found(sly, tmp_path):
 
 
 @pytest.mark.parametrize("kwargs, match", [
-    ({"points": 1}, "--points must be an integer in"),
-    ({"masses": [1.4, -1.0]}, "--masses must be positive"),
-    ({"points": 10, "min_mass_msun": 0.0}, "--min-mass must be in"),
+    ({"points": 1}, "points must be an integer in"),
+    ({"masses": [1.4, -1.0]}, "masses must be positive"),
+    ({"points": 10, "min_mass_msun": 0.0}, "min_mass_msun must be in"),
 ])
 def test_bad_options(sly, tmp_path, kwargs, match):
     with pytest.raises(InputError, match=match):

@@ -1,25 +1,21 @@
-"""``tovforge grid ...`` commands: a thin front over :mod:`tovforge.grid`."""
+"""``tovforge grid run|info``: a thin front over :mod:`tovforge.grid` (``grid refine`` lives in :mod:`.model`)."""
 
 from __future__ import annotations
 
-import warnings
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
 
-grid_app = typer.Typer(help="Build, resume and inspect grids of exact solves over an EOS parameter box.",
-                       no_args_is_help=True)
+from ._common import run, show_progress
+
+__all__ = ["app", "info_cmd", "run_cmd"]
+
+app = typer.Typer(help="Build, resume and inspect grids of exact solves over an EOS parameter box.",
+                  no_args_is_help=True)
 
 
-def _helpers():
-    # imported late: tovforge.cli imports this module while it is being set up
-    from ..cli import _fail, _run
-
-    return _run, _fail
-
-
-@grid_app.command("run")
+@app.command("run")
 def run_cmd(
     spec: Annotated[Path, typer.Argument(help="Grid spec (TOML; see grids/*.toml).", dir_okay=False)],
     out: Annotated[Path, typer.Option("--out", help="HDF5 file to write (finished chunks go to OUT.parts/).",
@@ -30,29 +26,24 @@ def run_cmd(
     scheduler: Annotated[
         Optional[str],
         typer.Option("--scheduler", help="dask.distributed scheduler address (e.g. tcp://host:8786): run on "
-                                         "that cluster through joblib's Dask backend."),
+                                         "that cluster through joblib's Dask backend (needs tovforge[cluster])."),
     ] = None,
     overwrite: Annotated[
         bool, typer.Option("--overwrite", help="Replace an output, and discard unfinished chunks, made from another "
                                      "spec (those of the same spec are kept: the run resumes).")
     ] = False,
-    quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ):
     """Solve every point of SPEC and write one HDF5 grid; rerun the same command to resume after a crash."""
-    from . import load_spec, parts_folder, run_grid
-
-    _run, _ = _helpers()
+    from ..grid import load_spec, parts_folder, run_grid
 
     def work():
-        with warnings.catch_warnings():
-            # warnings (a box past the allowed range, a damaged chunk file) as one line each, when they happen
-            warnings.simplefilter("always", UserWarning)
-            warnings.showwarning = lambda message, *args, **kwargs: typer.echo(f"warning: {message}", err=True)
-            s = load_spec(spec)
-            return run_grid(s, out, workers=workers, scheduler=scheduler, overwrite=overwrite, progress=not quiet)
+        s = load_spec(spec)
+        return run_grid(s, out, workers=workers, scheduler=scheduler, overwrite=overwrite,
+                        progress=show_progress(quiet))
 
     try:
-        summary = _run(work)
+        summary = run(work)
     except KeyboardInterrupt:
         typer.echo(f"\ninterrupted: finished chunks are kept in {parts_folder(out)}; rerun the same command "
                    "to resume.", err=True)
@@ -60,10 +51,9 @@ def run_cmd(
     typer.echo(summary.text())
 
 
-@grid_app.command("info")
+@app.command("info")
 def info_cmd(path: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)]):
     """Counts by status, parameter coverage, output ranges and provenance of a grid file."""
-    from . import describe_grid
+    from ..grid import describe_grid
 
-    _run, _ = _helpers()
-    typer.echo(_run(lambda: describe_grid(path)))
+    typer.echo(run(lambda: describe_grid(path)))

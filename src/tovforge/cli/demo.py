@@ -7,6 +7,10 @@ from typing import Annotated, Optional
 
 import typer
 
+from ._common import Kind, run, show_progress
+
+__all__ = ["demo_cmd"]
+
 
 def demo_cmd(
     out: Annotated[Path, typer.Option("--out", help="Output folder (figures, tables, models, summary.md).",
@@ -21,8 +25,7 @@ def demo_cmd(
     holdout_spec: Annotated[Path, typer.Option("--holdout-spec", help="Held-out grid spec; its .h5 is reused or "
                                                                       "built.", dir_okay=False)]
     = Path("grids/demo-holdout.toml"),
-    sampler: Annotated[str, typer.Option("--sampler", help="Exported evaluator the sampler calls: spline or gp.")]
-    = "spline",
+    sampler: Annotated[Kind, typer.Option("--sampler", help="Exported evaluator the sampler calls.")] = Kind.spline,
     walkers: Annotated[Optional[int], typer.Option("--walkers", min=4, help="Ensemble walkers [default: 32].")] = None,
     steps: Annotated[Optional[int], typer.Option("--steps", min=2, help="Steps per walker [default: 1500; "
                                                                         "--quick 400].")] = None,
@@ -37,24 +40,26 @@ def demo_cmd(
     workers: Annotated[Optional[int], typer.Option("--workers", min=1, help="Processes for building grids "
                                                                            "[default: all cores].")] = None,
 ):
-    """Run the demo: grids, GP and spline surrogates, check, export, and a fit to INVENTED data."""
+    """Run the demo: grids, GP and spline surrogates, check, export, and a fit to INVENTED data.
+
+    Needs the demo extra: pip install 'tovforge[demo]'.
+    """
     import dataclasses
 
-    from ..cli import _run
-    from . import DemoSettings, run_demo
+    from ..demo import DemoSettings, run_demo
 
     def work():
         base = DemoSettings.quick() if quick else DemoSettings()
         gp = dataclasses.replace(base.gp, n_restarts=gp_restarts,
                                  **({"n_subset": gp_subset} if gp_subset is not None else {}))
-        changes = dict(train_spec=train_spec, holdout_spec=holdout_spec, sampler_model=sampler, data=data,
-                       seed=seed, workers=workers, gp=gp)
+        changes = dict(train_spec=train_spec, holdout_spec=holdout_spec, sampler_model=sampler.value, data=data,
+                       seed=seed, workers=workers, gp=gp, progress=show_progress())
         for key, value in (("n_walkers", walkers), ("n_steps", steps), ("n_burn", burn),
                            ("n_cross_check", cross_check)):
             if value is not None:
                 changes[key] = value
-        return run_demo(out, dataclasses.replace(base, **changes), echo=typer.echo)
+        return run_demo(out, dataclasses.replace(base, **changes))
 
-    result = _run(work)
+    result = run(work)
     if result.failures:
         raise typer.Exit(code=1)

@@ -1,22 +1,24 @@
 """``tovforge table ...``: sequence, box, samples, binary and info.
 
 Thin front: parse, call :mod:`tovforge.tables`, print.  Errors caused by user
-input are one line on stderr with exit code 2 (``tovforge.cli._run``).
+input are one line on stderr with exit code 2 (:func:`tovforge.cli._common.run`).
 """
 
 from __future__ import annotations
 
-import shlex
-import sys
+import json
 from pathlib import Path
 from typing import Annotated, Optional
 
 import typer
 
-from .._cliargs import FamilyArg, ParametersArg
 from ..errors import InputError
+from ._common import (FamilyArg, ParametersArg, aligned, command_line, make_eos, parse_assignments,
+                      parse_float_list, parse_number, run, show_progress)
 
-table_app = typer.Typer(
+__all__ = ["app", "parse_axis", "parse_fixed", "parse_range"]
+
+app = typer.Typer(
     help="Lookup tables: one EOS's stable branch, observables over a parameter box, posterior samples, "
          "binary Lambda-tilde.  Formats by extension: .csv (units in the header), .h5, .npz.",
     no_args_is_help=True,
@@ -25,42 +27,15 @@ table_app = typer.Typer(
 _OUT_HELP = "Table file: .csv, .h5 or .npz (chosen by the extension)."
 
 
-def _run(fn):
-    from ..cli import _run as run
-
-    return run(fn)
-
-
-def _command() -> str:
-    return shlex.join([Path(sys.argv[0]).name, *sys.argv[1:]])
-
-
-def _floats(text: str, option: str) -> list[float]:
-    from ..cli import parse_float_list
-
-    return parse_float_list(text, option)
-
-
-def _number(text: str, what: str) -> float:
-    """One finite number, parsed by the CLI's number parser."""
-    try:
-        values = _floats(text, what)
-    except InputError:
-        values = []
-    if len(values) != 1:
-        raise InputError(f"{what}: expected one finite number, got {text!r}.")
-    return values[0]
-
-
 def parse_axis(item: str):
     """``NAME=LO:HI:N`` -> :class:`tovforge.tables.Axis`."""
-    from . import Axis
+    from ..tables import Axis
 
     name, sep, rest = item.partition("=")
     parts = rest.split(":")
     if not sep or not name.strip() or len(parts) != 3:
         raise InputError(f"--axis expects NAME=LO:HI:N (e.g. gamma1=2:4:50); got {item!r}.")
-    lo, hi = (_number(p, f"--axis {item}") for p in parts[:2])
+    lo, hi = (parse_number(p, f"--axis {item}") for p in parts[:2])
     try:
         n = int(parts[2])
     except ValueError:
@@ -72,9 +47,7 @@ def parse_axis(item: str):
 
 def parse_fixed(items: list[str]) -> dict:
     """``["NAME=VALUE", ...]`` -> ``{name: value}``."""
-    from ..cli import parse_assignments
-
-    return {k: _number(v, f"--fix {k}") for k, v in parse_assignments(items, "--fix").items()}
+    return {k: parse_number(v, f"--fix {k}") for k, v in parse_assignments(items, "--fix").items()}
 
 
 def parse_range(text: str, option: str, lo: float, hi: float, open_lo: bool = True):
@@ -83,9 +56,9 @@ def parse_range(text: str, option: str, lo: float, hi: float, open_lo: bool = Tr
 
     parts = text.split(":")
     if len(parts) == 1:
-        values = np.array([_number(parts[0], option)])
+        values = np.array([parse_number(parts[0], option)])
     elif len(parts) == 3:
-        a, b = (_number(p, option) for p in parts[:2])
+        a, b = (parse_number(p, option) for p in parts[:2])
         try:
             n = int(parts[2])
         except ValueError:
@@ -118,14 +91,15 @@ def _finish(summary) -> None:
 # ---------------------------------------------------------------------------
 
 
-@table_app.command("sequence")
+@app.command("sequence")
 def sequence_cmd(
     family: FamilyArg,
     parameters: ParametersArg = None,
     out: Annotated[Path, typer.Option("--out", help=_OUT_HELP, dir_okay=False)] = ...,
     points: Annotated[
-        Optional[int], typer.Option("--points", help="Stars at central pressures evenly spaced in ln p_c, from the "
-                                                     "lightest star to the maximum-mass star (default 100).")
+        Optional[int], typer.Option("--points", min=2, max=100_000,
+                                    help="Stars at central pressures evenly spaced in ln p_c, from the lightest star "
+                                         "to the maximum-mass star (default 100).")
     ] = None,
     masses: Annotated[
         Optional[str], typer.Option("--masses", help="Comma-separated masses in Msun instead: one exact star each.")
@@ -133,19 +107,17 @@ def sequence_cmd(
     min_mass: Annotated[float, typer.Option("--min-mass", help="Lightest star of --points (Msun).")] = 0.3,
 ):
     """The stable branch of one EOS: a column per star quantity (M, R, C, Lambda, k2, I, M_b, central values)."""
-    from . import sequence_table
+    from ..tables import sequence_table
 
     def work():
-        from ..cli import make_eos
-
         if points is not None and masses is not None:
             raise InputError("give --points or --masses, not both.")
         eos_obj = make_eos(family, parameters or [])
-        qm = _floats(masses, "--masses") if masses is not None else None
+        qm = parse_float_list(masses, "--masses") if masses is not None else None
         return sequence_table(out, eos_obj, points=100 if points is None else points, masses=qm,
-                              min_mass_msun=min_mass, command=_command())
+                              min_mass_msun=min_mass, command=command_line())
 
-    _finish(_run(work))
+    _finish(run(work))
 
 
 # ---------------------------------------------------------------------------
@@ -153,7 +125,7 @@ def sequence_cmd(
 # ---------------------------------------------------------------------------
 
 
-@table_app.command("box")
+@app.command("box")
 def box_cmd(
     model: Annotated[
         Optional[Path], typer.Argument(help="Model folder written by `tovforge train` (or use --exact).")
@@ -183,10 +155,10 @@ def box_cmd(
         float, typer.Option("--mass-floor", help="--exact: floor of mass_max_margin (Msun); a model has its own.")
     ] = 1.0,
     keep_grid: Annotated[bool, typer.Option("--keep-grid", help="--exact: keep the work grid OUT.grid.h5.")] = False,
-    quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ):
     """Observables over a regular slice or full grid of EOS parameters, from a model or exact solves."""
-    from . import box_table, exact_box_table, parse_quantities
+    from ..tables import box_table, exact_box_table, parse_quantities
 
     def work():
         if (model is None) == (exact is None):
@@ -201,15 +173,16 @@ def box_cmd(
         axes = [parse_axis(a) for a in axis or []]
         fixed = parse_fixed(fix or [])
         qs = parse_quantities(quantities)
-        ms = _floats(masses, "--masses")
+        ms = parse_float_list(masses, "--masses")
         if exact is not None:
             return exact_box_table(out, exact, axes, fixed, qs, ms, mass_floor_msun=mass_floor, workers=workers,
-                                   scheduler=scheduler, progress=not quiet, command=_command(), keep_grid=keep_grid)
-        return box_table(out, model, axes, fixed, qs, ms, sigma=not no_sigma, progress=not quiet,
-                         command=_command())
+                                   scheduler=scheduler, progress=show_progress(quiet), command=command_line(),
+                                   keep_grid=keep_grid)
+        return box_table(out, model, axes, fixed, qs, ms, sigma=not no_sigma, progress=show_progress(quiet),
+                         command=command_line())
 
     try:
-        summary = _run(work)
+        summary = run(work)
     except KeyboardInterrupt:
         if exact is None:
             raise
@@ -224,7 +197,7 @@ def box_cmd(
 # ---------------------------------------------------------------------------
 
 
-@table_app.command("samples")
+@app.command("samples")
 def samples_cmd(
     model: Annotated[Path, typer.Argument(help="Model folder written by `tovforge train`.")],
     samples: Annotated[
@@ -248,23 +221,23 @@ def samples_cmd(
                                                      "(weights, likelihoods).")
     ] = None,
     no_sigma: Annotated[bool, typer.Option("--no-sigma", help="Leave out the GP's sigma columns.")] = False,
-    quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ):
     """Observables for every row of a samples file, and their median and 90 % band per mass.
 
     Rows with NaN or missing values, or outside the model's box, are left out
     and reported by number (exit code 2); the other rows are written.
     """
-    from . import parse_quantities, samples_table
+    from ..tables import parse_quantities, samples_table
 
     def work():
         qs = parse_quantities(quantities)
-        ms = _floats(masses, "--masses")
+        ms = parse_float_list(masses, "--masses")
         skip = [s.strip() for s in ignore.split(",") if s.strip()] if ignore else []
         return samples_table(out, model, samples, qs, ms, band=band, plot=plot, ignore=skip, sigma=not no_sigma,
-                             progress=not quiet, command=_command())
+                             progress=show_progress(quiet), command=command_line())
 
-    _finish(_run(work))
+    _finish(run(work))
 
 
 # ---------------------------------------------------------------------------
@@ -276,11 +249,10 @@ def _lambda_source(source: str, parameters: list[str]):
     """``(Lambda(M), metadata)`` from a model folder, a table file or an EOS family name."""
     import numpy as np
 
-    from . import lambda_from_eos, lambda_from_model, lambda_from_table, read_table
+    from ..tables import lambda_from_eos, lambda_from_model, lambda_from_table, read_table
 
     path = Path(source)
     if path.is_dir():
-        from ..cli import parse_assignments
         from ..surrogate import load
 
         model = load(path)
@@ -291,19 +263,17 @@ def _lambda_source(source: str, parameters: list[str]):
         if unknown or missing:
             raise InputError(f"the model takes {' '.join(f'{n}=VALUE' for n in names)}; "
                              + (f"{unknown[0]!r} is not one of them." if unknown else f"{missing[0]} is missing."))
-        theta = np.array([_number(values[n], n) for n in names])
+        theta = np.array([parse_number(values[n], n) for n in names])
         for n, v, (lo, hi) in zip(names, theta, model.bounds):
             if not lo <= v <= hi:
                 raise InputError(f"{n}={v:g} is outside the model's box: {n} must be in [{lo:g}, {hi:g}].")
         return lambda_from_model(model, theta), dict(source="model", model=str(path), model_kind=model.kind,
                                                      family=model.family,
-                                                     parameters_json=_json(dict(zip(names, theta.tolist()))))
+                                                     parameters_json=json.dumps(dict(zip(names, theta.tolist()))))
     if path.is_file():
         if parameters:
             raise InputError(f"{source} is a table: it takes no NAME=VALUE parameters.")
         return lambda_from_table(read_table(path)), dict(source="table", table=str(path))
-    from ..cli import make_eos
-
     try:
         eos_obj = make_eos(source, parameters)
     except InputError as exc:
@@ -312,16 +282,10 @@ def _lambda_source(source: str, parameters: list[str]):
                              f"({exc})") from None
         raise
     return lambda_from_eos(eos_obj), dict(source="exact", family=eos_obj.family.name,
-                                          parameters_json=_json(dict(eos_obj.parameters)))
+                                          parameters_json=json.dumps(dict(eos_obj.parameters)))
 
 
-def _json(d) -> str:
-    import json
-
-    return json.dumps(d)
-
-
-@table_app.command("binary")
+@app.command("binary")
 def binary_cmd(
     source: Annotated[
         str, typer.Argument(help="Where Lambda(M) comes from: a model folder, a sequence table file, or an EOS "
@@ -347,7 +311,7 @@ def binary_cmd(
     """Binary tidal deformability Lambda-tilde for component masses, or over chirp mass and mass ratio."""
     import numpy as np
 
-    from . import binary_deformability, binary_table, component_masses
+    from ..tables import binary_deformability, binary_table, component_masses
 
     def work():
         by_masses = m1 is not None or m2 is not None
@@ -357,7 +321,7 @@ def binary_cmd(
         if by_masses:
             if m1 is None or m2 is None:
                 raise InputError("--m1 and --m2 go together.")
-            a, b = np.array(_floats(m1, "--m1")), np.array(_floats(m2, "--m2"))
+            a, b = np.array(parse_float_list(m1, "--m1")), np.array(parse_float_list(m2, "--m2"))
             if a.size != b.size and 1 not in (a.size, b.size):
                 raise InputError(f"--m1 has {a.size} masses and --m2 {b.size}; give equal counts (pairs) or one.")
         else:
@@ -369,10 +333,10 @@ def binary_cmd(
         lam, meta = _lambda_source(source, parameters or [])
         res = binary_deformability(lam, a, b)
         if out is not None:
-            return binary_table(out, res, command=_command(), **meta)
+            return binary_table(out, res, command=command_line(), **meta)
         return res
 
-    res = _run(work)
+    res = run(work)
     if out is not None:
         _finish(res)
         return
@@ -381,10 +345,7 @@ def binary_cmd(
             res.lambda_tilde]
     fmts = ["{:.5f}", "{:.5f}", "{:.6f}", "{:.5f}", "{:.6g}", "{:.6g}", "{:.6g}"]
     rows = [[f.format(float(c[i])) for f, c in zip(fmts, cols)] for i in range(len(res.m1_msun))]
-    widths = [max(len(h), *(len(r[j]) for r in rows)) for j, h in enumerate(heads)]
-    typer.echo("  ".join(h.rjust(w) for h, w in zip(heads, widths)))
-    for r in rows:
-        typer.echo("  ".join(c.rjust(w) for c, w in zip(r, widths)))
+    typer.echo(aligned(heads, rows))
 
 
 # ---------------------------------------------------------------------------
@@ -392,12 +353,12 @@ def binary_cmd(
 # ---------------------------------------------------------------------------
 
 
-@table_app.command("info")
+@app.command("info")
 def info_cmd(path: Annotated[Path, typer.Argument(help="A table file (.csv, .h5, .npz).", dir_okay=False)]):
     """Rows, columns with units, and the provenance of a table file."""
-    from . import read_table
+    from ..tables import read_table
 
-    t = _run(lambda: read_table(path))
+    t = run(lambda: read_table(path))
     typer.echo(f"{path}: {t.meta.get('kind', '?')} table, {len(t)} rows, {len(t.columns)} columns")
     width = max(len(n) for n in t.columns) if t.columns else 0
     for n in t.columns:

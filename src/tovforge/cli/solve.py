@@ -1,0 +1,99 @@
+"""``tovforge families`` and ``tovforge solve``: the EOS families, and one EOS solved exactly."""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from .._jsonfile import jsonable
+from ..errors import InputError
+from ._common import FamilyArg, ParametersArg, make_eos, parse_float_list, run
+
+__all__ = ["families_cmd", "solve_cmd"]
+
+
+def families_cmd():
+    """List the EOS families with their parameters, units and default box."""
+    from .. import eos
+
+    for fam in eos.families().values():
+        typer.echo(f"{fam.name}: {fam.description}")
+        typer.echo(f"    reference: {fam.reference}")
+        if not fam.numeric:
+            typer.echo("    parameters: path=FILE (required), columns=NAMES, units=UNITS")
+            continue
+        for p in fam.parameters:
+            unit = "" if p.unit == "1" else f" [{p.unit}]"
+            typer.echo(
+                f"    {p.name:<16}{unit:<22} allowed {p.range_text():<14} demo box [{p.box[0]:g}, {p.box[1]:g}]"
+                f"  {p.description}"
+            )
+
+
+def solve_cmd(
+    family: FamilyArg,
+    parameters: ParametersArg = None,
+    masses: Annotated[
+        Optional[str], typer.Option("--masses", help="Comma-separated masses in Msun to solve exactly.")
+    ] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of text.")] = False,
+    table: Annotated[
+        Optional[Path], typer.Option("--table", help="Write the stable branch to this table (.csv, .h5 or .npz; the "
+                                                     "format of `tovforge table sequence`).", dir_okay=False)
+    ] = None,
+    profile: Annotated[
+        Optional[float], typer.Option("--profile", help="Also print the interior profile of the star of this mass.")
+    ] = None,
+    stars: Annotated[int, typer.Option("--stars", min=8, max=2000, help="Stars along the stable branch.")] = 100,
+):
+    """Solve the stable branch of one EOS: M_max, the M-R-Lambda-I sequence, stars at given masses."""
+    from .. import solve, tables
+
+    def work():
+        if table is not None:
+            tables.table_format(table)
+        eos_obj = make_eos(family, parameters or [])
+        qm = parse_float_list(masses, "--masses") if masses else None
+        if qm is not None and any(m <= 0 for m in qm):
+            raise InputError("--masses must be positive (Msun).")
+        if profile is not None and not (profile > 0 and math.isfinite(profile)):
+            raise InputError(f"--profile must be a positive mass in Msun. Got {profile}.")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            seq = solve.solve_sequence(eos_obj, n_stars=stars, masses=qm)
+        for w in caught:
+            typer.echo(f"warning: {w.message}", err=True)
+        prof = None
+        if profile is not None and seq.success:
+            if profile > seq.mass_max.mass_msun:
+                typer.echo(
+                    f"warning: --profile {profile:g} Msun exceeds M_max = {seq.mass_max.mass_msun:.4f} Msun; "
+                    "no profile.",
+                    err=True,
+                )
+            else:
+                prof = solve.solve_star(eos_obj, mass_msun=profile)
+        return eos_obj, seq, prof
+
+    eos_obj, seq, prof = run(work)
+    if table is not None:
+        meta = tables.sequence_meta(seq, solve.SequenceSettings(), "branch")
+        run(lambda: tables.star_table(table, seq.branch, meta))
+    if as_json:
+        out = tables.sequence_json(seq)
+        if prof is not None:
+            out["profile"] = tables.profile_json(prof)
+        typer.echo(json.dumps(jsonable(out)))
+        raise typer.Exit(code=0 if seq.success else 1)
+    typer.echo(tables.sequence_text(seq))
+    if prof is not None:
+        typer.echo("")
+        typer.echo(f"interior of the {profile:g} Msun star (centre to surface):")
+        typer.echo(tables.profile_text(prof))
+    if not seq.success:
+        raise typer.Exit(code=1)

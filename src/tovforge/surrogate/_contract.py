@@ -1,0 +1,431 @@
+"""The query contract of a trained surrogate: one implementation for the library and every exported file.
+
+:class:`tovforge.surrogate.Surrogate` answers its queries through the
+``query_*`` functions below, and the exporter copies the source below the
+marker line verbatim into each standalone file (after the runtime, which it
+calls), so the library model and the exported file cannot differ in shapes,
+containers, defaults or return types.  The contract is written down in
+``docs/reference/query-contract.md``; in short:
+
+- Shapes follow the inputs and are never squeezed by count: results have the
+  leading axes ``theta.shape[:-1]`` (none for one theta of shape (d,)), then
+  the mass axis: none for a scalar mass, (q,) for masses of shape (q,) (the
+  same for every theta) or of shape ``theta.shape[:-1] + (q,)`` (one row of
+  masses per theta).  Gradients add a last axis (d,).
+- One return type per function: :class:`Estimate` for ``mass_max`` and the
+  queries at masses, :class:`Curve`, :class:`Prediction`,
+  :class:`MassPrediction`; ``return_grad`` / ``return_std`` fill a field
+  (None when not asked), never change the type.  ``return_std`` is False by
+  default everywhere; models without a predictive sigma (splines) give NaN.
+- NaN outside the box, above M_max and below the lowest emulated mass;
+  ``strict=True`` raises :class:`QueryError` (a ``ValueError``) instead.
+
+Like the runtime, the code imports only the standard library's
+``dataclasses`` besides the runtime's names, and works on any array-API
+namespace ``xp``.
+"""
+
+import dataclasses
+
+from ._runtime import (MASS_MAX, branch_curve, curve_at_mass, named_outputs, named_std, needed_columns,
+                       output_std, outputs, star_queries, unit_inputs)
+
+__all__ = ["QueryError", "Estimate", "Curve", "Prediction", "MassPrediction", "AT_MASS_FIELDS", "QUERY_DOCS",
+           "device_of", "query_in_domain", "query_mass_max", "query_at_mass", "query_curve", "query_predict",
+           "query_predict_at_masses"]
+
+# ---- the exported code starts below this line ----
+
+
+class QueryError(ValueError):
+    """A query got an input it cannot answer (a shape, or with ``strict=True`` a value off the model)."""
+
+
+@dataclasses.dataclass(frozen=True)
+class Estimate:
+    """A model's answer for one quantity.
+
+    Attributes
+    ----------
+    value : array
+        The quantity, shape ``theta.shape[:-1]`` plus the mass axis of the
+        query (if any); NaN where the model has no answer.
+    grad : array or None
+        d value / d theta, shape ``value.shape + (d,)``, in the value's unit
+        per unit of each parameter (``return_grad=True``; None otherwise).
+    std : array or None
+        Predictive standard deviation, shape ``value.shape``, in the value's
+        unit (``return_std=True``; None otherwise).  NaN for models without a
+        predictive sigma (splines).
+    """
+
+    value: object
+    grad: object = None
+    std: object = None
+
+
+@dataclasses.dataclass(frozen=True)
+class Curve:
+    """The emulated stable branch from the lowest emulated mass up to M_max.
+
+    Attributes
+    ----------
+    masses_msun, radius_km, tidal_deformability : array, shape theta.shape[:-1] + (n,)
+        Gravitational masses in Msun (increasing), radii in km and the
+        dimensionless tidal deformabilities at ``n`` points uniform in
+        ``u = sqrt(1 - M / M_max)``.
+    """
+
+    masses_msun: object
+    radius_km: object
+    tidal_deformability: object
+
+
+@dataclasses.dataclass(frozen=True)
+class Prediction:
+    """Everything a surrogate predicts at a set of parameter points.
+
+    Scalars have shape ``theta.shape[:-1]``; curves at the nodes add an axis (n_u,).
+
+    Attributes
+    ----------
+    mass_max_msun : array
+        Maximum mass of the stable branch (Msun).
+    central_pressure_at_mass_max_dyn_cm2 : array
+        Central pressure of the maximum-mass star (dyn/cm^2).
+    max_sound_speed_sq : array
+        Largest c_s^2 (units of c^2) from the surface to the centre of the maximum-mass star.
+    u_nodes : array, shape (n_u,)
+        The sequence coordinate ``u = sqrt(1 - M / M_max)`` of the curve nodes.
+    mass_msun, radius_km, tidal_deformability, moment_of_inertia_1e45_g_cm2 : array (..., n_u)
+        The stable branch at the nodes: M (Msun), R (km), Lambda, I (1e45 g cm^2).
+    mass_max_margin_msun : array
+        ``M_max`` minus the floor of the training grid (negative: below the floor).
+    causality_margin : array
+        ``1 - max c_s^2``; negative means the EOS is acausal below M_max.
+    out_of_box : array of bool
+        True where the parameters lie outside the trained box (values are NaN).
+    std : dict or None
+        Predictive standard deviations of the emulated quantities, by field
+        name, in their units (``return_std=True``; NaN for models without a
+        sigma).
+    """
+
+    mass_max_msun: object
+    central_pressure_at_mass_max_dyn_cm2: object
+    max_sound_speed_sq: object
+    u_nodes: object
+    mass_msun: object
+    radius_km: object
+    tidal_deformability: object
+    moment_of_inertia_1e45_g_cm2: object
+    mass_max_margin_msun: object
+    causality_margin: object
+    out_of_box: object
+    std: object = None
+
+
+@dataclasses.dataclass(frozen=True)
+class MassPrediction:
+    """A surrogate's predictions at given masses, with everything of :class:`Prediction`, from one evaluation.
+
+    Attributes
+    ----------
+    prediction : Prediction
+        Scalars and node curves at the same parameters.
+    masses_msun : array
+        The gravitational masses asked for, as given.
+    radius_km, tidal_deformability, moment_of_inertia_1e45_g_cm2, k2 : array
+        Radius (km), dimensionless Lambda, I (1e45 g cm^2) and the Love number
+        k2 at each mass, shaped as the queries' values; NaN above M_max, below
+        the emulated branch or outside the box.
+    std : dict or None
+        Predictive standard deviations of the four per-mass arrays (``return_std=True``).
+    """
+
+    prediction: object
+    masses_msun: object
+    radius_km: object
+    tidal_deformability: object
+    moment_of_inertia_1e45_g_cm2: object
+    k2: object
+    std: object = None
+
+
+#: The per-mass fields of MassPrediction and the query that answers each.
+AT_MASS_FIELDS = (("radius_km", "radius"), ("tidal_deformability", "tidal_deformability"),
+                  ("moment_of_inertia_1e45_g_cm2", "moment_of_inertia"), ("k2", "k2"))
+
+
+def device_of(like):
+    """``device=`` of ``like`` for array creation (nothing for arrays without one, as in NumPy 1.x)."""
+    device = getattr(like, "device", None)
+    return {} if device is None else {"device": device}
+
+
+def _rows(xp, m, theta):
+    """theta as float64 rows (N, d), and its leading axes ``theta.shape[:-1]``."""
+    t = xp.asarray(theta, dtype=xp.float64)
+    d = len(m.parameters)
+    if t.ndim == 0 or t.shape[-1] != d:
+        raise QueryError(f"theta must have shape ({d},) or (n, {d}) (or more leading axes) for the parameters "
+                         f"{', '.join(m.parameters)}; got shape {tuple(t.shape)}.")
+    batch = tuple(t.shape[:-1])
+    return (t if t.ndim == 2 else xp.reshape(t, (-1, d))), batch
+
+
+def _masses(xp, mass, batch, n, like):
+    """Masses as rows (n, q) for the n rows of theta, and the mass axes of the answer."""
+    mass = xp.asarray(mass, dtype=xp.float64, **device_of(like))
+    if mass.ndim == 0:
+        return xp.broadcast_to(xp.reshape(mass, (1, 1)), (n, 1)), ()
+    if mass.ndim == 1:
+        return xp.broadcast_to(xp.reshape(mass, (1, -1)), (n, mass.shape[0])), (mass.shape[0],)
+    q = mass.shape[-1]
+    if mass.ndim == len(batch) + 1 and all(a in (1, b) for a, b in zip(mass.shape[:-1], batch)):
+        rows = xp.broadcast_to(mass, batch + (q,))
+        return (rows if len(batch) == 1 else xp.reshape(rows, (n, q))), (q,)
+    raise QueryError(f"mass must be a scalar, shape (q,) shared by every theta, or shape theta.shape[:-1] + (q,) "
+                     f"with one row per theta (theta.shape[:-1] = {batch}); got shape {tuple(mass.shape)}.")
+
+
+def _shape(xp, a, batch, tail):
+    """A result (N, ...) reshaped to the documented shape ``batch + tail``."""
+    return xp.reshape(a, batch + tuple(tail))
+
+
+def _first(xp, bad):
+    """Index of the first True of a boolean (n,) array."""
+    return int(xp.argmax(xp.astype(bad, xp.int32)))
+
+
+def _require_inside(xp, m, t, inside):
+    if bool(xp.all(inside)):
+        return
+    i = _first(xp, ~inside)
+    for j, name in enumerate(m.parameters):
+        v, (lo, hi) = float(t[i, j]), m.bounds[j]
+        if not lo <= v <= hi:  # also true for NaN
+            raise QueryError(f"theta row {i}: the {name!r} parameter must be in [{lo}, {hi}] (the trained box). "
+                             f"Got {v} instead.")
+    raise QueryError(f"theta row {i} is outside the trained box.")
+
+
+def _require_on_branch(xp, m, value, mass, mmax):
+    ok = ~xp.isnan(value)
+    if bool(xp.all(ok)):
+        return
+    flat = xp.reshape(ok, (ok.shape[0], -1))
+    i = _first(xp, ~xp.all(flat, axis=1))
+    j = _first(xp, ~flat[i])
+    mm = float(mmax[i])
+    lowest = mm * (1.0 - float(m["u_nodes"][-1]) ** 2)
+    raise QueryError(f"theta row {i}: mass {float(mass[i, j])} Msun is outside the emulated stable branch "
+                     f"[{lowest}, {mm}] Msun (above M_max, or below the lowest emulated mass).")
+
+
+def query_in_domain(xp, m, theta):
+    """True where ``theta`` lies inside the trained box, shape ``theta.shape[:-1]``."""
+    t, batch = _rows(xp, m, theta)
+    return _shape(xp, unit_inputs(xp, m, t)[1], batch, ())
+
+
+def query_mass_max(xp, m, theta, return_grad=False, return_std=False, strict=False):
+    """Maximum mass of the stable branch as an :class:`Estimate` (see :data:`QUERY_DOCS`)."""
+    t, batch = _rows(xp, m, theta)
+    columns = needed_columns(m, ())
+    y, inside, dy = outputs(xp, m, t, return_grad, columns)
+    if strict:
+        _require_inside(xp, m, t, inside)
+    i = m.i_mass_max
+    return Estimate(
+        value=_shape(xp, y[:, i], batch, ()),
+        grad=_shape(xp, dy[:, i, :], batch, (t.shape[1],)) if return_grad else None,
+        std=_shape(xp, output_std(xp, m, t, columns)[:, i], batch, ()) if return_std else None,
+    )
+
+
+def query_at_mass(xp, m, query, theta, mass, return_grad=False, return_std=False, strict=False):
+    """The query ``query`` (``"radius"``, ``"k2"``, ...) at gravitational masses, as an :class:`Estimate`."""
+    if query not in star_queries(m):
+        raise QueryError(f"unknown query {query!r}; this model answers {', '.join(star_queries(m))}.")
+    t, batch = _rows(xp, m, theta)
+    rows, tail = _masses(xp, mass, batch, t.shape[0], t)
+    columns = needed_columns(m, (query,))
+    y, inside, dy = outputs(xp, m, t, return_grad, columns)
+    if strict:
+        _require_inside(xp, m, t, inside)
+    sd = output_std(xp, m, t, columns) if return_std else None
+    val, g, s = curve_at_mass(xp, m, y, dy, sd, rows, query)
+    if strict:
+        _require_on_branch(xp, m, val, rows, y[:, m.i_mass_max])
+    return Estimate(
+        value=_shape(xp, val, batch, tail),
+        grad=_shape(xp, g, batch, tail + (t.shape[1],)) if return_grad else None,
+        std=_shape(xp, s, batch, tail) if return_std else None,
+    )
+
+
+def query_curve(xp, m, theta, n=100, strict=False):
+    """The emulated stable branch at ``n`` points, as a :class:`Curve`."""
+    if isinstance(n, bool) or int(n) != n or n < 1:
+        raise QueryError(f"n (points along the branch) must be a positive integer; got {n!r}.")
+    n = int(n)
+    t, batch = _rows(xp, m, theta)
+    # one evaluation serves M_max and both curves (the masses then sit exactly on the branch)
+    y, inside, _ = outputs(xp, m, t, False, needed_columns(m, ("radius", "tidal_deformability")))
+    if strict:
+        _require_inside(xp, m, t, inside)
+    masses, R, L = branch_curve(xp, m, y, xp.linspace(1.0, 0.0, n, dtype=xp.float64, **device_of(t)))
+    return Curve(*(_shape(xp, a, batch, (n,)) for a in (masses, R, L)))
+
+
+def _prediction(xp, m, y, inside, sd, batch):
+    f = named_outputs(xp, m, y)
+    f["mass_max_margin_msun"] = f[MASS_MAX] - m.mass_floor_msun
+    f["causality_margin"] = 1.0 - f["max_sound_speed_sq"]
+    f["out_of_box"] = ~inside
+    std = None
+    if sd is not None:
+        std = {k: _shape(xp, v, batch, tuple(v.shape[1:])) for k, v in named_std(xp, m, sd, f).items()}
+    fields = {k: (v if k == "u_nodes" else _shape(xp, v, batch, tuple(v.shape[1:]))) for k, v in f.items()}
+    return Prediction(std=std, **fields)
+
+
+def query_predict(xp, m, theta, return_std=False, strict=False):
+    """Everything the model predicts at ``theta``, as a :class:`Prediction`."""
+    t, batch = _rows(xp, m, theta)
+    y, inside, _ = outputs(xp, m, t)
+    if strict:
+        _require_inside(xp, m, t, inside)
+    sd = output_std(xp, m, t) if return_std else None
+    return _prediction(xp, m, y, inside, sd, batch)
+
+
+def query_predict_at_masses(xp, m, theta, masses, return_std=False, strict=False):
+    """:func:`query_predict` and every query at ``masses``, from one evaluation, as a :class:`MassPrediction`."""
+    t, batch = _rows(xp, m, theta)
+    rows, tail = _masses(xp, masses, batch, t.shape[0], t)
+    y, inside, _ = outputs(xp, m, t)
+    if strict:
+        _require_inside(xp, m, t, inside)
+    sd = output_std(xp, m, t) if return_std else None
+    values, std = {}, ({} if return_std else None)
+    for field, query in AT_MASS_FIELDS:
+        v, _, s = curve_at_mass(xp, m, y, None, sd, rows, query)
+        if strict and field == "radius_km":
+            _require_on_branch(xp, m, v, rows, y[:, m.i_mass_max])
+        values[field] = _shape(xp, v, batch, tail)
+        if return_std:
+            std[field] = _shape(xp, s, batch, tail)
+    return MassPrediction(prediction=_prediction(xp, m, y, inside, sd, batch),
+                          masses_msun=xp.asarray(masses, dtype=xp.float64, **device_of(t)), std=std, **values)
+
+
+_THETA = """theta : array_like, shape (d,) or (n, d)
+        Parameters in the order of the model's parameter names, in their
+        units (more leading axes are allowed: they lead the result too)."""
+_STRICT = """strict : bool
+        Raise ValueError (QueryError) instead of returning NaN outside the
+        box{more}."""
+_STD = """return_std : bool
+        Also fill ``std``: the predictive standard deviation (Gaussian
+        processes; NaN for splines, which carry no error estimate)."""
+_AT_MASS = f"""
+
+    Parameters
+    ----------
+    {_THETA}
+    mass : float or array_like, shape (q,) or theta.shape[:-1] + (q,)
+        Gravitational masses in Msun: a scalar or (q,) for every theta, or
+        one row per theta (``masses[:, None]`` for one mass per theta).
+    return_grad : bool
+        Also fill ``grad``: the analytic derivative with respect to theta,
+        shape ``value.shape + (d,)``.
+    {_STD}
+    {_STRICT.format(more=", above M_max or below the lowest emulated mass")}
+
+    Returns
+    -------
+    Estimate
+        ``value`` of shape ``theta.shape[:-1]`` plus ``mass.shape[-1:]``
+        (nothing for a scalar mass); NaN where undefined.
+    """
+
+#: Docstrings of the queries, shared by the library's Surrogate and the exported files.
+QUERY_DOCS = {
+    "in_domain": f"""True where ``theta`` lies inside the trained box.
+
+    Parameters
+    ----------
+    {_THETA}
+
+    Returns
+    -------
+    array of bool, shape theta.shape[:-1]
+    """,
+    "mass_max": f"""Maximum gravitational mass of the stable branch, in Msun.
+
+    Parameters
+    ----------
+    {_THETA}
+    return_grad : bool
+        Also fill ``grad``: d M_max / d theta, shape ``theta.shape``, in Msun
+        per unit of each parameter.
+    {_STD}
+    {_STRICT.format(more="")}
+
+    Returns
+    -------
+    Estimate
+        ``value`` of shape ``theta.shape[:-1]``; NaN outside the box.
+    """,
+    "radius": "Circumferential radius in km at gravitational masses (Msun) on the stable branch." + _AT_MASS,
+    "tidal_deformability": "Dimensionless tidal deformability Lambda at masses (Msun)." + _AT_MASS,
+    "moment_of_inertia": "Moment of inertia in 1e45 g cm^2 at masses (Msun), slow rotation." + _AT_MASS,
+    "k2": "Tidal Love number k2 = (3/2) Lambda (G M / R c^2)^5 at masses (Msun)." + _AT_MASS,
+    "curve": f"""The stable branch from the lowest emulated mass up to M_max.
+
+    Parameters
+    ----------
+    {_THETA}
+    n : int
+        Points along the branch, uniform in ``u = sqrt(1 - M / M_max)``.
+    {_STRICT.format(more="")}
+
+    Returns
+    -------
+    Curve
+        ``masses_msun``, ``radius_km``, ``tidal_deformability``, each of shape
+        ``theta.shape[:-1] + (n,)``.
+    """,
+    "predict": f"""Everything the model predicts at ``theta``.
+
+    Parameters
+    ----------
+    {_THETA}
+    {_STD}
+    {_STRICT.format(more="")}
+
+    Returns
+    -------
+    Prediction
+        Scalars of shape ``theta.shape[:-1]``, curves at the ``u_nodes`` with a
+        last axis (n_u,), the validity margins, ``out_of_box`` and ``std``
+        (a dict of the same fields, or None).
+    """,
+    "predict_at_masses": f"""Everything of ``predict`` plus R, Lambda, I and k2 at masses, from one evaluation.
+
+    Parameters
+    ----------
+    {_THETA}
+    masses : float or array_like, shape (q,) or theta.shape[:-1] + (q,)
+        Gravitational masses in Msun, as in the queries at masses.
+    {_STD}
+    {_STRICT.format(more=", above M_max or below the lowest emulated mass")}
+
+    Returns
+    -------
+    MassPrediction
+    """,
+}

@@ -1,0 +1,146 @@
+"""The table of surrogate kinds: everything the rest of the package needs to know about each.
+
+A *method* is one way of fitting and evaluating a model (``gp``, ``rbf``,
+``tensor``); users ask for a *kind* (``--kind gp`` or ``--kind spline``),
+and the first method offered as that kind that applies to the training data
+is used (tensor splines on complete regular grids, the RBF otherwise).
+Models record both: ``kind`` (what users asked for, shown first) and
+``method`` (the implementation, shown beside it).
+
+Adding a method: a module with its fit (``fit(data, settings) ->
+FitResult``), its settings and its record of what the fit found; a runtime
+part in ``_runtime.py`` (an entry of ``PARTS``, and of ``STD`` if it has a
+predictive sigma); and an entry in :data:`METHODS` here.  Training, saving,
+loading, checks, export and the tables then take it as it is.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from ..errors import InputError
+from ._data import TrainingData
+from ._gp import GPFit, GPSettings, describe_gp, fit_gp
+from ._rbf import RBFFit, SplineSettings, fit_rbf
+from ._tensor import TensorFit, fit_tensor, is_regular
+
+__all__ = ["Method", "METHODS", "COMMON_ARRAYS", "COMMON_STATIC", "check_kind", "kinds", "method", "resolve"]
+
+#: Arrays of every model (see :mod:`tovforge.surrogate._runtime`).
+COMMON_ARRAYS = ("lo", "hi", "out_mean", "out_scale", "trend_powers", "trend_coef", "u_nodes", "spline_c",
+                 "curve_slices")
+#: Arrays of every model that steer loops or index (exported files keep them NumPy under other namespaces).
+COMMON_STATIC = ("trend_powers", "warp_log", "warp_shift", "curve_slices")
+
+
+def _always(data: TrainingData) -> bool:
+    return True
+
+
+@dataclass(frozen=True)
+class Method:
+    """One surrogate method.
+
+    Attributes
+    ----------
+    name : str
+        Stored in models; the key of the runtime part (``_runtime.PARTS``).
+    kind : str
+        The kind users ask for (``tovforge train --kind``).
+    description : str
+        One line for file headers and listings.
+    fit : callable
+        ``fit(data, settings) -> FitResult`` (progress to the logger at level INFO).
+    settings : type
+        The options class users pass for this kind (shared by the methods of a kind).
+    details : type
+        The record of what the fit found (a :class:`~tovforge.surrogate._record.Record`).
+    settings_recorded : bool
+        False when the fit takes no options (its model records none).
+    arrays : tuple of str
+        Arrays the method adds to :data:`COMMON_ARRAYS` (a model without them is refused).
+    static_arrays : tuple of str
+        Its arrays that steer loops or index (kept NumPy in exported files).
+    training_rows : tuple of str
+        Its arrays whose rows are the training points (their order is reversed to
+        measure a model's rounding noise).
+    has_std : bool
+        True if the method has a predictive standard deviation.
+    applies : callable
+        ``applies(data) -> bool``: whether it can fit these training data.
+    describe : callable or None
+        ``describe(arrays) -> str``: a few words on a fitted model's structure.
+    """
+
+    name: str
+    kind: str
+    description: str
+    fit: Callable
+    settings: type
+    details: type
+    settings_recorded: bool = True
+    arrays: tuple = ()
+    static_arrays: tuple = ()
+    training_rows: tuple = ()
+    has_std: bool = False
+    applies: Callable[[TrainingData], bool] = _always
+    describe: Callable | None = None
+
+
+#: Every method, by name, in the order in which the methods of a kind are tried.
+METHODS: dict[str, Method] = {m.name: m for m in (
+    Method("gp", "gp", "Gaussian processes (a quadratic trend plus Matern-5/2 kernels with one length scale per "
+           "parameter, one kernel per group of outputs; sigma from a nearest-neighbour GP)",
+           fit_gp, GPSettings, GPFit,
+           arrays=("X", "alpha", "group_bounds", "length", "amp2", "noise", "resid_scale"),
+           static_arrays=("group_bounds", "group_kernel"), training_rows=("X", "alpha"), has_std=True,
+           describe=describe_gp),
+    Method("tensor", "spline", "tensor-product cubic B-splines on a regular grid",
+           fit_tensor, SplineSettings, TensorFit, settings_recorded=False,
+           arrays=("knots", "n_knots", "coef", "coef_shape"), static_arrays=("n_knots", "coef_shape", "knots"),
+           applies=is_regular),
+    Method("rbf", "spline", "polyharmonic splines: r^5 radial basis functions plus a quadratic polynomial",
+           fit_rbf, SplineSettings, RBFFit, arrays=("X", "alpha"), training_rows=("X", "alpha")),
+)}
+
+
+def kinds() -> tuple[str, ...]:
+    """The kinds users can ask for, in table order."""
+    return tuple(dict.fromkeys(m.kind for m in METHODS.values()))
+
+
+def method(name: str) -> Method:
+    """The method called ``name``.
+
+    Raises
+    ------
+    InputError
+        For an unknown method (e.g. a model file of a newer tovforge).
+    """
+    try:
+        return METHODS[name]
+    except KeyError:
+        raise InputError(f"unknown surrogate method {name!r}; known: {', '.join(METHODS)}.") from None
+
+
+def check_kind(kind: str) -> str:
+    """``kind`` if users can ask for it; InputError otherwise."""
+    if kind not in kinds():
+        raise InputError(f"kind must be one of {', '.join(kinds())}; got {kind!r}.")
+    return kind
+
+
+def resolve(kind: str, data: TrainingData) -> Method:
+    """The method that fits ``data`` for the kind ``kind``.
+
+    Raises
+    ------
+    InputError
+        For an unknown kind, or data no method of the kind can fit.
+    """
+    check_kind(kind)
+    for m in METHODS.values():
+        if m.kind == kind and m.applies(data):
+            return m
+    raise InputError(f"no {kind} method can fit these training data.")  # pragma: no cover - rbf always applies

@@ -1,0 +1,148 @@
+"""Polyharmonic splines on scattered designs: the r^5 kernel plus a polynomial, in a stretched metric."""
+
+from __future__ import annotations
+
+import logging
+import time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+
+from ..errors import InputError
+from . import _runtime as rt
+from ._data import TrainingData
+from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, matern_kernel, prepare,
+                       space_filling_subset, trend_matrix, trend_powers, trend_residuals)
+from ._record import Record
+
+__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH"]
+
+logger = logging.getLogger(__name__)
+
+#: Smallest stretch of a parameter's unit interval in the anisotropic RBF.
+MIN_STRETCH = 0.05
+
+
+@dataclass(frozen=True)
+class SplineSettings(Record):
+    """Options of the radial-basis-function spline (scattered designs).
+
+    Attributes
+    ----------
+    warp_inputs : bool
+        As :attr:`GPSettings.warp_inputs` (``ln(Gamma - 1)`` for the adiabatic
+        indices of the piecewise polytrope).
+    anisotropic : bool
+        Stretch each parameter's unit interval by ``l_min / l_i``, with ``l``
+        the length scales a Gaussian process (one Matern-5/2 kernel for all
+        curve outputs, fitted by marginal likelihood on ``n_subset`` points)
+        finds: the r^5 kernel then measures distance in the metric the data
+        vary in.  Stretches are kept >= ``MIN_STRETCH`` (0.05); if that GP comes
+        out degenerate the box stays unstretched, with a warning.
+    n_subset : int
+        Points of that Gaussian process (space-filling subset).
+    degree : int
+        Degree of the polynomial (>= 2 for the r^5 kernel).
+    seed : int
+
+    On the demo box (4,093 points, 500 held-out EOS) the held-out p95 errors
+    were R(M) 25.3 m, Lambda 1.06 %, M_max 1.05e-3 Msun with neither option,
+    21.1 m, 1.04 %, 1.41e-3 with the warp alone, and about 10 m, 0.4 % and
+    5.5e-4 with both.
+    """
+
+    warp_inputs: bool = True
+    anisotropic: bool = True
+    n_subset: int = 256
+    degree: int = 2
+    seed: int = 0
+
+
+@dataclass(frozen=True)
+class RBFFit(Record):
+    """What an RBF fit found (recorded in the model).
+
+    Attributes
+    ----------
+    kernel : str
+    input_warp : dict
+        ``{name: "ln(name - offset)"}`` of the warped parameters.
+    input_scale : tuple of float
+        The stretch of each parameter's unit interval (empty: isotropic).
+    anisotropy_length_scales : tuple of float
+        The GP length scales the stretch came from (empty: isotropic).
+    anisotropy_subset : int
+        Points of that GP (0: isotropic).
+    """
+
+    kernel: str = "r^5"
+    input_warp: dict = field(default_factory=dict)
+    input_scale: tuple = ()
+    anisotropy_length_scales: tuple = ()
+    anisotropy_subset: int = 0
+
+
+def _anisotropy(x, Z, slices, settings: SplineSettings):
+    """Per-parameter stretch ``l_min / l_i`` from one GP kernel over the curve outputs (see SplineSettings)."""
+    R = trend_residuals(x, Z, 2)[2][:, slices[0][0]:slices[-1][1]]
+    sub = space_filling_subset(x, settings.n_subset, settings.seed)
+    # bounds hits of the nugget are expected: the warnings are dropped
+    kernel, _ = fit_gaussian_process(x, R, sub, matern_kernel(x.shape[1]), 0, settings.seed)
+    length = np.atleast_1d(kernel.k1.k2.length_scale).astype(float)
+    if degenerate_kernels(x, sub, length[None, :]):
+        warnings.warn("the GP that sets the spline's input stretch came out degenerate (length scales "
+                      f"{np.array2string(length, precision=3)}); the spline uses the unstretched box.",
+                      UserWarning, stacklevel=3)
+        return np.ones_like(length), length
+    # an irrelevant parameter (huge length scale) is squeezed, but not to nothing: points that
+    # differ only in it must stay apart, or the interpolation matrix becomes singular
+    return np.maximum(length.min() / length, MIN_STRETCH), length
+
+
+def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
+    """Interpolate with the polyharmonic kernel r^5 plus a polynomial of ``settings.degree``.
+
+    Solves the symmetric saddle-point system ``[[Phi, P], [P^T, 0]] [a; c] =
+    [Z; 0]`` (conditionally positive definite of order 3, hence degree >= 2;
+    as in SciPy's RBFInterpolator with kernel='quintic'), in the warped and
+    stretched inputs of :class:`SplineSettings`.
+
+    Returns
+    -------
+    FitResult
+        The arrays, the settings, and an :class:`RBFFit`.
+    """
+    settings = settings or SplineSettings()
+    degree = settings.degree
+    if degree < 2:
+        raise InputError(f"the r^5 kernel needs a polynomial of degree >= 2; got degree {degree}.")
+    p = prepare(data, settings.warp_inputs)
+    arrays, x, Z = dict(p.arrays), p.x, p.Z
+    details = RBFFit(input_warp=p.input_warp)
+    if settings.anisotropic:
+        t0 = time.perf_counter()
+        scale, length = _anisotropy(x, Z, p.slices, settings)
+        arrays["input_scale"] = scale
+        x = rt.unit_inputs(np, arrays, data.theta)[0]
+        details = RBFFit(input_warp=p.input_warp, input_scale=tuple(scale.tolist()),
+                         anisotropy_length_scales=tuple(length.tolist()),
+                         anisotropy_subset=min(settings.n_subset, len(x)))
+        logger.info(f"  input stretch {np.array2string(scale, precision=3)} (GP length scales "
+                    f"{np.array2string(length, precision=3)} on {min(settings.n_subset, len(x))} points, "
+                    f"{time.perf_counter() - t0:.1f} s)")
+    powers = trend_powers(x.shape[1], degree)
+    P = trend_matrix(x, powers)
+    phi, _ = rt._polyharmonic(np, x, x, False)
+    n, t = P.shape
+    A = np.zeros((n + t, n + t))
+    A[:n, :n] = phi
+    A[:n, n:] = P
+    A[n:, :n] = P.T
+    rhs = np.vstack([Z, np.zeros((t, Z.shape[1]))])
+    t0 = time.perf_counter()
+    sol = scipy.linalg.solve(A, rhs, assume_a="sym", check_finite=False)
+    logger.info(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
+    arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
+    return FitResult(arrays=arrays, settings=settings, details=details)

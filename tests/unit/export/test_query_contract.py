@@ -1,0 +1,176 @@
+"""One query contract for the library model and its exported file (docs/reference/query-contract.md).
+
+The same calls go to a trained Surrogate and to the file exported from it, for every kind (GP, GP with
+shared kernels, RBF spline, tensor spline): the same return type whatever the flags, the same fields,
+the same shapes (following the inputs, never squeezed by count), the same defaults and the same values.
+"""
+
+from __future__ import annotations
+
+import inspect
+
+import numpy as np
+import pytest
+from conftest import KINDS, box_points
+
+from tovforge import quantities
+from tovforge.export._verify import compare, flatten
+from tovforge.surrogate import Curve, Estimate, MassPrediction, Prediction, Surrogate
+from tovforge.surrogate._data import emulated_outputs
+
+RTOL = 1e-10
+D = 4  # parameters of the demo family
+QUERIES = ("radius", "tidal_deformability", "moment_of_inertia", "k2")
+
+#: theta shape, mass, and the mass axes of the answer
+SHAPES = [
+    ((D,), 1.4, ()),
+    ((D,), [1.2, 1.4], (2,)),
+    ((6, D), 1.4, ()),
+    ((6, D), [1.2, 1.4, 1.6], (3,)),
+    ((6, D), np.full((6, 1), 1.3), (1,)),  # one mass per theta
+    ((6, D), np.full((1, 2), 1.3), (2,)),  # the same row of masses for every theta
+    ((2, 3, D), 1.4, ()),  # more leading axes lead the answer too
+    ((2, 3, D), np.full((2, 3, 2), 1.3), (2,)),
+    ((1, D), 1.4, ()),  # one theta as a row keeps its axis
+]
+
+
+def _theta(model, shape):
+    return np.broadcast_to(box_points(model, 1, seed=1, inner=0.2)[0], shape).copy()
+
+
+def _both(model, mod, name, *args, **kw):
+    """The same call on the library model and on the exported file."""
+    return getattr(model, name)(*args, **kw), getattr(mod, name)(*args, **kw)
+
+
+def _same(a, b, what):
+    fa, fb = flatten(a), flatten(b)
+    assert fa.keys() == fb.keys(), what
+    assert compare(fa, fb) <= RTOL, what
+    return fa
+
+
+@pytest.mark.parametrize("kind", KINDS)
+@pytest.mark.parametrize("theta_shape, mass, tail", SHAPES)
+def test_queries_at_masses_have_the_contract_shapes(kind, theta_shape, mass, tail, models, exported):
+    model, mod = models[kind], exported[kind][0]
+    theta = _theta(model, theta_shape)
+    lead = theta_shape[:-1]
+    for q in QUERIES:
+        for grad in (False, True):
+            for std in (False, True):
+                lib, exp = _both(model, mod, q, theta, mass, return_grad=grad, return_std=std)
+                for r in (lib, exp):
+                    assert type(r).__name__ == "Estimate"  # one type, whatever the flags
+                    assert r.value.shape == lead + tail
+                    assert (r.grad is None) != grad and (r.std is None) != std
+                    if grad:
+                        assert r.grad.shape == lead + tail + (D,)
+                    if std:
+                        assert r.std.shape == lead + tail
+                _same(lib, exp, f"{q} grad={grad} std={std}")
+    lib, exp = _both(model, mod, "predict_at_masses", theta, mass, return_std=True)
+    for r in (lib, exp):
+        assert type(r).__name__ == "MassPrediction"
+        assert r.radius_km.shape == r.k2.shape == r.std["k2"].shape == lead + tail
+        assert r.prediction.mass_max_msun.shape == lead
+    _same(lib, exp, "predict_at_masses")
+
+
+@pytest.mark.parametrize("kind", KINDS)
+@pytest.mark.parametrize("theta_shape", [(D,), (5, D), (2, 3, D)])
+def test_mass_max_curve_predict_and_in_domain_have_the_contract_shapes(kind, theta_shape, models, exported):
+    model, mod = models[kind], exported[kind][0]
+    theta = _theta(model, theta_shape)
+    lead = theta_shape[:-1]
+    n_u = len(model.meta.outputs.u_nodes)
+    for grad in (False, True):
+        for std in (False, True):
+            lib, exp = _both(model, mod, "mass_max", theta, return_grad=grad, return_std=std)
+            for r in (lib, exp):
+                assert type(r).__name__ == "Estimate" and r.value.shape == lead
+                assert (r.grad is None) != grad and (r.std is None) != std
+                assert not grad or r.grad.shape == lead + (D,)
+            _same(lib, exp, "mass_max")
+    lib, exp = _both(model, mod, "curve", theta, n=7)
+    for r in (lib, exp):
+        assert type(r).__name__ == "Curve"
+        assert r.masses_msun.shape == r.radius_km.shape == r.tidal_deformability.shape == lead + (7,)
+    _same(lib, exp, "curve")
+    for std in (False, True):
+        lib, exp = _both(model, mod, "predict", theta, return_std=std)
+        for r in (lib, exp):
+            assert type(r).__name__ == "Prediction" and (r.std is None) != std
+            assert r.mass_max_msun.shape == r.out_of_box.shape == lead
+            assert r.radius_km.shape == lead + (n_u,) and r.u_nodes.shape == (n_u,)
+            if std:
+                assert r.std["radius_km"].shape == lead + (n_u,)
+        _same(lib, exp, f"predict std={std}")
+    lib, exp = _both(model, mod, "in_domain", theta)
+    assert lib.shape == exp.shape == lead and lib.dtype == exp.dtype == bool
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_std_is_a_sigma_for_gp_and_nan_for_splines(kind, models, exported):
+    """return_std never changes the type; a model without a predictive sigma fills std with NaN."""
+    model, mod = models[kind], exported[kind][0]
+    theta = box_points(model, 8, seed=3, inner=0.2)
+    assert mod.HAS_STD == model.has_std == (model.method == "gp")
+    for r in (model.radius(theta, 1.2, return_std=True), mod.radius(theta, 1.2, return_std=True),
+              model.mass_max(theta, return_std=True), mod.mass_max(theta, return_std=True)):
+        if model.has_std:
+            assert np.all(r.std > 0) and np.isfinite(r.std).all()
+        else:
+            assert np.isnan(r.std).all() and np.isfinite(r.value).all()
+
+
+def test_the_same_functions_with_the_same_defaults(models, exported):
+    """Every query of the exported file is a method of Surrogate with the same parameters and defaults."""
+    mod = exported["gp"][0]
+    for name in ("in_domain", "mass_max", *QUERIES, "curve", "predict", "predict_at_masses"):
+        lib = list(inspect.signature(getattr(Surrogate, name)).parameters.values())[1:]  # without self
+        exp = list(inspect.signature(getattr(mod, name)).parameters.values())
+        assert [(p.name, p.default) for p in lib] == [(p.name, p.default) for p in exp], name
+        assert getattr(Surrogate, name).__doc__ == getattr(mod, name).__doc__, name
+    for cls in (Estimate, Curve, Prediction, MassPrediction):
+        assert list(getattr(mod, cls.__name__).__dataclass_fields__) == list(cls.__dataclass_fields__)
+    assert issubclass(mod.QueryError, ValueError)
+
+
+def test_prediction_fields_follow_the_registry():
+    """Prediction holds every emulated quantity by its registry name, in the quantity's unit."""
+    sequence, star = emulated_outputs()
+    fields = set(Prediction.__dataclass_fields__)
+    assert {q.name for q in sequence + star} <= fields
+    extra = fields - {q.name for q in sequence + star}
+    assert extra == {"u_nodes", "mass_msun", "mass_max_margin_msun", "causality_margin", "out_of_box", "std"}
+    for name in extra - {"u_nodes", "out_of_box", "std"}:
+        quantities.get(name)  # the rest are registry quantities too
+
+
+@pytest.mark.parametrize("kind", ["gp", "rbf"])
+def test_bad_shapes_are_named_on_both_sides(kind, models, exported):
+    model, mod = models[kind], exported[kind][0]
+    for theta, mass, match in [
+        (np.zeros(3), 1.4, r"theta must have shape \(4,\) or \(n, 4\)"),
+        (np.zeros((3, 4)), np.zeros((2, 2)), r"mass must be a scalar, shape \(q,\) .* got shape \(2, 2\)"),
+    ]:
+        with pytest.raises(ValueError, match=match):
+            mod.radius(theta, mass)
+        with pytest.raises(ValueError, match=match):  # InputError, a ValueError, in the library
+            model.radius(theta, mass)
+
+
+def test_units_of_the_exported_outputs_come_from_the_registry(exported):
+    mod = exported["rbf"][0]
+    assert mod.OUTPUT_UNITS["central_pressure_at_mass_max_dyn_cm2"] == "dyn/cm^2"
+    assert mod.OUTPUT_UNITS["moment_of_inertia_1e45_g_cm2"] == quantities.get("moment_of_inertia").unit
+    assert mod.OUTPUTS == tuple(f for f in Prediction.__dataclass_fields__ if f != "std")
+    # the header lists every emulated quantity with its registry unit and meaning, and how it was modelled
+    sequence, star = emulated_outputs()
+    for q in sequence + star:
+        line = next(x for x in mod.__doc__.splitlines() if x.split()[:1] == [q.name])
+        assert q.unit in line and q.description in line
+        assert (f"(emulated as {q.transform})" in line) == (q.transform != "identity")
