@@ -147,3 +147,14 @@ def test_json_of_a_twin_branch_keeps_every_requested_mass():
     text = runner.invoke(app, ["solve", "piecewise-polytrope-transition", *SLY, "log_p_transition=34.46",
                                "jump_ratio=0.639", "cs2_above=1", "--stars", "8"])
     assert text.exit_code == 0 and "twins    a second stable branch from its minimum 0.6517" in text.stdout
+
+
+def test_table_of_a_sequence_with_twins_holds_both_branches(tmp_path):
+    path = tmp_path / "twins.csv"
+    res = runner.invoke(app, ["solve", "piecewise-polytrope-transition", *SLY, "log_p_transition=34.46",
+                              "jump_ratio=0.639", "cs2_above=1", "--stars", "8", "--table", str(path)])
+    assert res.exit_code == 0, res.output
+    t = read_table(path)
+    stable, twin = t["branch"] == 1, t["branch"] == 2
+    assert stable.any() and twin.any() and np.all(np.diff(t["branch"]) >= 0)
+    assert t["mass"][stable].max() < 0.66 and t["mass"][twin].max() > 2.2

@@ -43,7 +43,9 @@ from ._quantities import QUANTITIES, Quantity, parse_quantities
 from ._samples import DEFAULT_SAMPLE_MASSES, DEFAULT_SAMPLE_QUANTITIES, Samples, read_samples, samples_table
 from ._sequence import SEQUENCE_COLUMNS, sequence_table
 from ._stars import (
+    BRANCH_COLUMN,
     STAR_COLUMNS,
+    branch_stars,
     profile_json,
     profile_text,
     sequence_json,
@@ -65,6 +67,8 @@ __all__ = [
     "QUANTITIES",
     "SEQUENCE_COLUMNS",
     "STAR_COLUMNS",
+    "BRANCH_COLUMN",
+    "branch_stars",
     "Axis",
     "BinaryDeformability",
     "BoxPlan",

@@ -9,7 +9,7 @@ from dataclasses import replace
 import numpy as np
 
 from ..errors import InputError
-from ._stars import BRANCH_COLUMN, STABLE, STAR_COLUMNS, TWIN, sequence_meta, star_table
+from ._stars import BRANCH_COLUMN, STAR_COLUMNS, TWIN, joined_stars, sequence_meta, star_table
 from ._write import TableSummary, table_format
 
 __all__ = ["SEQUENCE_COLUMNS", "sequence_table", "central_enthalpies"]
@@ -57,14 +57,6 @@ def _evenly_in_log_pressure(eos, low, high, points: int, steps):
                            np.log(float(high.central_pressure_dyn_cm2[0])), int(points)))
     h_c = central_enthalpies(eos, p[1:-1], h_lo, h_hi)
     return solve_stars(eos, np.concatenate([[h_lo], h_c, [h_hi]]), steps)  # the end stars exactly, not re-found
-
-
-def _joined(parts):
-    """One :class:`~tovforge.solve.Stars` from several (fields concatenated)."""
-    from ..solve import Stars
-
-    return Stars(**{k: np.concatenate([np.asarray(getattr(p, k), float) for p in parts])
-                    for k in Stars.__dataclass_fields__})
 
 
 def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
@@ -149,8 +141,7 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
                 notes.append(f"twin stars at {', '.join(f'{m:g}' for m in masses[on_twin])} Msun: rows of branch "
                              f"{TWIN} (the twin branch reaches {tw.mass_min_msun:.4f}..{tw.mass_max.mass_msun:.4f} "
                              "Msun).")
-    stars = _joined(parts)
-    branch = np.concatenate([np.full(len(p), STABLE if i == 0 else TWIN) for i, p in enumerate(parts)])
+    stars, branch = joined_stars(parts)
     summary = star_table(out, stars, sequence_meta(seq, settings, mode, command),
                          target_mass=None if target is None else np.concatenate(target), branch=branch)
     return replace(summary, seconds=time.monotonic() - t0, notes=tuple(notes))

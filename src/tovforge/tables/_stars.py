@@ -19,8 +19,9 @@ from .. import quantities
 from ._quantities import provenance
 from ._write import Column, TableSummary, TableWriter
 
-__all__ = ["STAR_COLUMNS", "BRANCH_COLUMN", "STABLE", "TWIN", "star_block", "star_table", "sequence_meta",
-           "stars_text", "sequence_text", "sequence_json", "profile_text", "profile_json"]
+__all__ = ["STAR_COLUMNS", "BRANCH_COLUMN", "STABLE", "TWIN", "star_block", "star_table", "joined_stars",
+           "branch_stars", "sequence_meta", "stars_text", "sequence_text", "sequence_json", "profile_text",
+           "profile_json"]
 
 #: Columns of a star table, one per star quantity of the registry.
 STAR_COLUMNS = tuple(Column(q.column, q.unit, q.description) for q in quantities.star_quantities())
@@ -36,6 +37,33 @@ BRANCH_COLUMN = Column("branch", "1", f"{STABLE}: the stable branch up to the fi
 def star_block(stars) -> dict:
     """Column name -> values of every star quantity of ``stars`` (a :class:`tovforge.solve.Stars`)."""
     return {q.column: np.asarray(stars.value(q.name), float) for q in quantities.star_quantities()}
+
+
+def joined_stars(parts):
+    """One :class:`~tovforge.solve.Stars` from several, and the branch label of each star.
+
+    Parameters
+    ----------
+    parts : list of Stars
+        The first on the stable branch, the others on the twin branch.
+
+    Returns
+    -------
+    stars : Stars
+    branch : ndarray of int
+        :data:`STABLE` or :data:`TWIN` per star.
+    """
+    from ..solve import Stars
+
+    stars = Stars(**{k: np.concatenate([np.asarray(getattr(p, k), float) for p in parts])
+                     for k in Stars.__dataclass_fields__})
+    branch = np.concatenate([np.full(len(p), STABLE if i == 0 else TWIN, dtype=np.int64) for i, p in enumerate(parts)])
+    return stars, branch
+
+
+def branch_stars(seq):
+    """The stars of the stable branch of ``seq``, then those of its twin branch, and their branch labels."""
+    return joined_stars([seq.branch] + ([seq.twin.branch] if seq.twin is not None else []))
 
 
 def sequence_meta(seq, settings, mode: str, command: str | None = None) -> dict:
