@@ -414,11 +414,9 @@ def refine_extrema(batch, guess: ExtremumGuess, ok, settings, co_solve=None) -> 
         todo[rr[again | polish]] = True
         centre[rr[again]] = new_centre[again]
         width[rr[again & kink_in]] /= 8.0
-        pw = width[rr[polish]] / 8.0
-        x_new = new_centre[polish]
-        width[rr[polish]] = np.minimum(pw, x_new)  # x >= 0 inside the cluster
-        width[rr[polish]] = np.where(width[rr[polish]] > 0.05 * pw, width[rr[polish]], pw)
-        centre[rr[polish]] = np.maximum(x_new, width[rr[polish]])
+        # (centred on the extremum, or starting at the jump, x = 0, if the extremum is closer to it)
+        width[rr[polish]] /= 8.0
+        centre[rr[polish]] = np.maximum(new_centre[polish], width[rr[polish]])
     x_star = centre + width * zstar
     ln_star = np.where(cusp, guess.ln_h, _to_ln_h(x_star, origin))
     m_ext = np.where(ok, _cheb.chebval(zstar, coef, tensor=False), np.nan)

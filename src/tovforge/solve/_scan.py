@@ -48,9 +48,9 @@ __all__ = ["Scan", "scan", "first_maximum", "twin_branch", "turning_jumps", "JUM
 #: growing core of the dense phase.  Just above a jump ``M(h_c)`` can turn twice
 #: within a few per cent of ``h_t`` (a shallow maximum and minimum, or the dip
 #: after a cusp), which the regular spacing (about 15 % in ``h_c``) would miss.
-#: Closer to ``h_t`` the scan's cheap steps cannot tell the masses apart; a dip
-#: after a cusp narrower than 1e-3 h_t falls between them and is still found:
-#: Seidov's criterion, not the scan, decides the cusp.
+#: Closer to ``h_t`` the masses differ by less than the integration error of stars
+#: with so small a core; a dip after a cusp narrower than 1e-3 h_t falls between
+#: them and is still found: Seidov's criterion, not the scan, decides the cusp.
 JUMP_OFFSETS = (-1e-3, 0.0, 1e-3, 3e-3, 1e-2, 3e-2)
 
 

@@ -332,8 +332,7 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     at_u = stars.select((slice(None), slice(n_fixed, None))) if u_nodes is not None else None
     if n_fixed:
         nan_at = Stars(**{k: np.full((n_eos, n_fixed), np.nan) for k in Stars.__dataclass_fields__})
-        twin = TwinBatch(twin.status, twin.branch, twin.mass_max, twin.mass_min, twin.max_sound_speed_sq,
-                         twin_at if twin_at is not None else nan_at)
+        twin = replace(twin, at_mass=twin_at if twin_at is not None else nan_at)
     return SequenceBatch(status, branch, mass_max, cs2max, twin, at_mass, nfev + query.nfev, at_u)
 
 
