@@ -246,10 +246,13 @@ def _vertex_guess(scan, settings, rows, index, sign) -> ExtremumGuess:
         ln_up = scan.ln_h[rows, np.clip(index + 1, 0, n_col - 1)]
         after_turn = (sign < 0) & scan.turn[rows, np.clip(a, 0, None)]
         near = (a >= 0) & (index >= 1) & np.isfinite(ln_up) & ~cusp & ((ln_up - ln_a <= _NEAR_JUMP * w) | after_turn)
+        # the first cluster spans the scan's bracket (from the jump, if the bracket reaches down to it)
+        ln_down = scan.ln_h[rows, np.clip(index - 1, 0, n_col - 1)]
         x_hi = np.sqrt(np.where(near, ln_up - ln_a, 0.0))
+        x_lo = np.sqrt(np.where(near & (ln_down > ln_a), ln_down - ln_a, 0.0))
         origin = np.where(near, ln_a, np.nan)
-        centre = np.where(near, 0.5 * x_hi, centre)
-        half = np.where(near, 0.5 * x_hi, half)
+        centre = np.where(near, 0.5 * (x_hi + x_lo), centre)
+        half = np.where(near, 0.5 * (x_hi - x_lo), half)
     return ExtremumGuess(rows, ln_h, m_est, centre, half, np.full(n, float(sign)), cusp, origin)
 
 
