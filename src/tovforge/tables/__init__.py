@@ -50,7 +50,9 @@ from ._samples import (
 )
 from ._sequence import SEQUENCE_COLUMNS, sequence_table
 from ._stars import (
+    BRANCH_COLUMN,
     STAR_COLUMNS,
+    branch_stars,
     profile_json,
     profile_text,
     sequence_json,
@@ -73,6 +75,8 @@ __all__ = [
     "QUANTITIES",
     "SEQUENCE_COLUMNS",
     "STAR_COLUMNS",
+    "BRANCH_COLUMN",
+    "branch_stars",
     "Axis",
     "BinaryDeformability",
     "BoxPlan",
