@@ -91,6 +91,10 @@ class Quantity:
         the star quantity it is (``"radius_km"`` for
         ``radius_at_mass_max_km``).  Solver results answer it from their
         maximum-mass star, so such an output needs no code either.
+    of_twin : tuple of (str, str) or None
+        For a sequence quantity that is a property of an end of the twin
+        branch: ``("max", star quantity)`` or ``("min", star quantity)``
+        (NaN for EOS without a twin branch).  Answered like ``of_maximum``.
     """
 
     name: str
@@ -108,6 +112,7 @@ class Quantity:
     needs: tuple[str, ...] = ()
     derive: Callable[[Mapping], object] | None = None
     of_maximum: str | None = None
+    of_twin: tuple[str, str] | None = None
 
     @property
     def heading(self) -> str:
@@ -196,8 +201,13 @@ QUANTITIES: dict[str, Quantity] = {q.name: q for q in (
              needs=("max_sound_speed_sq",), derive=_causality_margin),
     Quantity("mass_max_margin_msun", "Msun", "M_max minus the floor mass of the grid (negative: below it)", _SEQ,
              "M_max - floor", "mass_max_margin", "{:.6f}", stored=("scalar",), default=("scalar",)),
-    Quantity("twin_mass_max_msun", "Msun", "maximum of a second stable branch (NaN if none; at scan resolution)", _SEQ,
-             "M_max(twin)", "twin_mass_max", "{:.6f}", stored=("scalar",), default=("scalar",)),
+    Quantity("twin_mass_max_msun", "Msun", "maximum mass of a second stable branch (twin stars; NaN if none)", _SEQ,
+             "M_max(twin)", "twin_mass_max", "{:.6f}", stored=("scalar",), default=("scalar",),
+             of_twin=("max", "mass_msun")),
+    Quantity("twin_mass_min_msun", "Msun", "minimum mass between the stable and the twin branch (NaN if no twin)",
+             _SEQ, "M_min(twin)", "twin_mass_min", "{:.6f}", stored=("scalar",), of_twin=("min", "mass_msun")),
+    Quantity("twin_radius_at_mass_max_km", "km", "radius of the heaviest twin star (NaN if no twin)", _SEQ,
+             "R(M_max twin)", "twin_radius_at_mass_max", "{:.5f}", stored=("scalar",), of_twin=("max", "radius_km")),
 )}
 
 _ALIASES: dict[str, str] = {}

@@ -37,10 +37,15 @@ def test_json_output_has_the_documented_keys():
     star_keys = {q.name for q in quantities.star_quantities()}  # every star quantity, by canonical name
     assert {"mass_msun", "radius_km", "tidal_deformability", "k2", "moment_of_inertia_1e45_g_cm2",
             "baryon_mass_msun", "central_pressure_dyn_cm2"} <= star_keys
-    assert set(out["sequence"]) == star_keys and set(out["at_mass"][0]) == star_keys
-    assert out["at_mass"][0]["mass_msun"] == pytest.approx(1.4)
-    assert out["at_mass"][2]["radius_km"] is None  # above M_max: null, not a crash
-    assert "exceed M_max" in res.stderr
+    assert set(out["sequence"]) == star_keys
+    assert set(out["at_mass"][0]) == star_keys | {"requested_mass_msun", "reason"}
+    assert out["at_mass"][0]["mass_msun"] == pytest.approx(1.4) and out["at_mass"][0]["reason"] is None
+    # above M_max: null, not a crash, and the entry still says which mass was asked and why it is null
+    third = out["at_mass"][2]
+    assert third["radius_km"] is None and third["mass_msun"] is None and third["requested_mass_msun"] == 3.0
+    assert third["reason"].startswith("above M_max = 2.04")
+    assert out["twin_branch"] is None
+    assert "above M_max" in res.stderr
     assert out["mass_max"]["mass_msun"] == pytest.approx(2.05, abs=0.02)
 
 
@@ -115,3 +120,41 @@ def test_console_script_runs_as_a_process():
                           capture_output=True, text=True)
     assert proc.returncode == 2
     assert proc.stderr.count("\n") == 1 and "'K'" in proc.stderr
+
+
+def test_json_of_a_twin_branch_keeps_every_requested_mass():
+    """SLy with the issue's jump at 2 n_sat (above Seidov's limit): M_max is the cusp at 0.653 Msun,
+    the twin branch reaches 2.26 Msun; every at_mass entry says which mass was asked and why it is null."""
+    res = runner.invoke(app, ["solve", "piecewise-polytrope-transition", *SLY, "log_p_transition=34.46",
+                              "jump_ratio=0.639", "cs2_above=1", "--masses", "0.1,0.652,1.4,2.5", "--json",
+                              "--stars", "12"])
+    assert res.exit_code == 0, res.output
+    out = json.loads(res.stdout)
+    assert out["mass_max"]["mass_msun"] == pytest.approx(0.6533, abs=1e-4)
+    asked = [0.1, 0.652, 1.4, 2.5]
+    assert [e["requested_mass_msun"] for e in out["at_mass"]] == asked
+    assert [e["mass_msun"] is None for e in out["at_mass"]] == [True, False, True, True]
+    assert out["at_mass"][0]["reason"].startswith("below the lightest star of the stable branch")
+    assert out["at_mass"][2]["reason"].startswith("above M_max") and "twin branch" in out["at_mass"][2]["reason"]
+    tw = out["twin_branch"]
+    assert set(tw) == {"mass_max", "mass_min", "at_mass", "sequence"}
+    assert tw["mass_max"]["mass_msun"] == pytest.approx(2.264, abs=1e-3)
+    assert tw["mass_min"]["mass_msun"] == pytest.approx(out["mass_max"]["mass_msun"] - 0.0016, abs=1e-4)
+    assert [e["requested_mass_msun"] for e in tw["at_mass"]] == asked
+    assert [e["mass_msun"] is None for e in tw["at_mass"]] == [True, False, False, True]
+    assert tw["at_mass"][3]["reason"].startswith("above its maximum")
+    assert tw["sequence"]["mass_msun"][0] == tw["mass_min"]["mass_msun"]
+    text = runner.invoke(app, ["solve", "piecewise-polytrope-transition", *SLY, "log_p_transition=34.46",
+                               "jump_ratio=0.639", "cs2_above=1", "--stars", "8"])
+    assert text.exit_code == 0 and "twins    a second stable branch from its minimum 0.6517" in text.stdout
+
+
+def test_table_of_a_sequence_with_twins_holds_both_branches(tmp_path):
+    path = tmp_path / "twins.csv"
+    res = runner.invoke(app, ["solve", "piecewise-polytrope-transition", *SLY, "log_p_transition=34.46",
+                              "jump_ratio=0.639", "cs2_above=1", "--stars", "8", "--table", str(path)])
+    assert res.exit_code == 0, res.output
+    t = read_table(path)
+    stable, twin = t["branch"] == 1, t["branch"] == 2
+    assert stable.any() and twin.any() and np.all(np.diff(t["branch"]) >= 0)
+    assert t["mass"][stable].max() < 0.66 and t["mass"][twin].max() > 2.2

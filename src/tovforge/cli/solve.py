@@ -43,8 +43,9 @@ def solve_cmd(
     ] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of text.")] = False,
     table: Annotated[
-        Optional[Path], typer.Option("--table", help="Write the stable branch to this table (.csv, .h5 or .npz; the "
-                                                     "format of `tovforge table sequence`).", dir_okay=False)
+        Optional[Path], typer.Option("--table", help="Write the stable branch, and a twin branch, to this table (.csv, "
+                                                     ".h5 or .npz; the format of `tovforge table sequence`).",
+                                     dir_okay=False)
     ] = None,
     profile: Annotated[
         Optional[float], typer.Option("--profile", help="Also print the interior profile of the star of this mass.")
@@ -83,7 +84,8 @@ def solve_cmd(
     eos_obj, seq, prof = run(work)
     if table is not None:
         meta = tables.sequence_meta(seq, solve.SequenceSettings(), "branch")
-        run(lambda: tables.star_table(table, seq.branch, meta))
+        both, which = tables.branch_stars(seq)
+        run(lambda: tables.star_table(table, both, meta, branch=which))
     if as_json:
         out = tables.sequence_json(seq)
         if prof is not None:

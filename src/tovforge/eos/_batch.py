@@ -654,7 +654,9 @@ class _TransitionLanes:
         x = h - self._h_t
         w = self._w_plus * np.exp((1.0 + s) / s * x)
         p = self._p_t + s / (1.0 + s) * (w - self._w_plus)
-        return p, w - p, self._rho_plus * np.exp(x / s), w / s
+        e = w - p
+        # de/dh from the rounded e + p, so that c_s^2 = (e + p) / (de/dh) is s itself at s = 1 (not 1 + 1 ulp)
+        return p, e, self._rho_plus * np.exp(x / s), (e + p) / s
 
     def eval(self, h, h_loc=None):
         loc = h if h_loc is None else h_loc

@@ -85,20 +85,21 @@ def describe_grid(path) -> str:
         units = h5["parameters/units"].asstr()[...]
         box = h5["parameters/box"][...]
         theta = h5["parameters/values"][...]
+        width = max(12, max((len(n) for n in names), default=0) + 2)  # e.g. log_p_transition
         for j, name in enumerate(names):
             unit = "" if units[j] == "1" else units[j]
-            lines.append(f"  {name:<12}{unit:<18} box [{box[j, 0]:g}, {box[j, 1]:g}]   values "
+            lines.append(f"  {name:<{width}}{unit:<18} box [{box[j, 0]:g}, {box[j, 1]:g}]   values "
                          f"[{theta[:, j].min():.6g}, {theta[:, j].max():.6g}]   distinct {np.unique(theta[:, j]).size}")
         lines.append("")
         lines.append(f"outputs over the {int(ok.sum())} points with status 0 (min .. max):")
         if "scalars" in h5:
             lines.append(" scalars")
             lines += _range_rows(h5["scalars"], ok, SCALARS)
-        if "curves" in h5:
+        if "curves" in h5 and "u" in h5["curves"]:  # a spec may ask for no curves
             u = h5["curves/u"][...]
             lines.append(f" curves at {u.size} nodes of u = sqrt(1 - M/M_max) in [{u.min():g}, {u.max():g}]")
             lines += _range_rows(h5["curves"], ok, {})
-        if "at_mass" in h5:
+        if "at_mass" in h5 and "masses_msun" in h5["at_mass"]:
             m = h5["at_mass/masses_msun"][...]
             lines.append(f" at masses {', '.join(f'{v:g}' for v in m)} Msun (NaN above M_max)")
             lines += _range_rows(h5["at_mass"], ok, {})

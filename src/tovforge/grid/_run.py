@@ -36,7 +36,7 @@ from ._design import design_points
 from ._solve import ChunkResult, solve_chunk
 from ._store import FORMAT, atomic_path, read_chunk, write_chunk, write_grid
 
-__all__ = ["RunSummary", "run_grid", "parts_folder"]
+__all__ = ["RunSummary", "run_grid", "parts_folder", "solve_points"]
 
 _MANIFEST_FORMAT = "tovforge-grid-parts"
 
@@ -115,15 +115,15 @@ def _connect(scheduler: str):
         raise InputError(f"scheduler {scheduler}: cannot connect to a Dask scheduler ({exc}).") from None
 
 
-def _execute(spec, theta, todo, workers: int | None, client):
-    """Yield ``(k, ChunkResult)`` as chunks finish, in any order.
+def _execute(spec, chunks, workers: int | None, client):
+    """Yield ``(k, ChunkResult)`` for each ``(k, theta)`` of ``chunks`` as they finish, in any order.
 
     Locally joblib's default (loky) backend; with a dask.distributed
     ``client``, joblib's Dask backend on that cluster.
     """
     import joblib
 
-    tasks = (joblib.delayed(_solve_task)(spec, k, theta[slice(*spec.chunk_bounds(k))]) for k in todo)
+    tasks = (joblib.delayed(_solve_task)(spec, k, theta) for k, theta in chunks)
     n_jobs = workers if workers else -1  # -1: every core (or every worker of the cluster)
     # each task is already a batch of EOS: dispatch them one at a time
     options = dict(n_jobs=n_jobs, batch_size=1, return_as="generator_unordered")
@@ -132,6 +132,35 @@ def _execute(spec, theta, todo, workers: int | None, client):
         return
     with joblib.parallel_config(backend="dask", client=client):  # the backend is chosen when Parallel is made
         yield from joblib.Parallel(**options)(tasks)
+
+
+def solve_points(spec, theta: np.ndarray, *, workers: int | None = None) -> ChunkResult:
+    """Exact solves of any points ``theta`` with a spec's solver settings and outputs.
+
+    The points are cut into chunks of ``spec.chunk_size`` and solved in
+    parallel as :func:`run_grid` does, but nothing is written to disk.
+
+    Parameters
+    ----------
+    spec : GridSpec
+        Solver settings and outputs (its design is not used).
+    theta : ndarray, shape (n, d)
+        EOS parameters in the spec's units.
+    workers : int, optional
+        Parallel workers (default: all cores).
+
+    Returns
+    -------
+    ChunkResult
+        The points in the order of ``theta``.
+    """
+    theta = np.asarray(theta, np.float64)
+    if workers is not None and workers < 1:
+        raise InputError(f"workers must be at least 1. Got {workers}.")
+    size = spec.chunk_size
+    chunks = [(k, theta[start:start + size]) for k, start in enumerate(range(0, len(theta), size))]
+    finished = dict(_execute(spec, chunks, workers, None))
+    return ChunkResult.concat(finished[k] for k in range(len(chunks)))
 
 
 def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
@@ -277,7 +306,8 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
         todo = [k for k in range(spec.n_chunks) if k not in done]
         n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
         with progress_bar(spec.n_points, out.name, done=int(n_done), enabled=progress, stream=stream) as bar:
-            for k, result in _execute(spec, theta, todo, workers, client):
+            chunks = ((k, theta[slice(*spec.chunk_bounds(k))]) for k in todo)
+            for k, result in _execute(spec, chunks, workers, client):
                 start, stop = spec.chunk_bounds(k)
                 write_chunk(_chunk_path(parts, k), spec, k, theta[start:stop], result)
                 bar.update(stop - start)

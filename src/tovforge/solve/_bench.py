@@ -20,7 +20,7 @@ def bench_solver(quick: bool = False, echo=print) -> None:
     from .. import eos
     from . import SequenceSettings, StepSettings, integrate_stars, solve_sequence, solve_sequences
     from ._baseline import baseline_star
-    from ._sequence import _cluster_nodes  # noqa: F401  (warm import)
+    from ._maximum import cluster_nodes  # noqa: F401  (warm import)
 
     family = "piecewise-polytrope"
     fam = eos.get_family(family)

@@ -15,6 +15,8 @@ __all__ = ["bench_exact_rows"]
 
 _SLY = dict(log_p1=34.384, gamma1=3.005, gamma2=2.988, gamma3=2.851)  # Read et al. 2009, Table III
 _TRANSITION = dict(log_p_transition=34.6, jump_ratio=0.3, cs2_above=0.6)  # invented example
+# a jump at about twice saturation density above Seidov's limit: a cusp, a dip of 0.0016 Msun, twin stars
+_TWINS = dict(log_p_transition=34.46, jump_ratio=0.639, cs2_above=1.0)
 
 
 def _errors(E, seq, fine_steps):
@@ -35,13 +37,13 @@ def _errors(E, seq, fine_steps):
 
 
 def bench_exact_rows(quick: bool, echo, repeat: int, fine_steps) -> None:
-    """Print rows for SLy tables (300 and 2000 rows) and the SLy transition family.
+    """Print rows for SLy tables (300 and 2000 rows) and the SLy transition family (one with twin stars).
 
     Table rows are timed with their error estimate (a second solve of the branch
     with twice the steps), as ``solve_sequence`` does by default for tables.
     """
     from .. import eos
-    from . import solve_sequence, solve_sequences
+    from . import SequenceSettings, solve_sequence, solve_sequences
     from ._baseline import baseline_star
 
     sly = eos.make("piecewise-polytrope", **_SLY)
@@ -71,6 +73,13 @@ def bench_exact_rows(quick: bool, echo, repeat: int, fine_steps) -> None:
     t = timeit_median(lambda: solve_sequence(E), repeat)
     seq = solve_sequence(E)
     rows.append(("SLy + transition (jump 0.3, c_s^2 0.6)", t, _errors(E, seq, fine_steps), ""))
+    E = eos.make("piecewise-polytrope-transition", **_SLY, **_TWINS)
+    t = timeit_median(lambda: solve_sequence(E), repeat)
+    seq = solve_sequence(E)
+    fine = solve_sequence(E, n_stars=8, settings=SequenceSettings(steps=fine_steps), error_estimate=False).twin
+    twin = (f"  twin min {seq.twin.mass_min_msun:.6f} ({abs(seq.twin.mass_min_msun / fine.mass_min_msun - 1):.0e}), "
+            f"max {seq.twin.mass_max.mass_msun:.6f} ({abs(seq.twin.mass_max.mass_msun / fine.mass_max.mass_msun - 1):.0e})")
+    rows.append(("SLy + jump 0.639 at 2 n_sat (cusp, twins)", t, _errors(E, seq, fine_steps), twin))
     fam = eos.get_family("piecewise-polytrope-transition")
     n_batch = 8 if quick else 32
     rng = np.random.default_rng(5)

@@ -51,17 +51,19 @@ class MassQuery:
     nfev: int
 
 
-def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes: int = 60) -> MassQuery:
+def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes: int = 60,
+                    eos_index=None) -> MassQuery:
     """Exact stars of the stable branch at given masses (see the module notes).
 
     Parameters
     ----------
     batch : EOSBatch
         The EOS of ``seq``.
-    seq : SequenceBatch
+    seq : SequenceBatch or TwinBatch
         From ``solve_sequences(batch, ..., exact_maximum=True)``: its branch
         stars bracket the searches and its maximum-mass star answers
-        ``u = 0`` targets.
+        ``u = 0`` targets (anything with ``status``, ``branch`` and
+        ``mass_max`` of this layout: the twin branches, ``seq.twin``, too).
     targets : array_like, shape (n_eos, n_q)
         Gravitational masses in Msun.
     steps : StepSettings
@@ -70,6 +72,9 @@ def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes:
         Relative tolerance on the mass.
     max_passes : int
         Cap on the passes of the root search.
+    eos_index : array_like of int, shape (n_rows,), optional
+        EOS of ``batch`` of each row of ``seq`` (default: row ``i`` is EOS
+        ``i``); lets one search serve the branches of several kinds at once.
 
     Returns
     -------
@@ -80,6 +85,7 @@ def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes:
     """
     targets = np.asarray(targets, float)
     n_eos, n_q = targets.shape
+    eos_index = np.arange(n_eos) if eos_index is None else np.asarray(eos_index, dtype=np.intp)
     out = {k: np.full((n_eos, n_q), np.nan) for k in _SEARCHED}
     m_max = np.asarray(seq.mass_max.mass_msun, float)
     ok = (np.asarray(seq.status) == Status.OK) & np.isfinite(m_max)
@@ -102,25 +108,26 @@ def stars_at_masses(batch, seq, targets, steps, rtol: float = 1e-11, max_passes:
     not_found = np.zeros((n_eos, n_q), dtype=bool)
     nfev = 0
     if ii.size:
-        best, nfev = _search(batch, ii, u_b[ii], x_b[ii], u_t[ii, jj], targets[ii, jj], m_max, steps, rtol,
-                             max_passes)
+        best, nfev = _search(batch, eos_index[ii], u_b[ii], x_b[ii], u_t[ii, jj], targets[ii, jj], m_max[ii], steps,
+                             rtol, max_passes)
         good = np.abs(best["mass_msun"] / targets[ii, jj] - 1.0) <= max(rtol, 1e-8)
         for k in _SEARCHED:
             out[k][ii, jj] = np.where(good, best[k], np.nan)
         not_found[ii, jj] = ~good
-    return MassQuery(_as_stars(batch, out), below, not_found, nfev)
+    return MassQuery(_as_stars(batch, out, eos_index), below, not_found, nfev)
 
 
-def _search(batch, ii, ub, xr, ut, tgt, m_max, steps, rtol, max_passes):
+def _search(batch, eos, ub, xr, ut, tgt, m_max, steps, rtol, max_passes):
     """The vectorised bracketed secant search of :func:`stars_at_masses` (one lane per query).
 
-    ``ub``, ``xr``: ``u`` and ``ln h_c`` of the branch stars of each lane's
-    EOS; ``ut``, ``tgt``: the target's ``u`` and mass.  Returns the last
+    ``eos``: the EOS of each lane; ``ub``, ``xr``: ``u`` and ``ln h_c`` of
+    the branch stars of each lane's branch; ``ut``, ``tgt``, ``m_max``: the
+    target's ``u`` and mass, and the branch's maximum.  Returns the last
     star of every lane (its fields in the units of :class:`Stars`) and the
     right-hand-side evaluations.
     """
     # bracket: the last branch star with u >= target and the next one (u < target)
-    lane = np.arange(ii.size)
+    lane = np.arange(eos.size)
     ge = np.isfinite(ub) & (ub >= ut[:, None])
     k_lo = ub.shape[1] - 1 - np.argmax(ge[:, ::-1], axis=1)
     xa, xb = xr[lane, k_lo], xr[lane, k_lo + 1]
@@ -130,9 +137,9 @@ def _search(batch, ii, ub, xr, ut, tgt, m_max, steps, rtol, max_passes):
     idx = np.minimum(j0[:, None] + np.arange(4), last[:, None])
     x, dxdu = _cubic_at(ub[lane[:, None], idx], xr[lane[:, None], idx], ut)
     slope = 1.0 / dxdu  # dg/dx for the first Newton step
-    x_prev, g_prev = np.full(ii.size, np.nan), np.full(ii.size, np.nan)
-    live = np.ones(ii.size, dtype=bool)
-    best = {k: np.full(ii.size, np.nan) for k in _SEARCHED}
+    x_prev, g_prev = np.full(eos.size, np.nan), np.full(eos.size, np.nan)
+    live = np.ones(eos.size, dtype=bool)
+    best = {k: np.full(eos.size, np.nan) for k in _SEARCHED}
     nfev = 0
     for _ in range(max_passes):
         act = np.flatnonzero(live)
@@ -141,14 +148,14 @@ def _search(batch, ii, ub, xr, ut, tgt, m_max, steps, rtol, max_passes):
         # safeguard: a proposal outside the bracket is replaced by bisection
         inside = np.isfinite(x[act]) & (x[act] > xa[act]) & (x[act] < xb[act])
         x[act] = np.where(inside, x[act], 0.5 * (xa[act] + xb[act]))
-        sv = integrate_stars(batch, ii[act], np.exp(x[act]), steps)
+        sv = integrate_stars(batch, eos[act], np.exp(x[act]), steps)
         nfev += sv.nfev
         vals = surface_fields(sv)
         vals["central_pseudo_enthalpy"] = np.exp(x[act])
         for k in _SEARCHED:
             best[k][act] = vals[k]
         with np.errstate(invalid="ignore"):
-            g = np.sqrt(np.clip(1.0 - vals["mass_msun"] / m_max[ii[act]], 0.0, None)) - ut[act]
+            g = np.sqrt(np.clip(1.0 - vals["mass_msun"] / m_max[act], 0.0, None)) - ut[act]
         done = np.abs(vals["mass_msun"] / tgt[act] - 1.0) <= rtol
         failed = ~np.isfinite(g)
         light = g > 0  # lighter than the target: x is the new lower end of the bracket
@@ -166,12 +173,12 @@ def _search(batch, ii, ub, xr, ut, tgt, m_max, steps, rtol, max_passes):
     return best, nfev
 
 
-def _as_stars(batch, found: dict) -> Stars:
-    """:class:`Stars` of shape (n_eos, n_q) from the searched fields (NaN where no star)."""
+def _as_stars(batch, found: dict, eos_index) -> Stars:
+    """:class:`Stars` of shape (n_rows, n_q) from the searched fields (NaN where no star)."""
     shape = found["mass_msun"].shape
     where = np.isfinite(found["mass_msun"])
     ii, _ = np.nonzero(where)
-    solved = to_stars(batch, ii, found["central_pseudo_enthalpy"][where],
+    solved = to_stars(batch, eos_index[ii], found["central_pseudo_enthalpy"][where],
                       {k: found[k][where] for k in SURFACE_FIELDS})
     fields = {}
     for k, v in solved.as_dict().items():

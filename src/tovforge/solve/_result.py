@@ -14,7 +14,7 @@ import numpy as np
 from .. import quantities
 from ..status import Status
 
-__all__ = ["Stars", "MaximumMass", "StarSequence", "StarProfile"]
+__all__ = ["Stars", "MaximumMass", "TwinBranch", "StarSequence", "StarProfile", "missing_star_reasons"]
 
 
 @dataclass(frozen=True)
@@ -142,6 +142,79 @@ class MaximumMass:
         return bool(self.max_sound_speed_sq > 1.0)
 
 
+def missing_star_reasons(requested, found, lightest: float, heaviest: float, branch: str,
+                         heaviest_name: str = "M_max") -> tuple[str, ...]:
+    """Why no star of a branch was returned at each requested mass ('' where one was).
+
+    Parameters
+    ----------
+    requested : array_like, shape (n,)
+        Requested gravitational masses (Msun).
+    found : array_like, shape (n,)
+        Masses of the stars returned (NaN where none).
+    lightest, heaviest : float
+        Masses of the lightest and the heaviest star of the branch (Msun).
+    branch : str
+        Name of the branch in the text (``"stable branch"``, ``"twin branch"``).
+    heaviest_name : str
+        Name of the heaviest star in the text.
+    """
+    out = []
+    for m, f in zip(np.asarray(requested, float).ravel(), np.asarray(found, float).ravel()):
+        if np.isfinite(f):
+            out.append("")
+        elif m > heaviest:
+            out.append(f"above {heaviest_name} = {heaviest:.6f} Msun of the {branch}")
+        elif m < lightest:
+            out.append(f"below the lightest star of the {branch} ({lightest:.6f} Msun)")
+        else:
+            out.append(f"no exact star of the {branch} found within the mass tolerance")
+    return tuple(out)
+
+
+@dataclass(frozen=True)
+class TwinBranch:
+    """A second stable branch of one EOS (twin stars), beyond the first maximum.
+
+    After a first-order transition above Seidov's limit (or any turn of
+    ``M(h_c)``), ``M`` falls from the first maximum to a minimum, where a
+    radial mode regains stability (the mass-radius curve turns clockwise;
+    Bardeen, Thorne & Meltzer 1966, ApJ 145, 505), and rises again to a
+    second maximum.  Stars of one mass then exist on both branches (twins),
+    the ones here being the more compact.
+
+    Attributes
+    ----------
+    branch : Stars
+        Stars from the minimum to the maximum, in increasing central pressure
+        (both ends included).
+    mass_max : MaximumMass
+        The heaviest star of the branch (its second maximum), with the
+        largest ``c_s^2`` of the EOS below its centre.
+    mass_min : Stars
+        The lightest star of the branch (the minimum of ``M`` between the
+        branches; arrays of length 1).
+    at_mass : Stars or None
+        Exact stars of this branch at the requested masses (NaN outside
+        ``[M_min, M_max]`` of the branch).
+    """
+
+    branch: Stars
+    mass_max: MaximumMass
+    mass_min: Stars
+    at_mass: Stars | None = None
+
+    @property
+    def mass_min_msun(self) -> float:
+        return float(self.mass_min.mass_msun[0])
+
+    def at_mass_reasons(self, requested) -> tuple[str, ...]:
+        """Why ``at_mass`` has no star at each of the ``requested`` masses ('' where it has one)."""
+        found = np.full(np.size(requested), np.nan) if self.at_mass is None else self.at_mass.mass_msun
+        return missing_star_reasons(requested, found, self.mass_min_msun, self.mass_max.mass_msun, "twin branch",
+                                    "its maximum")
+
+
 @dataclass(frozen=True)
 class StarSequence:
     """The stable branch of one EOS.
@@ -157,11 +230,16 @@ class StarSequence:
         Stars along the stable branch in increasing central pressure, from
         below 0.5 Msun (where the EOS allows) up to the maximum mass.
     mass_max : MaximumMass or None
-    twin_mass_max_msun : float
-        Maximum of a second stable branch (twin stars) beyond the first
-        maximum, located at scan resolution; NaN if there is none.
+        The first maximum of ``M`` (the convention for ``M_max``): a smooth
+        maximum, or the star centred on a transition above Seidov's limit.
+    twin : TwinBranch or None
+        A second stable branch beyond the first maximum (twin stars), None
+        if there is none.
     at_mass : Stars or None
-        Exact solves at the requested masses (NaN above M_max).
+        Exact solves on the stable branch at the requested masses (NaN where
+        it has no star of that mass: see :meth:`at_mass_reasons`).
+    requested_mass_msun : ndarray or None
+        The requested masses, one per entry of ``at_mass``.
     nfev : int
         Right-hand-side evaluations (each over all stars of a pass).
     error_estimate : BranchError or None
@@ -174,8 +252,9 @@ class StarSequence:
     status: Status
     branch: Stars
     mass_max: MaximumMass | None
-    twin_mass_max_msun: float = float("nan")
+    twin: TwinBranch | None = None
     at_mass: Stars | None = None
+    requested_mass_msun: np.ndarray | None = None
     nfev: int = 0
     eos: object = field(default=None, repr=False, compare=False)
     error_estimate: object = field(default=None, repr=False, compare=False)
@@ -188,6 +267,26 @@ class StarSequence:
     def message(self) -> str:
         """The status in words."""
         return self.status.message
+
+    @property
+    def twin_mass_max_msun(self) -> float:
+        """Maximum of the twin branch in Msun (NaN if there is none)."""
+        return self.twin.mass_max.mass_msun if self.twin is not None else float("nan")
+
+    def at_mass_reasons(self) -> tuple[str, ...]:
+        """Why ``at_mass`` has no star at each requested mass ('' where it has one)."""
+        if self.requested_mass_msun is None:
+            return ()
+        if not self.success:
+            return tuple(self.message for _ in np.atleast_1d(self.requested_mass_msun))
+        reasons = missing_star_reasons(self.requested_mass_msun, self.at_mass.mass_msun,
+                                       float(np.nanmin(self.branch.mass_msun)), self.mass_max.mass_msun,
+                                       "stable branch")
+        if self.twin is None or self.twin.at_mass is None:
+            return reasons
+        twin = np.isfinite(self.twin.at_mass.mass_msun)
+        return tuple(r + ("; the twin branch has a star of this mass" if r and t else "")
+                     for r, t in zip(reasons, twin))
 
 
 @dataclass(frozen=True)

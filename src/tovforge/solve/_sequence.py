@@ -1,23 +1,27 @@
-"""Star sequences: the stable branch, the maximum mass and exact mass queries.
+"""Star sequences: the stable branch, the maximum mass, twin branches and exact mass queries.
 
 :func:`solve_sequences` runs the phases of a sequence solve, each vectorised
 over all stars of all EOS and each in its own module:
 
 1. *Scan* (:mod:`._scan`): a coarse sequence, log-spaced in the central
    pseudo-enthalpy; the first maximum of ``M(h_c)`` after the last minimum
-   is the end of the stable branch (turning-point criterion); a later,
-   higher maximum is recorded as a twin branch.
-2. *Maximum* (:mod:`._maximum`) and *branch* (:mod:`._branch`): ``n_stars``
-   stars spread uniformly in ``u = sqrt(1 - M / M_max)`` (a coordinate in
-   which the sequence is smooth through the maximum) from below 0.5 Msun to
-   just under the maximum, solved together with a cluster of
-   Chebyshev-Lobatto points in ``ln h_c`` around it.  The interpolating
-   polynomial through the cluster gives ``M_max`` and ``h_c`` at the
-   maximum; the cluster is narrowed or shifted and solved again where an
-   EOS kink lies inside it or the maximum is near its edge.  Then the
-   maximum-mass star (exact, or interpolated through the cluster).
+   is the end of the stable branch (turning-point criterion, or a cusp at a
+   first-order transition above Seidov's limit); a later rise after a
+   minimum where stability is regained is a twin branch.
+2. *Extrema* (:mod:`._maximum`) and *branches* (:mod:`._branch`):
+   ``n_stars`` stars spread uniformly in ``u = sqrt(1 - M / M_max)`` (a
+   coordinate in which the sequence is smooth through the maximum) from
+   below 0.5 Msun to just under the maximum, solved together with a cluster
+   of Chebyshev-Lobatto points around it.  The interpolating polynomial
+   through the cluster gives ``M_max`` and ``h_c`` at the maximum (a cusp is
+   the cluster's last node); the cluster is narrowed or shifted and solved
+   again where an EOS kink lies inside it or the maximum is near its edge.
+   The maximum and minimum of a twin branch, and its stars, are further
+   lanes of the same passes.  Then the extremal stars (exact, or
+   interpolated through the clusters).
 3. *Queries* (:mod:`._queries`): exact stars at requested masses by a
-   bracketed secant search in ``u``.
+   bracketed secant search in ``u``, on the stable branch and on the twin
+   branch at once.
 
 This module assembles the phases' results into a :class:`SequenceBatch` and
 holds the public wrappers for one EOS.
@@ -26,23 +30,24 @@ holds the public wrappers for one EOS.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from .. import quantities
 from ..status import Status
-from ._branch import assemble_branch, place_branch, stars_below_maximum
-from ._maximum import guess_maximum, max_sound_speed_sq, maximum_star, refine_maximum
+from ._branch import assemble_branch, place_branch, place_twin_branch, stars_below_maximum, stars_between
+from ._maximum import ExtremumGuess, guess_maximum, guess_twin, max_sound_speed_sq, maximum_star, refine_extrema
 from ._queries import stars_at_masses
-from ._result import MaximumMass, Stars, StarSequence
+from ._result import MaximumMass, Stars, StarSequence, TwinBranch
 from ._scan import scan
 from ._settings import SequenceSettings
 from ._structure import StepSettings
-from ._surface import integrate, mask_stars, row, surface_fields, to_stars
+from ._surface import GEOMETRISED, integrate, mask_stars, row, surface_fields, to_stars
 
 __all__ = [
     "SequenceBatch",
+    "TwinBatch",
     "solve_sequences",
     "solve_sequence",
     "solve_at_masses",
@@ -51,6 +56,40 @@ __all__ = [
 
 #: Branch stars solved at least, when masses are requested (they bracket the searches).
 _MIN_BRANCH_FOR_QUERIES = 16
+
+
+@dataclass(frozen=True)
+class TwinBatch:
+    """Twin branches of many EOS (one row per EOS, NaN rows where an EOS has none).
+
+    Attributes
+    ----------
+    status : ndarray of int, shape (n_eos,)
+        ``Status.OK`` where the EOS has a twin branch, ``NO_MAXIMUM``
+        elsewhere (so that :func:`~tovforge.solve.stars_at_masses` searches
+        it like a stable branch).
+    branch : Stars
+        Fields of shape (n_eos, width): from the minimum to the maximum.
+    mass_max, mass_min : Stars
+        Fields of shape (n_eos,): the heaviest and the lightest star.
+    max_sound_speed_sq : ndarray, shape (n_eos,)
+        Largest ``c_s^2`` below the centre of the heaviest star.
+    at_mass : Stars or None
+        Fields of shape (n_eos, n_masses): stars of this branch at the
+        requested masses (NaN outside it).
+    """
+
+    status: np.ndarray
+    branch: Stars
+    mass_max: Stars
+    mass_min: Stars
+    max_sound_speed_sq: np.ndarray
+    at_mass: Stars | None = None
+
+    @property
+    def present(self) -> np.ndarray:
+        """Mask of the EOS with a twin branch."""
+        return self.status == Status.OK
 
 
 @dataclass(frozen=True)
@@ -64,9 +103,10 @@ class SequenceBatch:
     branch : Stars
         Fields of shape (n_eos, n_stars), NaN where a row has fewer stars.
     mass_max : Stars
-        Fields of shape (n_eos,): the maximum-mass star.
+        Fields of shape (n_eos,): the maximum-mass star (first maximum).
     max_sound_speed_sq : ndarray, shape (n_eos,)
-    twin_mass_max_msun : ndarray, shape (n_eos,)
+    twin : TwinBatch
+        Second stable branches (NaN rows where an EOS has none).
     at_mass : Stars or None
         Fields of shape (n_eos, n_masses), NaN above M_max.
     nfev : int
@@ -78,10 +118,15 @@ class SequenceBatch:
     branch: Stars
     mass_max: Stars
     max_sound_speed_sq: np.ndarray
-    twin_mass_max_msun: np.ndarray
+    twin: TwinBatch
     at_mass: Stars | None
     nfev: int
     at_u: Stars | None = None
+
+    @property
+    def twin_mass_max_msun(self) -> np.ndarray:
+        """Maximum of the twin branch of each EOS in Msun (NaN where none)."""
+        return self.value("twin_mass_max_msun")
 
     def value(self, name: str) -> np.ndarray:
         """A quantity of the whole sequence by name (see :mod:`tovforge.quantities`), shape (n_eos,).
@@ -98,27 +143,106 @@ class SequenceBatch:
             raise KeyError(f"{name!r} is a quantity of each star; ask mass_max, branch, at_mass or at_u for it")
         if q.of_maximum is not None:
             return self.mass_max.value(q.of_maximum)
+        if q.of_twin is not None:
+            which, star_name = q.of_twin
+            return getattr(self.twin, f"mass_{which}").value(star_name)
         if q.derive is not None:
             return q.derive({k: self.value(k) for k in q.needs})
-        if q.name in self.__dataclass_fields__:  # max_sound_speed_sq, twin_mass_max_msun
+        if q.name in self.__dataclass_fields__:  # max_sound_speed_sq
             return getattr(self, q.name)
         raise KeyError(f"{name!r} is not computed by the solver")
 
 
+def _no_twins(batch, n_eos: int, h_fill: float) -> TwinBatch:
+    """A :class:`TwinBatch` without any twin branch."""
+    nan = {k: np.full(n_eos, np.nan) for k in GEOMETRISED}
+    empty = mask_stars(to_stars(batch, np.arange(n_eos), np.full(n_eos, h_fill), surface_fields(nan)), False)
+    branch = Stars(**{k: v[:, None] for k, v in empty.as_dict().items()})
+    return TwinBatch(np.full(n_eos, int(Status.NO_MAXIMUM)), branch, empty, empty, np.full(n_eos, np.nan))
+
+
+def _twin_batch(batch, sc, cluster, ends, ln_twin, first_ok, settings) -> TwinBatch:
+    """Assemble the twin branches from the lanes of the extremum refinement.
+
+    ``cluster`` and ``ends`` (the extremal stars) hold the lanes: one per
+    EOS for the first maximum, then the twin maxima, then the twin minima of
+    the EOS with a twin (``sc.twin``), in increasing EOS order.
+    """
+    n_eos = sc.ln_h.shape[0]
+    rows = np.flatnonzero(sc.twin)
+    n_t = rows.size
+    lane_max = np.full(n_eos, -1, dtype=np.intp)
+    lane_min = np.full(n_eos, -1, dtype=np.intp)
+    lane_max[rows] = n_eos + np.arange(n_t)
+    lane_min[rows] = n_eos + n_t + np.arange(n_t)
+    top, low = cluster.rows(lane_max), cluster.rows(lane_min)
+
+    def values(lane_of_row):
+        k = np.where(lane_of_row >= 0, lane_of_row, 0)
+        return {key: np.where(lane_of_row >= 0, v[k], np.nan) for key, v in ends.values.items()}
+
+    top_v, low_v = values(lane_max), values(lane_min)
+    present = first_ok & top.ok & low.ok & (low.ln_h_max < top.ln_h_max) & (low_v["mass"] < top_v["mass"])
+    parts = [(low.ln_h, low.values), (top.ln_h, top.values)]
+    if top.co_solved is not None:
+        ln_rows = np.full((n_eos, ln_twin.shape[1]), np.nan)
+        ln_rows[rows] = ln_twin
+        parts.append((ln_rows, top.co_solved))
+    between = stars_between(parts, low.ln_h_max + 1e-6, top.ln_h_max - 1e-6)
+    branch = assemble_branch(batch, between, present, top.ln_h_max, top_v, settings.h_low,
+                             bottom=(np.where(present, low.ln_h_max, np.nan), low_v))
+
+    def star(ln_h, vals):
+        h = np.where(present, np.exp(ln_h), settings.h_low)
+        return mask_stars(to_stars(batch, np.arange(n_eos), h, surface_fields(vals)), present)
+
+    cs2 = np.full(n_eos, np.nan)
+    if present.any():
+        p_rows = np.flatnonzero(present)
+        cs2[p_rows] = max_sound_speed_sq(batch, p_rows, np.exp(top.ln_h_max)[p_rows])
+    status = np.where(present, int(Status.OK), int(Status.NO_MAXIMUM))
+    return TwinBatch(status, branch, star(top.ln_h_max, top_v), star(low.ln_h_max, low_v), cs2)
+
+
+@dataclass(frozen=True)
+class _Branches:
+    """Branches to search for stars of given masses (the layout :func:`stars_at_masses` reads)."""
+
+    status: np.ndarray
+    branch: Stars
+    mass_max: Stars
+
+
+def _stacked(first: SequenceBatch, twin: TwinBatch) -> _Branches:
+    """The stable and the twin branches as one set of rows (first the stable ones), for one search."""
+    w = max(first.branch.mass_msun.shape[1], twin.branch.mass_msun.shape[1])
+
+    def pad(stars):
+        return {k: np.pad(v, ((0, 0), (0, w - v.shape[1])), constant_values=np.nan)
+                for k, v in stars.as_dict().items()}
+
+    a, b = pad(first.branch), pad(twin.branch)
+    branch = Stars(**{k: np.concatenate([a[k], b[k]]) for k in a})
+    mass_max = Stars(**{k: np.concatenate([getattr(first.mass_max, k), getattr(twin.mass_max, k)])
+                        for k in Stars.__dataclass_fields__})
+    return _Branches(np.concatenate([first.status, twin.status]), branch, mass_max)
+
+
 def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSettings | None = None,
                     exact_maximum: bool | None = None, u_nodes=None) -> SequenceBatch:
-    """Stable branches, maximum masses and mass queries of many EOS at once.
+    """Stable branches, maximum masses, twin branches and mass queries of many EOS at once.
 
     Parameters
     ----------
     batch : EOSBatch
         The EOS (see :meth:`tovforge.eos.EOSFamily.build`).
     n_stars : int
-        Stars on each stable branch (0 for none; with ``masses`` or
-        ``u_nodes`` at least 16 are solved, because they bracket the search for
-        each requested star).
+        Stars on each stable branch and on each twin branch (0 for none;
+        with ``masses`` or ``u_nodes`` at least 16 are solved, because they
+        bracket the search for each requested star).
     masses : array_like, shape (n_masses,) or (n_eos, n_masses), optional
-        Gravitational masses in Msun at which to solve exactly.
+        Gravitational masses in Msun at which to solve exactly, on the stable
+        branch (``at_mass``) and on the twin branch (``twin.at_mass``).
     settings : SequenceSettings, optional
     u_nodes : array_like, shape (n_u,), optional
         Values of the sequence coordinate ``u = sqrt(1 - M / M_max)`` in
@@ -145,28 +269,43 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
 
     # 1. scan
     sc = scan(batch, settings)
-    # 2. maximum (the branch stars are solved in the cluster's first pass)
+    # 2. extrema (the branch stars are solved in the clusters' first pass), twin lanes after the first maxima
     guess = guess_maximum(sc, settings)
     ln_branch = place_branch(sc, guess, settings, n_stars)
-    branch_rows = np.flatnonzero(sc.ok)
-    cluster = refine_maximum(batch, guess, sc.ok, settings, co_solve=ln_branch if n_stars > 0 else None)
-    top = maximum_star(batch, cluster, settings, exact=exact_maximum or want_queries)
-    below = stars_below_maximum(cluster, ln_branch, branch_rows)
+    lanes, lane_ok, co_solve, ln_twin = guess, sc.ok, ln_branch, None
+    if sc.twin.any():
+        twin_top, twin_low = guess_twin(sc, settings)
+        ln_twin = place_twin_branch(sc, twin_top, settings, n_stars)
+        lanes = ExtremumGuess.concat(guess, twin_top, twin_low)
+        lane_ok = np.concatenate([sc.ok, np.ones(2 * twin_top.eos_index.size, dtype=bool)])
+        co_solve = np.concatenate([ln_branch, ln_twin, np.full(ln_twin.shape, np.nan)])
+    all_lanes = refine_extrema(batch, lanes, lane_ok, settings, co_solve=co_solve if n_stars > 0 else None)
+    ends = maximum_star(batch, all_lanes, settings, exact=exact_maximum or want_queries)
+    if ln_twin is None:
+        cluster, top = all_lanes, ends.values
+    else:
+        cluster = all_lanes.rows(np.arange(n_eos))
+        top = {k: v[:n_eos] for k, v in ends.values.items()}
+    below = stars_below_maximum(cluster, ln_branch)
     # assemble
     ok = cluster.ok
     status = np.where(cluster.failed, int(Status.SOLVER_FAILURE), sc.status)
     rows_ok = np.flatnonzero(ok)
     safe_h = np.where(ok, np.exp(cluster.ln_h_max), settings.h_low)
-    mass_max = mask_stars(to_stars(batch, np.arange(n_eos), safe_h, surface_fields(top.values)), ok)
+    mass_max = mask_stars(to_stars(batch, np.arange(n_eos), safe_h, surface_fields(top)), ok)
     cs2max = np.full(n_eos, np.nan)
     if rows_ok.size:
         cs2max[rows_ok] = max_sound_speed_sq(batch, rows_ok, np.exp(cluster.ln_h_max)[rows_ok])
-    branch = assemble_branch(batch, below, cluster, top.values, settings.h_low)
-    nfev = sc.nfev + cluster.nfev + top.nfev
-    seq = SequenceBatch(status, branch, mass_max, cs2max, np.where(ok, sc.twin_mass_max_msun, np.nan), None, nfev)
+    branch = assemble_branch(batch, below, ok, cluster.ln_h_max, top, settings.h_low)
+    if ln_twin is None:
+        twin = _no_twins(batch, n_eos, settings.h_low)
+    else:
+        twin = _twin_batch(batch, sc, all_lanes, ends, ln_twin, ok, settings)
+    nfev = sc.nfev + all_lanes.nfev + ends.nfev
+    seq = SequenceBatch(status, branch, mass_max, cs2max, twin, None, nfev)
     if not want_queries:
         return seq
-    # 3. queries
+    # 3. queries: the stable branches, and the twin branches (as more rows of one search) at the fixed masses
     parts = []
     n_fixed = 0
     if masses is not None:
@@ -177,10 +316,24 @@ def solve_sequences(batch, n_stars: int = 100, masses=None, settings: SequenceSe
     if u_nodes is not None:
         u_arr = np.asarray(u_nodes, float).ravel()
         parts.append(mass_max.mass_msun[:, None] * (1.0 - u_arr[None, :] ** 2))
-    query = stars_at_masses(batch, seq, np.concatenate(parts, axis=1), settings.steps, settings.mass_rtol)
-    at_mass = query.stars.select((slice(None), slice(0, n_fixed))) if n_fixed else None
-    at_u = query.stars.select((slice(None), slice(n_fixed, None))) if u_nodes is not None else None
-    return SequenceBatch(status, branch, mass_max, cs2max, seq.twin_mass_max_msun, at_mass, nfev + query.nfev, at_u)
+    targets = np.concatenate(parts, axis=1)
+    twin_at = None
+    if n_fixed and twin.present.any():
+        t_targets = np.full(targets.shape, np.nan)
+        t_targets[:, :n_fixed] = np.where(twin.present[:, None], qm, np.nan)
+        query = stars_at_masses(batch, _stacked(seq, twin), np.concatenate([targets, t_targets]), settings.steps,
+                                settings.mass_rtol, eos_index=np.tile(np.arange(n_eos), 2))
+        twin_at = query.stars.select((slice(n_eos, None), slice(0, n_fixed)))
+        stars = query.stars.select(slice(0, n_eos))
+    else:
+        query = stars_at_masses(batch, seq, targets, settings.steps, settings.mass_rtol)
+        stars = query.stars
+    at_mass = stars.select((slice(None), slice(0, n_fixed))) if n_fixed else None
+    at_u = stars.select((slice(None), slice(n_fixed, None))) if u_nodes is not None else None
+    if n_fixed:
+        nan_at = Stars(**{k: np.full((n_eos, n_fixed), np.nan) for k in Stars.__dataclass_fields__})
+        twin = replace(twin, at_mass=twin_at if twin_at is not None else nan_at)
+    return SequenceBatch(status, branch, mass_max, cs2max, twin, at_mass, nfev + query.nfev, at_u)
 
 
 def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSettings | None = None,
@@ -197,8 +350,11 @@ def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSetti
         branch returned also holds the few cluster stars below the maximum and
         the maximum-mass star itself).
     masses : array_like, optional
-        Gravitational masses (Msun) at which to solve exactly.  Masses above
-        the maximum give NaN and a warning.
+        Gravitational masses (Msun) at which to solve exactly, on the stable
+        branch (``at_mass``) and on a twin branch (``twin.at_mass``).  The
+        branch starts below the lightest of them (if the EOS has such
+        stars).  Masses without a star on the stable branch give NaN, a
+        warning, and their reason in :meth:`StarSequence.at_mass_reasons`.
     settings : SequenceSettings, optional
     error_estimate : bool, optional
         Estimate the integration error of every branch star by step doubling
@@ -220,6 +376,10 @@ def solve_sequence(eos, n_stars: int = 100, masses=None, settings: SequenceSetti
     from ._accuracy import checked_sequence
 
     settings = settings or SequenceSettings()
+    if masses is not None:
+        lightest = float(np.min(np.asarray(masses, float), initial=np.inf))
+        if 0.0 < 0.9 * lightest < settings.low_mass_msun:  # start the branch below the lightest request
+            settings = replace(settings, low_mass_msun=0.9 * lightest)
     res = solve_sequences(eos.batch, n_stars=n_stars, masses=masses, settings=settings)
     return checked_sequence(_sequence_from_batch(eos, res, 0, masses), settings.steps, error_estimate)
 
@@ -229,28 +389,37 @@ def _sequence_from_batch(eos, res: SequenceBatch, r: int, masses) -> StarSequenc
     mm = None
     if status == Status.OK:
         mm = MaximumMass(row(res.mass_max, r, keep_nan=True), float(res.max_sound_speed_sq[r]))
+    twin = None
+    if status == Status.OK and res.twin.present[r]:
+        twin = TwinBranch(
+            branch=row(res.twin.branch, r),
+            mass_max=MaximumMass(row(res.twin.mass_max, r, keep_nan=True), float(res.twin.max_sound_speed_sq[r])),
+            mass_min=row(res.twin.mass_min, r, keep_nan=True),
+            at_mass=None if res.twin.at_mass is None else row(res.twin.at_mass, r, keep_nan=True),
+        )
     at = None
+    requested = None
     if res.at_mass is not None:
         at = row(res.at_mass, r, keep_nan=True)
-        if masses is not None and status == Status.OK:
-            above = np.asarray(masses, float).ravel() > mm.mass_msun
-            if above.any():
-                warnings.warn(
-                    f"masses {', '.join(f'{m:g}' for m in np.asarray(masses, float).ravel()[above])} Msun exceed "
-                    f"M_max = {mm.mass_msun:.4f} Msun of this EOS; their values are NaN.",
-                    stacklevel=3,
-                )
-    return StarSequence(
+        requested = np.asarray(masses, float).ravel()
+    seq = StarSequence(
         family=eos.family.name,
         parameters=dict(eos.parameters),
         status=status,
         branch=row(res.branch, r),
         mass_max=mm,
-        twin_mass_max_msun=float(res.twin_mass_max_msun[r]),
+        twin=twin,
         at_mass=at,
+        requested_mass_msun=requested,
         nfev=res.nfev,
         eos=eos,
     )
+    if requested is not None and status == Status.OK:
+        missing = [f"{m:g} Msun ({why})" for m, why in zip(requested, seq.at_mass_reasons()) if why]
+        if missing:
+            warnings.warn(f"no star on the stable branch at {'; '.join(missing)}: their values are NaN.",
+                          stacklevel=3)
+    return seq
 
 
 def solve_stars(eos, central_pseudo_enthalpy, steps: StepSettings | None = None) -> Stars:

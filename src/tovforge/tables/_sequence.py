@@ -1,4 +1,4 @@
-"""Sequence tables: the stable branch of one EOS, star by star."""
+"""Sequence tables: the stable branch of one EOS, star by star, and its twin branch if it has one."""
 
 from __future__ import annotations
 
@@ -9,13 +9,13 @@ from dataclasses import replace
 import numpy as np
 
 from ..errors import InputError
-from ._stars import STAR_COLUMNS, sequence_meta, star_table
+from ._stars import BRANCH_COLUMN, STAR_COLUMNS, TWIN, joined_stars, sequence_meta, star_table
 from ._write import TableSummary, table_format
 
 __all__ = ["SEQUENCE_COLUMNS", "sequence_table", "central_enthalpies"]
 
-#: Columns of a sequence table: one per star quantity of :mod:`tovforge.quantities`.
-SEQUENCE_COLUMNS = STAR_COLUMNS
+#: Columns of a sequence table: one per star quantity of :mod:`tovforge.quantities`, then ``branch``.
+SEQUENCE_COLUMNS = (*STAR_COLUMNS, BRANCH_COLUMN)
 
 
 def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.ndarray:
@@ -47,9 +47,21 @@ def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.n
     return np.exp(0.5 * (lo + hi))
 
 
+def _evenly_in_log_pressure(eos, low, high, points: int, steps):
+    """``points`` stars with central pressures evenly spaced in ``ln p_c`` from star ``low`` to ``high`` (both kept)."""
+    from ..solve import solve_stars
+
+    h_lo = float(low.central_pseudo_enthalpy[0])
+    h_hi = float(high.central_pseudo_enthalpy[0])
+    p = np.exp(np.linspace(np.log(float(low.central_pressure_dyn_cm2[0])),
+                           np.log(float(high.central_pressure_dyn_cm2[0])), int(points)))
+    h_c = central_enthalpies(eos, p[1:-1], h_lo, h_hi)
+    return solve_stars(eos, np.concatenate([[h_lo], h_c, [h_hi]]), steps)  # the end stars exactly, not re-found
+
+
 def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
                    command: str | None = None) -> TableSummary:
-    """Write the stable branch of one EOS as a table.
+    """Write the stable branch of one EOS, and its twin branch if it has one, as a table.
 
     Parameters
     ----------
@@ -59,10 +71,12 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
     points : int, optional
         Number of stars, at central pressures spaced evenly in ``ln p_c``
         from the lightest star (about ``min_mass_msun``) to the maximum-mass
-        star, both included.  Ignored when ``masses`` are given.
+        star, both included; as many again on a twin branch, from its
+        minimum to its maximum.  Ignored when ``masses`` are given.
     masses : array_like, optional
-        Gravitational masses in Msun: one exact star per mass (NaN rows above
-        M_max or below the lightest star the EOS supports); adds a
+        Gravitational masses in Msun: one exact star per mass on the stable
+        branch (NaN rows above M_max or below the lightest star the EOS
+        supports), then a row for each mass the twin branch also has; adds a
         ``target_mass`` column.
     min_mass_msun : float
         Lightest star of the ``points`` mode (the solver's branch start).
@@ -72,6 +86,8 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
     Returns
     -------
     TableSummary
+        The column ``branch`` marks the stable branch (1) and the twin
+        branch (2).
 
     Raises
     ------
@@ -79,7 +95,7 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
         If the EOS has no maximum mass (nothing to tabulate) or the options
         are out of range.
     """
-    from ..solve import SequenceSettings, solve_sequence, solve_stars
+    from ..solve import SequenceSettings, solve_sequence
 
     t0 = time.monotonic()
     table_format(out)
@@ -96,30 +112,38 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
     if not 0 < min_mass_msun < 3:
         raise InputError(f"min_mass_msun must be in (0, 3) Msun. Got {min_mass_msun:g}.")
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)  # masses above M_max become a note below
+        warnings.simplefilter("ignore", UserWarning)  # masses without a stable star become a note below
         seq = solve_sequence(eos, n_stars=16, masses=masses, settings=settings)
     if not seq.success:
         raise InputError(f"{eos.family.name} {_params_text(eos)}: no stable branch to tabulate ({seq.message})")
     mm = seq.mass_max
+    tw = seq.twin
     if masses is None:
-        h_lo = float(seq.branch.central_pseudo_enthalpy[0])
-        h_hi = float(mm.star.central_pseudo_enthalpy[0])
-        p_lo = float(seq.branch.central_pressure_dyn_cm2[0])
-        p_hi = mm.central_pressure_dyn_cm2
-        p = np.exp(np.linspace(np.log(p_lo), np.log(p_hi), int(points)))
-        h_c = central_enthalpies(eos, p[1:-1], h_lo, h_hi)
-        h_c = np.concatenate([[h_lo], h_c, [h_hi]])  # the end stars exactly, not re-found
-        stars = solve_stars(eos, h_c, settings.steps)
+        parts = [_evenly_in_log_pressure(eos, seq.branch.select(slice(0, 1)), mm.star, points, settings.steps)]
+        if tw is not None:
+            parts.append(_evenly_in_log_pressure(eos, tw.mass_min, tw.mass_max.star, points, settings.steps))
+        target = None
         mode = "points"
     else:
-        stars = seq.at_mass
+        parts = [seq.at_mass]
+        target = [masses]
         mode = "masses"
-        missing = masses[~np.isfinite(stars.mass_msun)]
+        missing = masses[~np.isfinite(seq.at_mass.mass_msun)]
         if missing.size:
             notes.append(f"no stable star at {', '.join(f'{m:g}' for m in missing)} Msun "
                          f"(M_max = {mm.mass_msun:.4f} Msun; lightest branch star "
                          f"{float(seq.branch.mass_msun[0]):.3g} Msun): NaN rows.")
-    summary = star_table(out, stars, sequence_meta(seq, settings, mode, command), target_mass=masses)
+        if tw is not None:
+            on_twin = np.isfinite(tw.at_mass.mass_msun)
+            parts.append(tw.at_mass.select(on_twin))
+            target.append(masses[on_twin])
+            if on_twin.any():
+                notes.append(f"twin stars at {', '.join(f'{m:g}' for m in masses[on_twin])} Msun: rows of branch "
+                             f"{TWIN} (the twin branch reaches {tw.mass_min_msun:.4f}..{tw.mass_max.mass_msun:.4f} "
+                             "Msun).")
+    stars, branch = joined_stars(parts)
+    summary = star_table(out, stars, sequence_meta(seq, settings, mode, command),
+                         target_mass=None if target is None else np.concatenate(target), branch=branch)
     return replace(summary, seconds=time.monotonic() - t0, notes=tuple(notes))
 
 

@@ -19,18 +19,51 @@ from .. import quantities
 from ._quantities import provenance
 from ._write import Column, TableSummary, TableWriter
 
-__all__ = ["STAR_COLUMNS", "star_block", "star_table", "sequence_meta", "stars_text", "sequence_text",
-           "sequence_json", "profile_text", "profile_json"]
+__all__ = ["STAR_COLUMNS", "BRANCH_COLUMN", "STABLE", "TWIN", "star_block", "star_table", "joined_stars",
+           "branch_stars", "sequence_meta", "stars_text", "sequence_text", "sequence_json", "profile_text",
+           "profile_json"]
 
 #: Columns of a star table, one per star quantity of the registry.
 STAR_COLUMNS = tuple(Column(q.column, q.unit, q.description) for q in quantities.star_quantities())
 #: The requested mass, first column of tables of stars at given masses.
 TARGET_MASS = Column("target_mass", "Msun", "requested gravitational mass")
+#: Labels of the ``branch`` column.
+STABLE, TWIN = 1, 2
+#: Which stable branch a star is on, last column of star tables.
+BRANCH_COLUMN = Column("branch", "1", f"{STABLE}: the stable branch up to the first maximum (M_max); {TWIN}: the "
+                                      "twin branch, a second stable branch beyond it", "int64")
 
 
 def star_block(stars) -> dict:
     """Column name -> values of every star quantity of ``stars`` (a :class:`tovforge.solve.Stars`)."""
     return {q.column: np.asarray(stars.value(q.name), float) for q in quantities.star_quantities()}
+
+
+def joined_stars(parts):
+    """One :class:`~tovforge.solve.Stars` from several, and the branch label of each star.
+
+    Parameters
+    ----------
+    parts : list of Stars
+        The first on the stable branch, the others on the twin branch.
+
+    Returns
+    -------
+    stars : Stars
+    branch : ndarray of int
+        :data:`STABLE` or :data:`TWIN` per star.
+    """
+    from ..solve import Stars
+
+    stars = Stars(**{k: np.concatenate([np.asarray(getattr(p, k), float) for p in parts])
+                     for k in Stars.__dataclass_fields__})
+    branch = np.concatenate([np.full(len(p), STABLE if i == 0 else TWIN, dtype=np.int64) for i, p in enumerate(parts)])
+    return stars, branch
+
+
+def branch_stars(seq):
+    """The stars of the stable branch of ``seq``, then those of its twin branch, and their branch labels."""
+    return joined_stars([seq.branch] + ([seq.twin.branch] if seq.twin is not None else []))
 
 
 def sequence_meta(seq, settings, mode: str, command: str | None = None) -> dict:
@@ -60,15 +93,17 @@ def sequence_meta(seq, settings, mode: str, command: str | None = None) -> dict:
         radius_at_mass_max_km=mm.radius_km if mm else nan,
         max_sound_speed_sq=mm.max_sound_speed_sq if mm else nan,
         twin_mass_max_msun=float(seq.twin_mass_max_msun),
-        stable_branch="connected branch of increasing central pressure up to the first maximum of M",
+        twin_mass_min_msun=seq.twin.mass_min_msun if seq.twin else nan,
+        stable_branch=("branch 1: connected branch of increasing central pressure up to the first maximum of M; "
+                       "branch 2: a second stable branch (twin stars) from the minimum of M beyond it to its maximum"),
         solver_settings_json=json.dumps({"n_steps": settings.steps.n_steps,
                                          "steps_per_kink": settings.steps.steps_per_kink,
                                          "mass_rtol": settings.mass_rtol}),
     )
 
 
-def star_table(out, stars, meta: dict, target_mass=None) -> TableSummary:
-    """Write stars as a table (``.csv``, ``.h5`` or ``.npz``) with the columns :data:`STAR_COLUMNS`.
+def star_table(out, stars, meta: dict, target_mass=None, branch=None) -> TableSummary:
+    """Write stars as a table (``.csv``, ``.h5`` or ``.npz``) with the columns :data:`STAR_COLUMNS` and ``branch``.
 
     Parameters
     ----------
@@ -79,14 +114,18 @@ def star_table(out, stars, meta: dict, target_mass=None) -> TableSummary:
         Metadata (see :func:`sequence_meta`).
     target_mass : array_like, optional
         Requested masses (Msun), written as a first ``target_mass`` column.
+    branch : array_like of int, optional
+        :data:`STABLE` or :data:`TWIN` per star (default: all on the stable branch).
 
     Returns
     -------
     TableSummary
     """
     t0 = time.monotonic()
-    columns = list(STAR_COLUMNS)
+    columns = [*STAR_COLUMNS, BRANCH_COLUMN]
     block = star_block(stars)
+    block[BRANCH_COLUMN.name] = np.full(len(stars), STABLE, dtype=np.int64) if branch is None else \
+        np.asarray(branch, dtype=np.int64)
     if target_mass is not None:
         columns.insert(0, TARGET_MASS)
         block[TARGET_MASS.name] = np.asarray(target_mass, float)
@@ -111,8 +150,19 @@ def stars_text(stars) -> str:
     return _aligned([q.heading for q in qs], rows)
 
 
+def _at_mass_lines(requested, stars, reasons, branch: str) -> list[str]:
+    """Text of the stars of one branch at the requested masses, and why the others are missing."""
+    found = np.isfinite(stars.mass_msun)
+    lines = []
+    if found.any():
+        lines += ["", f"stars at the requested masses on the {branch} ({int(found.sum())} of {found.size}):",
+                  stars_text(stars.select(found))]
+    lines += [f"no star on the {branch} at {m:g} Msun: {why}" for m, why in zip(requested, reasons) if why]
+    return lines
+
+
 def sequence_text(seq) -> str:
-    """The summary ``tovforge solve`` prints: status, maximum, twins, stars at masses and the branch."""
+    """The summary ``tovforge solve`` prints: status, maximum, twins, stars at masses and the branches."""
     pars = "  ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}" for k, v in seq.parameters.items())
     lines = [f"EOS      {seq.family}  {pars}", f"status   {seq.message}"]
     if not seq.success:
@@ -123,15 +173,42 @@ def sequence_text(seq) -> str:
         f"M_max    {mm.mass_msun:.6f} Msun   R = {mm.radius_km:.4f} km   "
         f"p_c = {mm.central_pressure_dyn_cm2:.4e} dyn/cm^2   max c_s^2 = {mm.max_sound_speed_sq:.4f} ({causal})"
     )
-    if np.isfinite(seq.twin_mass_max_msun):
-        lines.append(f"twins    a second stable branch reaches {seq.twin_mass_max_msun:.3f} Msun (scan resolution)")
+    tw = seq.twin
+    if tw is not None:
+        lines.append(
+            f"twins    a second stable branch from its minimum {tw.mass_min_msun:.6f} Msun "
+            f"(R = {float(tw.mass_min.radius_km[0]):.4f} km) to its maximum {tw.mass_max.mass_msun:.6f} Msun "
+            f"(R = {tw.mass_max.radius_km:.4f} km, max c_s^2 = {tw.mass_max.max_sound_speed_sq:.4f})"
+        )
     if seq.at_mass is not None:
-        found = np.isfinite(seq.at_mass.mass_msun)
-        if found.any():
-            lines += ["", f"stars at the requested masses ({int(found.sum())} of {found.size} on the stable branch):",
-                      stars_text(seq.at_mass.select(found))]
+        lines += _at_mass_lines(seq.requested_mass_msun, seq.at_mass, seq.at_mass_reasons(), "stable branch")
+        if tw is not None and tw.at_mass is not None:
+            lines += _at_mass_lines(seq.requested_mass_msun, tw.at_mass, tw.at_mass_reasons(seq.requested_mass_msun),
+                                    "twin branch")
     lines += ["", f"stable branch ({len(seq.branch)} stars, increasing central pressure):", stars_text(seq.branch)]
+    if tw is not None:
+        lines += ["", f"twin branch ({len(tw.branch)} stars, from its minimum to its maximum):",
+                  stars_text(tw.branch)]
     return "\n".join(lines)
+
+
+def _maximum_json(mm) -> dict:
+    return {
+        "mass_msun": mm.mass_msun if mm else None,
+        "radius_km": mm.radius_km if mm else None,
+        "central_pressure_dyn_cm2": mm.central_pressure_dyn_cm2 if mm else None,
+        "max_sound_speed_sq": mm.max_sound_speed_sq if mm else None,
+    }
+
+
+def _at_mass_json(requested, stars, reasons) -> list[dict]:
+    """One object per requested mass: the mass asked, why there is no star (or null), the star's quantities."""
+    if stars is None:
+        return []
+    names = [q.name for q in quantities.star_quantities()]
+    return [{"requested_mass_msun": float(m), "reason": why or None,
+             **{k: float(stars.value(k)[i]) for k in names}}
+            for i, (m, why) in enumerate(zip(requested, reasons))]
 
 
 def sequence_json(seq) -> dict:
@@ -139,26 +216,35 @@ def sequence_json(seq) -> dict:
 
     Keys: ``family``, ``parameters``, ``status`` (code), ``message``,
     ``mass_max`` (``mass_msun``, ``radius_km``, ``central_pressure_dyn_cm2``,
-    ``max_sound_speed_sq``), ``at_mass`` (one object per requested mass) and
-    ``sequence`` (one array per quantity); stars are keyed by the canonical
-    names of every star quantity of :mod:`tovforge.quantities`.
+    ``max_sound_speed_sq``), ``at_mass`` (one object per requested mass:
+    ``requested_mass_msun``, ``reason`` (null, or why the stable branch has
+    no star of that mass) and the star's quantities), ``sequence`` (one
+    array per quantity) and ``twin_branch`` (null, or the same keys for the
+    second stable branch plus ``mass_min``, its lightest star); stars are
+    keyed by the canonical names of every star quantity of
+    :mod:`tovforge.quantities`.
     """
-    mm = seq.mass_max
     names = [q.name for q in quantities.star_quantities()]
-    at = seq.at_mass
+    requested = seq.requested_mass_msun if seq.requested_mass_msun is not None else ()
+    tw = seq.twin
+    twin = None
+    if tw is not None:
+        twin = {
+            "mass_max": _maximum_json(tw.mass_max),
+            "mass_min": {k: float(tw.mass_min.value(k)[0]) for k in ("mass_msun", "radius_km",
+                                                                    "central_pressure_dyn_cm2")},
+            "at_mass": _at_mass_json(requested, tw.at_mass, tw.at_mass_reasons(requested)),
+            "sequence": {k: tw.branch.value(k) for k in names},
+        }
     return {
         "family": seq.family,
         "parameters": seq.parameters,
         "status": int(seq.status),
         "message": seq.message,
-        "mass_max": {
-            "mass_msun": mm.mass_msun if mm else None,
-            "radius_km": mm.radius_km if mm else None,
-            "central_pressure_dyn_cm2": mm.central_pressure_dyn_cm2 if mm else None,
-            "max_sound_speed_sq": mm.max_sound_speed_sq if mm else None,
-        },
-        "at_mass": [] if at is None else [{k: float(at.value(k)[i]) for k in names} for i in range(len(at))],
+        "mass_max": _maximum_json(seq.mass_max),
+        "at_mass": _at_mass_json(requested, seq.at_mass, seq.at_mass_reasons()),
         "sequence": {k: seq.branch.value(k) for k in names},
+        "twin_branch": twin,
     }
 
 

@@ -172,3 +172,19 @@ def test_bad_tables_name_file_and_line(tmp_path, rows, match):
     path.write_text("# pressure[dyn/cm^2], energy_density[g/cm^3]\n" + "\n".join(f"{a}, {b}" for a, b in rows) + "\n")
     with pytest.raises(TableFormatError, match=match):
         eos.make("table", path=str(path))
+
+
+def test_table_with_a_maxwell_construction_above_seidovs_limit_has_the_cusp_and_the_twins(tmp_path):
+    """The issue's example as 1000 + 1000 rows with two rows of one pressure (Delta e / e_t = 0.639 at
+    p_t = 10^34.46 dyn/cm^2, c_s^2 = 1 above; above Seidov's limit, Seidov 1971, Sov. Astron. 15, 347):
+    M_max is the cusp at the transition and the twin branch follows, as for the family, to the table's
+    interpolation error (measured: 2.7e-6 at the cusp and the minimum, 1e-8 at the twin maximum)."""
+    E = eos.make("piecewise-polytrope-transition", **READ2009["SLy"], log_p_transition=34.46, jump_ratio=0.639,
+                 cs2_above=1.0)
+    T = eos.make("table", path=str(write_eos_table(tmp_path / "t.csv", _transition_rows(E, 1000))))
+    ref = solve.solve_sequence(E, n_stars=12)
+    tab = solve.solve_sequence(T, n_stars=12)
+    assert tab.mass_max.mass_msun == pytest.approx(ref.mass_max.mass_msun, rel=1e-5)
+    assert tab.mass_max.star.central_pseudo_enthalpy[0] == pytest.approx(float(T.batch.jumps[0, 0]), rel=1e-14)
+    assert tab.twin.mass_min_msun == pytest.approx(ref.twin.mass_min_msun, rel=1e-5)
+    assert tab.twin.mass_max.mass_msun == pytest.approx(ref.twin.mass_max.mass_msun, rel=1e-6)

@@ -156,3 +156,15 @@ def test_unfinished_chunks_of_another_spec_are_refused(tmp_path, monkeypatch):
         run_grid(small_spec(points=4, seed=9), out, workers=1, progress=False)
     run_grid(small_spec(points=4, seed=9), out, workers=1, progress=False, overwrite=True)
     assert out.exists() and not parts_folder(out).exists()
+
+
+def test_info_aligns_long_parameter_names(tmp_path):
+    """`grid info` lines up the parameter rows whatever the names' length (log_p_transition is 16 letters)."""
+    spec = parse_spec({"family": "piecewise-polytrope-transition", "chunk_size": 2,
+                       "design": {"method": "sobol", "points": 2, "seed": 3},
+                       "outputs": {"scalars": ["mass_max_msun"], "curves": [], "at_mass": []}})
+    run_grid(spec, tmp_path / "t.h5", workers=1, progress=False)
+    text = describe_grid(tmp_path / "t.h5")
+    rows = [ln for ln in text.splitlines() if " box [" in ln]
+    assert len(rows) == 7 and any("log_p_transition" in r for r in rows)
+    assert len({r.index(" box [") for r in rows}) == 1

@@ -143,3 +143,42 @@ def test_masses_above_the_maximum_are_nan_and_radii_shrink_with_mass():
     r = res.at_mass["radius_km"][0]
     assert np.isnan(r[masses > 2.05]).all() and np.isfinite(r[masses < 2.0]).all()
     assert np.all(np.diff(res.curves["mass_msun"][0]) < 0)  # u increases: mass falls
+
+
+def test_solve_points_cuts_any_number_of_points_into_chunks_and_keeps_their_order():
+    from tovforge.errors import InputError
+    from tovforge.grid import ChunkResult, solve_points
+
+    spec = _spec(chunk_size=2)
+    theta = np.vstack([_points(), [[34.8, 0.8, 3.0, 2.5]]])  # 5 valid points and one invalid: 3 chunks
+    got = solve_points(spec, theta, workers=2)  # two processes: chunks may finish out of order
+    want = ChunkResult.concat([solve_chunk(spec, theta[i:i + 2]) for i in range(0, len(theta), 2)])
+    assert list(got.status) == list(want.status) and got.reason == want.reason
+    assert got.status[-1] == Status.INVALID_PARAMETERS and (got.status[:-1] == Status.OK).all()
+    for field in ("scalars", "curves", "at_mass"):
+        a, b = getattr(got, field), getattr(want, field)
+        assert list(a) == list(b)
+        for k in a:
+            np.testing.assert_array_equal(a[k], b[k], err_msg=k)
+    with pytest.raises(InputError, match="workers must be at least 1"):
+        solve_points(spec, theta, workers=0)
+
+
+def test_twin_scalars_are_exact_and_nan_without_a_twin():
+    """Twin scalars of the transition family: the solver's exact twin extrema where a second stable
+    branch exists (SLy with the issue's jump at 2 n_sat), NaN where it does not (a small jump)."""
+    names = ["twin_mass_max_msun", "twin_mass_min_msun", "twin_radius_at_mass_max_km"]
+    spec = parse_spec({"family": "piecewise-polytrope-transition", "chunk_size": 4, "mass_max_floor_msun": 0.5,
+                       "design": {"method": "sobol", "points": 4, "seed": 1},
+                       "outputs": {"scalars": ["mass_max_msun", *names]}})
+    sly = list(READ2009["SLy"].values())
+    theta = np.array([sly + [34.46, 0.639, 1.0], sly + [34.46, 0.3, 1.0]])
+    res = solve_chunk(spec, theta)
+    assert res.status.tolist() == [0, 0]
+    seq = solve.solve_sequence(eos.make("piecewise-polytrope-transition", **READ2009["SLy"], log_p_transition=34.46,
+                                        jump_ratio=0.639, cs2_above=1.0))
+    expect = [seq.twin.mass_max.mass_msun, seq.twin.mass_min_msun, seq.twin.mass_max.radius_km]
+    for name, value in zip(names, expect):
+        assert res.scalars[name][0] == pytest.approx(value, rel=1e-10), name
+        assert np.isnan(res.scalars[name][1]), name
+    assert res.scalars["mass_max_msun"][0] == pytest.approx(seq.mass_max.mass_msun, rel=1e-12)

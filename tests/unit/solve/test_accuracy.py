@@ -142,7 +142,7 @@ def test_mass_queries_are_exact(sly):
 
 
 def test_mass_above_maximum_gives_nan_and_warning(sly):
-    with pytest.warns(UserWarning, match="exceed M_max"):
+    with pytest.warns(UserWarning, match="above M_max"):
         seq = solve.solve_sequence(sly, masses=[1.4, 2.5])
     assert np.isfinite(seq.at_mass.radius_km[0]) and np.isnan(seq.at_mass.radius_km[1])
 

@@ -33,8 +33,30 @@ def test_twin_branch_needs_a_clockwise_turn():
     ipk, _ = _scan.first_maximum(m)
     shrinking = np.array([[12.0, 11.0, 10.0, 9.0, 8.0, 7.0, 6.0]])  # radius still falls at the minimum
     growing = np.array([[12.0, 11.0, 10.0, 10.5, 11.0, 11.5, 12.0]])
-    assert _scan.twin_maximum(m, shrinking, ipk).tolist() == [1.9]
-    assert np.isnan(_scan.twin_maximum(m, growing, ipk)).all()
+    assert [a.tolist() for a in _scan.twin_branch(m, shrinking, ipk)] == [[3], [5]]
+    assert [a.tolist() for a in _scan.twin_branch(m, growing, ipk)] == [[-1], [-1]]
+    # a rise that is still rising at the end of the scan has no maximum there: no twin branch
+    rising = np.array([[1.0, 2.0, 1.5, 1.2, 1.6, 1.9, 2.5]])
+    assert [a.tolist() for a in _scan.twin_branch(rising, shrinking, ipk)] == [[-1], [-1]]
+
+
+def test_a_turning_jump_is_a_maximum_however_shallow_the_dip_after_it():
+    """Above Seidov's limit the star centred on the transition is a maximum (Seidov 1971, Sov. Astron.
+    15, 347) even where the next scanned star is already heavier (a dip narrower than the spacing):
+    the twin branch's minimum is then bracketed by the cusp and that star."""
+    m = np.array([[1.0, 2.0, 2.1, 2.3, 2.6, 2.4]])
+    r = np.array([[12.0, 11.5, 11.0, 10.5, 10.0, 9.5]])
+    turn = np.zeros(m.shape, dtype=bool)
+    assert _scan.first_maximum(m)[0].tolist() == [4]
+    turn[0, 1] = True
+    ipk, _ = _scan.first_maximum(m, turn)
+    assert ipk.tolist() == [1]
+    assert [a.tolist() for a in _scan.twin_branch(m, r, ipk, turn)] == [[1], [4]]
+    # a turning jump reached while the mass falls is no maximum
+    falling = np.array([[1.0, 2.0, 1.9, 1.8, 2.6, 2.4]])
+    turn2 = np.zeros(m.shape, dtype=bool)
+    turn2[0, 2] = True
+    assert _scan.first_maximum(falling, turn2)[0].tolist() == [1]
 
 
 def test_result_objects_do_not_call_the_solver():
