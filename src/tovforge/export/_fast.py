@@ -226,30 +226,50 @@ def _fast_mass_max(t, lead, grad, std, strict):
                     std=sd[i:i + 1].reshape(lead) if std else None)
 
 
-def _at_u(v, mmax, mass):
-    """A node curve v (n_u,) at one mass (a float) through u = sqrt(1 - M / M_max): a float (NaN off the branch)."""
+def _at_one_mass(v, mmax, mass, want_w):
+    """A node curve v (n_u,) at one mass through u = sqrt(1 - M / M_max), on floats.
+
+    Returns ``(value, d value / du, weights of the nodes (n_u,) or None, u)``;
+    None off the emulated branch.  The runtime's ``spline_in_u`` for one point.
+    """
     ratio = mass / mmax
     if not (mass > 0.0 and ratio <= 1.0):
-        return _NAN
+        return None
     u = math.sqrt(1.0 - ratio)
     sp = _SPLINE
     if not u <= sp.umax:
-        return _NAN
+        return None
     j = min(max(bisect.bisect_right(sp.nodes, u) - 1, 0), sp.n_int - 1)
     t = u - sp.nodes[j]
-    c0, c1, c2, c3 = np.dot(sp.cj[j], v).tolist()
-    return ((c0 * t + c1) * t + c2) * t + c3
+    cj = sp.cj[j]  # (4, n_u)
+    c0, c1, c2, c3 = np.dot(cj, v).tolist()
+    w = ((cj[0] * t + cj[1]) * t + cj[2]) * t + cj[3] if want_w else None
+    return ((c0 * t + c1) * t + c2) * t + c3, (3.0 * c0 * t + 2.0 * c1) * t + c2, w, u
 
 
 def _curve_one(plan, query, y, dy, sd, masses, grad, std):
-    """The runtime's ``curve_at_mass`` for one theta: value, grad (q, d) and std (q,) at masses (q,)."""
+    """The runtime's ``curve_at_mass`` for one theta: value (q,), grad (q, d) and std (q,) at masses (q,)."""
     a, b, transform = plan.curves[query]
     im = plan.i_mmax
     mmax = float(y[im])
     v = y[a:b]
-    if masses.shape[0] == 1 and not grad and not std:
-        val = np.array([_at_u(v, mmax, float(masses[0]))])
-        return _inverse_with(np, transform, val[None, :], None, None)[0][0], None, None
+    if masses.shape[0] == 1:  # on floats: a few small arrays instead of the vectorised spline
+        mass = float(masses[0])
+        at = _at_one_mass(v, mmax, mass, grad or std)
+        if at is None:
+            val, g, s = np.full((1, 1), _NAN), np.full((1, 1, _D), _NAN), np.full((1, 1), _NAN)
+        else:
+            value, der, w, u = at
+            val, g, s = np.full((1, 1), value), None, None
+            if grad or std:
+                dudm = mass / (2.0 * u * mmax * mmax)
+            if grad:
+                g = (np.dot(w, dy[a:b]) + (der * dudm) * dy[im])[None, None, :]
+            if std:
+                s_nodes = float(np.sum(np.abs(w) * sd[a:b]))
+                s = np.full((1, 1), math.sqrt(s_nodes ** 2 + (der * dudm * float(sd[im])) ** 2))
+        val, g, s = _inverse_with(np, transform, val, g if grad else None, s if std else None)
+        return val[0], (g[0] if grad else None), (s[0] if std else None)
     sp = _SPLINE
     ratio = masses / mmax
     ok = (masses > 0.0) & (ratio <= 1.0)

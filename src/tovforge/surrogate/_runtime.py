@@ -305,12 +305,14 @@ def kernel_stack(xp, m, kernels):
         s = SQRT5 * inv
         b = m["X"][None, :, :] * s[:, None, :]  # (G, N, d)
         bT = xp.permute_dims(b, (0, 2, 1))
-        if _is_numpy(xp):
-            bT = xp.ascontiguousarray(bT)
         amp2 = xp.take(m["amp2"], pick, axis=0)
         noise = xp.take(m["noise"], pick, axis=0)
+        XT = xp.permute_dims(m["X"], (1, 0))
+        if _is_numpy(xp):
+            bT, XT = xp.ascontiguousarray(bT), xp.ascontiguousarray(XT)
         return {"s": s, "bT": bT, "b2": xp.sum(b * b, axis=-1)[:, None, :], "inv2": inv * inv,
-                "w": 1.0 / (length * length), "length": length[:, None, None, :],
+                "w": 1.0 / (length * length), "XT": XT,
+                "invT": xp.reshape(xp.permute_dims(inv, (1, 0)), (inv.shape[1], inv.shape[0], 1, 1)),
                 "amp2": xp.reshape(amp2, (-1, 1, 1)), "jitter": xp.reshape(noise + 1e-10 * amp2, (-1, 1, 1, 1))}
 
     return _cached(xp, m, "kernel_stack", tuple(kernels), make)
@@ -674,41 +676,35 @@ def nearest(xp, q, K):
 
 
 def local_sd(xp, x, X, nn, k, skip=0):
-    """The GP's standard deviation / sqrt(amp2) ... conditioned on training points ``nn`` (G, n, K + skip), (G, n).
+    """The standard deviation of a GP on the training points ``nn`` (G, n, K + skip) at rows x, (G, n).
 
-    For each kernel of ``k`` (:func:`kernel_stack`) and row of x (n, d):
-    the chosen points' squared distances in the kernel's metric, summed in
-    parameter order, order them nearest first; the ``skip`` nearest are left
-    out; the posterior variance of a GP on the K others (Matern-5/2 kernel
-    matrix with the nugget and a 1e-10 jitter, one solve), clipped at zero.
-    Returns the standard deviation in kernel units, shape (G, n).
+    For each kernel of ``k`` (:func:`kernel_stack`) and row of x (n, d): the
+    chosen points' squared distances in the kernel's metric (summed over the
+    parameters in order) put them nearest first; the ``skip`` nearest are
+    left out (1 at a training point: its leave-one-out sigma); the posterior
+    variance of a GP with the kernel on the K others (its Matern-5/2 matrix
+    with the nugget and a 1e-10 jitter, one solve), clipped at zero.  In the
+    kernel's units (its amplitude included).
     """
     G, n, Kt = nn.shape
     d = x.shape[1]
     Xn = xp.reshape(xp.take(X, xp.reshape(nn, (-1,)), axis=0), (G, n, Kt, d))
-    d2 = None
-    for i in range(d):
-        s = x[None, :, None, i] - Xn[:, :, :, i]
-        t = (s * s) * xp.reshape(k["w"][:, i], (G, 1, 1))
-        d2 = t if d2 is None else d2 + t
-    order = xp.argsort(d2, axis=-1)[..., skip:]
-    d2 = xp.take_along_axis(d2, order, axis=-1)
-    nn = xp.take_along_axis(nn, order, axis=-1)
+    s = x[None, :, None, :] - Xn
+    d2 = xp.sum((s * s) * k["w"][:, None, None, :], axis=-1)  # a short axis: summed in order
+    nn = xp.take_along_axis(nn, xp.argsort(d2, axis=-1), axis=-1)[..., skip:]
+    d2 = xp.sort(d2, axis=-1)[..., skip:]
     K = Kt - skip
-    # the chosen points scaled by 1/l, one contiguous (G, n, K) array per parameter
-    Xs = xp.reshape(xp.take(X, xp.reshape(nn, (-1,)), axis=0), (G, n, K, d)) / k["length"]
-    r2 = None
-    for i in range(d):
-        c = Xs[:, :, :, i]
-        s = c[:, :, :, None] - c[:, :, None, :]
-        r2 = s * s if r2 is None else r2 + s * s
-    r = xp.sqrt(r2)
+    # the chosen points scaled by 1 / l, parameters first (d, G, n, K); their squared distances
+    # summed over the leading axis, parameter by parameter
+    XsT = xp.reshape(xp.take(k["XT"], xp.reshape(nn, (-1,)), axis=1), (d, G, n, K)) * k["invT"]
+    s = XsT[:, :, :, :, None] - XsT[:, :, :, None, :]
+    r2 = xp.sum(s * s, axis=0)
     amp2 = k["amp2"]  # (G, 1, 1)
-    a4 = amp2[..., None]
-    Kmat = a4 * (1.0 + SQRT5 * r + (5.0 / 3.0) * r * r) * xp.exp(-SQRT5 * r)
+    t = SQRT5 * xp.sqrt(r2)
+    Kmat = (amp2[..., None] * (1.0 + t + (5.0 / 3.0) * r2)) * xp.exp(-t)
     Kmat = Kmat + k["jitter"] * xp.eye(K, dtype=x.dtype)
-    rk = xp.sqrt(d2)
-    kv = amp2 * (1.0 + SQRT5 * rk + (5.0 / 3.0) * rk * rk) * xp.exp(-SQRT5 * rk)
+    t = SQRT5 * xp.sqrt(d2)
+    kv = (amp2 * (1.0 + t + (5.0 / 3.0) * d2)) * xp.exp(-t)
     sol = xp.linalg.solve(Kmat, kv[..., None])[..., 0]
     var = amp2[..., 0] - xp.sum(kv * sol, axis=-1)
     var = xp.where(var > 0.0, var, 0.0)
