@@ -19,7 +19,8 @@ import math
 import numpy as np
 
 from ._codegen import Template, literal
-from ._runtime import PAIRS_PER_CHUNK, local_sd, matern_gradients, matern_values, nearest, scaled_distances
+from ._runtime import (PAIRS_PER_CHUNK, kernel_stack, local_sd, matern_gradients, matern_values, nearest,
+                       scaled_distances)
 
 _GP_N = 0  # training points of the model (a literal of the generated code)
 
@@ -38,18 +39,43 @@ def _gp_folded(m, bounds):
             for g, (a, b) in enumerate(bounds)]
 
 
-def _gp_sums(x, grad, X, k, blocks, width, near=0):
+#: The kernel rows of the latest single row of inputs, per kernel: ``kernel -> (its bytes, row (1, N))``.
+#: A likelihood asks several queries at one theta (M_max, then R and Lambda at masses): each kernel
+#: row is made once (the same bits: each kernel is its own product, stacked or not).
+_GP_LAST = {}
+
+
+def _gp_rows_of_one(x, m, kernels):
+    """Kernel rows (G, 1, N) of the kernels at one row x, those of the latest row reused."""
+    key = x.tobytes()
+    got = [_GP_LAST.get(g) for g in kernels]  # one read each: another thread may replace them meanwhile
+    rows = [e[1] if e is not None and e[0] == key else None for e in got]
+    missing = tuple(g for g, r in zip(kernels, rows) if r is None)
+    if missing:
+        q = matern_values(np, scaled_distances(np, x, kernel_stack(np, m, missing)), False)[0]
+        for i, g in enumerate(missing):
+            _GP_LAST[g] = (key, q[i])
+            rows[kernels.index(g)] = q[i]
+    return rows
+
+
+def _gp_sums(x, grad, X, k, blocks, width, near=0, m=None, kernels=None):
     """Kernel sums of the blocks ``((kernel j, weights (N, o), first column), ...)`` at rows x.
 
     Returns z (n, width), dz (n, width, d) or None, and with ``near`` the
     indices (G, n, near) of the nearest training points of each kernel, from
     the same squared distances (the runtime's sigma selects by them too).
+    One row without gradient or sigma reuses the kernel rows of the latest
+    row (``m`` and ``kernels``: the model and the kernels of ``k``).
     """
     n, d = x.shape
-    q = scaled_distances(np, x, k)
-    nn = nearest(np, q, near) if near else None
-    q, c = matern_values(np, q, grad)
-    dk = matern_gradients(np, x, X, k, c) if grad else None
+    if n == 1 and not grad and not near and m is not None:
+        q, nn, dk = _gp_rows_of_one(x, m, kernels), None, None
+    else:
+        q = scaled_distances(np, x, k)
+        nn = nearest(np, q, near) if near else None
+        q, c = matern_values(np, q, grad)
+        dk = matern_gradients(np, x, X, k, c) if grad else None
     z = np.empty((n, width))
     dz = np.empty((n, width, d)) if grad else None
     for j, W, at in blocks:
@@ -80,9 +106,9 @@ def _gp_join(pieces, i):
     return pieces[0][i] if len(pieces) == 1 else np.concatenate([p[i] for p in pieces])
 
 
-def _gp_part(x, grad, X, k, blocks, width):
+def _gp_part(x, grad, X, k, blocks, width, m, kernels):
     """``(z, dz)`` of the blocks at rows x."""
-    pieces = [_gp_sums(x[c], grad, X, k, blocks, width) for c in _gp_chunks(x)]
+    pieces = [_gp_sums(x[c], grad, X, k, blocks, width, 0, m, kernels) for c in _gp_chunks(x)]
     return _gp_join(pieces, 0), (_gp_join(pieces, 1) if grad else None)
 
 
@@ -152,7 +178,7 @@ def emit(arrays, plans) -> list[str]:
             f"    k{v} = kernel_stack(np, m, {literal(tuple(kernels))})",
             f"    b{v} = ({', '.join(blocks)},)",
             f"    s{v} = ({', '.join(sig)},)",
-            f"    parts[{name!r}] = (lambda x, grad, k=k{v}, b=b{v}: _gp_part(x, grad, X, k, b, {at}),",
+            f"    parts[{name!r}] = (lambda x, grad, k=k{v}, b=b{v}: _gp_part(x, grad, X, k, b, {at}, m, {literal(tuple(kernels))}),",
             f"                      lambda x, k=k{v}, s=s{v}: _gp_std(x, X, k, s, {at}, {near}),",
             f"                      lambda x, grad, k=k{v}, b=b{v}, s=s{v}: _gp_part_std(x, grad, X, k, b, s, {at}, {near}))",
         ]

@@ -20,10 +20,23 @@ __all__ = ["TEMPLATE"]
 # ---- the exported code starts below this line ----
 
 
+#: The kernel row of the latest single row of inputs: ``(its bytes, r^5 row (1, N))``.  A likelihood asks
+#: several queries at one theta (M_max, then R and Lambda at masses): the kernel row is made once.
+_RBF_LAST = (None, None)
+
+
 def _rbf_sums(x, grad, XT, X2, blocks, width):
     """r^5 kernel sums of the blocks ``((weights (N, o), first column), ...)`` at rows x: z (n, width), dz."""
+    global _RBF_LAST
     n, d = x.shape
-    phi, dphi = polyharmonic_rows(np, x, XT, X2, grad)
+    if n == 1 and not grad:
+        key, phi = _RBF_LAST  # one read: another thread may replace it meanwhile
+        if key != x.tobytes():
+            phi = polyharmonic_rows(np, x, XT, X2, False)[0]
+            _RBF_LAST = (x.tobytes(), phi)
+        dphi = None
+    else:
+        phi, dphi = polyharmonic_rows(np, x, XT, X2, grad)
     z = np.empty((n, width))
     dz = np.empty((n, width, d)) if grad else None
     for W, at in blocks:
