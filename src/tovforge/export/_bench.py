@@ -1,9 +1,11 @@
-"""Benchmark section ``export``: the exported evaluators beside the exact solver."""
+"""Benchmark section ``export``: the exported evaluators, old-style and generated side by side, and the exact solver."""
 
 from __future__ import annotations
 
+import math
 import tempfile
-import time
+from contextlib import contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -63,7 +65,7 @@ def _tensor_demo(folder: Path):
 
 
 def bench_export(quick: bool = False, echo=print) -> None:
-    """Latency for one theta and throughput for 10^4 theta of the exported files, beside the exact solver.
+    """The exported evaluators, old-style (general runtime) and generated side by side, per query; file sizes.
 
     BLAS runs on one thread, as the solver does: the figures are per core (and
     OpenBLAS threads that wait for a busy core make shared machines erratic).
@@ -74,6 +76,93 @@ def bench_export(quick: bool = False, echo=print) -> None:
         _bench_export(quick, echo)
 
 
+@dataclass(frozen=True)
+class _Pair:
+    """One demo evaluator in both styles.
+
+    Attributes
+    ----------
+    label : str
+    old, new : module
+        The same model answering through the general runtime (old-style) and through its generated code;
+        ``old`` is None when only the generated one is at hand.
+    sizes : str
+        File sizes, in MB.
+    """
+
+    label: str
+    old: object
+    new: object
+    sizes: str
+
+
+@contextmanager
+def _general(mod):
+    """The generated file ``mod`` answering through its general runtime (old-style) inside the block."""
+    mod._general_only(True)
+    try:
+        yield
+    finally:
+        mod._general_only(False)
+
+
+def _styled(mod, old):
+    """``fn -> timed callable`` of one style: the module itself, or a generated one in old style (``old=True``)."""
+    def wrap(fn):
+        if not old or mod is None or not hasattr(mod, "_general_only"):
+            return lambda: fn(mod)
+
+        def call():
+            with _general(mod):
+                return fn(mod)
+        return call
+    return wrap
+
+
+def _demo_pairs(folder: Path, echo) -> list:
+    """The committed demo files with their other style: a generated file is also timed old-style; an old-style
+    file is exported anew with generated code from its trained model in build/models, when that is there."""
+    from ..surrogate import load
+    from . import export_model
+
+    pairs = []
+    for name in DEMO_FILES:
+        path = _exported_dir() / name
+        if not path.is_file():
+            echo(f"{path} is missing (run `make export`); skipped")
+            continue
+        mod = _import_file(path, f"bench_{path.stem}")
+        size = f"{path.stat().st_size / 1e6:.2f} MB"
+        if hasattr(mod, "_general_only"):
+            pairs.append(_Pair(name, mod, mod, f"{size} (generated)"))
+            continue
+        kind = path.stem.split("_", 1)[1]
+        model_dir = _exported_dir().parent / "build" / "models" / kind
+        if not (model_dir / "model.json").is_file():
+            echo(f"{name} is old-style and {model_dir} has no trained model: generated code not timed")
+            pairs.append(_Pair(name, mod, None, f"{size} (old-style)"))
+            continue
+        new_path = folder / f"generated_{path.stem}.py"
+        export_model(load(model_dir), new_path, namespaces=("numpy",))
+        pairs.append(_Pair(f"{name} vs {model_dir.relative_to(_exported_dir().parent)} generated", mod,
+                           _import_file(new_path, f"bench_generated_{path.stem}"),
+                           f"{size} (old-style) -> {new_path.stat().st_size / 1e6:.2f} MB (generated)"))
+    return pairs
+
+
+def _side_by_side(old, new, repeat: int, rounds: int) -> tuple[float, float]:
+    """Median seconds of the calls ``old`` and ``new`` (None: not timed, inf), interleaved in ``rounds`` rounds;
+    the best round of each."""
+    best = [math.inf, math.inf]
+    for _ in range(rounds):
+        for i, call in enumerate((old, new)):
+            if call is None:
+                continue
+            call()
+            best[i] = min(best[i], timeit_median(call, repeat))
+    return best[0], best[1]
+
+
 def _bench_export(quick: bool, echo) -> None:
     from .. import eos
     from ..solve import solve_sequence
@@ -81,45 +170,56 @@ def _bench_export(quick: bool, echo) -> None:
     family = "piecewise-polytrope"
     fam = eos.get_family(family)
     n_eos = 2 if quick else 5
-    repeat = 3 if quick else 7
     theta_s = demo_box_points(family, n_eos, seed=11)
     eoses = [fam.from_array(t) for t in theta_s]
     solve_sequence(eoses[0])
-    t_exact = float(np.median([timeit_median(lambda E=E: solve_sequence(E), repeat) for E in eoses]))
+    t_exact = float(np.median([timeit_median(lambda E=E: solve_sequence(E), 3 if quick else 7) for E in eoses]))
 
-    evaluators = []
-    for name in DEMO_FILES:
-        path = _exported_dir() / name
-        if path.is_file():
-            evaluators.append((f"{name} ({path.stat().st_size / 1e6:.2f} MB)", _import_file(path, f"bench_{path.stem}")))
-        else:
-            echo(f"{path} is missing (run `make export`); skipped")
     tmp = tempfile.TemporaryDirectory()
-    evaluators.append(("tensor splines, synthetic 8^4 grid", _tensor_demo(Path(tmp.name))))
+    pairs = _demo_pairs(Path(tmp.name), echo)
+    tensor = _tensor_demo(Path(tmp.name))
+    pairs.append(_Pair("tensor splines, synthetic 8^4 grid", tensor, tensor, "(not committed)"))
 
     n_batch = 2_000 if quick else 10_000
     theta_b = demo_box_points(family, n_batch, seed=12)
     one = theta_b[0]
+    reps, rounds = (30, 2) if quick else (200, 3)
+    queries = [
+        ("R(1.4), one theta", lambda m: m.radius(one, 1.4), reps, None),
+        ("R(1.4) with sigma, one theta", lambda m: m.radius(one, 1.4, return_std=True), reps, "std"),
+        ("R(1.4) with gradient, one theta", lambda m: m.radius(one, 1.4, return_grad=True), reps, None),
+        ("whole curve (100 masses), one theta", lambda m: m.curve(one, n=100), reps, None),
+        ("M_max, one theta", lambda m: m.mass_max(one), reps, None),
+        (f"batched R(1.4), {n_batch} theta", lambda m: m.radius(theta_b, 1.4), 1 if quick else 3, "batch"),
+        (f"batched whole curve, {n_batch} theta", lambda m: m.curve(theta_b, n=100), 1 if quick else 2, "batch"),
+    ]
     echo(f"one core. exact solver (solve_sequence, 100 stars + M_max, one EOS per call): {t_exact * 1e3:.1f} ms per EOS "
          f"(median of {n_eos} EOS)")
-    echo(f"one theta: median of {30 if quick else 200} calls; batch: {n_batch} theta of the demo {family} box, "
-         "one call")
-    echo("")
-    head = (f"{'evaluator':<38}{'curve us':>10}{'radius us':>11}{'batch radius/s':>16}{'batch curve/s':>15}"
-            f"{'speed-up 1':>12}{'speed-up N':>12}")
-    echo(head)
-    reps = 30 if quick else 200
-    for label, mod in evaluators:
-        mod.curve(one, n=100)
-        t_curve = timeit_median(lambda: mod.curve(one, n=100), reps)
-        t_radius = timeit_median(lambda: mod.radius(one, 1.4), reps)
-        t_batch = timeit_median(lambda: mod.radius(theta_b, 1.4), 1 if quick else 3)
-        t_bcurve = timeit_median(lambda: mod.curve(theta_b, n=100), 1 if quick else 2)
-        echo(f"{label:<38}{t_curve * 1e6:>10.0f}{t_radius * 1e6:>11.0f}{n_batch / t_batch:>16.3g}"
-             f"{n_batch / t_bcurve:>15.3g}{t_exact / t_curve:>12.3g}{t_exact / (t_bcurve / n_batch):>12.3g}")
+    echo(f"one theta: median of {reps} calls, best of {rounds} interleaved rounds; batches: {n_batch} theta of the "
+         f"demo {family} box in one call")
+    echo("old-style: the general runtime of the file (every exported file before generated code); generated: the "
+         "code written for the model")
+    for pair in pairs:
+        echo("")
+        echo(f"{pair.label}: {pair.sizes}")
+        echo(f"    {'query':<38}{'old-style':>14}{'generated':>14}{'ratio':>8}")
+        for title, fn, repeat, what in queries:
+            if what == "std" and not pair.new.HAS_STD:
+                continue
+            old = _styled(pair.old, pair.old is pair.new)(fn) if pair.old is not None else None
+            t_old, t_new = _side_by_side(old, _styled(pair.new, False)(fn), repeat, rounds)
+            if what == "batch":
+                cells = [f"{n_batch / t:>10.3g} /s" if math.isfinite(t) else f"{'-':>12}" for t in (t_old, t_new)]
+            else:
+                cells = [f"{t * 1e6:>11.0f} us" if math.isfinite(t) else f"{'-':>14}" for t in (t_old, t_new)]
+            ratio = f"{t_old / t_new:>7.2f}x" if math.isfinite(t_old) else ""
+            echo(f"    {title:<38}{cells[0]:>14}{cells[1]:>14}{ratio:>8}")
+        t_curve = timeit_median(lambda: pair.new.curve(one, n=100), reps)
+        echo(f"    speed-up over the exact solver: {t_exact / t_curve:.3g} (one-theta curve)")
     tmp.cleanup()
     echo("")
-    echo("curve: mass, radius and Lambda at 100 points of the stable branch; radius: R at 1.4 Msun.")
-    echo("speed-up 1: exact solve time / one-theta curve time; speed-up N: per theta in the batched curve call.")
-    echo("floors: <= 1000 us for one theta, >= 1e4 theta/s batched; goals: <= 50 us (spline), <= 300 us (GP), "
-         ">= 1e6 theta/s (spline).")
+    echo("ratio: old-style time / generated time (above 1: the generated code is faster).  "
+         "Old-style rows of a generated file run its general runtime (_general_only).")
+    echo("floors (goals), one core: spline R(1.4) one theta 100 (30) us; spline curve one theta 120 (50) us; "
+         "GP R(1.4) with sigma one theta 200 (80) us;")
+    echo("batched R(1.4) spline 5e4 (2e5) /s, GP 2e4 (5e4) /s; batched curve GP 1e4 (3e4) /s.")

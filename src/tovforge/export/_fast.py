@@ -74,6 +74,7 @@ class _Spline:
         self.umax = float(un[-1])
         self.n_int = int(un.shape[0]) - 1
         self.cj = np.ascontiguousarray(np.transpose(C, (1, 0, 2)))  # (n_int, 4, n_u)
+        self.cp = np.ascontiguousarray(np.reshape(C, (4 * self.n_int, un.shape[0])))  # (4 n_int, n_u)
 
 
 def _setup_generated(m):
@@ -277,14 +278,14 @@ def _curve_one(plan, query, y, dy, sd, masses, grad, std):
     safe = np.where(u == u, u, 0.0)
     j = np.clip(np.searchsorted(sp.un, safe, side="right") - 1, 0, sp.n_int - 1)
     t = safe - sp.un[j]
-    cj = sp.cj[j]  # (q, 4, n_u)
-    c = np.matmul(cj, v)
-    c0, c1, c2, c3 = c[:, 0], c[:, 1], c[:, 2], c[:, 3]
+    # the curve's polynomial on every interval (4, n_int), then each point's
+    c0, c1, c2, c3 = np.reshape(np.dot(sp.cp, v), (4, sp.n_int))[:, j]
     good = (u >= 0.0) & (u <= sp.umax)
     val = np.where(good, ((c0 * t + c1) * t + c2) * t + c3, _NAN)
-    der = np.where(good, (3.0 * c0 * t + 2.0 * c1) * t + c2, _NAN)
     g = s = None
     if grad or std:
+        der = np.where(good, (3.0 * c0 * t + 2.0 * c1) * t + c2, _NAN)
+        cj = sp.cj[j]  # (q, 4, n_u)
         tw = t[:, None]
         w = ((cj[:, 0] * tw + cj[:, 1]) * tw + cj[:, 2]) * tw + cj[:, 3]  # (q, n_u)
         dudm = masses / (2.0 * u * mmax * mmax)

@@ -36,6 +36,8 @@ space (:func:`log_sum_exp`), so far tails do not underflow.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ...errors import InputError
@@ -87,8 +89,11 @@ def lowest_mass_ratio(chirp_mass, mass_max) -> np.ndarray:
     ndarray
         ``q*``, shape of ``mass_max``; values above 1 mean no stable pair.
     """
-    target = np.log(np.asarray(mass_max, float) / chirp_mass)
-    # x = ln q, from the root of the line with ln(1 + q) = ln 2 (exact at q = 1): two or three steps
+    mass_max = np.asarray(mass_max, float)
+    if mass_max.size == 1:  # one theta: the same steps on floats, without an array call per operation
+        return np.full(mass_max.shape, _lowest_mass_ratio_one(chirp_mass, float(mass_max.reshape(-1)[0])))
+    target = np.log(mass_max / chirp_mass)
+    # x = ln q, from the root of the line with ln(1 + q) = ln 2 (exact at q = 1): a few steps
     x = (0.2 * np.log(2.0) - target) / 0.6
     for _ in range(60):
         q = np.exp(x)
@@ -98,6 +103,21 @@ def lowest_mass_ratio(chirp_mass, mass_max) -> np.ndarray:
         if np.all(np.abs(step) < 1e-14):
             break
     return np.exp(x)
+
+
+def _lowest_mass_ratio_one(chirp_mass: float, mass_max: float) -> float:
+    """:func:`lowest_mass_ratio` for one M_max (NaN for NaN)."""
+    if not mass_max > 0.0:
+        return math.nan
+    target = math.log(mass_max / chirp_mass)
+    x = (0.2 * math.log(2.0) - target) / 0.6
+    for _ in range(60):
+        q = math.exp(x)
+        step = (0.2 * math.log1p(q) - 0.6 * x - target) / (0.2 * q / (1.0 + q) - 0.6)
+        x -= step
+        if abs(step) < 1e-14:
+            break
+    return math.exp(x)
 
 
 class Posterior:
