@@ -424,26 +424,40 @@ def _polyharmonic_columns(xp, diffs, grad):
     return phi, dphi
 
 
-def _bspline_local(xp, knots, n_knots, n_coef, x, deg=3):
+def bspline_tables(xp, m, deg=3):
+    """The knot tables of a tensor-spline model, made once (cached for NumPy): flat padded knots ``tx``,
+    the ends ``lo``, ``hi`` of each axis, and as plain values ``K``, ``n_knots``, ``shape``, ``deg``."""
+    def make():
+        knots, n_knots = m["knots"], m["n_knots"]
+        shape = [int(v) for v in m["coef_shape"]]
+        d, K = knots.shape
+        flat = [float(knots[a, j]) if j < int(n_knots[a]) else 0.0 for a in range(d) for j in range(K)]
+        return {"tx": xp.asarray(flat, dtype=xp.float64),
+                "lo": xp.asarray([float(knots[a, deg]) for a in range(d)], dtype=xp.float64),
+                "hi": xp.asarray([float(knots[a, shape[a]]) for a in range(d)], dtype=xp.float64),
+                "K": int(K), "n_knots": [int(v) for v in n_knots], "shape": shape, "deg": deg}
+
+    return _cached(xp, m, "bspline_tables", None, make)
+
+
+def _bspline_local(xp, T, x):
     """The deg + 1 B-splines of each axis that do not vanish at points x (n, d).
 
-    ``knots`` (d, K) padded knot vectors with ``n_knots`` and ``n_coef`` per axis.
+    ``T``: :func:`bspline_tables` (padded knot vectors with their counts).
     Returns the index of the first of them (n, d), and their values and
     x-derivatives (each a list of deg + 1 arrays (n, d)).  De Boor's triangle on
     the knot interval of each point (Piegl & Tiller 1997, The NURBS Book, A2.2
     and A2.3), vectorised over points and axes: the work per point does not grow
     with the number of knots.
     """
-    d, K = knots.shape
-    flat = [float(knots[a, j]) if j < int(n_knots[a]) else 0.0 for a in range(d) for j in range(K)]
-    tx = xp.asarray(flat, dtype=x.dtype)
-    lo = xp.asarray([float(knots[a, deg]) for a in range(d)], dtype=x.dtype)
-    hi = xp.asarray([float(knots[a, int(n_coef[a])]) for a in range(d)], dtype=x.dtype)
+    tx, K, n_coef, deg = T["tx"], T["K"], T["shape"], T["deg"]
+    d = x.shape[1]
+    lo, hi = T["lo"], T["hi"]
     xc = xp.clip(x, lo, hi - 1e-12 * (hi - lo))
     cols = []
     for a in range(d):  # the knot interval t[i] <= x < t[i + 1], per axis
-        ta = tx[a * K : a * K + int(n_knots[a])]
-        cols.append(xp.clip(xp.searchsorted(ta, xc[:, a], side="right") - 1, deg, int(n_coef[a]) - 1) + a * K)
+        ta = tx[a * K : a * K + T["n_knots"][a]]
+        cols.append(xp.clip(xp.searchsorted(ta, xc[:, a], side="right") - 1, deg, n_coef[a] - 1) + a * K)
     i = xp.stack(cols, axis=-1)  # (n, d), offsets into tx
 
     def t(offset):
@@ -475,17 +489,17 @@ def _bspline_local(xp, knots, n_knots, n_coef, x, deg=3):
     return first, N, dN
 
 
-def _tensor_rows(xp, x, m, grad):
+def tensor_rows(xp, x, T, coef, grad):
     """Tensor-product spline sum at rows x (n, d): (n, n_out) and (n, n_out, d).
 
-    Only the (deg + 1)^d coefficients whose B-splines cover a point are
-    gathered, and weighted by the products of the one-dimensional values.
+    ``T``: :func:`bspline_tables`; ``coef`` (prod(shape), n_out), C order over
+    the shape.  Only the (deg + 1)^d coefficients whose B-splines cover a point
+    are gathered, and weighted by the products of the one-dimensional values.
     """
     d = x.shape[1]
-    shape = [int(s) for s in m["coef_shape"]]
-    coef = m["coef"]  # (prod(shape), n_out), C order over shape
+    shape = T["shape"]
     n = x.shape[0]
-    first, vals, ders = _bspline_local(xp, m["knots"], m["n_knots"], shape, x)
+    first, vals, ders = _bspline_local(xp, T, x)
     V = xp.stack(vals, axis=-1)  # (n, d, deg + 1)
     dV = xp.stack(ders, axis=-1) if grad else None
     k = V.shape[-1]
@@ -622,8 +636,17 @@ def _rbf_rows(xp, x, m, grad, spans):
 
 def _tensor_part(xp, m, x, grad, columns):
     """Tensor-product cubic B-splines (every output: the gathered coefficients serve them all)."""
-    per_row = int(m["coef"].shape[1]) * 4 ** x.shape[1] // 8  # gathered coefficients per row, scaled
-    return _chunked(xp, _tensor_rows, x, per_row, m, grad)
+    return _chunked(xp, _tensor_rows, x, tensor_cells_per_row(m["coef"], x), bspline_tables(xp, m), m["coef"], grad)
+
+
+def tensor_cells_per_row(coef, x):
+    """What one row of a tensor-spline sum costs, scaled to the pairs of :data:`PAIRS_PER_CHUNK` (gathered
+    coefficients / 8): sets its rows per chunk."""
+    return int(coef.shape[1]) * 4 ** x.shape[1] // 8
+
+
+def _tensor_rows(xp, x, T, coef, grad):
+    return tensor_rows(xp, x, T, coef, grad)
 
 
 #: The runtime part of each method (``Model.method``).
