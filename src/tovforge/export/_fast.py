@@ -269,7 +269,7 @@ def _curve_one(plan, query, y, dy, sd, masses, grad, std):
             if std:
                 s_nodes = float(np.sum(np.abs(w) * sd[a:b]))
                 s = np.full((1, 1), math.sqrt(s_nodes ** 2 + (der * dudm * float(sd[im])) ** 2))
-        val, g, s = _inverse_with(np, transform, val, g if grad else None, s if std else None)
+        val, g, s = _inverse_with(_NUMPY, transform, val, g if grad else None, s if std else None)
         return val[0], (g[0] if grad else None), (s[0] if std else None)
     sp = _SPLINE
     ratio = masses / mmax
@@ -294,7 +294,7 @@ def _curve_one(plan, query, y, dy, sd, masses, grad, std):
         if std:
             s_nodes = np.sum(np.abs(w) * sd[a:b], axis=-1)
             s = np.sqrt(s_nodes ** 2 + (der * dudm * sd[im]) ** 2)
-    val, g, s = _inverse_with(np, transform, val[None, :], None if g is None else g[None], None if s is None else s[None])
+    val, g, s = _inverse_with(_NUMPY, transform, val[None, :], None if g is None else g[None], None if s is None else s[None])
     return val[0], (g[0] if grad else None), (s[0] if std else None)
 
 
@@ -314,7 +314,7 @@ def _fast_at_mass(query, t, lead, mass, grad, std, strict):
     if query in DERIVED:
         needs, rule = DERIVED[query]
         got = [_curve_one(plan, q, y, dy, sd, masses, grad, std) for q in needs]
-        val, g, s = rule(np, masses[None, :], [(v[None], None if gg is None else gg[None], None if ss is None else ss[None])
+        val, g, s = rule(_NUMPY, masses[None, :], [(v[None], None if gg is None else gg[None], None if ss is None else ss[None])
                                                for v, gg, ss in got], grad, std)
         val, g, s = val[0], (g[0] if grad else None), (s[0] if std else None)
     else:
@@ -348,5 +348,5 @@ def _fast_curve(t, lead, n, strict):
     fields = [y[plan.i_mmax] * shrink]
     for query in ("radius", "tidal_deformability"):
         a, b, transform = plan.curves[query]
-        fields.append(_inverse_with(np, transform, np.dot(y[a:b], W)[None, :], None, None)[0][0])
+        fields.append(_inverse_with(_NUMPY, transform, np.dot(y[a:b], W)[None, :], None, None)[0][0])
     return Curve(*(f.reshape(shape) for f in fields))

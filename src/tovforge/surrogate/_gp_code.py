@@ -26,6 +26,8 @@ _GP_N = 0  # training points of the model (a literal of the generated code)
 
 __all__ = ["TEMPLATE"]
 
+_NUMPY = np  # in an exported file: NumPy, or its stand-in under NumPy 1 (the runtime's array-API names)
+
 # ---- the exported code starts below this line ----
 
 
@@ -52,7 +54,7 @@ def _gp_rows_of_one(x, m, kernels):
     rows = [e[1] if e is not None and e[0] == key else None for e in got]
     missing = tuple(g for g, r in zip(kernels, rows) if r is None)
     if missing:
-        q = matern_values(np, scaled_distances(np, x, kernel_stack(np, m, missing)), False)[0]
+        q = matern_values(_NUMPY, scaled_distances(_NUMPY, x, kernel_stack(_NUMPY, m, missing)), False)[0]
         for i, g in enumerate(missing):
             _GP_LAST[g] = (key, q[i])
             rows[kernels.index(g)] = q[i]
@@ -72,10 +74,10 @@ def _gp_sums(x, grad, X, k, blocks, width, near=0, m=None, kernels=None):
     if n == 1 and not grad and not near and m is not None:
         q, nn, dk = _gp_rows_of_one(x, m, kernels), None, None
     else:
-        q = scaled_distances(np, x, k)
-        nn = nearest(np, q, near) if near else None
-        q, c = matern_values(np, q, grad)
-        dk = matern_gradients(np, x, X, k, c) if grad else None
+        q = scaled_distances(_NUMPY, x, k)
+        nn = nearest(_NUMPY, q, near) if near else None
+        q, c = matern_values(_NUMPY, q, grad)
+        dk = matern_gradients(_NUMPY, x, X, k, c) if grad else None
     z = np.empty((n, width))
     dz = np.empty((n, width, d)) if grad else None
     for j, W, at in blocks:
@@ -89,7 +91,7 @@ def _gp_sums(x, grad, X, k, blocks, width, near=0, m=None, kernels=None):
 
 def _gp_sigma(x, X, k, nn, groups, width):
     """The sigma (n, width) of ``groups`` ((kernel j, resid_scale, out_scale, first column), ...) from ``nn``."""
-    sd = local_sd(np, x, X, nn, k)
+    sd = local_sd(_NUMPY, x, X, nn, k)
     out = np.empty((x.shape[0], width))
     for j, rs, os, at in groups:
         out[:, at:at + rs.shape[0]] = sd[j][:, None] * rs * os
@@ -114,7 +116,7 @@ def _gp_part(x, grad, X, k, blocks, width, m, kernels):
 
 def _gp_std(x, X, k, groups, width, near):
     """The sigma of ``groups`` at rows x (n, width)."""
-    return _gp_join([(_gp_sigma(x[c], X, k, nearest(np, scaled_distances(np, x[c], k), near), groups, width),)
+    return _gp_join([(_gp_sigma(x[c], X, k, nearest(_NUMPY, scaled_distances(_NUMPY, x[c], k), near), groups, width),)
                      for c in _gp_chunks(x)], 0)
 
 
@@ -175,7 +177,7 @@ def emit(arrays, plans) -> list[str]:
         lines += [
             f"    # plan {name}: groups {list(groups)} (columns "
             f"{', '.join(f'{bounds[g][0]}:{bounds[g][1]}' for g in groups)}), kernels {kernels}",
-            f"    k{v} = kernel_stack(np, m, {literal(tuple(kernels))})",
+            f"    k{v} = kernel_stack(_NUMPY, m, {literal(tuple(kernels))})",
             f"    b{v} = ({', '.join(blocks)},)",
             f"    s{v} = ({', '.join(sig)},)",
             f"    parts[{name!r}] = (lambda x, grad, k=k{v}, b=b{v}: _gp_part(x, grad, X, k, b, {at}, m, {literal(tuple(kernels))}),",

@@ -17,6 +17,8 @@ from ._runtime import PAIRS_PER_CHUNK, polyharmonic_rows
 
 __all__ = ["TEMPLATE"]
 
+_NUMPY = np  # in an exported file: NumPy, or its stand-in under NumPy 1 (the runtime's array-API names)
+
 # ---- the exported code starts below this line ----
 
 
@@ -32,11 +34,11 @@ def _rbf_sums(x, grad, XT, X2, blocks, width):
     if n == 1 and not grad:
         key, phi = _RBF_LAST  # one read: another thread may replace it meanwhile
         if key != x.tobytes():
-            phi = polyharmonic_rows(np, x, XT, X2, False)[0]
+            phi = polyharmonic_rows(_NUMPY, x, XT, X2, False)[0]
             _RBF_LAST = (x.tobytes(), phi)
         dphi = None
     else:
-        phi, dphi = polyharmonic_rows(np, x, XT, X2, grad)
+        phi, dphi = polyharmonic_rows(_NUMPY, x, XT, X2, grad)
     z = np.empty((n, width))
     dz = np.empty((n, width, d)) if grad else None
     for W, at in blocks:
@@ -73,7 +75,7 @@ def emit(arrays, plans) -> list[str]:
     lines = [
         "def _method_parts(m):",
         '    """r^5 kernel sums of this RBF model for each plan (generated: output blocks resolved)."""',
-        "    XT, X2 = rbf_points(np, m)",
+        "    XT, X2 = rbf_points(_NUMPY, m)",
         "    alpha = m['alpha']",
         "    W = [" + ", ".join(f"np.ascontiguousarray(alpha[:, {a}:{b}])" for a, b in bounds) + "]",
         "    parts = {}",

@@ -16,6 +16,8 @@ from ._runtime import PAIRS_PER_CHUNK, tensor_cells_per_row, tensor_rows
 
 __all__ = ["TEMPLATE"]
 
+_NUMPY = np  # in an exported file: NumPy, or its stand-in under NumPy 1 (the runtime's array-API names)
+
 # ---- the exported code starts below this line ----
 
 
@@ -23,8 +25,8 @@ def _tensor_part(x, grad, T, coef):
     """``(z, dz)`` of every output at rows x: the runtime's ``tensor_rows`` on its chunks of rows."""
     step = max(1, PAIRS_PER_CHUNK // max(1, tensor_cells_per_row(coef, x)))
     if x.shape[0] <= step:
-        return tensor_rows(np, x, T, coef, grad)
-    pieces = [tensor_rows(np, x[i:i + step], T, coef, grad) for i in range(0, x.shape[0], step)]
+        return tensor_rows(_NUMPY, x, T, coef, grad)
+    pieces = [tensor_rows(_NUMPY, x[i:i + step], T, coef, grad) for i in range(0, x.shape[0], step)]
     return (np.concatenate([p[0] for p in pieces]),
             np.concatenate([p[1] for p in pieces]) if grad else None)
 
@@ -42,7 +44,7 @@ def emit(arrays, plans) -> list[str]:
     return [
         "def _method_parts(m):",
         '    """Tensor-spline sums of this model: the knot tables made once, every output at each point."""',
-        "    T, coef = bspline_tables(np, m), m['coef']",
+        "    T, coef = bspline_tables(_NUMPY, m), m['coef']",
         "    part = (lambda x, grad: _tensor_part(x, grad, T, coef), None, None)",
         f"    return {{name: part for name in {tuple(plans)!r}}}",
     ]
