@@ -27,6 +27,7 @@ chunks, never over parameter points.
 import base64
 import hashlib
 import io
+import math
 import zlib
 
 import numpy as np
@@ -52,7 +53,8 @@ class PayloadError(ImportError):
 
 
 def _load_model():
-    """Decode, verify and read the payload (a zlib stream of .npy arrays, no pickles) into a runtime Model."""
+    """Decode, verify and read the payload (a zlib stream of .npy records of shuffled bytes, no pickles) into a
+    runtime Model."""
     try:
         raw = base64.b64decode(_PAYLOAD, validate=True)
     except ValueError as exc:
@@ -65,12 +67,14 @@ def _load_model():
                            "the model again with `tovforge export`.")
     stream = io.BytesIO(zlib.decompress(raw))
     arrays = {}
-    for name, dtype, shape in _ARRAYS:
-        a = np.lib.format.read_array(stream, allow_pickle=False)
-        if a.dtype.str != dtype or tuple(a.shape) != shape:
-            raise PayloadError(f"{__name__}: payload array {name!r} is {a.dtype.str} {a.shape}, "
-                               f"expected {dtype} {shape}.")
-        arrays[name] = a
+    for name, dtype, shape, order in _ARRAYS:
+        # each array's bytes shuffled (all first bytes, then all second bytes, ...): (itemsize, count) uint8
+        size, count = np.dtype(dtype).itemsize, math.prod(shape)
+        r = np.lib.format.read_array(stream, allow_pickle=False)
+        if r.dtype != np.uint8 or tuple(r.shape) != (size, count):
+            raise PayloadError(f"{__name__}: payload array {name!r} is {r.dtype.str} {r.shape}, "
+                               f"expected the bytes of {dtype} {shape}.")
+        arrays[name] = np.ascontiguousarray(r.T).view(dtype).reshape(shape, order=order)
     if stream.read(1):
         raise PayloadError(f"{__name__}: the payload holds more data than its {len(_ARRAYS)} arrays.")
     return Model(arrays, METHOD, _OUTPUTS, PARAMETERS, BOUNDS, MASS_FLOOR_MSUN)

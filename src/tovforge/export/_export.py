@@ -163,9 +163,11 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
         "runtime_sha256": hashlib.sha256(code.encode("utf-8")).hexdigest(),
         "static_arrays": COMMON_STATIC + model.method_info.static_arrays,
     }
+    generated = generate(model)
+    info["generated"] = (f"the kernel sums from the template surrogate/{generated.template}" if generated.template
+                         else f"method {model.method} has no template: its general runtime part")
     lines = constants(model, check, info, payload.index)
     b64 = payload.lines()
-    generated = generate(model)
 
     def write(path: Path, ns_lines: dict) -> None:
         path.write_text(render(header(model, check, info, ns_lines), lines, b64, generated.source), encoding="utf-8")
