@@ -15,7 +15,7 @@ from ._render import ExportError, identifier
 
 __all__ = ["Payload", "pack"]
 
-_LINE = 100  # characters of base64 per source line
+_LINE = 1000  # characters of base64 per source line (each line costs 7 characters of quotes and indent)
 
 
 @dataclass(frozen=True)
