@@ -193,8 +193,8 @@ def _bench_export(quick: bool, echo) -> None:
         (f"batched R(1.4), {n_batch} theta", lambda m: m.radius(theta_b, 1.4), 1 if quick else 3, "batch"),
         (f"batched whole curve, {n_batch} theta", lambda m: m.curve(theta_b, n=100), 1 if quick else 2, "batch"),
     ]
-    echo(f"one core. exact solver (solve_sequence, 100 stars + M_max, one EOS per call): {t_exact * 1e3:.1f} ms per EOS "
-         f"(median of {n_eos} EOS)")
+    echo(f"one core. exact solver (solve_sequence, 100 stars + M_max, one EOS per call): {t_exact * 1e3:.1f} ms "
+         f"per EOS (median of {n_eos} EOS)")
     echo(f"one theta: median of {reps} calls, best of {rounds} interleaved rounds; batches: {n_batch} theta of the "
          f"demo {family} box in one call")
     echo("old-style: the general runtime of the file (every exported file before generated code); generated: the "

@@ -294,8 +294,13 @@ def _curve_one(plan, query, y, dy, sd, masses, grad, std):
         if std:
             s_nodes = np.sum(np.abs(w) * sd[a:b], axis=-1)
             s = np.sqrt(s_nodes ** 2 + (der * dudm * sd[im]) ** 2)
-    val, g, s = _inverse_with(_NUMPY, transform, val[None, :], None if g is None else g[None], None if s is None else s[None])
+    val, g, s = _inverse_with(_NUMPY, transform, val[None, :], _row(g), _row(s))
     return val[0], (g[0] if grad else None), (s[0] if std else None)
+
+
+def _row(a):
+    """``a`` as the one row of a batch (None stays None)."""
+    return None if a is None else a[None]
 
 
 def _fast_at_mass(query, t, lead, mass, grad, std, strict):
@@ -314,8 +319,7 @@ def _fast_at_mass(query, t, lead, mass, grad, std, strict):
     if query in DERIVED:
         needs, rule = DERIVED[query]
         got = [_curve_one(plan, q, y, dy, sd, masses, grad, std) for q in needs]
-        val, g, s = rule(_NUMPY, masses[None, :], [(v[None], None if gg is None else gg[None], None if ss is None else ss[None])
-                                               for v, gg, ss in got], grad, std)
+        val, g, s = rule(_NUMPY, masses[None, :], [(v[None], _row(gg), _row(ss)) for v, gg, ss in got], grad, std)
         val, g, s = val[0], (g[0] if grad else None), (s[0] if std else None)
     else:
         val, g, s = _curve_one(plan, query, y, dy, sd, masses, grad, std)

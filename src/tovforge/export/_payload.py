@@ -44,7 +44,7 @@ class Payload:
 
 
 def pack(arrays: dict) -> Payload:
-    """The arrays as ``.npy`` records of shuffled bytes (sorted names, memory order kept, little-endian), zlib-compressed.
+    """The arrays as ``.npy`` records of shuffled bytes (sorted names, memory order kept, little-endian), compressed.
 
     Each array's bytes are stored shuffled: the first byte of every number,
     then the second, ... (a ``(itemsize, count)`` uint8 record; the shuffle

@@ -51,7 +51,7 @@ import numbers
 from collections.abc import Callable
 from dataclasses import dataclass
 
-__all__ = ["MARKER", "END_MARKER", "Template", "literal", "template_source"]
+__all__ = ["MARKER", "END_MARKER", "Template", "literal", "template_source", "distinct_plans"]
 
 #: The line of a template module below which its code is copied into exported files ...
 MARKER = "# ---- the exported code starts below this line ----\n"
@@ -99,3 +99,13 @@ def literal(v) -> str:
     if f != f or f in (float("inf"), float("-inf")):
         return f"float({str(f)!r})"
     return repr(f)
+
+
+def distinct_plans(plans: dict):
+    """``(name, blocks, same)`` per plan: ``same`` names an earlier plan with the same blocks (its code serves
+    both), or is None."""
+    first = {}
+    for name, blocks in plans.items():
+        blocks = tuple(blocks)
+        yield name, blocks, first.get(blocks)
+        first.setdefault(blocks, name)

@@ -14,11 +14,10 @@ the nearest points.
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
-from ._codegen import Template, literal
+from ._codegen import Template, distinct_plans, literal
 from ._runtime import (PAIRS_PER_CHUNK, kernel_stack, local_sd, matern_gradients, matern_values, nearest,
                        scaled_distances)
 
@@ -158,13 +157,10 @@ def emit(arrays, plans) -> list[str]:
         "    X, rs, os = m['X'], m['resid_scale'], m['out_scale']",
         "    parts = {}",
     ]
-    done = {}
-    for name, groups in plans.items():
-        groups = tuple(groups)
-        if groups in done:
-            lines.append(f"    parts[{name!r}] = parts[{done[groups]!r}]")
+    for v, (name, groups, same) in enumerate(distinct_plans(plans)):
+        if same is not None:
+            lines.append(f"    parts[{name!r}] = parts[{same!r}]")
             continue
-        done[groups] = name
         kernels = sorted({kernel_of[g] for g in groups})
         blocks, sig, at = [], [], 0
         for g in groups:
@@ -173,16 +169,18 @@ def emit(arrays, plans) -> list[str]:
             blocks.append(f"({j}, W[{g}], {at})")
             sig.append(f"({j}, rs[{a}:{b}], os[{a}:{b}], {at})")
             at += b - a
-        v = f"_{len(done)}"
+        v = f"_{v}"
         lines += [
             f"    # plan {name}: groups {list(groups)} (columns "
             f"{', '.join(f'{bounds[g][0]}:{bounds[g][1]}' for g in groups)}), kernels {kernels}",
             f"    k{v} = kernel_stack(_NUMPY, m, {literal(tuple(kernels))})",
             f"    b{v} = ({', '.join(blocks)},)",
             f"    s{v} = ({', '.join(sig)},)",
-            f"    parts[{name!r}] = (lambda x, grad, k=k{v}, b=b{v}: _gp_part(x, grad, X, k, b, {at}, m, {literal(tuple(kernels))}),",
+            f"    g{v} = {literal(tuple(kernels))}",
+            f"    parts[{name!r}] = (lambda x, grad, k=k{v}, b=b{v}, g=g{v}: _gp_part(x, grad, X, k, b, {at}, m, g),",
             f"                      lambda x, k=k{v}, s=s{v}: _gp_std(x, X, k, s, {at}, {near}),",
-            f"                      lambda x, grad, k=k{v}, b=b{v}, s=s{v}: _gp_part_std(x, grad, X, k, b, s, {at}, {near}))",
+            f"                      lambda x, grad, k=k{v}, b=b{v}, s=s{v}: _gp_part_std(x, grad, X, k, b, s, {at}, "
+            f"{near}))",
         ]
     lines.append("    return parts")
     return lines

@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._codegen import Template
-from ._runtime import PAIRS_PER_CHUNK, polyharmonic_rows
+from ._codegen import Template, distinct_plans
+from ._runtime import PAIRS_PER_CHUNK, _rbf_blocks, polyharmonic_rows
 
 __all__ = ["TEMPLATE"]
 
@@ -64,9 +64,8 @@ def _rbf_part(x, grad, XT, X2, blocks, width):
 
 
 def _blocks(arrays) -> list[tuple[int, int]]:
-    """The runtime's blocks (``_rbf_blocks``): the scalars, then each curve."""
-    cs = arrays["curve_slices"]
-    return [(0, int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
+    """The runtime's blocks (the scalars, then each curve)."""
+    return _rbf_blocks(arrays, None)
 
 
 def emit(arrays, plans) -> list[str]:
@@ -80,19 +79,16 @@ def emit(arrays, plans) -> list[str]:
         "    W = [" + ", ".join(f"np.ascontiguousarray(alpha[:, {a}:{b}])" for a, b in bounds) + "]",
         "    parts = {}",
     ]
-    done = {}
-    for name, blocks in plans.items():
-        blocks = tuple(blocks)
-        if blocks in done:
-            lines.append(f"    parts[{name!r}] = parts[{done[blocks]!r}]")
+    for v, (name, blocks, same) in enumerate(distinct_plans(plans)):
+        if same is not None:
+            lines.append(f"    parts[{name!r}] = parts[{same!r}]")
             continue
-        done[blocks] = name
         items, at = [], 0
         for g in blocks:
             a, b = bounds[g]
             items.append(f"(W[{g}], {at})")
             at += b - a
-        v = f"_{len(done)}"
+        v = f"_{v}"
         lines += [
             f"    # plan {name}: columns {', '.join(f'{bounds[g][0]}:{bounds[g][1]}' for g in blocks)}",
             f"    b{v} = ({', '.join(items)},)",

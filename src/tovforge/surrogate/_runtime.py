@@ -337,7 +337,8 @@ def scaled_distances(xp, x, k):
 
 
 def matern_values(xp, q, grad):
-    """Matern-5/2 rows k / amp2 from ``q = 5 r^2`` (in place), and for gradients ``c = -(5/3)(1 + sqrt5 r) e^(-sqrt5 r)``."""
+    """Matern-5/2 rows k / amp2 from ``q = 5 r^2`` (in place); for gradients ``c = -(5/3)(1 + sqrt5 r) e^(-sqrt5 r)``.
+    """
     q = xp.where(q > 0.0, q, 0.0)
     msr = xp.sqrt(q)
     msr *= -1.0  # -sqrt(5) r
