@@ -14,7 +14,6 @@ the nearest points.
 
 from __future__ import annotations
 
-
 import numpy as np
 
 from ._codegen import Template, distinct_plans, literal
