@@ -78,6 +78,11 @@ def _touching(blocks, columns) -> tuple[int, ...]:
     return tuple(g for g, (a, b) in enumerate(blocks) if any(c0 < b and a < c1 for c0, c1 in columns))
 
 
+def _minus(v: str, c: float) -> str:
+    """``v - c`` as source; ``v + |c|`` for a negative c (the same number: negation is exact)."""
+    return f"{v} + {literal(-c)}" if c < 0 else f"{v} - {literal(c)}"
+
+
 def _unit_lines(arrays) -> list[str]:
     """``_unit_one(t)`` and ``_span_one(t)``: the runtime's ``unit_inputs`` and ``input_span`` for one theta."""
     lo, hi = [float(v) for v in arrays["lo"]], [float(v) for v in arrays["hi"]]
@@ -91,7 +96,7 @@ def _unit_lines(arrays) -> list[str]:
     xs = []
     if flags is None:
         for i in range(d):
-            lines.append(f"    x{i} = (t{i} - {literal(lo[i])}) / {literal(float(arrays['hi'][i] - arrays['lo'][i]))}")
+            lines.append(f"    x{i} = ({_minus(f't{i}', lo[i])}) / {literal(float(arrays['hi'][i] - arrays['lo'][i]))}")
         lines.append("    inside = " + " and ".join(f"0.0 <= x{i} <= 1.0" for i in range(d)))
     else:
         lines.append("    inside = " + " and ".join(f"{literal(lo[i])} <= t{i} <= {literal(hi[i])}" for i in range(d)))
@@ -102,13 +107,13 @@ def _unit_lines(arrays) -> list[str]:
             args = []
             for i in logged:
                 s = literal(float(arrays["warp_shift"][i]))
-                args.append(f"t{i} - {s} if t{i} > {s} else 1.0")
+                args.append(f"{_minus(f't{i}', float(arrays['warp_shift'][i]))} if t{i} > {s} else 1.0")
             lines.append(f"    {', '.join(f'w{i}' for i in logged)}{',' if len(logged) == 1 else ''} = "
                          f"np.log(np.array([{', '.join(args)}])).tolist()")
         for i in range(d):
             width = literal(float(whi[i] - wlo[i]))
             v = f"w{i}" if int(flags[i]) else f"t{i}"
-            lines.append(f"    x{i} = ({v} - {literal(float(wlo[i]))}) / {width}")
+            lines.append(f"    x{i} = ({_minus(v, float(wlo[i]))}) / {width}")
     for i in range(d):
         xs.append(f"x{i}" if scale is None else f"x{i} * {literal(float(scale[i]))}")
     lines.append(f"    return ({', '.join(xs)}{',' if d == 1 else ''}), inside")
@@ -121,7 +126,7 @@ def _unit_lines(arrays) -> list[str]:
         else:
             c = literal(float(arrays["whi"][i] - arrays["wlo"][i]))
             if int(flags[i]):
-                c = f"{c} * (t[{i}] - {literal(float(arrays['warp_shift'][i]))})"
+                c = f"{c} * ({_minus(f't[{i}]', float(arrays['warp_shift'][i]))})"
         spans.append(c if scale is None else f"{c} / {literal(float(scale[i]))}")
     lines.append(f"    return [{', '.join(spans)}]")
     return lines
@@ -151,7 +156,8 @@ def _trend_lines(arrays) -> list[str]:
             for j in range(d):
                 if j != i and row[j]:
                     f = factor(j, row[j])
-                    g = f"{g} * ({f})" if " " in f else f"{g} * {f}"
+                    f = f"({f})" if " " in f else f
+                    g = f if g == "1.0" else f"{g} * {f}"  # 1.0 * f is f
             drow.append(g)
         dterms.append(f"[{', '.join(drow)}]")
     return ["def _trend_one(x):",
