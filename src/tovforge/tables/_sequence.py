@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import InputError
 from ._stars import STAR_COLUMNS, sequence_meta, star_table
-from ._write import TableSummary, table_format
+from ._write import TableSummary, check_table_output
 
 __all__ = ["SEQUENCE_COLUMNS", "sequence_table", "central_enthalpies"]
 
@@ -48,7 +48,7 @@ def central_enthalpies(eos, pressures_dyn_cm2, h_lo: float, h_hi: float) -> np.n
 
 
 def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
-                   command: str | None = None) -> TableSummary:
+                   command: str | None = None, overwrite: bool = False) -> TableSummary:
     """Write the stable branch of one EOS as a table.
 
     Parameters
@@ -68,6 +68,8 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
         Lightest star of the ``points`` mode (the solver's branch start).
     command : str, optional
         Command line recorded in the provenance (default ``sys.argv``).
+    overwrite : bool
+        Replace an existing file.
 
     Returns
     -------
@@ -82,7 +84,7 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
     from ..solve import SequenceSettings, solve_sequence, solve_stars
 
     t0 = time.monotonic()
-    table_format(out)
+    check_table_output(out, overwrite)
     settings = SequenceSettings(low_mass_msun=float(min_mass_msun))
     notes = []
     if masses is not None:
@@ -119,7 +121,8 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
             notes.append(f"no stable star at {', '.join(f'{m:g}' for m in missing)} Msun "
                          f"(M_max = {mm.mass_msun:.4f} Msun; lightest branch star "
                          f"{float(seq.branch.mass_msun[0]):.3g} Msun): NaN rows.")
-    summary = star_table(out, stars, sequence_meta(seq, settings, mode, command), target_mass=masses)
+    summary = star_table(out, stars, sequence_meta(seq, settings, mode, command), target_mass=masses,
+                         overwrite=overwrite)
     return replace(summary, seconds=time.monotonic() - t0, notes=tuple(notes))
 
 

@@ -67,7 +67,7 @@ def sequence_meta(seq, settings, mode: str, command: str | None = None) -> dict:
     )
 
 
-def star_table(out, stars, meta: dict, target_mass=None) -> TableSummary:
+def star_table(out, stars, meta: dict, target_mass=None, overwrite: bool = False) -> TableSummary:
     """Write stars as a table (``.csv``, ``.h5`` or ``.npz``) with the columns :data:`STAR_COLUMNS`.
 
     Parameters
@@ -79,6 +79,8 @@ def star_table(out, stars, meta: dict, target_mass=None) -> TableSummary:
         Metadata (see :func:`sequence_meta`).
     target_mass : array_like, optional
         Requested masses (Msun), written as a first ``target_mass`` column.
+    overwrite : bool
+        Replace an existing file.
 
     Returns
     -------
@@ -90,7 +92,7 @@ def star_table(out, stars, meta: dict, target_mass=None) -> TableSummary:
     if target_mass is not None:
         columns.insert(0, TARGET_MASS)
         block[TARGET_MASS.name] = np.asarray(target_mass, float)
-    with TableWriter(out, columns, meta) as w:
+    with TableWriter(out, columns, meta, overwrite=overwrite) as w:
         w.append(block)
     return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0)
 
