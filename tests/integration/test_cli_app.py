@@ -61,6 +61,35 @@ def test_imports_point_down_to_the_cli_and_inside_it():
         assert used & siblings <= allowed, (path.name, used & siblings)
 
 
+STAGES = ("eos", "solve", "grid", "surrogate", "export", "tables")
+
+
+def _imports_any(path: Path, packages: tuple[str, ...]) -> set[str]:
+    return {m for m in _imports(path) if m.split(".")[0] in packages}
+
+
+def test_stages_import_neither_workflows_nor_the_cli():
+    # the stages and the package's own top-level modules sit below workflows/, which sits below cli/
+    below = [p for stage in STAGES for p in (SRC / stage).rglob("*.py")]
+    below += [p for p in SRC.glob("*.py") if p.name != "__main__.py"]
+    assert len(below) > 60 and all((SRC / s / "__init__.py").is_file() for s in STAGES)
+    for path in below:
+        bad = _imports_any(path, ("workflows", "cli"))
+        assert not bad, f"{path.relative_to(SRC)} imports {sorted(bad)}"
+    for path in (SRC / "workflows").rglob("*.py"):
+        assert not _imports_any(path, ("cli",)), f"{path.relative_to(SRC)} imports the CLI"
+
+
+def test_the_import_check_sees_an_upward_import(monkeypatch):
+    # a stage module reaching up (relative and absolute imports) is caught; the file is never written
+    fake = SRC / "grid" / "_upward.py"
+    text = "from ..workflows.refine import refine\nfrom tovforge.cli import app\nfrom ..eos import make\n"
+    read = Path.read_text
+    monkeypatch.setattr(Path, "read_text", lambda self, *a, **k: text if self == fake else read(self, *a, **k))
+    assert _imports_any(fake, ("workflows", "cli")) == {"workflows.refine", "workflows.refine.refine", "cli",
+                                                         "cli.app"}
+
+
 def test_enum_choices_are_the_librarys_lists():
     from tovforge._bench import SECTIONS
     from tovforge.cli.bench import Section

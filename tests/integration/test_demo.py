@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 from tovforge.cli import app
-from tovforge.demo import Posterior, import_evaluator, load_observations
+from tovforge.workflows.demo import Posterior, import_evaluator, load_observations
 
 runner = CliRunner()
 
@@ -155,7 +155,7 @@ def test_a_broken_data_file_is_named(tmp_path):
 
 
 def test_a_bad_generator_is_named_before_any_work(tmp_path):
-    from tovforge.demo import INVENTED_DATA
+    from tovforge.workflows.demo import INVENTED_DATA
 
     bad = tmp_path / "obs.toml"
     bad.write_text(INVENTED_DATA.read_text().replace("gamma3 = 2.5", "gamma3 = -1.5"))

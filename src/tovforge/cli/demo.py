@@ -46,7 +46,7 @@ def demo_cmd(
     """
     import dataclasses
 
-    from ..demo import DemoSettings, run_demo
+    from ..workflows.demo import DemoSettings, run_demo
 
     def work():
         base = DemoSettings.quick() if quick else DemoSettings()

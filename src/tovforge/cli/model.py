@@ -90,7 +90,7 @@ def refine_cmd(
 ):
     """Add exact solves where the GP's sigma is largest, retrain, and print the learning curve."""
     from ..surrogate import load
-    from ..surrogate._refine import refine
+    from ..workflows.refine import refine
 
     target = out if out is not None else model.with_name(model.name + "-refined")
     res = run(lambda: refine(load(model), budget, target, holdout=holdout, n_candidates=candidates, seed=seed,

@@ -42,7 +42,7 @@ from ._design import design_points
 from ._solve import ChunkResult, solve_chunk
 from ._store import FORMAT, read_chunk, verify_grid, write_chunk, write_grid
 
-__all__ = ["RunSummary", "run_grid", "parts_folder", "grid_memory_bytes", "WorkersLost"]
+__all__ = ["RunSummary", "run_grid", "parts_folder", "solve_points", "grid_memory_bytes", "WorkersLost"]
 
 _MANIFEST_FORMAT = "tovforge-grid-parts"
 
@@ -197,21 +197,21 @@ def _connect(scheduler: str):
         raise refuse(exc) from None
 
 
-def _execute(spec, theta, todo, workers: int | None, client):
-    """Yield ``(k, ChunkResult, warnings)`` as chunks finish, in any order.
+def _execute(spec, chunks, workers: int | None, client):
+    """Yield ``(k, ChunkResult, warnings)`` for each ``(k, theta)`` of ``chunks`` as they finish, in any order.
 
     Locally joblib's default (loky) backend; with a dask.distributed
     ``client``, the cluster (chunks lost with their workers are resubmitted).
     """
     if client is not None:
-        yield from _execute_dask(spec, theta, todo, workers, client)
+        yield from _execute_dask(spec, chunks, workers, client)
         return
     import joblib
 
     from joblib.externals.loky.process_executor import TerminatedWorkerError
 
     parent = os.getpid()
-    tasks = (joblib.delayed(_solve_task)(spec, k, theta[slice(*spec.chunk_bounds(k))], parent) for k in todo)
+    tasks = (joblib.delayed(_solve_task)(spec, k, theta, parent) for k, theta in chunks)
     n_jobs = workers if workers else -1  # -1: every core
     # each task is already a batch of EOS: dispatch them one at a time
     try:
@@ -221,7 +221,7 @@ def _execute(spec, theta, todo, workers: int | None, client):
                           "memory, or killed); finished chunks are kept: rerun the same command to resume.") from None
 
 
-def _execute_dask(spec, theta, todo, workers: int | None, client):
+def _execute_dask(spec, chunks, workers: int | None, client):
     """Chunks on a Dask cluster, at most ``workers`` at a time (default: all at once).
 
     Each task carries its chunk's parameters (nothing is scattered to a
@@ -233,14 +233,15 @@ def _execute_dask(spec, theta, todo, workers: int | None, client):
     """
     distributed = require("dask.distributed", "cluster", "running on a Dask scheduler")
     run_id = uuid.uuid4().hex[:12]
-    waiting = list(todo)
+    points = dict(chunks)
+    waiting = list(points)
     limit = workers if workers else len(waiting)
     tries = Counter()
     running = {}
     finished = distributed.as_completed(loop=client.loop)
 
     def submit(k):
-        fut = client.submit(_solve_task, spec, k, theta[slice(*spec.chunk_bounds(k))],
+        fut = client.submit(_solve_task, spec, k, points[k],
                             key=f"tovforge-chunk-{run_id}-{k}-{tries[k]}", pure=False)
         running[fut.key] = k
         finished.add(fut)
@@ -293,6 +294,48 @@ def grid_memory_bytes(spec) -> int:
     values = (len(spec.parameter_names) + len(o.scalars) + len(o.curves) * len(o.u_nodes)
               + len(o.at_mass) * len(o.masses_msun))
     return 2 * spec.n_points * (8 * values + 1 + 64)
+
+
+def _warn_once(told: Counter) -> None:
+    """Each warning the workers raised, once, with the number of chunks that raised it."""
+    for message, n in told.items():
+        warnings.warn(message + (f" (in {n} chunks)" if n > 1 else ""), stacklevel=3)
+
+
+def solve_points(spec, theta: np.ndarray, *, workers: int | None = None, oversubscribe: bool = False) -> ChunkResult:
+    """Exact solves of any points ``theta`` with a spec's solver settings and outputs.
+
+    The points are cut into chunks of ``spec.chunk_size`` and solved in
+    parallel as :func:`run_grid` does, but nothing is written to disk.
+
+    Parameters
+    ----------
+    spec : GridSpec
+        Solver settings and outputs (its design is not used).
+    theta : ndarray, shape (n, d)
+        EOS parameters in the spec's units.
+    workers : int, optional
+        Parallel workers (default: all cores; at most the cores unless ``oversubscribe``).
+    oversubscribe : bool
+        Allow more workers than cores.
+
+    Returns
+    -------
+    ChunkResult
+        The points in the order of ``theta``.
+    """
+    theta = np.asarray(theta, np.float64)
+    workers = worker_count(workers, oversubscribe)
+    size = spec.chunk_size
+    chunks = [(k, theta[start:start + size]) for k, start in enumerate(range(0, len(theta), size))]
+    finished, told = {}, Counter()
+    try:
+        for k, result, said in _execute(spec, chunks, workers, None):
+            finished[k] = result
+            told.update(dict.fromkeys(said, 1))
+    finally:
+        _warn_once(told)
+    return ChunkResult.concat(finished[k] for k in range(len(chunks)))
 
 
 def _check_existing_output(out: Path, spec, overwrite: bool) -> bool:
@@ -459,23 +502,23 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
                               time.monotonic() - t0, already_complete=True)
         theta = design_points(spec)
         client = _connect(scheduler) if scheduler is not None else None
-        said = Counter()
+        told = Counter()
         try:
             manifest = _prepare_parts(parts, spec, _theta_sha256(theta), overwrite)
             done = _finished_chunks(parts, spec)
             todo = [k for k in range(spec.n_chunks) if k not in done]
             n_done = sum(np.subtract(*spec.chunk_bounds(k)[::-1]) for k in done)
             with progress_bar(spec.n_points, out.name, done=int(n_done), enabled=progress, stream=stream) as bar:
-                for k, result, told in _execute(spec, theta, todo, workers, client):
+                chunks = ((k, theta[slice(*spec.chunk_bounds(k))]) for k in todo)
+                for k, result, said in _execute(spec, chunks, workers, client):
                     start, stop = spec.chunk_bounds(k)
                     write_chunk(_chunk_path(parts, k), spec, k, theta[start:stop], result)
-                    said.update(dict.fromkeys(told, 1))
+                    told.update(dict.fromkeys(said, 1))
                     bar.update(stop - start)
         finally:
             if client is not None:
                 client.close()
-            for message, n in said.items():  # each warning of the workers once, with the chunks that raised it
-                warnings.warn(message + (f" (in {n} chunks)" if n > 1 else ""), stacklevel=2)
+            _warn_once(told)
         theta_all, merged = _assemble(parts, spec)
         digest = write_grid(out, spec, theta_all, merged, _provenance(spec, manifest))
         shutil.rmtree(parts)

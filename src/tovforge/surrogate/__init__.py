@@ -16,10 +16,10 @@ from __future__ import annotations
 
 from ._check import CheckReport, check
 from ._contract import Curve, Estimate, MassPrediction, Prediction, QueryError
-from ._data import TrainingData, read_training_data
+from ._data import TrainingData, read_training_data, training_data_from_arrays
 from ._gp import GPSettings
 from ._kinds import kinds
-from ._meta import ModelMeta
+from ._meta import LearningPoint, ModelMeta
 from ._model import Evaluation, ModelFormatError, Surrogate, load
 from ._prepare import FitResult
 from ._rbf import SplineSettings
@@ -32,6 +32,7 @@ __all__ = [
     "Evaluation",
     "FitResult",
     "GPSettings",
+    "LearningPoint",
     "MassPrediction",
     "ModelFormatError",
     "ModelMeta",
@@ -46,4 +47,5 @@ __all__ = [
     "read_training_data",
     "train",
     "train_on",
+    "training_data_from_arrays",
 ]

@@ -41,7 +41,14 @@ from ._binary import (
 )
 from ._box import DEFAULT_QUANTITIES, Axis, BoxPlan, box_table, exact_box_table, plan_box
 from ._quantities import QUANTITIES, Quantity, parse_quantities
-from ._samples import DEFAULT_SAMPLE_MASSES, DEFAULT_SAMPLE_QUANTITIES, Samples, read_samples, samples_table
+from ._samples import (
+    DEFAULT_SAMPLE_MASSES,
+    DEFAULT_SAMPLE_QUANTITIES,
+    QUANTILES,
+    Samples,
+    read_samples,
+    samples_table,
+)
 from ._sequence import SEQUENCE_COLUMNS, sequence_table
 from ._stars import (
     STAR_COLUMNS,
@@ -64,6 +71,7 @@ __all__ = [
     "DEFAULT_SAMPLE_QUANTITIES",
     "FORMAT",
     "FORMAT_VERSION",
+    "QUANTILES",
     "QUANTITIES",
     "SEQUENCE_COLUMNS",
     "STAR_COLUMNS",

@@ -143,3 +143,22 @@ def test_masses_above_the_maximum_are_nan_and_radii_shrink_with_mass():
     r = res.at_mass["radius_km"][0]
     assert np.isnan(r[masses > 2.05]).all() and np.isfinite(r[masses < 2.0]).all()
     assert np.all(np.diff(res.curves["mass_msun"][0]) < 0)  # u increases: mass falls
+
+
+def test_solve_points_cuts_any_number_of_points_into_chunks_and_keeps_their_order():
+    from tovforge.errors import InputError
+    from tovforge.grid import ChunkResult, solve_points
+
+    spec = _spec(chunk_size=2)
+    theta = np.vstack([_points(), [[34.8, 0.8, 3.0, 2.5]]])  # 5 valid points and one invalid: 3 chunks
+    got = solve_points(spec, theta, workers=2)  # two processes: chunks may finish out of order
+    want = ChunkResult.concat([solve_chunk(spec, theta[i:i + 2]) for i in range(0, len(theta), 2)])
+    assert list(got.status) == list(want.status) and got.reason == want.reason
+    assert got.status[-1] == Status.INVALID_PARAMETERS and (got.status[:-1] == Status.OK).all()
+    for field in ("scalars", "curves", "at_mass"):
+        a, b = getattr(got, field), getattr(want, field)
+        assert list(a) == list(b)
+        for k in a:
+            np.testing.assert_array_equal(a[k], b[k], err_msg=k)
+    with pytest.raises(InputError, match="workers must be at least 1"):
+        solve_points(spec, theta, workers=0)

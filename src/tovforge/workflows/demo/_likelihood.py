@@ -39,10 +39,10 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import logsumexp
 
-from ..errors import InputError
-from ..status import Status
-from ..surrogate import Estimate
-from ..tables import component_masses, lambda_tilde
+from ...errors import InputError
+from ...status import Status
+from ...surrogate import Estimate
+from ...tables import component_masses, lambda_tilde
 from ._observations import Observations
 
 __all__ = ["ExactModel", "Posterior", "simpson_weights", "lowest_mass_ratio"]
@@ -243,14 +243,14 @@ class ExactModel:
     """
 
     def __init__(self, family: str, bounds, n_stars: int = 16):
-        from ..eos import get_family
+        from ...eos import get_family
 
         self.family = get_family(family)
         self.BOUNDS = np.asarray(bounds, float)
         self.n_stars = n_stars
 
     def _solve(self, theta, masses=None):
-        from ..solve import solve_sequences
+        from ...solve import solve_sequences
 
         theta = np.atleast_2d(np.asarray(theta, float))
         ok = np.array([not m for m in self.family.validate_rows(theta)])

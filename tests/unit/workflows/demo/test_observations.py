@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 
 import pytest
-from tovforge.demo import INVENTED_DATA, load_observations
+from tovforge.workflows.demo import INVENTED_DATA, load_observations
 from tovforge.errors import InputError
 
 #: The names made up for the demo data (pulsars, then the merger).
@@ -111,7 +111,7 @@ def test_a_missing_file_is_named(tmp_path):
 def test_error_budget_flags_measurements_as_sharp_as_the_emulator(tmp_path):
     """Emulator p95 over measurement sigma: R error 25 m against 0.5 km is 0.05 (fine); Lambda error 1 % of
     400 against 100 is 0.04; a 0.1 km radius sigma against a 25 m error is 0.25 and is flagged."""
-    from tovforge.demo._observations import WARN_RATIO, error_budget
+    from tovforge.workflows.demo._observations import WARN_RATIO, error_budget
 
     f = tmp_path / "mine.toml"
     f.write_text(GOOD_PULSAR + GOOD_PULSAR.replace('"A"', '"C"').replace("radius_sigma_km = 0.5", "radius_sigma_km = 0.1")

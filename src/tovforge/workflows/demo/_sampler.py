@@ -8,8 +8,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._extras import require
-from ..errors import InputError
+from ..._extras import require
+from ...errors import InputError
 
 __all__ = ["Chain", "run_chain"]
 

@@ -12,7 +12,7 @@ from tovforge.cli import app
 from tovforge.errors import InputError
 from tovforge.grid import load_spec, read_grid, run_grid
 from tovforge.surrogate import GPSettings, read_training_data, train, train_on
-from tovforge.surrogate._refine import refine, select_points
+from tovforge.workflows.refine import refine, select_points
 
 ROOT = Path(__file__).resolve().parents[3]
 HOLDOUT = ROOT / "grids" / "demo-holdout.h5"
@@ -68,7 +68,7 @@ def test_refine_adds_solves_where_sigma_is_largest_and_retrains(small_gp, tmp_pa
 
 def test_selected_points_have_larger_sigma_than_typical_candidates(small_gp):
     model, _ = small_gp
-    from tovforge.surrogate._refine import _score
+    from tovforge.workflows.refine import _score
 
     chosen = select_points(model, 8, 512, 0)
     from scipy.stats import qmc

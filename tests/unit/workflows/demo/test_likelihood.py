@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 from scipy.optimize import brentq
-from tovforge.demo import MassRadius, MergerTides, Observations, Posterior, lowest_mass_ratio, simpson_weights
+from tovforge.workflows.demo import MassRadius, MergerTides, Observations, Posterior, lowest_mass_ratio, simpson_weights
 from tovforge.tables import component_masses, lambda_tilde
 from tovforge.surrogate import Estimate
 
@@ -162,7 +162,7 @@ def test_far_tails_do_not_underflow():
 
 def test_default_grids_agree_with_fine_grids_for_the_demo_data():
     """The demo's 65 mass nodes and 33 mass-ratio nodes, against 2001 of each."""
-    from tovforge.demo import load_observations
+    from tovforge.workflows.demo import load_observations
 
     obs = load_observations()
     model = LineModel()

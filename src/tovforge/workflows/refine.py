@@ -1,4 +1,9 @@
-"""``tovforge grid refine``: add exact solves where the GP is least certain, retrain."""
+"""Refinement of a GP model (``tovforge grid refine``): exact solves where it is least certain, then retrain.
+
+A workflow, not a stage: it runs the grid's solver on new points, writes them
+as a grid file and retrains the surrogate, through the public APIs of
+:mod:`tovforge.grid` and :mod:`tovforge.surrogate`.
+"""
 
 from __future__ import annotations
 
@@ -12,11 +17,15 @@ import numpy as np
 
 from .._provenance import provenance
 from ..errors import InputError
-from ._check import check
-from ._data import TrainingData, read_training_data, training_data_from_arrays
-from ._meta import LearningPoint
-from ._model import Surrogate
-from ._train import train_on
+from ..surrogate import (
+    LearningPoint,
+    Surrogate,
+    TrainingData,
+    check,
+    read_training_data,
+    train_on,
+    training_data_from_arrays,
+)
 
 __all__ = ["refine", "RefineResult", "select_points"]
 
@@ -97,24 +106,6 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
     return cand[np.array(chosen)]
 
 
-def _solve_points(spec, theta, workers=None):
-    """Exact solves of ``theta`` with the grid's spec (parallel chunks)."""
-    import joblib
-
-    from ..grid import ChunkResult, solve_chunk
-
-    chunks = [theta[i:i + spec.chunk_size] for i in range(0, len(theta), spec.chunk_size)]
-    results = joblib.Parallel(n_jobs=workers or -1, batch_size=1)(
-        joblib.delayed(solve_chunk)(spec, c) for c in chunks)
-    return ChunkResult(
-        status=np.concatenate([r.status for r in results]),
-        reason=[s for r in results for s in r.reason],
-        scalars={k: np.concatenate([r.scalars[k] for r in results]) for k in results[0].scalars},
-        curves={k: np.concatenate([r.curves[k] for r in results]) for k in results[0].curves},
-        at_mass={k: np.concatenate([r.at_mass[k] for r in results]) for k in results[0].at_mass},
-    )
-
-
 def _merge(a: TrainingData, b: TrainingData) -> TrainingData:
     return dataclasses.replace(
         a,
@@ -150,8 +141,7 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
         Held-out grid: the errors before and after are measured and stored in
         the model as its learning curve.
     """
-    from ..grid import DesignSpec, parse_spec, read_grid
-    from ..grid._store import write_grid
+    from ..grid import DesignSpec, parse_spec, read_grid, solve_points, write_grid
 
     tr = model.meta.training
     grid_path = tr.grid_path
@@ -174,7 +164,7 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
     logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
-    result = _solve_points(spec, added, workers)
+    result = solve_points(spec, added, workers=workers)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     points_path = out / "refinement-points.h5"

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._extras import pyplot
+from ..._extras import pyplot
 
 __all__ = ["corner_plot", "band_plot", "trace_plot", "credible_levels"]
 

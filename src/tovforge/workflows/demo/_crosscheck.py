@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..tables._samples import QUANTILES
+from ...tables import QUANTILES
 
 __all__ = ["CrossCheck", "band", "cross_check", "MIN_FRACTION"]
 
@@ -29,7 +29,7 @@ def band(values: np.ndarray) -> dict:
     -------
     dict
         ``median``, ``p05``, ``p95`` (the quantile levels of
-        :data:`tovforge.tables._samples.QUANTILES`, as the samples tables use)
+        :data:`tovforge.tables.QUANTILES`, as the samples tables use)
         and ``fraction`` (finite entries per column), each of shape (n_masses,).
     """
     values = np.asarray(values, float)
@@ -103,7 +103,7 @@ def cross_check(posterior, exact_posterior, samples, masses) -> CrossCheck:
     posterior : Posterior
         With the exported evaluator as its model.
     exact_posterior : Posterior
-        The same observations with :class:`~tovforge.demo._likelihood.ExactModel`.
+        The same observations with :class:`~tovforge.workflows.demo._likelihood.ExactModel`.
     samples : ndarray, shape (n, d)
     masses : array_like, shape (q,)
         Masses of the R(M) band, in Msun.

@@ -17,8 +17,9 @@ from ._crosscheck import CrossCheck, band, cross_check
 from ._likelihood import ExactModel, Posterior, lowest_mass_ratio, simpson_weights
 from ._observations import INVENTED_DATA, MassRadius, MergerTides, Observations, load_observations
 from ._plots import band_plot, corner_plot, trace_plot
-from ._run import BAND_MASSES, DemoResult, DemoSettings, import_evaluator, run_demo
+from ._run import BAND_MASSES, DemoResult, DemoSettings, run_demo
 from ._sampler import Chain, run_chain
+from ._stages import import_evaluator
 
 __all__ = [
     "BAND_MASSES",

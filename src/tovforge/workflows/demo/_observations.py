@@ -11,8 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-from .. import _toml as toml
-from ..errors import InputError
+from ... import _toml as toml
+from ...errors import InputError
 
 __all__ = ["INVENTED_DATA", "MassRadius", "MergerTides", "Observations", "ErrorRatio", "error_budget",
            "load_observations"]
