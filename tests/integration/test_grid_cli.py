@@ -69,7 +69,7 @@ def test_run_info_and_refusal_through_the_cli(tmp_path):
     res = runner.invoke(app, ["grid", "run", str(other), "--out", str(out)])
     assert res.exit_code == 2
     assert res.stderr.strip() == (f"error: {out} exists and was made from a different spec "
-                                  f"({read_grid(out).attrs['spec_sha256'][:12]}...); pass overwrite=True to replace it.")
+                                  f"({read_grid(out).attrs['spec_sha256'][:12]}...); pass --overwrite to replace it.")
     res = runner.invoke(app, ["grid", "info", str(tmp_path / "missing.h5")])
     assert res.exit_code == 2 and res.stderr.startswith("error: ") and "no such file" in res.stderr
 
@@ -99,11 +99,11 @@ def test_sigkill_mid_run_then_rerun_equals_an_uninterrupted_run(tmp_path, monkey
     solved = []
     real = grid_run._solve_task
 
-    def counting(spec_, k, theta):
+    def counting(spec_, k, theta, *rest):
         solved.append(k)
         assert finished == {p.name: (p.stat().st_ino, p.stat().st_mtime_ns) for p in parts.glob("chunk-*.h5")
                             if p.name in finished}  # never rewritten
-        return real(spec_, k, theta)
+        return real(spec_, k, theta, *rest)
 
     monkeypatch.setattr(grid_run, "_solve_task", counting)
     summary = run_grid(spec, out, workers=1, progress=False)

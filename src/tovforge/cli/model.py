@@ -87,14 +87,27 @@ def refine_cmd(
     candidates: Annotated[int, typer.Option("--candidates", min=16, help="Sobol candidates to score.")] = 8192,
     seed: Annotated[int, typer.Option("--seed", help="Seed of the candidate design.")] = 0,
     workers: Annotated[Optional[int], typer.Option("--workers", min=1, help="Parallel workers.")] = None,
+    oversubscribe: Annotated[
+        bool, typer.Option("--oversubscribe", help="Allow more --workers than this machine has cores.")
+    ] = False,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Add exact solves where the GP's sigma is largest, retrain, and print the learning curve."""
     from ..surrogate import load
     from ..workflows.refine import refine
 
     target = out if out is not None else model.with_name(model.name + "-refined")
-    res = run(lambda: refine(load(model), budget, target, holdout=holdout, n_candidates=candidates, seed=seed,
-                             workers=workers))
+
+    def work():
+        if model.resolve().is_relative_to(target.resolve()):
+            raise InputError(f"--out {target}: the retrained model would replace the model being refined "
+                             f"({model}); choose another folder.")
+        return refine(load(model, allow_mismatch), budget, target, holdout=holdout, n_candidates=candidates,
+                      seed=seed, workers=workers, overwrite=overwrite, allow_mismatch=allow_mismatch,
+                      oversubscribe=oversubscribe)
+
+    res = run(work, WRITE_FLAGS)
     typer.echo(f"added {len(res.added)} exact solves ({res.points_path}); retrained model in {target}")
     if res.learning_curve:
         typer.echo(f"{'training points':>16}{'M_max p95 [Msun]':>18}{'R p95 [m]':>11}{'Lambda p95':>12}")

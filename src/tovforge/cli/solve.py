@@ -76,7 +76,7 @@ def solve_cmd(
                 prof = solve.solve_star(eos_obj, mass_msun=profile)
         return eos_obj, seq, prof
 
-    eos_obj, seq, prof = run(work)
+    eos_obj, seq, prof = run(work, ("--overwrite",))
     if table is not None and seq.success:
         meta = tables.sequence_meta(seq, solve.SequenceSettings(), "branch")
         run(lambda: tables.star_table(table, seq.branch, meta, overwrite=overwrite), ("--overwrite",))

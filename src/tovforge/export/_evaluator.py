@@ -65,8 +65,7 @@ def _check_file():
 
 
 def _load_model():
-    """Check the file, then decode, verify and read the payload (a zlib stream of .npy arrays, no pickles)."""
-    _check_file()
+    """Decode and verify the payload, check the whole file, then read the payload (.npy arrays, no pickles)."""
     try:
         raw = base64.b64decode(_PAYLOAD, validate=True)
     except ValueError as exc:
@@ -77,6 +76,7 @@ def _load_model():
         raise PayloadError(f"{__name__}: the embedded model numbers are damaged or were altered: their sha256 is "
                            f"{got}, but the header records {PAYLOAD_SHA256}; do not use this file, export "
                            "the model again with `tovforge export`.")
+    _check_file()  # the numbers are intact: now the code and constants
     stream = io.BytesIO(zlib.decompress(raw))
     arrays = {}
     for name, dtype, shape in _ARRAYS:

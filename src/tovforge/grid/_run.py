@@ -483,9 +483,10 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
     elif workers is not None and workers < 1:
         raise InputError(f"workers must be at least 1. Got {workers}.")
     check_output(out, "grid file", overwrite=True)  # the folder; an existing file is judged below
-    check_memory(grid_memory_bytes(spec), f"a grid of {spec.n_points} points with "
-                 f"{len(spec.outputs.u_nodes)} u nodes", "use fewer points, u nodes or outputs, or split the box "
-                 "into several grids")
+    o = spec.outputs
+    check_memory(grid_memory_bytes(spec), f"the grid of design.points = {spec.n_points} with {len(o.u_nodes)} u "
+                 f"nodes and {len(o.scalars) + len(o.curves) + len(o.at_mass)} outputs",
+                 "use fewer points, u nodes or outputs, or split the box into several grids")
     with OutputLock(out, "grid file"):
         remove_litter(out)  # a temporary grid file of a run killed while assembling
         parts = parts_folder(out)

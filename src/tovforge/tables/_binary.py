@@ -185,14 +185,23 @@ def lambda_from_model(model, theta):
 
 
 def lambda_from_eos(eos, settings=None):
-    """``Lambda(M)`` by exact solves of one EOS at the requested masses."""
+    """``Lambda(M)`` by exact solves of one EOS at the requested masses.
+
+    The returned function raises InputError when the EOS has no stable
+    branch (every Lambda would be NaN).
+    """
     from ..solve import SequenceSettings, solve_sequences
+    from ..status import Status
 
     def lam(masses):
         masses = np.asarray(masses, float).ravel()
         uniq, inv = np.unique(masses, return_inverse=True)
         s = settings or SequenceSettings(low_mass_msun=min(0.3, 0.9 * float(uniq.min())))
         res = solve_sequences(eos.batch, n_stars=24, masses=uniq, settings=s)
+        if int(res.status[0]) != Status.OK:
+            why = Status(int(res.status[0])).message.rstrip(".")
+            raise InputError(f"{eos.family.name}: no stable branch found ({why}); there is no Lambda(M) for "
+                             "these parameters.")
         return np.asarray(res.at_mass.tidal_deformability, float)[0][inv]
 
     return lam

@@ -292,11 +292,13 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
 
     t0 = time.monotonic()
     label = str(model)
-    if not isinstance(model, Surrogate):
-        model = load(model, allow_mismatch)
     quantities = tuple(quantities)
     masses = _check_masses(quantities, masses)
     band = band_path(out) if band is None else Path(band)
+    if Path(band).resolve() == Path(out).resolve():
+        raise InputError(f"band {band}: the band table needs a file of its own, not that of the table.")
+    if Path(samples).resolve() in (Path(out).resolve(), Path(band).resolve()):
+        raise InputError(f"{samples}: the samples file would be overwritten; choose other output files.")
     check_table_output(out, overwrite)
     check_table_output(band, overwrite, what="band table")
     if plot is not None and Path(plot).suffix.lower() != ".png":
@@ -304,10 +306,8 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     if plot is not None:  # before the work, not after it
         check_output(plot, "plot", overwrite)
         require("matplotlib", "plots", "the samples plot")
-    if Path(band).resolve() == Path(out).resolve():
-        raise InputError(f"band {band}: the band table needs a file of its own, not that of the table.")
-    if Path(samples).resolve() in (Path(out).resolve(), Path(band).resolve()):
-        raise InputError(f"{samples}: the samples file would be overwritten; choose other output files.")
+    if not isinstance(model, Surrogate):
+        model = load(model, allow_mismatch)
     names = model.parameter_names
     data = read_samples(samples, names, ignore, bounds=model.bounds)
     sigma = bool(sigma and model.has_std)

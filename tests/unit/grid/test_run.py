@@ -93,11 +93,11 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path, monkeypatch):
     real = grid_run._solve_task
     calls = []
 
-    def interrupt_after_two(spec_, k, theta):
+    def interrupt_after_two(spec_, k, theta, *rest):
         if len(calls) == 2:
             raise KeyboardInterrupt  # as Ctrl-C would
         calls.append(k)
-        return real(spec_, k, theta)
+        return real(spec_, k, theta, *rest)
 
     monkeypatch.setattr(grid_run, "_solve_task", interrupt_after_two)
     with pytest.raises(KeyboardInterrupt):
@@ -111,9 +111,9 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path, monkeypatch):
 
     calls.clear()
 
-    def counting(spec_, k, theta):
+    def counting(spec_, k, theta, *rest):
         calls.append(k)
-        return real(spec_, k, theta)
+        return real(spec_, k, theta, *rest)
 
     monkeypatch.setattr(grid_run, "_solve_task", counting)
     with pytest.warns(UserWarning, match=r"chunk-000003\.h5 is unreadable or foreign; chunk 3 will be solved again"):
