@@ -114,7 +114,7 @@ class OneLineErrors(TyperGroup):
 
     A usage error (bad option, missing argument, a value not among the
     choices) is ``error: ...`` with exit code 2, like every other input error
-    (:func:`run`); Ctrl-C is ``interrupted`` with exit code 130; an exception
+    (:func:`run`); Ctrl-C ends with exit code 130 (typer's); an exception
     nobody expected is one line naming it with exit code 3 (a bug: the
     traceback with ``TOVFORGE_DEBUG=1``).
     """

@@ -199,10 +199,10 @@ def _first(xp, bad):
     return int(xp.argmax(xp.astype(bad, xp.int32)))
 
 
-#: Rows of theta evaluated at a time.  A query's work arrays take about 2.5 kB per row for the demo
-#: models (all outputs, gradients, spline weights in u), so a block stays near 20 MB; a batch of any size
-#: costs that plus its answers, instead of growing by 2.5 kB per row.
-BLOCK_ROWS = 8192
+#: Rows of theta evaluated at a time.  A query's work arrays (every output, with gradients every output's
+#: derivative, spline weights in u) take up to about 8 kB per row for the demo models, so a block's stay
+#: below about 20 MB: a batch of any size costs that plus its answers, instead of growing with every row.
+BLOCK_ROWS = 2048
 
 
 def _own(a):
