@@ -18,9 +18,10 @@ $(STAMP): $(BIN)/python pyproject.toml constraints.txt
 
 install: $(STAMP)
 
-## make demo: install, then run the demo pipeline and print what each stage does
+## make demo: install, then run the demo pipeline and print what each stage does (into demo-output/, replacing
+## the outputs of an earlier run)
 demo: $(STAMP)
-	$(BIN)/tovforge demo --out demo-output
+	$(BIN)/tovforge demo --out demo-output --overwrite
 
 ## make test: install with test extras and run the test suite (slow tests excluded); CI runs this
 test: $(STAMP)
@@ -70,14 +71,16 @@ export: $(EXPORTED)
 .PRECIOUS: $(MODELS)/%/model.json $(MODELS)/%/check/report.json
 
 $(MODELS)/%/model.json: grids/demo-train.h5 | $(STAMP)
-	$(BIN)/tovforge train grids/demo-train.h5 --kind $* --out $(MODELS)/$*
+	mkdir -p $(MODELS)
+	$(BIN)/tovforge train grids/demo-train.h5 --kind $* --out $(MODELS)/$* --overwrite
 
 $(MODELS)/%/check/report.json: $(MODELS)/%/model.json grids/demo-holdout.h5
-	$(BIN)/tovforge check $(MODELS)/$* --holdout grids/demo-holdout.h5 --report $(MODELS)/$*/check
+	$(BIN)/tovforge check $(MODELS)/$* --holdout grids/demo-holdout.h5 --report $(MODELS)/$*/check --overwrite
 
 exported/demo_%.py: $(MODELS)/%/model.json $(MODELS)/%/check/report.json $(if $(REFRESH),FORCE)
 	mkdir -p build/exported
-	$(BIN)/tovforge export $(MODELS)/$* --out build/exported/demo_$*.py --report $(MODELS)/$*/check/report.json
+	$(BIN)/tovforge export $(MODELS)/$* --out build/exported/demo_$*.py --report $(MODELS)/$*/check/report.json \
+		--overwrite
 	$(BIN)/python -m tovforge._artifacts build/exported/demo_$*.py $@
 
 FORCE:

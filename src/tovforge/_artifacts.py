@@ -12,7 +12,7 @@ which moves NEW onto COMMITTED only when the content differs:
 - grid files (``.h5``): the ``content_sha256`` attribute (a hash of every
   dataset) or the ``spec_sha256`` (the normalised spec) differs;
 - exported evaluators (``.py``): the text differs once timestamps, the git
-  commit and the ``PROVENANCE`` line are set aside.
+  commit and the ``PROVENANCE`` and ``FILE_SHA256`` lines are set aside.
 
 An unchanged exported file is touched, so that ``make`` sees it up to date.
 """
@@ -40,7 +40,7 @@ def _grid_identity(path: Path) -> tuple[str, str]:
 
 def _evaluator_text(path: Path) -> str:
     lines = path.read_text(encoding="utf-8").splitlines()
-    text = "\n".join(line for line in lines if not line.startswith("PROVENANCE = "))
+    text = "\n".join(line for line in lines if not line.startswith(("PROVENANCE = ", "FILE_SHA256 = ")))
     return _COMMIT.sub(r"\1<commit>", _TIME.sub("<time>", text))
 
 

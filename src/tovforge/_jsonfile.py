@@ -11,11 +11,16 @@ __all__ = ["read_json", "jsonable"]
 
 
 def read_json(path: Path, error_cls):
-    """Parse ``path``; invalid JSON raises ``error_cls('FILE:LINE: not valid JSON (...)')``."""
+    """Parse ``path``; an unreadable file, text that is not UTF-8 or invalid JSON raise ``error_cls`` with
+    one line (``FILE:LINE: not valid JSON (...)``)."""
+    from ._files import read_text
+
     try:
-        return json.loads(Path(path).read_text())
+        return json.loads(read_text(path, "JSON file", error_cls))
     except json.JSONDecodeError as exc:
         raise error_cls(f"{path}:{exc.lineno}: not valid JSON ({exc.msg}).") from None
+    except RecursionError:
+        raise error_cls(f"{path}: JSON nested too deeply.") from None
 
 
 def jsonable(obj, *, strict: bool = True, where: str = "value"):

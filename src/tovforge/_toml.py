@@ -12,7 +12,6 @@ import contextlib
 import difflib
 import math
 import tomllib
-from pathlib import Path
 
 from .errors import InputError
 
@@ -48,13 +47,12 @@ def load_toml(path, what: str) -> tuple[dict, str]:
     Raises
     ------
     InputError
-        ``FILE: cannot read the WHAT (reason).`` or ``FILE: not valid TOML: ...``.
+        ``FILE: cannot read the WHAT (reason).``, ``FILE:LINE: the WHAT is not UTF-8 text ...`` or
+        ``FILE: not valid TOML: ...``.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read the {what} ({exc.strerror}).") from None
+    from ._files import read_text
+
+    text = read_text(path, what)
     try:
         return tomllib.loads(text), text
     except tomllib.TOMLDecodeError as exc:

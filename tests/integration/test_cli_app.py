@@ -159,3 +159,44 @@ def test_quiet_turns_the_progress_lines_off(tmp_path):
     assert loud.exit_code == 0 and quiet.exit_code == 0
     assert "4/4 EOS 100.0%" in loud.stderr
     assert quiet.stderr == "" and "content sha256" in quiet.stdout
+
+
+def test_numpy_runtime_warnings_do_not_reach_the_user_and_user_warnings_are_one_line(capsys):
+    """Issue 15: raw NumPy RuntimeWarnings with source paths (up to 14 per command) reached the user."""
+    import numpy as np
+
+    def work():
+        with np.errstate(all="warn"):
+            np.log(np.array([-1.0, 0.0]))  # invalid value, divide by zero: RuntimeWarnings
+        warnings.warn("a point has no stable branch;\nits values are NaN", UserWarning)
+        return 1
+
+    assert run(work) == 1
+    assert capsys.readouterr().err == "warning: a point has no stable branch; its values are NaN\n"
+
+
+def test_an_unexpected_exception_is_one_line_with_exit_code_3(monkeypatch, tmp_path):
+    """A bug (not bad input) still gives one line, with its own exit code, and the traceback on request."""
+    from tovforge import grid
+
+    def broken(path):
+        raise IndexError("index 7 is out of bounds")
+
+    monkeypatch.setattr(grid, "describe_grid", broken)
+    res = runner.invoke(app, ["grid", "info", str(tmp_path / "g.h5")])
+    assert res.exit_code == 3 and res.stderr.count("\n") == 1 and "Traceback" not in res.output
+    assert "internal error (IndexError: index 7 is out of bounds)" in res.stderr and "TOVFORGE_DEBUG" in res.stderr
+    monkeypatch.setenv("TOVFORGE_DEBUG", "1")
+    res = runner.invoke(app, ["grid", "info", str(tmp_path / "g.h5")])
+    assert res.exit_code == 3 and "Traceback" in res.stderr
+
+
+def test_ctrl_c_is_exit_code_130_without_a_traceback(monkeypatch):
+    from tovforge import eos
+
+    def interrupted():
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(eos, "families", interrupted)
+    res = runner.invoke(app, ["families"])
+    assert res.exit_code == 130 and "Traceback" not in res.output

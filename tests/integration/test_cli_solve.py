@@ -72,9 +72,9 @@ def test_solve_table_feeds_table_binary(tmp_path):
             assert runner.invoke(app, ["table", "sequence", "piecewise-polytrope", *SLY, "--out",
                                        str(source)]).exit_code == 0
         res = runner.invoke(app, ["table", "binary", str(source), "--chirp-mass", "1.188",
-                                  "--mass-ratio", "0.8", "--out", str(tmp_path / "b.csv")])
+                                  "--mass-ratio", "0.8", "--out", str(tmp_path / f"b-{source.stem}.csv")])
         assert res.exit_code == 0, res.output
-        assert np.isfinite(read_table(tmp_path / "b.csv")["lambda_tilde"]).all()
+        assert np.isfinite(read_table(tmp_path / f"b-{source.stem}.csv")["lambda_tilde"]).all()
 
 
 def test_unknown_table_suffix_is_refused_before_solving(tmp_path):
@@ -93,7 +93,7 @@ def test_unknown_table_suffix_is_refused_before_solving(tmp_path):
         (["solve", "piecewise-polytrope", "log_p1=nan", "gamma1=3", "gamma2=3", "gamma3=3"], ["'log_p1'", "nan"]),
         (["solve", "piecewise-polytrope", "log_p1=abc", "gamma1=3", "gamma2=3", "gamma3=3"], ["'log_p1'", "abc"]),
         (["solve", "piecewise-polytrope", *SLY, "--masses", "1.4,x"], ["--masses"]),
-        (["solve", "table", "path=/nonexistent/eos.csv"], ["cannot read EOS table"]),
+        (["solve", "table", "path=/nonexistent/eos.csv"], ["cannot read the EOS table"]),
     ],
 )
 def test_bad_input_is_one_line_and_exit_2(args, words):

@@ -69,7 +69,7 @@ def test_run_info_and_refusal_through_the_cli(tmp_path):
     res = runner.invoke(app, ["grid", "run", str(other), "--out", str(out)])
     assert res.exit_code == 2
     assert res.stderr.strip() == (f"error: {out} exists and was made from a different spec "
-                                  f"({read_grid(out).attrs['spec_sha256'][:12]}...); pass overwrite=True to replace it.")
+                                  f"({read_grid(out).attrs['spec_sha256'][:12]}...); pass --overwrite to replace it.")
     res = runner.invoke(app, ["grid", "info", str(tmp_path / "missing.h5")])
     assert res.exit_code == 2 and res.stderr.startswith("error: ") and "no such file" in res.stderr
 
@@ -99,11 +99,11 @@ def test_sigkill_mid_run_then_rerun_equals_an_uninterrupted_run(tmp_path, monkey
     solved = []
     real = grid_run._solve_task
 
-    def counting(spec_, k, theta):
+    def counting(spec_, k, theta, *rest):
         solved.append(k)
         assert finished == {p.name: (p.stat().st_ino, p.stat().st_mtime_ns) for p in parts.glob("chunk-*.h5")
                             if p.name in finished}  # never rewritten
-        return real(spec_, k, theta)
+        return real(spec_, k, theta, *rest)
 
     monkeypatch.setattr(grid_run, "_solve_task", counting)
     summary = run_grid(spec, out, workers=1, progress=False)
@@ -170,3 +170,76 @@ def test_direct_solve_near_the_maximum_with_a_kink_in_the_cluster(tmp_path):
     n_m = g.masses_msun.size
     ref = np.array([s["radius_km"] for s in d["at_mass"][n_m:]], float)
     np.testing.assert_allclose(g.curves["radius_km"][0, 1:], ref, rtol=1e-7)
+
+
+def _children(pid: int) -> list[int]:
+    """Pids of the processes whose parent is ``pid`` (Linux /proc)."""
+    kids = []
+    for stat in os.listdir("/proc"):
+        if stat.isdigit():
+            try:
+                with open(f"/proc/{stat}/stat") as fh:
+                    fields = fh.read().rsplit(")", 1)[1].split()
+            except OSError:
+                continue
+            if int(fields[1]) == pid:
+                kids.append(int(stat))
+    return kids
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat") as fh:
+            return fh.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except OSError:
+        return False
+
+
+def test_a_second_run_on_the_same_output_is_refused_and_the_first_finishes_untouched(tmp_path):
+    """Issue 15: of two runs on one output the second finished with a crash and deleted the other's
+    temporary chunk.  Now the second is refused with one line naming the lock, the first is unharmed."""
+    spec_path = _write(tmp_path, SPEC.format(chunk=4, points=32))
+    out = tmp_path / "g.h5"
+    proc = subprocess.Popen([sys.executable, "-m", "tovforge.cli", "-q", "grid", "run", str(spec_path), "--out",
+                             str(out), "--workers", "1"], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                            text=True)
+    try:
+        deadline = time.monotonic() + 120
+        while not parts_folder(out).is_dir() and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.01)
+        res = runner.invoke(app, ["grid", "run", str(spec_path), "--out", str(out), "--workers", "1"])
+        assert res.exit_code == 2, res.output
+        assert res.stderr.count("\n") == 1 and f"pid {proc.pid}" in res.stderr and "g.h5.lock" in res.stderr
+    finally:
+        proc.wait(timeout=300)
+    assert proc.returncode == 0 and proc.stderr.read() == ""
+    ref = tmp_path / "ref.h5"
+    run_grid(load_spec(spec_path), ref, workers=1, progress=False)
+    assert_same_datasets(out, ref)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["g.h5", "ref.h5", "spec.toml"]  # no lock, no parts
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+def test_workers_exit_when_the_run_is_killed(tmp_path):
+    """Issue 15: loky workers of a killed `grid run` lived on for minutes; a watchdog now ends them."""
+    spec_path = _write(tmp_path, SPEC.format(chunk=8, points=512))
+    out = tmp_path / "g.h5"
+    proc = subprocess.Popen([sys.executable, "-m", "tovforge.cli", "-q", "grid", "run", str(spec_path), "--out",
+                             str(out), "--workers", "2"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 120
+        while not list(parts_folder(out).glob("chunk-*.h5")) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        workers = _children(proc.pid)
+        assert workers, "no worker processes found"
+    finally:
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+    deadline = time.monotonic() + 20
+    while any(_alive(w) for w in workers) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert not any(_alive(w) for w in workers), [w for w in workers if _alive(w)]
+    # the next run takes the stale lock over, reuses the finished chunks and leaves nothing behind
+    res = runner.invoke(app, ["-q", "grid", "run", str(spec_path), "--out", str(out), "--workers", "2"])
+    assert res.exit_code == 0, res.output
+    assert "resumed" in res.stdout and sorted(p.name for p in tmp_path.iterdir()) == ["g.h5", "spec.toml"]

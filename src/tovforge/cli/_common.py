@@ -9,8 +9,10 @@ from __future__ import annotations
 
 import logging
 import math
+import os
 import shlex
 import sys
+import traceback
 import warnings
 from enum import Enum
 from pathlib import Path
@@ -19,9 +21,12 @@ from typing import Annotated, Optional
 import typer
 from typer.core import TyperGroup
 
-from ..errors import InputError
+from ..errors import InputError, NeedsPermission
 
 __all__ = [
+    "AllowMismatchOpt",
+    "OverwriteOpt",
+    "WRITE_FLAGS",
     "FamilyArg",
     "Kind",
     "Namespace",
@@ -45,6 +50,17 @@ FamilyArg = Annotated[str, typer.Argument(help="EOS family (see `tovforge famili
 ParametersArg = Annotated[
     Optional[list[str]], typer.Argument(help="Parameters as NAME=VALUE (for tables: path=FILE).")
 ]
+
+
+#: Replace existing outputs (``overwrite=True`` of the library).
+OverwriteOpt = Annotated[bool, typer.Option("--overwrite", help="Replace existing output files or folders "
+                                                                 "(refused otherwise).")]
+#: Read grids or models whose content does not match their recorded hash (``allow_mismatch=True``).
+AllowMismatchOpt = Annotated[bool, typer.Option("--allow-mismatch", help="Forensics only: read grids and models "
+                                                                         "whose content no longer matches their "
+                                                                         "recorded hash.")]
+#: The flags of commands that write and read: the permissions ``run`` names in its messages.
+WRITE_FLAGS = ("--overwrite", "--allow-mismatch")
 
 
 class Kind(str, Enum):
@@ -73,9 +89,35 @@ class Namespace(str, Enum):
 _click_exceptions = sys.modules[typer.BadParameter.__module__]
 
 
+#: Set to 1 to see the traceback of an internal error (a bug) instead of its one line.
+DEBUG_ENV = "TOVFORGE_DEBUG"
+#: Exit codes: bad input (and usage errors) 2, an internal error (a bug in tovforge) 3, Ctrl-C 130.
+EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 2, 3, 130
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split("\n")).strip()
+
+
+def _internal_error(exc: BaseException) -> None:
+    """One line for an exception nobody expected, exit code 3; the traceback with TOVFORGE_DEBUG=1."""
+    if os.environ.get(DEBUG_ENV):
+        traceback.print_exception(exc)
+    detail = _one_line(str(exc))[:300]
+    typer.echo(f"error: internal error ({type(exc).__name__}{': ' + detail if detail else ''}); this is a bug in "
+               f"tovforge: please report it with the command line ({DEBUG_ENV}=1 shows the traceback).", err=True)
+    sys.exit(EXIT_INTERNAL)
+
+
 class OneLineErrors(TyperGroup):
-    """The top-level command group: a usage error (bad option, missing argument, a value not among the
-    choices) is one line on stderr, ``error: ...``, with exit code 2, like every other input error."""
+    """The top-level command group: every failure is one line on stderr.
+
+    A usage error (bad option, missing argument, a value not among the
+    choices) is ``error: ...`` with exit code 2, like every other input error
+    (:func:`run`); Ctrl-C ends with exit code 130 (typer's); an exception
+    nobody expected is one line naming it with exit code 3 (a bug: the
+    traceback with ``TOVFORGE_DEBUG=1``).
+    """
 
     def main(self, *args, standalone_mode: bool = True, **kwargs):
         if not standalone_mode:
@@ -87,41 +129,73 @@ class OneLineErrors(TyperGroup):
                 exc.show()
             else:
                 where = f" (see '{exc.ctx.command_path} --help')" if exc.ctx is not None else ""
-                typer.echo(f"error: {exc.format_message()}{where}", err=True)
+                typer.echo(f"error: {_one_line(exc.format_message())}{where}", err=True)
             sys.exit(exc.exit_code)
         except _click_exceptions.ClickException as exc:
-            typer.echo(f"error: {exc.format_message()}", err=True)
+            typer.echo(f"error: {_one_line(exc.format_message())}", err=True)
             sys.exit(exc.exit_code)
-        except typer.Abort:
-            typer.echo("aborted", err=True)
-            sys.exit(1)
+        except (typer.Abort, KeyboardInterrupt) as exc:
+            cause = exc.__cause__ if isinstance(exc, typer.Abort) else exc
+            if cause is not None and not isinstance(cause, KeyboardInterrupt):
+                _internal_error(cause)  # click turns an EOFError into Abort
+            typer.echo("interrupted", err=True)
+            sys.exit(EXIT_INTERRUPTED)
+        except SystemExit:
+            raise
+        except Exception as exc:
+            _internal_error(exc)
         # typer returns the code of an explicit typer.Exit; a command that finished returns None
         sys.exit(rv if isinstance(rv, int) else 0)
 
 
 def fail(message: str) -> None:
-    """Print ``error: message`` on stderr and exit with code 2."""
-    typer.echo(f"error: {message}", err=True)
-    raise typer.Exit(code=2)
+    """Print ``error: message`` (one line) on stderr and exit with code 2."""
+    typer.echo(f"error: {_one_line(message)}", err=True)
+    raise typer.Exit(code=EXIT_INPUT)
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
-    typer.echo(f"warning: {message}", err=True)
+    if issubclass(category, RuntimeWarning) and not issubclass(category, UserWarning):
+        # floating-point noise of NumPy (overflow, invalid value): the results carry statuses and NaN
+        logging.getLogger("tovforge").debug(f"{category.__name__}: {message}")
+        return
+    typer.echo(f"warning: {_one_line(message)}", err=True)
 
 
-def run(fn):
+def run(fn, flags: tuple = ()):
     """Call ``fn()``: input errors become one line and exit code 2, warnings one line each.
 
     User warnings are shown every time they happen (not once per place in the
-    code), each as ``warning: ...`` on stderr without the source line.
+    code), each as ``warning: ...`` on stderr without the source line;
+    NumPy's floating-point RuntimeWarnings go to the debug log.  Bad input,
+    an output that cannot be written, a file that cannot be read, and work
+    that does not fit in memory end the command with one line and exit code 2.
+
+    Parameters
+    ----------
+    fn : callable
+    flags : tuple of str
+        The command's flags that grant the library's keyword permissions
+        (``--overwrite`` for ``overwrite=True``, ``--allow-mismatch`` for
+        ``allow_mismatch=True``): a refusal then names the flag.
     """
     with warnings.catch_warnings():
         warnings.simplefilter("always", UserWarning)
         warnings.showwarning = _show_warning
         try:
             return fn()
+        except NeedsPermission as exc:
+            flag = "--" + exc.keyword.replace("_", "-")
+            fail(exc.for_flag(flag if flag in flags else None))
         except InputError as exc:
             fail(str(exc))
+        except MemoryError:
+            fail("out of memory: the work does not fit in this machine's memory; use smaller sizes (points, nodes, "
+                 "rows, batches) or a machine with more memory.")
+        except OSError as exc:  # the environment: a full disk, a file removed or locked while in use
+            where = f"{exc.filename}: " if exc.filename else ""
+            fail(f"{where}{exc.strerror or exc} ({type(exc).__name__}); nothing was replaced: free the resource "
+                 "and run the command again.")
 
 
 class _EchoHandler(logging.Handler):

@@ -7,7 +7,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from ._common import Kind, run, show_progress
+from ._common import Kind, OverwriteOpt, run, show_progress
 
 __all__ = ["demo_cmd"]
 
@@ -39,6 +39,7 @@ def demo_cmd(
     seed: Annotated[int, typer.Option("--seed", help="Seed of the sampler and of the sample choices.")] = 20260301,
     workers: Annotated[Optional[int], typer.Option("--workers", min=1, help="Processes for building grids "
                                                                            "[default: all cores].")] = None,
+    overwrite: OverwriteOpt = False,
 ):
     """Run the demo: grids, GP and spline surrogates, check, export, and a fit to INVENTED data.
 
@@ -58,8 +59,8 @@ def demo_cmd(
                            ("n_cross_check", cross_check)):
             if value is not None:
                 changes[key] = value
-        return run_demo(out, dataclasses.replace(base, **changes))
+        return run_demo(out, dataclasses.replace(base, **changes), overwrite=overwrite)
 
-    result = run(work)
+    result = run(work, ("--overwrite",))
     if result.failures:
         raise typer.Exit(code=1)

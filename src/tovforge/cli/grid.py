@@ -26,24 +26,32 @@ def run_cmd(
     scheduler: Annotated[
         Optional[str],
         typer.Option("--scheduler", help="dask.distributed scheduler address (e.g. tcp://host:8786): run on "
-                                         "that cluster through joblib's Dask backend (needs tovforge[cluster])."),
+                                         "that cluster; chunks lost with a worker run again (needs "
+                                         "tovforge[cluster])."),
     ] = None,
     overwrite: Annotated[
         bool, typer.Option("--overwrite", help="Replace an output, and discard unfinished chunks, made from another "
                                      "spec (those of the same spec are kept: the run resumes).")
     ] = False,
+    oversubscribe: Annotated[
+        bool, typer.Option("--oversubscribe", help="Allow more --workers than this machine has cores.")
+    ] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ):
-    """Solve every point of SPEC and write one HDF5 grid; rerun the same command to resume after a crash."""
+    """Solve every point of SPEC and write one HDF5 grid; rerun the same command to resume after a crash.
+
+    OUT.lock exists while a run writes OUT: a second run on the same output is refused (a lock left by a
+    killed run is taken over).
+    """
     from ..grid import load_spec, parts_folder, run_grid
 
     def work():
         s = load_spec(spec)
         return run_grid(s, out, workers=workers, scheduler=scheduler, overwrite=overwrite,
-                        progress=show_progress(quiet))
+                        progress=show_progress(quiet), oversubscribe=oversubscribe)
 
     try:
-        summary = run(work)
+        summary = run(work, ("--overwrite",))
     except KeyboardInterrupt:
         typer.echo(f"\ninterrupted: finished chunks are kept in {parts_folder(out)}; rerun the same command "
                    "to resume.", err=True)
@@ -53,7 +61,12 @@ def run_cmd(
 
 @app.command("info")
 def info_cmd(path: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)]):
-    """Counts by status, parameter coverage, output ranges and provenance of a grid file."""
-    from ..grid import describe_grid
+    """Counts by status, parameter coverage, output ranges and provenance of a grid file.
+
+    Exit code 2 when the datasets no longer match the recorded content hash (MISMATCH).
+    """
+    from ..grid import describe_grid, verify_grid
 
     typer.echo(run(lambda: describe_grid(path)))
+    if path.exists():  # (a run in progress has no file yet)
+        run(lambda: verify_grid(path))

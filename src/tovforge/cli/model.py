@@ -8,7 +8,7 @@ from typing import Annotated, Optional
 import typer
 
 from ..errors import InputError
-from ._common import Kind, Namespace, run
+from ._common import WRITE_FLAGS, AllowMismatchOpt, Kind, Namespace, OverwriteOpt, run
 
 __all__ = ["check_cmd", "export_cmd", "refine_cmd", "train_cmd"]
 
@@ -34,19 +34,23 @@ def train_cmd(
     isotropic: Annotated[
         bool, typer.Option("--isotropic", help="Spline (RBF): no per-parameter stretch of the inputs.")
     ] = False,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Train a surrogate on a grid and save it."""
+    from .._files import check_output
     from ..surrogate import GPSettings, SplineSettings, train
 
     def work():
+        check_output(out, "model folder", overwrite, folder=True)  # before the training, not after it
         settings = {"gp": GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
                                      share_curve_kernels=share_kernels, warp_inputs=warp),
                     "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic)}.get(kind.value)
-        model = train(grid, kind.value, settings)
-        model.save(out)
+        model = train(grid, kind.value, settings, allow_mismatch=allow_mismatch)
+        model.save(out, overwrite=overwrite)
         return model
 
-    model = run(work)
+    model = run(work, WRITE_FLAGS)
     label = model.kind if model.method == model.kind else f"{model.kind} ({model.method})"
     typer.echo(f"trained {label} on {model.n_train} points in {model.meta.training.seconds:.1f} s; saved to {out}")
 
@@ -58,11 +62,14 @@ def check_cmd(
         Optional[Path], typer.Option("--report", help="Folder for report.json, report.md and PNG figures "
                                                       "(figures need tovforge[plots]).")
     ] = None,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Compare a surrogate with held-out exact solves; print the error table."""
     from ..surrogate import check, load
 
-    res = run(lambda: check(load(model), holdout, report))
+    res = run(lambda: check(load(model, allow_mismatch), holdout, report, overwrite=overwrite,
+                            allow_mismatch=allow_mismatch), WRITE_FLAGS)
     typer.echo(res.table())
     if report is not None:
         typer.echo(f"report written to {report}/report.md")
@@ -80,14 +87,27 @@ def refine_cmd(
     candidates: Annotated[int, typer.Option("--candidates", min=16, help="Sobol candidates to score.")] = 8192,
     seed: Annotated[int, typer.Option("--seed", help="Seed of the candidate design.")] = 0,
     workers: Annotated[Optional[int], typer.Option("--workers", min=1, help="Parallel workers.")] = None,
+    oversubscribe: Annotated[
+        bool, typer.Option("--oversubscribe", help="Allow more --workers than this machine has cores.")
+    ] = False,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Add exact solves where the GP's sigma is largest, retrain, and print the learning curve."""
     from ..surrogate import load
     from ..workflows.refine import refine
 
     target = out if out is not None else model.with_name(model.name + "-refined")
-    res = run(lambda: refine(load(model), budget, target, holdout=holdout, n_candidates=candidates, seed=seed,
-                             workers=workers))
+
+    def work():
+        if model.resolve().is_relative_to(target.resolve()):
+            raise InputError(f"--out {target}: the retrained model would replace the model being refined "
+                             f"({model}); choose another folder.")
+        return refine(load(model, allow_mismatch), budget, target, holdout=holdout, n_candidates=candidates,
+                      seed=seed, workers=workers, overwrite=overwrite, allow_mismatch=allow_mismatch,
+                      oversubscribe=oversubscribe)
+
+    res = run(work, WRITE_FLAGS)
     typer.echo(f"added {len(res.added)} exact solves ({res.points_path}); retrained model in {target}")
     if res.learning_curve:
         typer.echo(f"{'training points':>16}{'M_max p95 [Msun]':>18}{'R p95 [m]':>11}{'Lambda p95':>12}")
@@ -124,11 +144,13 @@ def export_cmd(
                                                "file under before keeping it (numpy always; the others when "
                                                "installed).")
     ] = "numpy,torch,jax",
+    overwrite: OverwriteOpt = False,
 ):
     """Write MODEL as one Python file that needs NumPy only, with its provenance and error table."""
     from ..export import export_model
 
-    res = run(lambda: export_model(model, out, report, namespaces=_namespaces(namespaces)))
+    res = run(lambda: export_model(model, out, report, namespaces=_namespaces(namespaces), overwrite=overwrite),
+              ("--overwrite",))
     typer.echo(f"wrote {res.path} ({res.size_bytes / 1e6:.2f} MB, payload sha256 {res.payload_sha256[:16]}...)")
     for ns, verdict in res.namespaces.items():
         typer.echo(f"  {ns}: {verdict}")

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import math
-import warnings
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -12,7 +11,7 @@ import typer
 
 from .._jsonfile import jsonable
 from ..errors import InputError
-from ._common import FamilyArg, ParametersArg, make_eos, parse_float_list, run
+from ._common import FamilyArg, OverwriteOpt, ParametersArg, fail, make_eos, parse_float_list, run
 
 __all__ = ["families_cmd", "solve_cmd"]
 
@@ -51,24 +50,21 @@ def solve_cmd(
         Optional[float], typer.Option("--profile", help="Also print the interior profile of the star of this mass.")
     ] = None,
     stars: Annotated[int, typer.Option("--stars", min=8, max=2000, help="Stars along the stable branch.")] = 100,
+    overwrite: OverwriteOpt = False,
 ):
     """Solve the stable branch of one EOS: M_max, the M-R-Lambda-I sequence, stars at given masses."""
     from .. import solve, tables
 
     def work():
         if table is not None:
-            tables.table_format(table)
+            tables.check_table_output(table, overwrite)
         eos_obj = make_eos(family, parameters or [])
-        qm = parse_float_list(masses, "--masses") if masses else None
+        qm = parse_float_list(masses, "--masses") if masses is not None else None
         if qm is not None and any(m <= 0 for m in qm):
             raise InputError("--masses must be positive (Msun).")
         if profile is not None and not (profile > 0 and math.isfinite(profile)):
             raise InputError(f"--profile must be a positive mass in Msun. Got {profile}.")
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            seq = solve.solve_sequence(eos_obj, n_stars=stars, masses=qm)
-        for w in caught:
-            typer.echo(f"warning: {w.message}", err=True)
+        seq = solve.solve_sequence(eos_obj, n_stars=stars, masses=qm)
         prof = None
         if profile is not None and seq.success:
             if profile > seq.mass_max.mass_msun:
@@ -81,21 +77,23 @@ def solve_cmd(
                 prof = solve.solve_star(eos_obj, mass_msun=profile)
         return eos_obj, seq, prof
 
-    eos_obj, seq, prof = run(work)
-    if table is not None:
+    eos_obj, seq, prof = run(work, ("--overwrite",))
+    if table is not None and seq.success:
         meta = tables.sequence_meta(seq, solve.SequenceSettings(), "branch")
         both, which = tables.branch_stars(seq)
-        run(lambda: tables.star_table(table, both, meta, branch=which))
+        run(lambda: tables.star_table(table, both, meta, branch=which, overwrite=overwrite), ("--overwrite",))
     if as_json:
         out = tables.sequence_json(seq)
         if prof is not None:
             out["profile"] = tables.profile_json(prof)
         typer.echo(json.dumps(jsonable(out)))
-        raise typer.Exit(code=0 if seq.success else 1)
-    typer.echo(tables.sequence_text(seq))
-    if prof is not None:
-        typer.echo("")
-        typer.echo(f"interior of the {profile:g} Msun star (centre to surface):")
-        typer.echo(tables.profile_text(prof))
-    if not seq.success:
-        raise typer.Exit(code=1)
+    else:
+        typer.echo(tables.sequence_text(seq))
+        if prof is not None:
+            typer.echo("")
+            typer.echo(f"interior of the {profile:g} Msun star (centre to surface):")
+            typer.echo(tables.profile_text(prof))
+    if not seq.success:  # allowed parameters, but no stable star: nothing this EOS can be used for
+        fail(f"{family} {' '.join(parameters or [])}: no stable branch found ({seq.message.rstrip('.')}); each "
+             "parameter is allowed, but together they give no star the solver can compute: choose other values"
+             + (f" ({table} was not written)" if table is not None else "") + ".")

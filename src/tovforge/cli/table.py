@@ -13,8 +13,8 @@ from typing import Annotated, Optional
 import typer
 
 from ..errors import InputError
-from ._common import (FamilyArg, ParametersArg, aligned, command_line, make_eos, parse_assignments,
-                      parse_float_list, parse_number, run, show_progress)
+from ._common import (WRITE_FLAGS, AllowMismatchOpt, FamilyArg, OverwriteOpt, ParametersArg, aligned, command_line,
+                      make_eos, parse_assignments, parse_float_list, parse_number, run, show_progress)
 
 __all__ = ["app", "parse_axis", "parse_fixed", "parse_range"]
 
@@ -65,6 +65,8 @@ def parse_range(text: str, option: str, lo: float, hi: float, open_lo: bool = Tr
             raise InputError(f"{option} expects VALUE or LO:HI:N; N = {parts[2]!r} is not a whole number.") from None
         if n < 1 or not a <= b:
             raise InputError(f"{option} {text}: need LO <= HI and N >= 1.")
+        if n > 10_000_000:
+            raise InputError(f"{option} {text}: at most 10^7 values.")
         values = np.linspace(a, b, n)
     else:
         raise InputError(f"{option} expects VALUE or LO:HI:N; got {text!r}.")
@@ -105,6 +107,7 @@ def sequence_cmd(
         Optional[str], typer.Option("--masses", help="Comma-separated masses in Msun instead: one exact star each.")
     ] = None,
     min_mass: Annotated[float, typer.Option("--min-mass", help="Lightest star of --points (Msun).")] = 0.3,
+    overwrite: OverwriteOpt = False,
 ):
     """The stable branch of one EOS: a column per star quantity (M, R, C, Lambda, k2, I, M_b, central values)."""
     from ..tables import sequence_table
@@ -115,9 +118,9 @@ def sequence_cmd(
         eos_obj = make_eos(family, parameters or [])
         qm = parse_float_list(masses, "--masses") if masses is not None else None
         return sequence_table(out, eos_obj, points=100 if points is None else points, masses=qm,
-                              min_mass_msun=min_mass, command=command_line())
+                              min_mass_msun=min_mass, command=command_line(), overwrite=overwrite)
 
-    _finish(run(work))
+    _finish(run(work, ("--overwrite",)))
 
 
 # ---------------------------------------------------------------------------
@@ -155,7 +158,12 @@ def box_cmd(
         float, typer.Option("--mass-floor", help="--exact: floor of mass_max_margin (Msun); a model has its own.")
     ] = 1.0,
     keep_grid: Annotated[bool, typer.Option("--keep-grid", help="--exact: keep the work grid OUT.grid.h5.")] = False,
+    oversubscribe: Annotated[
+        bool, typer.Option("--oversubscribe", help="--exact: allow more --workers than this machine has cores.")
+    ] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Observables over a regular slice or full grid of EOS parameters, from a model or exact solves."""
     from ..tables import box_table, exact_box_table, parse_quantities
@@ -168,8 +176,8 @@ def box_cmd(
 
             if str(model) in eos.families():
                 raise InputError(f"{model}: no such model folder; for exact solves write --exact {model}.")
-        if exact is None and (workers is not None or scheduler is not None or keep_grid):
-            raise InputError("--workers, --scheduler and --keep-grid apply to --exact only.")
+        if exact is None and (workers is not None or scheduler is not None or keep_grid or oversubscribe):
+            raise InputError("--workers, --scheduler, --keep-grid and --oversubscribe apply to --exact only.")
         axes = [parse_axis(a) for a in axis or []]
         fixed = parse_fixed(fix or [])
         qs = parse_quantities(quantities)
@@ -177,12 +185,12 @@ def box_cmd(
         if exact is not None:
             return exact_box_table(out, exact, axes, fixed, qs, ms, mass_floor_msun=mass_floor, workers=workers,
                                    scheduler=scheduler, progress=show_progress(quiet), command=command_line(),
-                                   keep_grid=keep_grid)
+                                   keep_grid=keep_grid, overwrite=overwrite, oversubscribe=oversubscribe)
         return box_table(out, model, axes, fixed, qs, ms, sigma=not no_sigma, progress=show_progress(quiet),
-                         command=command_line())
+                         command=command_line(), overwrite=overwrite, allow_mismatch=allow_mismatch)
 
     try:
-        summary = run(work)
+        summary = run(work, WRITE_FLAGS)
     except KeyboardInterrupt:
         if exact is None:
             raise
@@ -222,6 +230,8 @@ def samples_cmd(
     ] = None,
     no_sigma: Annotated[bool, typer.Option("--no-sigma", help="Leave out the GP's sigma columns.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Observables for every row of a samples file, and their median and 90 % band per mass.
 
@@ -235,9 +245,10 @@ def samples_cmd(
         ms = parse_float_list(masses, "--masses")
         skip = [s.strip() for s in ignore.split(",") if s.strip()] if ignore else []
         return samples_table(out, model, samples, qs, ms, band=band, plot=plot, ignore=skip, sigma=not no_sigma,
-                             progress=show_progress(quiet), command=command_line())
+                             progress=show_progress(quiet), command=command_line(), overwrite=overwrite,
+                             allow_mismatch=allow_mismatch)
 
-    _finish(run(work))
+    _finish(run(work, WRITE_FLAGS))
 
 
 # ---------------------------------------------------------------------------
@@ -245,7 +256,7 @@ def samples_cmd(
 # ---------------------------------------------------------------------------
 
 
-def _lambda_source(source: str, parameters: list[str]):
+def _lambda_source(source: str, parameters: list[str], allow_mismatch: bool = False):
     """``(Lambda(M), metadata)`` from a model folder, a table file or an EOS family name."""
     import numpy as np
 
@@ -255,7 +266,7 @@ def _lambda_source(source: str, parameters: list[str]):
     if path.is_dir():
         from ..surrogate import load
 
-        model = load(path)
+        model = load(path, allow_mismatch)
         values = parse_assignments(parameters)
         names = model.parameter_names
         unknown = [k for k in values if k not in names]
@@ -307,13 +318,17 @@ def binary_cmd(
     out: Annotated[
         Optional[Path], typer.Option("--out", help=_OUT_HELP + " Without it, the table is printed.", dir_okay=False)
     ] = None,
+    overwrite: OverwriteOpt = False,
+    allow_mismatch: AllowMismatchOpt = False,
 ):
     """Binary tidal deformability Lambda-tilde for component masses, or over chirp mass and mass ratio."""
     import numpy as np
 
-    from ..tables import binary_deformability, binary_table, component_masses
+    from ..tables import binary_deformability, binary_table, check_table_output, chirp_grid
 
     def work():
+        if out is not None:
+            check_table_output(out, overwrite)
         by_masses = m1 is not None or m2 is not None
         by_chirp = chirp is not None or ratio is not None
         if by_masses == by_chirp:
@@ -329,14 +344,14 @@ def binary_cmd(
                 raise InputError("--chirp-mass and --mass-ratio go together.")
             mc = parse_range(chirp, "--chirp-mass", 0.0, 10.0)
             q = parse_range(ratio, "--mass-ratio", 0.0, 1.0)
-            a, b = component_masses(*(g.ravel() for g in np.meshgrid(mc, q, indexing="ij")))
-        lam, meta = _lambda_source(source, parameters or [])
+            a, b = chirp_grid(mc, q)
+        lam, meta = _lambda_source(source, parameters or [], allow_mismatch)
         res = binary_deformability(lam, a, b)
         if out is not None:
-            return binary_table(out, res, command=command_line(), **meta)
+            return binary_table(out, res, command=command_line(), overwrite=overwrite, **meta)
         return res
 
-    res = run(work)
+    res = run(work, WRITE_FLAGS)
     if out is not None:
         _finish(res)
         return

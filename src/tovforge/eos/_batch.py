@@ -38,6 +38,8 @@ from functools import cached_property
 
 import numpy as np
 
+from ..units import DENSITY_CGS_TO_GEOM
+
 __all__ = [
     "EOSBatch",
     "PolytropePieces",
@@ -48,6 +50,12 @@ __all__ = [
     "polytrope_chain",
     "pressure_enthalpy",
 ]
+
+#: Energy density (g/cm^3) at which a tabulated EOS ends.  Centres of stable neutron stars lie below
+#: about 1e16 g/cm^3 (the causal limit on the central density of a maximum-mass star, Lattimer & Prakash
+#: 2005, PRL 94, 111101; from memory), so this ends only EOS so soft (c_s^2 of order 1e-3) that the
+#: energy density would otherwise overflow, while stars of every normal EOS are untouched.
+E_CEILING_G_CM3 = 1e30
 
 _FOUR_PI = 4.0 * np.pi
 # Lower clamp of h inside closed-form pieces: keeps ln(rho) finite at the
@@ -264,6 +272,10 @@ class HermiteTable(EOSBatch):
         Enthalpies where ``e`` jumps.  Each is a node written twice (an
         interval of zero width): the interval below ends there, the one above
         starts there, so one-sided look-ups see each phase.
+    h_end : ndarray, shape (n_eos,), optional
+        Where the EOS ends (:attr:`h_max`) when that is below the last node:
+        the start of the first interval whose coefficients are not finite (an
+        EOS so soft that ``e`` overflows before the last node).
     """
 
     h_nodes: np.ndarray
@@ -271,6 +283,7 @@ class HermiteTable(EOSBatch):
     kink_h: np.ndarray
     e_surface_: np.ndarray
     jump_h: np.ndarray | None = None
+    h_end: np.ndarray | None = None
 
     @classmethod
     def from_samples(cls, h, p, e, rho, cs2, dcs2_dh, kink_h=None, e_surface=None, lnrho_derivs=None,
@@ -303,6 +316,11 @@ class HermiteTable(EOSBatch):
         ``(ln e)' = w/(c_s^2 e)``,
         ``(ln e)'' = (ln e)' (1 + 1/c_s^2 - q/c_s^2 - (ln e)')``.
         """
+        with np.errstate(over="ignore", invalid="ignore"):  # overflowed samples: the table ends before them
+            return cls._from_samples(h, p, e, rho, cs2, dcs2_dh, kink_h, e_surface, lnrho_derivs, jump_h)
+
+    @classmethod
+    def _from_samples(cls, h, p, e, rho, cs2, dcs2_dh, kink_h, e_surface, lnrho_derivs, jump_h):
         h = np.atleast_2d(np.asarray(h, float))
         p, e, rho, cs2 = (np.atleast_2d(np.asarray(x, float)) for x in (p, e, rho, cs2))
         n = h.shape[1]
@@ -351,7 +369,15 @@ class HermiteTable(EOSBatch):
             e_surface = np.zeros(h.shape[0])
         if jump_h is not None:
             jump_h = np.atleast_2d(np.asarray(jump_h, float))
-        return cls(h, coef, np.atleast_2d(np.asarray(kink_h, float)), np.asarray(e_surface, float), jump_h)
+        # an EOS so soft that e grows like exp(h / c_s^2) passes any density of matter in stars and then
+        # overflows (NaN coefficients): it ends at the first interval past E_CEILING, so that the solver
+        # never integrates stars whose centre lies there
+        bad = ~np.all(np.isfinite(coef), axis=(2, 3)) | ~(e[:, 1:] <= E_CEILING_G_CM3 * DENSITY_CGS_TO_GEOM)
+        h_end = None
+        if bad.any():
+            first = np.where(bad.any(axis=1), np.argmax(bad, axis=1), n - 1)
+            h_end = h[np.arange(h.shape[0]), first]
+        return cls(h, coef, np.atleast_2d(np.asarray(kink_h, float)), np.asarray(e_surface, float), jump_h, h_end)
 
     @property
     def n_eos(self) -> int:
@@ -367,7 +393,7 @@ class HermiteTable(EOSBatch):
 
     @property
     def h_max(self) -> np.ndarray:
-        return self.h_nodes[:, -1]
+        return self.h_nodes[:, -1] if self.h_end is None else self.h_end
 
     @property
     def h_min(self) -> np.ndarray:
@@ -380,7 +406,8 @@ class HermiteTable(EOSBatch):
     def select(self, eos_index):
         idx = np.asarray(eos_index)
         return HermiteTable(self.h_nodes[idx], self.coef[idx], self.kink_h[idx], self.e_surface_[idx],
-                            None if self.jump_h is None else self.jump_h[idx])
+                            None if self.jump_h is None else self.jump_h[idx],
+                            None if self.h_end is None else self.h_end[idx])
 
     def lanes(self, eos_index):
         return _HermiteLanes(self, np.asarray(eos_index))

@@ -197,11 +197,10 @@ def read_table(path, columns: str | None = None, units: str | None = None) -> Ta
     TableFormatError
         With the file name and line number of the first problem.
     """
+    from .._files import read_text
+
     path = Path(path)
-    try:
-        text = path.read_text()
-    except OSError as exc:
-        raise TableFormatError(f"{path}: cannot read EOS table ({exc.strerror}).") from None
+    text = read_text(path, "EOS table", TableFormatError)
     lines = text.splitlines()
     header = None
     header_line = 0
@@ -274,6 +273,12 @@ def read_table(path, columns: str | None = None, units: str | None = None) -> Ta
     return _checked_rows(cols, linenos, path)
 
 
+#: Rows of a table up to this energy density (g/cm^3, about four times nuclear saturation density) must
+#: have p <= e c^2.  Models of dense matter stay far below that limit there (p/e of a few tenths at
+#: most; from memory), so a row above it is a unit or column mistake.
+DEC_CHECK_BELOW_G_CM3 = 1e15
+
+
 def _checked_rows(cols: dict, linenos: list[int], path) -> TableData:
     """Check monotonicity, find the phase transitions, merge rows of one pressure."""
     p, e = cols["pressure"], cols["energy_density"]
@@ -283,6 +288,15 @@ def _checked_rows(cols: dict, linenos: list[int], path) -> TableData:
     def fail(j, message):
         raise TableFormatError(f"{path}:{linenos[j]}: {message}")
 
+    # matter has less pressure than energy density (the dominant energy condition): p > e c^2 at the
+    # densities of stellar matter is a wrong unit or column, and gave stars of thousands of solar masses;
+    # far above them an extrapolated fit may pass it (a piecewise polytrope does near 8e15 g/cm^3)
+    over = np.flatnonzero((p > e * C_CGS**2) & (e <= DEC_CHECK_BELOW_G_CM3))
+    if over.size:
+        j = int(over[0])
+        fail(j, f"pressure {p[j]:.6g} dyn/cm^2 exceeds the energy density {e[j]:.6g} g/cm^3 times c^2 "
+                f"({e[j] * C_CGS**2:.6g} erg/cm^3): no matter has p > e; check the units and the order of the "
+                "columns.")
     for j in range(1, n):  # rows of a file: a Python loop outside any hot path
         if p[j] < p[j - 1]:
             fail(j, f"pressure must not decrease from row to row ({p[j - 1]:.6g} then {p[j]:.6g} dyn/cm^2).")

@@ -49,12 +49,32 @@ __all__ = [
 
 
 class PayloadError(ImportError):
-    """The embedded model numbers do not match the checksum recorded in the header."""
+    """The file was edited after export, or its embedded numbers do not match the recorded checksum."""
+
+
+def _check_file():
+    """Refuse a file edited after export: its bytes without the last line must hash to FILE_SHA256 there.
+
+    Guards against accidental edits (a constant changed, a line lost), not against someone who edits the
+    check as well.  A module run from a string (no file) has nothing to check.
+    """
+    path = globals().get("__file__")
+    if not path:
+        return
+    with open(path, "rb") as fh:
+        lines = fh.read().replace(b"\r\n", b"\n").splitlines(keepends=True)
+    marked = [i for i, line in enumerate(lines) if line.startswith(b"FILE_SHA256 = ")]
+    recorded = lines[marked[0]].split(b'"')[1].decode("ascii", "replace") if len(marked) == 1 else None
+    got = hashlib.sha256(b"".join(line for i, line in enumerate(lines) if i not in marked)).hexdigest()
+    if got != recorded:
+        raise PayloadError(f"{__name__}: {path} was edited after export: its sha256 without the FILE_SHA256 line is "
+                           f"{got}, but that line records {recorded}; do not use this file, export the model "
+                           "again with `tovforge export`.")
 
 
 def _load_model():
-    """Decode, verify and read the payload (a zlib stream of .npy records of shuffled bytes, no pickles) into a
-    runtime Model."""
+    """Decode and verify the payload, check the whole file, then read the payload (a zlib stream of .npy records
+    of shuffled bytes, no pickles) into a runtime Model."""
     try:
         raw = base64.b64decode(_PAYLOAD, validate=True)
     except ValueError as exc:
@@ -65,6 +85,7 @@ def _load_model():
         raise PayloadError(f"{__name__}: the embedded model numbers are damaged or were altered: their sha256 is "
                            f"{got}, but the header records {PAYLOAD_SHA256}; do not use this file, export "
                            "the model again with `tovforge export`.")
+    _check_file()  # the numbers are intact: now the code and constants
     stream = io.BytesIO(zlib.decompress(raw))
     arrays = {}
     for name, dtype, shape, order in _ARRAYS:

@@ -14,27 +14,56 @@ is kept in :mod:`._verify` (and :mod:`._probe` for other namespaces).
 from __future__ import annotations
 
 import hashlib
-import os
+import keyword
+import sys
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from .._files import check_output, publish, remove_litter, temp_path
 from .._provenance import provenance
 from ..surrogate import CheckReport
 from ..surrogate._check import read_report
 from ..surrogate._kinds import COMMON_STATIC, METHODS
 from ._codegen import generate
-from ._payload import pack
+from ._payload import pack, seal
 from ._render import (SELF_CHECK_POINTS, ExportError, constants, header, identifier, is_identifier, plain, render,
                       source, text)
 from ._verify import check_points, namespace_checks, rounding_noise, self_check
 
-__all__ = ["export_model", "ExportResult", "NAMESPACES"]
+__all__ = ["export_model", "ExportResult", "NAMESPACES", "check_module_name"]
 
 #: Array namespaces the exporter runs each new file under (when installed) and names in its header.
 NAMESPACES = ("numpy", "torch", "jax")
+#: Modules an exported file must not shadow besides the standard library: what it and its users import.
+_TAKEN_NAMES = frozenset({"numpy", "tovforge", "scipy", "torch", "jax", "array_api_compat", "h5py", "sklearn",
+                          "matplotlib", "emcee", "dask", "joblib", "typer", "pytest"})
+
+
+def check_module_name(out: Path) -> None:
+    """Refuse an output whose stem is not a module name users can import safely.
+
+    The stem must be a Python identifier, not a keyword (``class``), and not
+    the name of a standard-library module or of NumPy and the libraries
+    around it: a file ``numpy.py`` would shadow NumPy for every script
+    started in its folder (the exported file itself included).
+
+    Raises
+    ------
+    ExportError
+    """
+    stem = out.stem
+    if out.suffix != ".py" or not is_identifier(stem):
+        raise ExportError(f"out {text(out)}: the file must end in .py and its stem must be a Python identifier "
+                          "(it is the module name users import).")
+    why = ("is a Python keyword" if keyword.iskeyword(stem) else
+           "is a module of Python's standard library" if stem in sys.stdlib_module_names else
+           "is the name of a library tovforge and its users import" if stem in _TAKEN_NAMES else "")
+    if why:
+        raise ExportError(f"out {text(out)}: the module name {stem!r} {why}; a file of that name would break "
+                          "imports in its folder: choose another name.")
 
 
 @dataclass(frozen=True)
@@ -108,7 +137,8 @@ def _validated(model):
     return model
 
 
-def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc: str | None = None) -> ExportResult:
+def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc: str | None = None,
+                 overwrite: bool = False) -> ExportResult:
     """Write ``model`` as one standalone Python file that needs NumPy only.
 
     Parameters
@@ -126,6 +156,8 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
         not installed are reported as such in the header); NumPy always.
     created_utc : str, optional
         Creation time written into the header (default: now).
+    overwrite : bool
+        Replace an existing file.
 
     Returns
     -------
@@ -134,19 +166,21 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     Raises
     ------
     ExportError
-        For names that are not identifiers, an unknown namespace, a report of
-        another model, or a file that does not reproduce the library model to
-        1e-10 relative.
+        For names that are not identifiers (or shadow a keyword, a standard
+        library module or NumPy), an unknown namespace, a report of another
+        model, or a file that does not reproduce the library model to 1e-10
+        relative.
+    OutputExists
+        ``out`` exists and ``overwrite`` is False.
     """
     from ..surrogate import Surrogate, load
 
+    out = Path(out)
+    check_module_name(out)
+    check_output(out, "exported file", overwrite)
     if not isinstance(model, Surrogate):
         model = load(model)
     _validated(model)
-    out = Path(out)
-    if out.suffix != ".py" or not is_identifier(out.stem):
-        raise ExportError(f"out {text(out)}: the file must end in .py and its stem must be a Python identifier "
-                          "(it is the module name users import).")
     unknown = [n for n in namespaces if n not in NAMESPACES]
     if unknown:
         raise ExportError(f"namespaces: unknown namespace {text(unknown[0])!r}; choose from {', '.join(NAMESPACES)}.")
@@ -170,9 +204,9 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     b64 = payload.lines()
 
     def write(path: Path, ns_lines: dict) -> None:
-        path.write_text(render(header(model, check, info, ns_lines), lines, b64, generated.source), encoding="utf-8")
+        with open(path, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(seal(render(header(model, check, info, ns_lines), lines, b64, generated.source)))
 
-    out.parent.mkdir(parents=True, exist_ok=True)
     with tempfile.TemporaryDirectory() as tmp:
         trial = Path(tmp) / out.name
         write(trial, {"(pending)": "run at export time"})
@@ -183,7 +217,11 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
         ns["rounding noise of this model"] = (
             f"{noise:.1e} (outputs and gradients change by this much when the sums over training points "
             "run in reverse order; differences of this size are rounding)")
-    tmp_out = out.with_name(f".{out.name}.tmp")
-    write(tmp_out, ns)
-    os.replace(tmp_out, out)
+    remove_litter(out)
+    tmp_out = temp_path(out)
+    try:
+        write(tmp_out, ns)
+        publish(tmp_out, out, "exported file", overwrite)
+    finally:
+        tmp_out.unlink(missing_ok=True)
     return ExportResult(out, out.stat().st_size, payload.sha256, worst, ns)

@@ -1,5 +1,13 @@
-"""The numbers of an exported file: the model's arrays as a checksummed base64 zlib stream of .npy records
-(bytes shuffled)."""
+"""The checksums of an exported file: its numbers (the model's arrays as a checksummed base64 zlib stream of
+.npy records, bytes shuffled) and the file as a whole (:func:`seal`).
+
+The payload checksum (``PAYLOAD_SHA256``) says the numbers are those
+exported; the file checksum (the last line, ``FILE_SHA256``) covers every
+other line, code and constants included, so that an accidental edit anywhere
+(a constant changed, a line deleted) is refused at import.  Neither guards
+against someone who edits a check along with what it checks: they are not
+signatures.
+"""
 
 from __future__ import annotations
 
@@ -13,7 +21,7 @@ import numpy as np
 
 from ._render import ExportError, identifier
 
-__all__ = ["Payload", "pack"]
+__all__ = ["Payload", "pack", "seal", "FILE_SHA256_PREFIX"]
 
 _LINE = 1000  # characters of base64 per source line (each line costs 7 characters of quotes and indent)
 
@@ -68,3 +76,22 @@ def pack(arrays: dict) -> Payload:
         index.append((identifier(name, "model array name"), a.dtype.str, tuple(int(s) for s in a.shape), order))
     raw = zlib.compress(buf.getvalue(), 9)
     return Payload(raw=raw, index=index, sha256=hashlib.sha256(raw).hexdigest())
+
+
+#: How the last line of an exported file starts; the interface code finds it there at import.
+FILE_SHA256_PREFIX = "FILE_SHA256 = "
+
+
+def seal(text: str) -> str:
+    """``text`` with a last line recording the SHA-256 of everything before it (UTF-8, ``\\n`` line ends).
+
+    The exported file checks it when imported (``_check_file`` of
+    :mod:`tovforge.export._evaluator`): the file's bytes without that line,
+    with ``\\r\\n`` read as ``\\n``, must hash to the recorded value.
+    """
+    if not text.endswith("\n"):
+        text += "\n"
+    if any(line.startswith(FILE_SHA256_PREFIX) for line in text.splitlines()):
+        raise ExportError(f"internal: the file already has a {FILE_SHA256_PREFIX.strip()} line.")
+    digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return text + f'{FILE_SHA256_PREFIX}"{digest}"  # sha256 of every other line of this file, checked at import\n'

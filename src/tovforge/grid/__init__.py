@@ -18,7 +18,7 @@ from __future__ import annotations
 
 from ._design import design_points
 from ._info import describe_grid
-from ._run import RunSummary, parts_folder, run_grid, solve_points
+from ._run import RunSummary, WorkersLost, parts_folder, run_grid, solve_points
 from ._solve import ChunkResult, solve_chunk
 from ._spec import (
     AT_MASS,
@@ -33,7 +33,7 @@ from ._spec import (
     load_spec,
     parse_spec,
 )
-from ._store import FORMAT, FORMAT_VERSION, GridData, content_sha256, read_grid, write_grid
+from ._store import FORMAT, FORMAT_VERSION, GridData, content_sha256, read_grid, verify_grid, write_grid
 
 __all__ = [
     "AT_MASS",
@@ -49,6 +49,7 @@ __all__ = [
     "OutputSpec",
     "RunSummary",
     "SolverSpec",
+    "WorkersLost",
     "chebyshev_lobatto_nodes",
     "content_sha256",
     "describe_grid",
@@ -60,5 +61,6 @@ __all__ = [
     "run_grid",
     "solve_chunk",
     "solve_points",
+    "verify_grid",
     "write_grid",
 ]

@@ -59,58 +59,66 @@ def describe_grid(path) -> str:
     if not path.exists():
         return _describe_parts(path)
     with open_grid_file(path) as h5:
-        a = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in h5.attrs.items()}
-        spec = json.loads(a["spec_json"])
-        code = h5["status/code"][...]
-        reason = h5["status/reason"].asstr()[...]
-        ok = code == 0
-        d = spec["design"]
-        design = (f"regular, {' x '.join(str(v) for v in d['points_per_axis'].values())} points"
-                  if d["method"] == "regular" else f"{d['method']}, {d['points']} points, seed {d['seed']}")
-        lines = [f"{path}: tovforge grid (format {a['format_version']}), family {a['family']}, {a['n_points']} points",
-                 f"design: {design}; chunks of {spec['chunk_size']}"]
-        if a.get("description"):
-            lines.append(f"description: {a['description']}")
-        lines.append("")
-        lines.append("status:")
-        for c in Status:
-            n = int((code == c).sum())
-            example = ""
-            if n and c:
-                example = f"   e.g. {reason[np.flatnonzero(code == c)[0]]}"
-            lines.append(f"  {int(c)} {c.label:<28}{n:>8}{example}")
-        lines.append("")
-        lines.append("parameters (box of the spec; values of all points):")
-        names = h5["parameters/names"].asstr()[...]
-        units = h5["parameters/units"].asstr()[...]
-        box = h5["parameters/box"][...]
-        theta = h5["parameters/values"][...]
-        width = max(12, max((len(n) for n in names), default=0) + 2)  # e.g. log_p_transition
-        for j, name in enumerate(names):
-            unit = "" if units[j] == "1" else units[j]
-            lines.append(f"  {name:<{width}}{unit:<18} box [{box[j, 0]:g}, {box[j, 1]:g}]   values "
-                         f"[{theta[:, j].min():.6g}, {theta[:, j].max():.6g}]   distinct {np.unique(theta[:, j]).size}")
-        lines.append("")
-        lines.append(f"outputs over the {int(ok.sum())} points with status 0 (min .. max):")
-        if "scalars" in h5:
-            lines.append(" scalars")
-            lines += _range_rows(h5["scalars"], ok, SCALARS)
-        if "curves" in h5 and "u" in h5["curves"]:  # a spec may ask for no curves
-            u = h5["curves/u"][...]
-            lines.append(f" curves at {u.size} nodes of u = sqrt(1 - M/M_max) in [{u.min():g}, {u.max():g}]")
-            lines += _range_rows(h5["curves"], ok, {})
-        if "at_mass" in h5 and "masses_msun" in h5["at_mass"]:
-            m = h5["at_mass/masses_msun"][...]
-            lines.append(f" at masses {', '.join(f'{v:g}' for v in m)} Msun (NaN above M_max)")
-            lines += _range_rows(h5["at_mass"], ok, {})
-        lines.append("")
-        digest = _hash_datasets(h5)
-        check = "verified" if digest == a.get("content_sha256") else f"MISMATCH (recomputed {digest})"
-        lines.append("provenance:")
-        lines.append(f"  tovforge {a.get('tovforge_version')}, Python {a.get('python_version')}, numpy "
-                     f"{a.get('numpy_version')}, scipy {a.get('scipy_version')}, h5py {a.get('h5py_version')}")
-        lines.append(f"  started {a.get('started_utc')}, assembled {a.get('created_utc')}")
-        lines.append(f"  solver settings {a.get('solver_settings_json')}")
-        lines.append(f"  spec sha256 {a.get('spec_sha256')}")
-        lines.append(f"  content sha256 {a.get('content_sha256')} ({check})")
+        try:
+            return _describe(path, h5)
+        except (OSError, KeyError, ValueError, TypeError, IndexError, AttributeError) as exc:
+            raise InputError(f"{path}: damaged grid file ({type(exc).__name__}: {exc}).") from None
+
+
+def _describe(path: Path, h5) -> str:
+    """The text of :func:`describe_grid` for an open grid file."""
+    a = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in h5.attrs.items()}
+    spec = json.loads(a["spec_json"])
+    code = h5["status/code"][...]
+    reason = h5["status/reason"].asstr()[...]
+    ok = code == 0
+    d = spec["design"]
+    design = (f"regular, {' x '.join(str(v) for v in d['points_per_axis'].values())} points"
+              if d["method"] == "regular" else f"{d['method']}, {d['points']} points, seed {d['seed']}")
+    lines = [f"{path}: tovforge grid (format {a['format_version']}), family {a['family']}, {a['n_points']} points",
+             f"design: {design}; chunks of {spec['chunk_size']}"]
+    if a.get("description"):
+        lines.append(f"description: {a['description']}")
+    lines.append("")
+    lines.append("status:")
+    for c in Status:
+        n = int((code == c).sum())
+        example = ""
+        if n and c:
+            example = f"   e.g. {reason[np.flatnonzero(code == c)[0]]}"
+        lines.append(f"  {int(c)} {c.label:<28}{n:>8}{example}")
+    lines.append("")
+    lines.append("parameters (box of the spec; values of all points):")
+    names = h5["parameters/names"].asstr()[...]
+    units = h5["parameters/units"].asstr()[...]
+    box = h5["parameters/box"][...]
+    theta = h5["parameters/values"][...]
+    width = max(12, max((len(n) for n in names), default=0) + 2)  # e.g. log_p_transition
+    for j, name in enumerate(names):
+        unit = "" if units[j] == "1" else units[j]
+        lines.append(f"  {name:<{width}}{unit:<18} box [{box[j, 0]:g}, {box[j, 1]:g}]   values "
+                     f"[{theta[:, j].min():.6g}, {theta[:, j].max():.6g}]   distinct {np.unique(theta[:, j]).size}")
+    lines.append("")
+    lines.append(f"outputs over the {int(ok.sum())} points with status 0 (min .. max):")
+    if "scalars" in h5:
+        lines.append(" scalars")
+        lines += _range_rows(h5["scalars"], ok, SCALARS)
+    if "curves" in h5 and "u" in h5["curves"]:  # a spec may ask for no curves
+        u = h5["curves/u"][...]
+        lines.append(f" curves at {u.size} nodes of u = sqrt(1 - M/M_max) in [{u.min():g}, {u.max():g}]")
+        lines += _range_rows(h5["curves"], ok, {})
+    if "at_mass" in h5 and "masses_msun" in h5["at_mass"]:
+        m = h5["at_mass/masses_msun"][...]
+        lines.append(f" at masses {', '.join(f'{v:g}' for v in m)} Msun (NaN above M_max)")
+        lines += _range_rows(h5["at_mass"], ok, {})
+    lines.append("")
+    digest = _hash_datasets(h5)
+    check = "verified" if digest == a.get("content_sha256") else f"MISMATCH (recomputed {digest})"
+    lines.append("provenance:")
+    lines.append(f"  tovforge {a.get('tovforge_version')}, Python {a.get('python_version')}, numpy "
+                 f"{a.get('numpy_version')}, scipy {a.get('scipy_version')}, h5py {a.get('h5py_version')}")
+    lines.append(f"  started {a.get('started_utc')}, assembled {a.get('created_utc')}")
+    lines.append(f"  solver settings {a.get('solver_settings_json')}")
+    lines.append(f"  spec sha256 {a.get('spec_sha256')}")
+    lines.append(f"  content sha256 {a.get('content_sha256')} ({check})")
     return "\n".join(lines)

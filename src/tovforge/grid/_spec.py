@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import warnings
 from dataclasses import dataclass
 
@@ -61,6 +62,10 @@ DEFAULT_SCALARS = quantities.grid_defaults("scalar")
 DEFAULT_CURVES = quantities.grid_defaults("curve")
 DEFAULT_AT_MASS = quantities.grid_defaults("at_mass")
 DEFAULT_MASSES = (1.0, 1.2, 1.4, 1.6, 1.8, 2.0, 2.2, 2.4)
+#: Most nodes of u per curve: every node is a star solved for every point (24 by default).
+MAX_U_NODES = 1000
+#: Most points per chunk: a chunk is solved as one batch in one worker, whose arrays grow with it.
+MAX_CHUNK_SIZE = 4096
 #: Design methods and the keys each takes besides ``method``.
 DESIGNS = {"regular": ("points_per_axis",), "latin-hypercube": ("points", "seed"), "sobol": ("points", "seed")}
 
@@ -305,7 +310,7 @@ def _read_design(raw, fam) -> DesignSpec:
             counts = tuple(_int(value[n], f"design.points_per_axis.{n}", 1) for n in fam.parameter_names)
         else:
             counts = (_int(value, "design.points_per_axis", 1),) * len(fam.parameters)
-        return DesignSpec(method, int(np.prod(counts)), points_per_axis=counts)
+        return DesignSpec(method, math.prod(counts), points_per_axis=counts)  # exact: no int64 wrap-around
     points = _int(table["points"], "design.points", 1)
     seed = _int(table["seed"], "design.seed", 0)
     if method == "sobol" and points & (points - 1):
@@ -329,11 +334,15 @@ def _read_outputs(raw) -> OutputSpec:
         if not u_nodes:
             raise InputError("outputs.u_nodes: give at least one node (or drop outputs.curves).")
     else:
-        count = _int(nodes, "outputs.u_nodes", 2)
+        count = _int(nodes, "outputs.u_nodes", 2, MAX_U_NODES)
         u_max = _float(table.get("u_max", 0.85), "outputs.u_max", 0.0, 1.0, True, True)
         u_nodes = tuple(chebyshev_lobatto_nodes(count, u_max).tolist())
     masses = (_increasing(table["masses_msun"], "outputs.masses_msun", 0.0, None, True, False)
               if "masses_msun" in table else d.masses_msun)
+    if at_mass and not masses:
+        raise InputError("outputs.masses_msun: give at least one mass (or drop outputs.at_mass).")
+    if len(u_nodes) > MAX_U_NODES:
+        raise InputError(f"outputs.u_nodes: at most {MAX_U_NODES} nodes. Got {len(u_nodes)}.")
     return OutputSpec(scalars, curves, u_nodes, at_mass, masses)
 
 
@@ -385,7 +394,7 @@ def parse_spec(raw: dict, source: str = "") -> GridSpec:
         design=design,
         outputs=outputs,
         solver=solver,
-        chunk_size=_int(raw.get("chunk_size", 64), "chunk_size", 1),
+        chunk_size=_int(raw.get("chunk_size", 64), "chunk_size", 1, MAX_CHUNK_SIZE),
         mass_max_floor_msun=_float(raw.get("mass_max_floor_msun", 1.0), "mass_max_floor_msun", 0.0),
         description=_str(raw.get("description", ""), "description"),
         source=source,

@@ -24,26 +24,28 @@ coordinates) and the attributes ``format = "tovforge-grid-chunk"``,
 
 Every file is written under a temporary name in its destination folder,
 flushed to disk and renamed over the final name (``os.replace`` is atomic),
-so a reader never sees a half-written file.
+so a reader never sees a half-written file.  :func:`read_grid` checks the
+shapes of every dataset and recomputes the content hash: a damaged or
+altered file is refused with one line.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
+from .._files import publish, temp_path
+from ..errors import ContentMismatch, InputError
 from ..status import Status
 from ._solve import ChunkResult
 from ._spec import AT_MASS, CURVES, SCALARS
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "GridData", "read_grid", "write_grid", "write_chunk", "read_chunk",
-           "content_sha256", "atomic_path"]
+           "content_sha256", "verify_grid"]
 
 FORMAT = "tovforge-grid"
 CHUNK_FORMAT = "tovforge-grid-chunk"
@@ -56,30 +58,6 @@ def _h5py():
     import h5py
 
     return h5py
-
-
-def atomic_path(path: Path) -> Path:
-    """Temporary name for ``path`` in the same folder (same file system, so the rename is atomic)."""
-    return path.with_name(f".{path.name}.{os.getpid()}.tmp")
-
-
-def _replace_durably(tmp: Path, path: Path) -> None:
-    fd = os.open(tmp, os.O_RDONLY)
-    try:
-        os.fsync(fd)  # the data reach the disk before the name does
-    finally:
-        os.close(fd)
-    os.replace(tmp, path)
-    try:
-        dfd = os.open(path.parent, os.O_RDONLY)
-    except OSError:  # pragma: no cover - folders cannot be opened on some systems
-        return
-    try:
-        os.fsync(dfd)
-    except OSError:  # pragma: no cover
-        pass
-    finally:
-        os.close(dfd)
 
 
 def _write_rows(h5, theta: np.ndarray, result: ChunkResult) -> None:
@@ -146,17 +124,20 @@ def content_sha256(path) -> str:
 def write_chunk(path: Path, spec, k: int, theta: np.ndarray, result: ChunkResult) -> None:
     """Write chunk ``k`` to ``path`` atomically."""
     h5py = _h5py()
-    tmp = atomic_path(path)
+    tmp = temp_path(path)
     start, stop = spec.chunk_bounds(k)
-    with h5py.File(tmp, "w", track_order=True) as h5:
-        h5.attrs["format"] = CHUNK_FORMAT
-        h5.attrs["format_version"] = FORMAT_VERSION
-        h5.attrs["spec_sha256"] = spec.sha256
-        h5.attrs["chunk"] = k
-        h5.attrs["start"] = start
-        h5.attrs["stop"] = stop
-        _write_rows(h5, theta, result)
-    _replace_durably(tmp, path)
+    try:
+        with h5py.File(tmp, "w", track_order=True) as h5:
+            h5.attrs["format"] = CHUNK_FORMAT
+            h5.attrs["format_version"] = FORMAT_VERSION
+            h5.attrs["spec_sha256"] = spec.sha256
+            h5.attrs["chunk"] = k
+            h5.attrs["start"] = start
+            h5.attrs["stop"] = stop
+            _write_rows(h5, theta, result)
+        publish(tmp, path, "chunk file", overwrite=True)
+    finally:
+        tmp.unlink(missing_ok=True)
 
 
 def read_chunk(path: Path, spec, k: int) -> tuple[np.ndarray, ChunkResult]:
@@ -170,10 +151,17 @@ def read_chunk(path: Path, spec, k: int) -> tuple[np.ndarray, ChunkResult]:
         return _read_rows(h5)
 
 
-def write_grid(path: Path, spec, theta: np.ndarray, result: ChunkResult, provenance: dict) -> str:
-    """Write a complete grid file atomically; returns its content SHA-256."""
+def write_grid(path: Path, spec, theta: np.ndarray, result: ChunkResult, provenance: dict,
+               overwrite: bool = True) -> str:
+    """Write a complete grid file atomically; returns its content SHA-256.
+
+    Raises
+    ------
+    OutputExists
+        ``path`` exists and ``overwrite`` is False.
+    """
     h5py = _h5py()
-    tmp = atomic_path(path)
+    tmp = temp_path(path)
     try:
         with h5py.File(tmp, "w", track_order=True) as h5:
             a = h5.attrs
@@ -210,10 +198,9 @@ def write_grid(path: Path, spec, theta: np.ndarray, result: ChunkResult, provena
                 m.attrs["description"] = "gravitational masses (columns of every at_mass output)"
             digest = _hash_datasets(h5)
             a["content_sha256"] = digest
-        _replace_durably(tmp, path)
+        publish(tmp, path, "grid file", overwrite=overwrite)
     finally:
-        if tmp.exists():
-            tmp.unlink()
+        tmp.unlink(missing_ok=True)
     return digest
 
 
@@ -283,20 +270,101 @@ def open_grid_file(path):
     return h5
 
 
-def read_grid(path) -> GridData:
+def read_grid(path, allow_mismatch: bool = False) -> GridData:
     """Read a grid file written by ``tovforge grid run``.
+
+    Every dataset is checked for its shape, and the content hash is
+    recomputed and compared with the recorded ``content_sha256``.
+
+    Parameters
+    ----------
+    path : path-like
+    allow_mismatch : bool
+        Read a grid whose datasets no longer match its recorded hash (for
+        forensics; its numbers are not what the run wrote).
 
     Raises
     ------
     tovforge.errors.InputError
         If the file does not exist, is not a tovforge grid, or is damaged
-        (a dataset or attribute missing or unreadable).
+        (a dataset or attribute missing, unreadable or of the wrong shape).
+    tovforge.errors.ContentMismatch
+        If the datasets do not match the recorded hash (and not ``allow_mismatch``).
     """
     with open_grid_file(path) as h5:
         try:
-            return _grid_data(Path(path), h5)
+            data = _grid_data(Path(path), h5)
+            digest = _hash_datasets(h5)
+        except (OSError, KeyError, ValueError, TypeError, IndexError) as exc:
+            raise InputError(f"{path}: cannot read grid file ({exc}).") from None
+    spec = _check_shapes(data)
+    if not allow_mismatch:
+        _check_digest(path, data.attrs.get("content_sha256"), digest)
+        _check_spec_attributes(data, spec)
+    return data
+
+
+def _check_spec_attributes(g: GridData, spec: dict) -> None:
+    """The spec the grid records, and the root attributes copied from it, are those it was made from."""
+    a = g.attrs
+    if hashlib.sha256(a["spec_json"].encode()).hexdigest() != a.get("spec_sha256"):
+        raise ContentMismatch(f"{g.path}: the grid's spec_json does not match its spec_sha256: the file was altered.")
+    for key, value in (("family", g.family), ("mass_max_floor_msun", a.get("mass_max_floor_msun"))):
+        if key in spec and value is not None and value != spec[key]:
+            raise ContentMismatch(f"{g.path}: the grid's attribute {key} = {value!r} differs from its spec "
+                                  f"({spec[key]!r}): the file was altered.")
+
+
+def _check_digest(path, recorded, digest: str) -> None:
+    if digest != recorded:
+        raise ContentMismatch(f"{path}: the grid's datasets do not match its content_sha256 (recorded "
+                              f"{str(recorded)[:16]}..., recomputed {digest[:16]}...): the file was altered or "
+                              "damaged.")
+
+
+def verify_grid(path) -> str:
+    """Recompute a grid file's content hash and compare it with the recorded one; returns it.
+
+    Raises
+    ------
+    tovforge.errors.InputError
+        If the file is not a readable grid file.
+    tovforge.errors.ContentMismatch
+        If the hashes differ.
+    """
+    with open_grid_file(path) as h5:
+        try:
+            digest = _hash_datasets(h5)
         except (OSError, KeyError, ValueError, TypeError) as exc:
             raise InputError(f"{path}: cannot read grid file ({exc}).") from None
+        recorded = _attr(h5.attrs.get("content_sha256"))
+    _check_digest(path, recorded, digest)
+    return digest
+
+
+def _check_shapes(g: GridData) -> dict:
+    """Every dataset of ``g`` has the shape its role gives it (InputError naming the first that does not);
+    returns the spec recorded in the file."""
+    n, d = len(g.status), len(g.parameter_names)
+    expected = {"parameters/values": ((n, d), g.parameters.shape), "parameters/units": ((d,), (len(g.parameter_units),)),
+                "parameters/box": ((d, 2), g.box.shape), "status/reason": ((n,), (len(g.reason),)),
+                "status/code": ((n,), g.status.shape)}
+    for group, values, width in (("scalars", g.scalars, ()), ("curves", g.curves, (g.u_nodes.size,)),
+                                 ("at_mass", g.at_mass, (g.masses_msun.size,))):
+        for name, arr in values.items():
+            expected[f"{group}/{name}"] = ((n, *width), np.shape(arr))
+    for name, (want, got) in expected.items():
+        if tuple(got) != want:
+            raise InputError(f"{g.path}: damaged grid file: dataset {name} has shape {tuple(got)}, expected {want}.")
+    if not isinstance(g.attrs.get("spec_json"), str):
+        raise InputError(f"{g.path}: damaged grid file: attribute spec_json is missing.")
+    try:
+        spec = json.loads(g.attrs["spec_json"])
+    except ValueError:
+        spec = None
+    if not isinstance(spec, dict):
+        raise InputError(f"{g.path}: damaged grid file: attribute spec_json is not a JSON object.")
+    return spec
 
 
 def _grid_data(path: Path, h5) -> GridData:
@@ -305,7 +373,7 @@ def _grid_data(path: Path, h5) -> GridData:
     at_mass = h5.get("at_mass")
     return GridData(
         path=path,
-        family=_attr(h5.attrs["family"]),
+        family=str(_attr(h5.attrs["family"])),
         parameter_names=tuple(h5["parameters/names"].asstr()[...]),
         parameter_units=tuple(h5["parameters/units"].asstr()[...]),
         box=h5["parameters/box"][...],

@@ -417,23 +417,26 @@ def integrate_stars(batch, eos_index, h_c, settings: StepSettings = StepSettings
                 jump.apply(H[i + 1], Y)
             if record:
                 record_states[i + 1] = Y
-    u, v, y, eta, b = Y
-    R = np.sqrt(u)
-    M = v * u * R
-    C = v * u
-    e_s = batch.e_surface[eos_index]
-    y_R = y - _FOUR_PI * e_s / v  # density jump at the surface: y -> y - 4 pi R^3 e_s / M
-    k2 = love_k2(C, y_R)
-    return SurfaceValues(
-        radius=R,
-        mass=M,
-        baryon_mass=b * u * R,
-        compactness=C,
-        k2=k2,
-        tidal_deformability=tidal_deformability(C, k2),
-        moment_of_inertia=u * R * eta / (6.0 + 2.0 * eta),
-        y_surface=y_R,
-        nfev=nfev,
-        nodes=H if record else None,
-        states=record_states,
-    )
+    # a star whose integration failed (an EOS too soft or too stiff for its steps) has non-finite values:
+    # it gives NaN, which the sequence counts as a failure, without floating-point warnings
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        u, v, y, eta, b = Y
+        R = np.sqrt(u)
+        M = v * u * R
+        C = v * u
+        e_s = batch.e_surface[eos_index]
+        y_R = y - _FOUR_PI * e_s / v  # density jump at the surface: y -> y - 4 pi R^3 e_s / M
+        k2 = love_k2(C, y_R)
+        return SurfaceValues(
+            radius=R,
+            mass=M,
+            baryon_mass=b * u * R,
+            compactness=C,
+            k2=k2,
+            tidal_deformability=tidal_deformability(C, k2),
+            moment_of_inertia=u * R * eta / (6.0 + 2.0 * eta),
+            y_surface=y_R,
+            nfev=nfev,
+            nodes=H if record else None,
+            states=record_states,
+        )

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import shutil
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from .._extras import require
+from .._files import check_output, publish_folder, remove_litter, temp_path
 from .._provenance import provenance
 from ..errors import InputError
 from ..status import Status
@@ -204,10 +206,10 @@ def error_stats(pred, exact) -> ErrorStats:
     )
 
 
-def _read_holdout(path, model: Surrogate):
+def _read_holdout(path, model: Surrogate, allow_mismatch: bool = False):
     from ..grid import read_grid
 
-    g = read_grid(path)  # raises InputError for a missing, foreign or damaged file
+    g = read_grid(path, allow_mismatch)  # InputError for a missing, foreign, damaged or altered file
     if g.family != model.family:
         raise InputError(f"{path}: held-out grid of family {g.family!r}, but the model is of family {model.family!r}.")
     if list(g.parameter_names) != list(model.parameter_names):
@@ -224,7 +226,8 @@ def _coverage(err, sd) -> Coverage:
     return Coverage(within_1_sigma=float(np.mean(z <= 1.0)), within_2_sigma=float(np.mean(z <= 2.0)), n=int(z.size))
 
 
-def check(model: Surrogate, holdout_path, report_dir=None) -> CheckReport:
+def check(model: Surrogate, holdout_path, report_dir=None, *, overwrite: bool = False,
+          allow_mismatch: bool = False) -> CheckReport:
     """Compare a surrogate with held-out exact solves.
 
     Held-out points with status ok inside the model's box are used; points
@@ -240,15 +243,22 @@ def check(model: Surrogate, holdout_path, report_dir=None) -> CheckReport:
     holdout_path : path
         Grid file of exact solves not used in training.
     report_dir : path, optional
-        Where to write ``report.json``, ``report.md`` and the PNG figures.
+        Where to write ``report.json``, ``report.md`` and the PNG figures (a
+        new folder, written whole and then renamed: see :meth:`Surrogate.save`).
+    overwrite : bool
+        Replace an existing report folder.
+    allow_mismatch : bool
+        Check against a held-out grid whose datasets do not match its
+        content hash (forensics only).
 
     Returns
     -------
     CheckReport
     """
     if report_dir is not None:  # before the work, not after it
+        check_output(report_dir, "report folder", overwrite, folder=True)
         require("matplotlib", "plots", "the figures of a check report")
-    g = _read_holdout(holdout_path, model)
+    g = _read_holdout(holdout_path, model, allow_mismatch)
     theta = np.asarray(g.parameters, float)
     ok = (np.asarray(g.status) == Status.OK) & model.in_domain(theta)
     if ok.sum() == 0:
@@ -308,11 +318,17 @@ def check(model: Surrogate, holdout_path, report_dir=None) -> CheckReport:
         from ._report_figures import figures
 
         report_dir = Path(report_dir)
-        report_dir.mkdir(parents=True, exist_ok=True)
         report = dataclasses.replace(report, report_dir=str(report_dir))
-        (report_dir / "report.json").write_text(json.dumps(report.to_json(), indent=2))
-        files = figures(model, g, ok, th, mm, mm_exact, q, finite, order, report_dir)
-        (report_dir / "report.md").write_text(report.markdown(files))
+        remove_litter(report_dir)
+        tmp = temp_path(report_dir)
+        tmp.mkdir()
+        try:  # written whole into a new folder, which then takes the name
+            (tmp / "report.json").write_text(json.dumps(report.to_json(), indent=2), encoding="utf-8")
+            files = figures(model, g, ok, th, mm, mm_exact, q, finite, order, tmp)
+            (tmp / "report.md").write_text(report.markdown(files), encoding="utf-8")
+            publish_folder(tmp, report_dir, "report folder", overwrite)
+        finally:
+            shutil.rmtree(tmp, ignore_errors=True)
     return report
 
 

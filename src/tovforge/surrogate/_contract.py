@@ -199,19 +199,49 @@ def _first(xp, bad):
     return int(xp.argmax(xp.astype(bad, xp.int32)))
 
 
-def _require_inside(xp, m, t, inside):
+#: Rows of theta evaluated at a time.  A query's work arrays (every output, with gradients every output's
+#: derivative, spline weights in u) take up to about 8 kB per row for the demo models, so a block's stay
+#: below about 20 MB: a batch of any size costs that plus its answers, instead of growing with every row.
+BLOCK_ROWS = 2048
+
+
+def _own(a):
+    """A float array that does not keep a larger array alive (a column of the outputs is a view of them)."""
+    return None if a is None else a * 1.0
+
+
+def _join(xp, parts):
+    """Per-block results (tuples or dicts of arrays with the rows first, or None) joined along the rows."""
+    first = parts[0]
+    if first is None:
+        return None
+    if isinstance(first, tuple):
+        return tuple(_join(xp, [p[i] for p in parts]) for i in range(len(first)))
+    if isinstance(first, dict):
+        return {k: _join(xp, [p[k] for p in parts]) for k in first}
+    return xp.concat(parts, axis=0)
+
+
+def _by_blocks(xp, n, fn):
+    """``fn(start, stop)`` on blocks of at most :data:`BLOCK_ROWS` rows, its results joined (one block: as is)."""
+    if n <= BLOCK_ROWS:
+        return fn(0, n)
+    return _join(xp, [fn(a, min(a + BLOCK_ROWS, n)) for a in range(0, n, BLOCK_ROWS)])
+
+
+def _require_inside(xp, m, t, inside, offset=0):
     if bool(xp.all(inside)):
         return
     i = _first(xp, ~inside)
     for j, name in enumerate(m.parameters):
         v, (lo, hi) = float(t[i, j]), m.bounds[j]
         if not lo <= v <= hi:  # also true for NaN
-            raise QueryError(f"theta row {i}: the {name!r} parameter must be in [{lo}, {hi}] (the trained box). "
-                             f"Got {v} instead.")
-    raise QueryError(f"theta row {i} is outside the trained box.")
+            raise QueryError(f"theta row {offset + i}: the {name!r} parameter must be in [{lo}, {hi}] (the trained "
+                             f"box). Got {v} instead.")
+    raise QueryError(f"theta row {offset + i} is outside the trained box.")
 
 
-def _require_on_branch(xp, m, value, mass, mmax):
+def _require_on_branch(xp, m, value, mass, mmax, offset=0):
     ok = ~xp.isnan(value)
     if bool(xp.all(ok)):
         return
@@ -220,28 +250,36 @@ def _require_on_branch(xp, m, value, mass, mmax):
     j = _first(xp, ~flat[i])
     mm = float(mmax[i])
     lowest = mm * (1.0 - float(m["u_nodes"][-1]) ** 2)
-    raise QueryError(f"theta row {i}: mass {float(mass[i, j])} Msun is outside the emulated stable branch "
+    raise QueryError(f"theta row {offset + i}: mass {float(mass[i, j])} Msun is outside the emulated stable branch "
                      f"[{lowest}, {mm}] Msun (above M_max, or below the lowest emulated mass).")
 
 
 def query_in_domain(xp, m, theta):
     """True where ``theta`` lies inside the trained box, shape ``theta.shape[:-1]``."""
     t, batch = _rows(xp, m, theta)
-    return _shape(xp, unit_inputs(xp, m, t)[1], batch, ())
+    inside = _by_blocks(xp, t.shape[0], lambda a, b: unit_inputs(xp, m, t[a:b])[1])
+    return _shape(xp, inside, batch, ())
 
 
 def query_mass_max(xp, m, theta, return_grad=False, return_std=False, strict=False):
     """Maximum mass of the stable branch as an :class:`Estimate` (see :data:`QUERY_DOCS`)."""
     t, batch = _rows(xp, m, theta)
     columns = needed_columns(m, ())
-    y, inside, dy = outputs(xp, m, t, return_grad, columns)
-    if strict:
-        _require_inside(xp, m, t, inside)
     i = m.i_mass_max
+
+    def block(a, b):
+        tb = t[a:b]
+        y, inside, dy = outputs(xp, m, tb, return_grad, columns)
+        if strict:
+            _require_inside(xp, m, tb, inside, a)
+        sd = output_std(xp, m, tb, columns)[:, i] if return_std else None
+        return _own(y[:, i]), _own(dy[:, i, :]) if return_grad else None, _own(sd)
+
+    val, g, s = _by_blocks(xp, t.shape[0], block)
     return Estimate(
-        value=_shape(xp, y[:, i], batch, ()),
-        grad=_shape(xp, dy[:, i, :], batch, (t.shape[1],)) if return_grad else None,
-        std=_shape(xp, output_std(xp, m, t, columns)[:, i], batch, ()) if return_std else None,
+        value=_shape(xp, val, batch, ()),
+        grad=_shape(xp, g, batch, (t.shape[1],)) if return_grad else None,
+        std=_shape(xp, s, batch, ()) if return_std else None,
     )
 
 
@@ -252,13 +290,19 @@ def query_at_mass(xp, m, query, theta, mass, return_grad=False, return_std=False
     t, batch = _rows(xp, m, theta)
     rows, tail = _masses(xp, mass, batch, t.shape[0], t)
     columns = needed_columns(m, (query,))
-    y, inside, dy = outputs(xp, m, t, return_grad, columns)
-    if strict:
-        _require_inside(xp, m, t, inside)
-    sd = output_std(xp, m, t, columns) if return_std else None
-    val, g, s = curve_at_mass(xp, m, y, dy, sd, rows, query)
-    if strict:
-        _require_on_branch(xp, m, val, rows, y[:, m.i_mass_max])
+
+    def block(a, b):
+        tb, rb = t[a:b], rows[a:b]
+        y, inside, dy = outputs(xp, m, tb, return_grad, columns)
+        if strict:
+            _require_inside(xp, m, tb, inside, a)
+        sd = output_std(xp, m, tb, columns) if return_std else None
+        val, g, s = curve_at_mass(xp, m, y, dy, sd, rb, query)
+        if strict:
+            _require_on_branch(xp, m, val, rb, y[:, m.i_mass_max], a)
+        return _own(val), _own(g), _own(s)
+
+    val, g, s = _by_blocks(xp, t.shape[0], block)
     return Estimate(
         value=_shape(xp, val, batch, tail),
         grad=_shape(xp, g, batch, tail + (t.shape[1],)) if return_grad else None,
@@ -272,12 +316,17 @@ def query_curve(xp, m, theta, n=100, strict=False):
         raise QueryError(f"n (points along the branch) must be a positive integer; got {n!r}.")
     n = int(n)
     t, batch = _rows(xp, m, theta)
-    # one evaluation serves M_max and both curves (the masses then sit exactly on the branch)
-    y, inside, _ = outputs(xp, m, t, False, needed_columns(m, ("radius", "tidal_deformability")))
-    if strict:
-        _require_inside(xp, m, t, inside)
-    masses, R, L = branch_curve(xp, m, y, xp.linspace(1.0, 0.0, n, dtype=xp.float64, **device_of(t)))
-    return Curve(*(_shape(xp, a, batch, (n,)) for a in (masses, R, L)))
+    u = xp.linspace(1.0, 0.0, n, dtype=xp.float64, **device_of(t))
+
+    def block(a, b):
+        tb = t[a:b]
+        # one evaluation serves M_max and both curves (the masses then sit exactly on the branch)
+        y, inside, _ = outputs(xp, m, tb, False, needed_columns(m, ("radius", "tidal_deformability")))
+        if strict:
+            _require_inside(xp, m, tb, inside, a)
+        return tuple(_own(c) for c in branch_curve(xp, m, y, u))
+
+    return Curve(*(_shape(xp, c, batch, (n,)) for c in _by_blocks(xp, t.shape[0], block)))
 
 
 def _prediction(xp, m, y, inside, sd, batch):
@@ -292,13 +341,22 @@ def _prediction(xp, m, y, inside, sd, batch):
     return Prediction(std=std, **fields)
 
 
+def _evaluated(xp, m, t, return_std, strict):
+    """Every output ``(y, inside, sd)`` at the rows ``t``, by blocks (the outputs are the answer here)."""
+    def block(a, b):
+        tb = t[a:b]
+        y, inside, _ = outputs(xp, m, tb)
+        if strict:
+            _require_inside(xp, m, tb, inside, a)
+        return y, inside, output_std(xp, m, tb) if return_std else None
+
+    return _by_blocks(xp, t.shape[0], block)
+
+
 def query_predict(xp, m, theta, return_std=False, strict=False):
     """Everything the model predicts at ``theta``, as a :class:`Prediction`."""
     t, batch = _rows(xp, m, theta)
-    y, inside, _ = outputs(xp, m, t)
-    if strict:
-        _require_inside(xp, m, t, inside)
-    sd = output_std(xp, m, t) if return_std else None
+    y, inside, sd = _evaluated(xp, m, t, return_std, strict)
     return _prediction(xp, m, y, inside, sd, batch)
 
 
@@ -306,18 +364,22 @@ def query_predict_at_masses(xp, m, theta, masses, return_std=False, strict=False
     """:func:`query_predict` and every query at ``masses``, from one evaluation, as a :class:`MassPrediction`."""
     t, batch = _rows(xp, m, theta)
     rows, tail = _masses(xp, masses, batch, t.shape[0], t)
-    y, inside, _ = outputs(xp, m, t)
-    if strict:
-        _require_inside(xp, m, t, inside)
-    sd = output_std(xp, m, t) if return_std else None
-    values, std = {}, ({} if return_std else None)
-    for field, query in AT_MASS_FIELDS:
-        v, _, s = curve_at_mass(xp, m, y, None, sd, rows, query)
-        if strict and field == "radius_km":
-            _require_on_branch(xp, m, v, rows, y[:, m.i_mass_max])
-        values[field] = _shape(xp, v, batch, tail)
-        if return_std:
-            std[field] = _shape(xp, s, batch, tail)
+    y, inside, sd = _evaluated(xp, m, t, return_std, strict)
+
+    def block(a, b):
+        values, std = {}, ({} if return_std else None)
+        for field, query in AT_MASS_FIELDS:
+            v, _, s = curve_at_mass(xp, m, y[a:b], None, None if sd is None else sd[a:b], rows[a:b], query)
+            if strict and field == "radius_km":
+                _require_on_branch(xp, m, v, rows[a:b], y[a:b, m.i_mass_max], a)
+            values[field] = _own(v)
+            if return_std:
+                std[field] = _own(s)
+        return values, std
+
+    values, std = _by_blocks(xp, t.shape[0], block)
+    values = {k: _shape(xp, v, batch, tail) for k, v in values.items()}
+    std = None if std is None else {k: _shape(xp, v, batch, tail) for k, v in std.items()}
     return MassPrediction(prediction=_prediction(xp, m, y, inside, sd, batch),
                           masses_msun=xp.asarray(masses, dtype=xp.float64, **device_of(t)), std=std, **values)
 

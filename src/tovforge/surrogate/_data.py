@@ -89,20 +89,29 @@ class TrainingData:
             start += c.shape[1]
         return np.hstack(cols), np.array(slices, dtype=np.int64)
 
-def _read(path):
+def _read(path, allow_mismatch: bool = False):
     from ..grid import read_grid
 
-    return read_grid(path)  # raises InputError for a missing, foreign or damaged file
+    return read_grid(path, allow_mismatch)  # InputError for a missing, foreign, damaged or altered file
 
 
-def read_training_data(path, family: str | None = None, min_points: int = 8) -> TrainingData:
+def _known_family(path, name: str) -> None:
+    from .. import eos
+
+    if name not in eos.families():
+        raise InputError(f"{path}: grid of an unknown EOS family {name!r}; known: {', '.join(eos.families())}.")
+
+
+def read_training_data(path, family: str | None = None, min_points: int = 8,
+                       allow_mismatch: bool = False) -> TrainingData:
     """Read a grid file and keep the rows a surrogate can learn from.
 
     Rows with status 0 or 2 whose curves are complete are kept.  Scalars and
     curves are transformed to the modelled quantities: ``log10`` of the central
     pressure at M_max, and the natural logs of Lambda and of I.  Fewer than
     ``min_points`` usable rows is an error (0 for grids that only add to
-    others, such as the points of ``grid refine``).
+    others, such as the points of ``grid refine``).  A grid whose datasets
+    do not match its content hash is refused unless ``allow_mismatch``.
 
     Raises
     ------
@@ -110,7 +119,8 @@ def read_training_data(path, family: str | None = None, min_points: int = 8) -> 
         If the file is not a readable grid, lacks an output the surrogates
         need, or (with ``family``) belongs to another family.
     """
-    g = _read(path)
+    g = _read(path, allow_mismatch)
+    _known_family(path, g.family)
     if family is not None and g.family != family:
         raise InputError(f"{path}: grid of family {g.family!r}, but the model is of family {family!r}.")
     if getattr(g, "curves", None) is None or "radius_km" not in (g.curves or {}):

@@ -4,13 +4,16 @@ from __future__ import annotations
 
 import hashlib
 import json
+import shutil
+import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from .._files import check_output, publish_folder, remove_litter, temp_path
 from .._jsonfile import read_json
-from ..errors import InputError
+from ..errors import ContentMismatch, InputError
 from . import _contract as qc
 from . import _runtime as rt
 from ._contract import Curve, Estimate, MassPrediction, Prediction
@@ -220,13 +223,44 @@ class Surrogate:
         return self._ask(qc.query_predict_at_masses, theta, masses, return_std, strict)
 
     # -- storage --------------------------------------------------------------------
-    def save(self, folder) -> Path:
-        """Write ``model.json`` and ``arrays.npz`` into ``folder`` (created if needed)."""
-        folder = Path(folder)
-        folder.mkdir(parents=True, exist_ok=True)
-        np.savez(folder / "arrays.npz", **{k: np.asarray(v) for k, v in self.arrays.items()})
-        self.meta = self.meta.replace(arrays_sha256=_sha256(folder / "arrays.npz"))
-        (folder / "model.json").write_text(json.dumps(self.meta.to_json(), indent=2, sort_keys=True))
+    def save(self, folder, overwrite: bool = False, extra=None) -> Path:
+        """Write ``model.json`` and ``arrays.npz`` as the folder ``folder``, atomically.
+
+        Both files are written into a new temporary folder next to
+        ``folder``, flushed to disk, and the folder is then renamed to its
+        name: a failed or killed save leaves the old model (or nothing), never
+        half a model.
+
+        Parameters
+        ----------
+        folder : path-like
+            The model folder; its parent must exist.
+        overwrite : bool
+            Replace an existing model folder (refused otherwise; an empty
+            folder is not an existing model).
+        extra : callable, optional
+            ``extra(tmp_folder)`` writes further files into the new folder
+            before it takes its name (``grid refine``: the added exact solves).
+
+        Raises
+        ------
+        OutputExists
+            ``folder`` holds files and ``overwrite`` is False.
+        """
+        folder = check_output(folder, "model folder", overwrite, folder=True)
+        remove_litter(folder)  # the temporary folders of saves that were killed
+        tmp = temp_path(folder)
+        tmp.mkdir()
+        try:
+            np.savez(tmp / "arrays.npz", **{k: np.asarray(v) for k, v in self.arrays.items()})
+            meta = self.meta.replace(arrays_sha256=_sha256(tmp / "arrays.npz"))
+            (tmp / "model.json").write_text(json.dumps(meta.to_json(), indent=2, sort_keys=True), encoding="utf-8")
+            if extra is not None:
+                extra(tmp)
+            publish_folder(tmp, folder, "model folder", overwrite)
+        finally:
+            shutil.rmtree(tmp, ignore_errors=True)
+        self.meta = meta
         return folder
 
 
@@ -252,18 +286,31 @@ def _sha256(path: Path) -> str:
     return h.hexdigest()
 
 
-def load(folder) -> Surrogate:
+def load(folder, allow_mismatch: bool = False) -> Surrogate:
     """Load a model folder written by :meth:`Surrogate.save` (never unpickles).
 
-    Reads format versions 1 and 2 of ``model.json``.
+    Reads format versions 1 and 2 of ``model.json``.  The arrays are checked
+    against the checksum recorded in ``model.json``, for their shapes, and by
+    one evaluation at the centre of the box.
+
+    Parameters
+    ----------
+    folder : path-like
+    allow_mismatch : bool
+        Load arrays that do not match the recorded checksum (for forensics).
 
     Raises
     ------
     ModelFormatError
-        If a file or array is missing, the format is unknown, or the arrays do
-        not match the checksum recorded in ``model.json``.
+        If the folder, a file or an array is missing or damaged, or the format
+        is unknown.
+    tovforge.errors.ContentMismatch
+        If the arrays do not match the checksum (and not ``allow_mismatch``).
     """
     folder = Path(folder)
+    if not folder.is_dir():
+        what = "a file, not a model folder" if folder.exists() else "no such model folder"
+        raise ModelFormatError(f"{folder}: {what} (`tovforge train --out` writes one).")
     meta_path, arr_path = folder / "model.json", folder / "arrays.npz"
     for p in (meta_path, arr_path):
         if not p.is_file():
@@ -282,13 +329,16 @@ def load(folder) -> Surrogate:
     except (TypeError, KeyError, ValueError) as exc:
         raise ModelFormatError(f"{meta_path}: incomplete or damaged model metadata ({exc}).") from None
     want = meta.arrays_sha256
-    if want and _sha256(arr_path) != want:
-        raise ModelFormatError(f"{arr_path}: contents do not match the checksum in model.json (file altered?).")
+    if want and not allow_mismatch and _sha256(arr_path) != want:
+        raise ContentMismatch(f"{arr_path}: the arrays do not match the checksum in model.json (arrays_sha256): "
+                              "the file was altered or damaged.")
     try:
         with np.load(arr_path, allow_pickle=False) as npz:
             arrays = {k: npz[k] for k in npz.files}
-    except (ValueError, OSError) as exc:
-        raise ModelFormatError(f"{arr_path}: cannot read arrays ({exc}).") from None
+    except (ValueError, OSError, EOFError, KeyError, zipfile.BadZipFile) as exc:
+        raise ModelFormatError(f"{arr_path}: cannot read arrays ({type(exc).__name__}: {exc}).") from None
+    if not isinstance(arrays, dict) or any(a.dtype.kind not in "biuf" for a in arrays.values()):
+        raise ModelFormatError(f"{arr_path}: model arrays must be numbers.")
     needed = COMMON_ARRAYS + method(meta.method).arrays
     missing = [k for k in needed if k not in arrays]
     if missing:
@@ -297,5 +347,17 @@ def load(folder) -> Surrogate:
     if np.asarray(arrays["curve_slices"]).tolist() != want_slices:
         raise ModelFormatError(f"{arr_path}: curve_slices {np.asarray(arrays['curve_slices']).tolist()} do not match "
                                f"the outputs of model.json ({want_slices}).")
-    return Surrogate(meta, arrays)
+    d = len(meta.parameters)
+    for name in ("lo", "hi"):
+        if arrays[name].shape != (d,):
+            raise ModelFormatError(f"{arr_path}: array {name!r} has shape {arrays[name].shape}, expected ({d},) for "
+                                   f"the {d} parameters of model.json.")
+    try:  # the arrays must fit together: one evaluation at the centre of the box
+        model = Surrogate(meta, arrays)
+        with np.errstate(all="ignore"):
+            model.evaluate(0.5 * (arrays["lo"] + arrays["hi"]), grad=True, std=model.has_std)
+    except Exception as exc:
+        raise ModelFormatError(f"{arr_path}: the arrays do not fit together ({type(exc).__name__}: {exc}); the "
+                               "model folder is damaged: train the model again.") from None
+    return model
 

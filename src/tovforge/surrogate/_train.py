@@ -16,7 +16,7 @@ from ._model import Surrogate
 __all__ = ["train", "train_on"]
 
 
-def train(grid_path, kind: str = "gp", settings=None) -> Surrogate:
+def train(grid_path, kind: str = "gp", settings=None, allow_mismatch: bool = False) -> Surrogate:
     """Train a surrogate on a grid file.
 
     Parameters
@@ -29,9 +29,12 @@ def train(grid_path, kind: str = "gp", settings=None) -> Surrogate:
         polyharmonic radial basis functions otherwise).
     settings : GPSettings or SplineSettings, optional
         Options of the kind (default: its defaults).
+    allow_mismatch : bool
+        Train on a grid whose datasets do not match its content hash (for
+        forensics only; the model then records the hash the grid claims).
     """
     check_kind(kind)  # before the grid is read
-    return train_on(read_training_data(grid_path), kind, settings)
+    return train_on(read_training_data(grid_path, allow_mismatch=allow_mismatch), kind, settings)
 
 
 def train_on(data: TrainingData, kind: str = "gp", settings=None) -> Surrogate:

@@ -31,6 +31,7 @@ from ._binary import (
     BinaryDeformability,
     binary_deformability,
     binary_table,
+    chirp_grid,
     chirp_mass,
     component_masses,
     lambda_from_eos,
@@ -62,7 +63,8 @@ from ._stars import (
     star_table,
     stars_text,
 )
-from ._write import FORMAT, FORMAT_VERSION, Column, Table, TableSummary, TableWriter, read_table, table_format
+from ._write import (FORMAT, FORMAT_VERSION, Column, Table, TableSummary, TableWriter, check_table_output, read_table,
+                     table_format)
 
 __all__ = [
     "BINARY_COLUMNS",
@@ -88,7 +90,9 @@ __all__ = [
     "TableWriter",
     "binary_deformability",
     "binary_table",
+    "check_table_output",
     "box_table",
+    "chirp_grid",
     "chirp_mass",
     "component_masses",
     "exact_box_table",

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._limits import check_memory
 from ..errors import InputError
 from ._quantities import provenance
 from ._write import Column, TableSummary, TableWriter
@@ -30,6 +31,7 @@ __all__ = [
     "binary_table",
     "chirp_mass",
     "component_masses",
+    "chirp_grid",
     "lambda_from_eos",
     "lambda_from_model",
     "lambda_from_table",
@@ -85,6 +87,30 @@ def component_masses(chirp, mass_ratio) -> tuple[np.ndarray, np.ndarray]:
     return m1, q * m1
 
 
+#: Arrays of one value per pair a binary table holds at once (masses, Lambdas, Lambda-tilde, work arrays).
+_ARRAYS_PER_PAIR = 16
+
+
+def chirp_grid(chirp, mass_ratio) -> tuple[np.ndarray, np.ndarray]:
+    """Component masses of every pair (chirp mass, mass ratio) of two axes: ``m1, m2`` of shape (n_c * n_q,).
+
+    The chirp mass varies slowest.  The number of pairs is checked against
+    the memory budget before any array is made.
+
+    Raises
+    ------
+    tovforge.errors.ResourceLimit
+        The table would not fit in memory.
+    """
+    mc, q = np.asarray(chirp, float).ravel(), np.asarray(mass_ratio, float).ravel()
+    _check_pairs(mc.size * q.size, f"{mc.size} chirp masses x {q.size} mass ratios")
+    return component_masses(*(g.ravel() for g in np.meshgrid(mc, q, indexing="ij")))
+
+
+def _check_pairs(n: int, what: str) -> None:
+    check_memory(8.0 * _ARRAYS_PER_PAIR * n, f"{what} = {n} pairs", "use fewer pairs")
+
+
 @dataclass(frozen=True)
 class BinaryDeformability:
     """Lambda-tilde of pairs of stars (one entry per pair).
@@ -130,6 +156,7 @@ def binary_deformability(lambda_of_mass, m1, m2) -> BinaryDeformability:
     BinaryDeformability
     """
     m1, m2 = np.broadcast_arrays(np.atleast_1d(np.asarray(m1, float)), np.atleast_1d(np.asarray(m2, float)))
+    _check_pairs(m1.size, "the masses")
     m1, m2 = m1.ravel(), m2.ravel()
     if not (np.all(np.isfinite(m1)) and np.all(np.isfinite(m2)) and np.all(m1 > 0) and np.all(m2 > 0)):
         raise InputError("component masses must be positive finite numbers (Msun).")
@@ -158,14 +185,23 @@ def lambda_from_model(model, theta):
 
 
 def lambda_from_eos(eos, settings=None):
-    """``Lambda(M)`` by exact solves of one EOS at the requested masses."""
+    """``Lambda(M)`` by exact solves of one EOS at the requested masses.
+
+    The returned function raises InputError when the EOS has no stable
+    branch (every Lambda would be NaN).
+    """
     from ..solve import SequenceSettings, solve_sequences
+    from ..status import Status
 
     def lam(masses):
         masses = np.asarray(masses, float).ravel()
         uniq, inv = np.unique(masses, return_inverse=True)
         s = settings or SequenceSettings(low_mass_msun=min(0.3, 0.9 * float(uniq.min())))
         res = solve_sequences(eos.batch, n_stars=24, masses=uniq, settings=s)
+        if int(res.status[0]) != Status.OK:
+            why = Status(int(res.status[0])).message.rstrip(".")
+            raise InputError(f"{eos.family.name}: no stable branch found ({why}); there is no Lambda(M) for "
+                             "these parameters.")
         return np.asarray(res.at_mass.tidal_deformability, float)[0][inv]
 
     return lam
@@ -216,7 +252,8 @@ BINARY_COLUMNS = (
 )
 
 
-def binary_table(out, result: BinaryDeformability, command: str | None = None, **source) -> TableSummary:
+def binary_table(out, result: BinaryDeformability, command: str | None = None, overwrite: bool = False,
+                 **source) -> TableSummary:
     """Write a :class:`BinaryDeformability` as a table.
 
     Parameters
@@ -226,6 +263,8 @@ def binary_table(out, result: BinaryDeformability, command: str | None = None, *
     result : BinaryDeformability
     command : str, optional
         Command line for the provenance (default ``sys.argv``).
+    overwrite : bool
+        Replace an existing file.
     **source
         What Lambda(M) came from (str, int, float or bool values), for the metadata.
     """
@@ -234,6 +273,6 @@ def binary_table(out, result: BinaryDeformability, command: str | None = None, *
 
     t0 = time.monotonic()
     columns = [c for c, _ in BINARY_COLUMNS]
-    with TableWriter(out, columns, provenance(command, kind="binary", **source)) as w:
+    with TableWriter(out, columns, provenance(command, kind="binary", **source), overwrite=overwrite) as w:
         w.append({c.name: getattr(result, f) for c, f in BINARY_COLUMNS})
     return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0)

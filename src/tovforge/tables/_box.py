@@ -26,7 +26,7 @@ import numpy as np
 from .._progress import progress_bar
 from ..errors import InputError
 from ._quantities import QUANTITIES, mass_label, model_values, parameter_columns, provenance, quantity_columns
-from ._write import Column, TableSummary, TableWriter, table_format
+from ._write import Column, TableSummary, TableWriter, check_table_output
 
 __all__ = ["Axis", "BoxPlan", "box_table", "exact_box_table", "plan_box", "DEFAULT_QUANTITIES"]
 
@@ -85,7 +85,7 @@ class BoxPlan:
 
     @property
     def n_rows(self) -> int:
-        return int(np.prod(self.shape, dtype=np.int64))
+        return math.prod(self.shape)  # exact: NumPy's int64 product would wrap for huge axes
 
     def rows(self, start: int, stop: int) -> np.ndarray:
         """Parameter rows ``start:stop``, shape (stop - start, n_parameters)."""
@@ -182,7 +182,7 @@ def _check_masses(quantities, masses) -> tuple:
 
 def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masses=(1.4,), *, sigma: bool = True,
               progress: bool = True, stream=None, command: str | None = None,
-              chunk_rows: int = CHUNK_ROWS) -> TableSummary:
+              chunk_rows: int = CHUNK_ROWS, overwrite: bool = False, allow_mismatch: bool = False) -> TableSummary:
     """Write observables predicted by a surrogate over a parameter box.
 
     Parameters
@@ -206,7 +206,12 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
     command : str, optional
         Command line for the provenance (default ``sys.argv``).
     chunk_rows : int
-        Rows predicted and written at a time.
+        Rows predicted and written at a time (the memory of the run does not
+        grow with the table: rows are streamed to the file).
+    overwrite : bool
+        Replace an existing file.
+    allow_mismatch : bool
+        Load a model folder whose arrays do not match their checksum (forensics).
 
     Returns
     -------
@@ -215,15 +220,16 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
     Raises
     ------
     InputError
-        For unknown quantities or parameters, or values outside the model's box.
+        For unknown quantities or parameters, values outside the model's box,
+        or a table larger than the free disk space.
     """
     from ..surrogate import Surrogate, load
 
     t0 = time.monotonic()
-    table_format(out)
+    check_table_output(out, overwrite)
     label = str(model)
     if not isinstance(model, Surrogate):
-        model = load(model)
+        model = load(model, allow_mismatch)
     quantities = tuple(quantities)
     masses = _check_masses(quantities, masses)
     bounds = model.bounds
@@ -239,6 +245,7 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
     sigma = bool(sigma and model.has_std)
     qcols = quantity_columns(quantities, masses, sigma)
     columns = parameter_columns(plan.names, plan.units) + qcols
+    check_table_output(out, overwrite, plan.n_rows, len(columns))
     meta = provenance(command, kind="box", source="model", model=label, model_kind=model.kind,
                       model_arrays_sha256=model.meta.arrays_sha256, family=model.family,
                       quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)),
@@ -246,7 +253,7 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
     n = plan.n_rows
     bar = progress_bar(n, Path(out).name, unit="rows", enabled=progress, stream=stream)
     try:
-        with TableWriter(out, columns, meta) as w:
+        with TableWriter(out, columns, meta, overwrite=overwrite) as w:
             for start in range(0, n, chunk_rows):
                 stop = min(start + chunk_rows, n)
                 theta = plan.rows(start, stop)
@@ -303,7 +310,7 @@ def grid_spec_for(plan: BoxPlan, family: str, quantities, masses, mass_floor_msu
 def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masses=(1.4,), *,
                     mass_floor_msun: float = 1.0, workers: int | None = None, scheduler: str | None = None,
                     progress: bool = True, stream=None, command: str | None = None,
-                    keep_grid: bool = False) -> TableSummary:
+                    keep_grid: bool = False, overwrite: bool = False, oversubscribe: bool = False) -> TableSummary:
     """Write observables from exact solves over a parameter box.
 
     The points are solved by :func:`tovforge.grid.run_grid` into the work
@@ -329,6 +336,10 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
         As in :func:`box_table`.
     keep_grid : bool
         Keep the work grid file.
+    overwrite : bool
+        Replace an existing table file.
+    oversubscribe : bool
+        Allow more local workers than cores.
 
     Returns
     -------
@@ -343,7 +354,7 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
     from ..status import Status
 
     t0 = time.monotonic()
-    table_format(out)
+    check_table_output(out, overwrite)
     fam = eos.get_family(family)
     if not fam.numeric:
         raise InputError(f"family {family}: the family has no numeric parameters to span a box.")
@@ -360,17 +371,16 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
 
     plan = plan_box(fam.parameter_names, [p.unit for p in fam.parameters], axes, fixed or {}, allowed,
                     where=f"family {fam.name}")
-    spec = grid_spec_for(plan, fam.name, quantities, masses, mass_floor_msun)
-    out = Path(out)
-    if not out.parent.is_dir():
-        raise InputError(f"{out.parent}: no such folder for the output.")
-    work = out.with_name(out.name + ".grid.h5")
-    summary = run_grid(spec, work, workers=workers, scheduler=scheduler, overwrite=True, progress=progress,
-                       stream=stream)
     qcols = quantity_columns(quantities, masses, sigma=False)
     status_col = Column("status", "1", "grid status code (see status_names_json); values are NaN unless 0 or 2",
                         dtype="int64")
     columns = parameter_columns(plan.names, plan.units) + [status_col] + qcols
+    check_table_output(out, overwrite, plan.n_rows, len(columns))
+    spec = grid_spec_for(plan, fam.name, quantities, masses, mass_floor_msun)
+    out = Path(out)
+    work = out.with_name(out.name + ".grid.h5")
+    summary = run_grid(spec, work, workers=workers, scheduler=scheduler, overwrite=True, progress=progress,
+                       stream=stream, oversubscribe=oversubscribe)
     meta = provenance(command, kind="box", source="exact", family=fam.name,
                       quantities_json=json.dumps(list(quantities)), masses_msun_json=json.dumps(list(masses)),
                       mass_floor_msun=float(mass_floor_msun), sigma=False,
@@ -396,7 +406,7 @@ def exact_box_table(out, family, axes, fixed=None, quantities=DEFAULT_QUANTITIES
                 values[q] = h5["scalars"][QUANTITIES[q].field][...][perm]
     block = dict(zip(plan.names, expected.T))
     block.update(values)
-    with TableWriter(out, columns, meta) as w:
+    with TableWriter(out, columns, meta, overwrite=overwrite) as w:
         w.append(block)
     if not keep_grid:
         work.unlink()

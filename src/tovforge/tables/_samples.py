@@ -27,11 +27,13 @@ from pathlib import Path
 import numpy as np
 
 from .._extras import pyplot, require
+from .._files import check_output, publish, read_text, temp_path
+from .._limits import check_memory
 from .._progress import progress_bar
 from ..errors import InputError
 from ._box import CHUNK_ROWS, _check_masses
 from ._quantities import QUANTITIES, mass_label, model_values, parameter_columns, provenance, quantity_columns
-from ._write import Column, TableSummary, TableWriter, table_format
+from ._write import Column, TableSummary, TableWriter, check_table_output
 
 __all__ = ["Samples", "read_samples", "samples_table", "band_path", "skipped_text", "DEFAULT_SAMPLE_QUANTITIES",
            "DEFAULT_SAMPLE_MASSES", "QUANTILES", "PLOT_MAX_SAMPLES"]
@@ -90,10 +92,12 @@ def _check_names(path, names, parameter_names, ignore):
 
 
 def _read_csv(path: Path, parameter_names, ignore):
-    text = path.read_text(encoding="utf-8")
+    text = read_text(path, "samples file")
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
         raise InputError(f"{path}: no header line with the parameter names.")
+    if len(lines) == 1:
+        raise InputError(f"{path}: a header but no data rows; nothing to tabulate.")
     # "name [unit]" headers, as tovforge tables write them, are accepted
     names = [re.sub(r"\s*\[[^\]]*\]\s*$", "", h).strip() for h in lines[0].split(",")]
     _check_names(path, names, parameter_names, ignore)
@@ -135,8 +139,12 @@ def _is_number(s: str) -> bool:
 def _read_npy(path: Path, parameter_names, ignore):
     try:
         arr = np.load(path, allow_pickle=False)
-    except ValueError as exc:
+    except EOFError:
+        raise InputError(f"{path}: empty or truncated .npy file.") from None
+    except (ValueError, OSError) as exc:
         raise InputError(f"{path}: cannot read ({exc}); save a structured array (no objects).") from None
+    if not isinstance(arr, np.ndarray):
+        raise InputError(f"{path}: not a .npy file (an .npz archive?); save one structured array with np.save.")
     if arr.dtype.names is None:
         raise InputError(f"{path}: a plain array has no column names; save a structured array whose fields are "
                          f"the parameters ({', '.join(parameter_names)}), e.g. with "
@@ -144,6 +152,8 @@ def _read_npy(path: Path, parameter_names, ignore):
     if arr.ndim != 1:
         raise InputError(f"{path}: expected a 1-D structured array (one record per sample); got shape {arr.shape}.")
     _check_names(path, list(arr.dtype.names), parameter_names, ignore)
+    if arr.size == 0:
+        raise InputError(f"{path}: no samples (an empty array); nothing to tabulate.")
     try:
         table = np.stack([arr[p].astype(float) for p in parameter_names], axis=1) if arr.size else \
             np.empty((0, len(parameter_names)))
@@ -181,6 +191,9 @@ def read_samples(path, parameter_names, ignore=(), bounds=None) -> Samples:
     ignore = list(ignore)
     if not path.is_file():
         raise InputError(f"{path}: no such samples file.")
+    # the rows are held in memory (text, parsed values and the outputs): about 30 times the file
+    check_memory(30.0 * path.stat().st_size, f"{path} ({path.stat().st_size} bytes)",
+                 "split the samples into several files")
     suffix = path.suffix.lower()
     if suffix == ".csv":
         table, bad = _read_csv(path, parameter_names, ignore)
@@ -239,7 +252,8 @@ def _quantiles(values: np.ndarray) -> dict:
 
 def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, masses=DEFAULT_SAMPLE_MASSES, *,
                   band=None, plot=None, ignore=(), sigma: bool = True, progress: bool = True, stream=None,
-                  command: str | None = None, chunk_rows: int = CHUNK_ROWS) -> TableSummary:
+                  command: str | None = None, chunk_rows: int = CHUNK_ROWS, overwrite: bool = False,
+                  allow_mismatch: bool = False) -> TableSummary:
     """Write a table of observables for every row of a samples file, and its band.
 
     Parameters
@@ -263,6 +277,10 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
         Add ``sigma_`` columns (GP models).
     progress, stream, command, chunk_rows
         As in :func:`tovforge.tables.box_table`.
+    overwrite : bool
+        Replace existing files (table, band and plot).
+    allow_mismatch : bool
+        Load a model folder whose arrays do not match their checksum (forensics).
 
     Returns
     -------
@@ -274,21 +292,22 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
 
     t0 = time.monotonic()
     label = str(model)
-    if not isinstance(model, Surrogate):
-        model = load(model)
     quantities = tuple(quantities)
     masses = _check_masses(quantities, masses)
     band = band_path(out) if band is None else Path(band)
-    for p in (out, band):
-        table_format(p)
-    if plot is not None and Path(plot).suffix.lower() != ".png":
-        raise InputError(f"plot {plot}: the plot is written as PNG; give a file name ending in .png.")
-    if plot is not None:  # before the work, not after it
-        require("matplotlib", "plots", "the samples plot")
     if Path(band).resolve() == Path(out).resolve():
         raise InputError(f"band {band}: the band table needs a file of its own, not that of the table.")
     if Path(samples).resolve() in (Path(out).resolve(), Path(band).resolve()):
         raise InputError(f"{samples}: the samples file would be overwritten; choose other output files.")
+    check_table_output(out, overwrite)
+    check_table_output(band, overwrite, what="band table")
+    if plot is not None and Path(plot).suffix.lower() != ".png":
+        raise InputError(f"plot {plot}: the plot is written as PNG; give a file name ending in .png.")
+    if plot is not None:  # before the work, not after it
+        check_output(plot, "plot", overwrite)
+        require("matplotlib", "plots", "the samples plot")
+    if not isinstance(model, Surrogate):
+        model = load(model, allow_mismatch)
     names = model.parameter_names
     data = read_samples(samples, names, ignore, bounds=model.bounds)
     sigma = bool(sigma and model.has_std)
@@ -307,7 +326,7 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     store = {k: np.empty(n) for k in kept}
     bar = progress_bar(n, Path(out).name, unit="rows", enabled=progress, stream=stream)
     try:
-        with TableWriter(out, columns, meta) as w:
+        with TableWriter(out, columns, meta, overwrite=overwrite) as w:
             for start in range(0, n, chunk_rows):
                 stop = min(start + chunk_rows, n)
                 theta = data.theta[start:stop]
@@ -318,17 +337,17 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
                 bar.update(stop - start)
     finally:
         bar.close()
-    _write_band(band, store, quantities, masses, n, provenance(command, kind="band", **source))
+    _write_band(band, store, quantities, masses, n, provenance(command, kind="band", **source), overwrite)
     notes = [f"band table: {band}"]
     if plot is not None:
-        _plot_band(plot, model, data.theta, masses, store.get("mass_max"), label)
+        _plot_band(plot, model, data.theta, masses, store.get("mass_max"), label, overwrite)
         notes.append(f"plot: {plot}")
     error = skipped_text(data.bad, data.n_rows, samples, out) if data.bad else ""
     return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0, tuple(notes),
                         data.bad, error)
 
 
-def _write_band(path, store, quantities, masses, n, meta):
+def _write_band(path, store, quantities, masses, n, meta, overwrite):
     per = [q for q in quantities if QUANTITIES[q].per_mass]
     scalars = [q for q in quantities if not QUANTITIES[q].per_mass]
     columns = [Column("mass", "Msun", "gravitational mass"),
@@ -353,11 +372,11 @@ def _write_band(path, store, quantities, masses, n, meta):
         for k, v in _quantiles(store[q]).items():
             meta[f"{q}_{k}"] = v
     meta["samples_used"] = n
-    with TableWriter(path, columns, meta) as w:
+    with TableWriter(path, columns, meta, overwrite=overwrite) as w:
         w.append(block)
 
 
-def _plot_band(path, model, theta, masses, mass_max, label):
+def _plot_band(path, model, theta, masses, mass_max, label, overwrite):
     """Median and 90 % band of R(M) over the samples (at most PLOT_MAX_SAMPLES of them)."""
     plt = pyplot("the samples plot")
     stride = max(1, -(-len(theta) // PLOT_MAX_SAMPLES))
@@ -389,5 +408,10 @@ def _plot_band(path, model, theta, masses, mass_max, label):
     ax.legend(loc="lower left", fontsize=8)
     fig.text(0.01, 0.005, f"model: {label}", fontsize=6, color="0.4")
     fig.tight_layout()
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
+    tmp = temp_path(path)
+    try:
+        fig.savefig(tmp, dpi=120, format="png")
+        publish(tmp, path, "plot", overwrite)
+    finally:
+        plt.close(fig)
+        tmp.unlink(missing_ok=True)

@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import InputError
 from ._stars import BRANCH_COLUMN, STAR_COLUMNS, TWIN, joined_stars, sequence_meta, star_table
-from ._write import TableSummary, table_format
+from ._write import TableSummary, check_table_output
 
 __all__ = ["SEQUENCE_COLUMNS", "sequence_table", "central_enthalpies"]
 
@@ -60,7 +60,7 @@ def _evenly_in_log_pressure(eos, low, high, points: int, steps):
 
 
 def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_msun: float = 0.3,
-                   command: str | None = None) -> TableSummary:
+                   command: str | None = None, overwrite: bool = False) -> TableSummary:
     """Write the stable branch of one EOS, and its twin branch if it has one, as a table.
 
     Parameters
@@ -82,6 +82,8 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
         Lightest star of the ``points`` mode (the solver's branch start).
     command : str, optional
         Command line recorded in the provenance (default ``sys.argv``).
+    overwrite : bool
+        Replace an existing file.
 
     Returns
     -------
@@ -98,7 +100,7 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
     from ..solve import SequenceSettings, solve_sequence
 
     t0 = time.monotonic()
-    table_format(out)
+    check_table_output(out, overwrite)
     settings = SequenceSettings(low_mass_msun=float(min_mass_msun))
     notes = []
     if masses is not None:
@@ -143,7 +145,8 @@ def sequence_table(out, eos, *, points: int | None = 100, masses=None, min_mass_
                              "Msun).")
     stars, branch = joined_stars(parts)
     summary = star_table(out, stars, sequence_meta(seq, settings, mode, command),
-                         target_mass=None if target is None else np.concatenate(target), branch=branch)
+                         target_mass=None if target is None else np.concatenate(target), branch=branch,
+                         overwrite=overwrite)
     return replace(summary, seconds=time.monotonic() - t0, notes=tuple(notes))
 
 

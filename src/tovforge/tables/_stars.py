@@ -102,7 +102,7 @@ def sequence_meta(seq, settings, mode: str, command: str | None = None) -> dict:
     )
 
 
-def star_table(out, stars, meta: dict, target_mass=None, branch=None) -> TableSummary:
+def star_table(out, stars, meta: dict, target_mass=None, branch=None, overwrite: bool = False) -> TableSummary:
     """Write stars as a table (``.csv``, ``.h5`` or ``.npz``) with the columns :data:`STAR_COLUMNS` and ``branch``.
 
     Parameters
@@ -116,6 +116,8 @@ def star_table(out, stars, meta: dict, target_mass=None, branch=None) -> TableSu
         Requested masses (Msun), written as a first ``target_mass`` column.
     branch : array_like of int, optional
         :data:`STABLE` or :data:`TWIN` per star (default: all on the stable branch).
+    overwrite : bool
+        Replace an existing file.
 
     Returns
     -------
@@ -129,7 +131,7 @@ def star_table(out, stars, meta: dict, target_mass=None, branch=None) -> TableSu
     if target_mass is not None:
         columns.insert(0, TARGET_MASS)
         block[TARGET_MASS.name] = np.asarray(target_mass, float)
-    with TableWriter(out, columns, meta) as w:
+    with TableWriter(out, columns, meta, overwrite=overwrite) as w:
         w.append(block)
     return TableSummary(Path(out), w.n_rows, tuple(c.name for c in columns), time.monotonic() - t0)
 

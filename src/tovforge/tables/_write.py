@@ -22,13 +22,13 @@ Rows are appended in blocks: CSV lines are written as they come, HDF5
 datasets are resized, and NPZ columns are spooled to raw files next to the
 output and zipped at the end, so a table is never held in memory by the
 writer.  Every file is written under a temporary name in its folder and
-renamed when complete: a reader never sees half a table.
+renamed when complete: a reader never sees half a table, and an existing
+file is replaced only with ``overwrite``.
 """
 
 from __future__ import annotations
 
 import json
-import os
 import re
 import shutil
 import tempfile
@@ -39,9 +39,12 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from .._files import check_output, publish, remove_litter, temp_path
+from .._limits import check_disk
 from ..errors import InputError
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "SUFFIXES", "Column", "Table", "TableSummary", "TableWriter", "read_table", "table_format"]
+__all__ = ["FORMAT", "FORMAT_VERSION", "SUFFIXES", "Column", "Table", "TableSummary", "TableWriter", "read_table",
+           "table_format", "check_table_output"]
 
 FORMAT = "tovforge-table"
 FORMAT_VERSION = 1
@@ -159,6 +162,33 @@ def table_format(path) -> str:
     return suffix[1:]
 
 
+#: Bytes per value of a table on disk, by format (CSV: a shortest round-trip decimal and a comma).
+_BYTES_PER_VALUE = {"csv": 24, "h5": 8, "npz": 8}
+
+
+def check_table_output(path, overwrite: bool = False, rows: int | None = None, columns: int | None = None,
+                       what: str = "table") -> str:
+    """Check, before any work, that a table can be written to ``path``; returns its format.
+
+    With ``rows`` and ``columns`` the table's size is checked against the
+    free disk space of the folder.
+
+    Raises
+    ------
+    InputError
+        Unknown extension, missing or unwritable folder, a folder at ``path``,
+        a table too large for the disk.
+    OutputExists
+        ``path`` exists and ``overwrite`` is False.
+    """
+    fmt = table_format(path)
+    check_output(path, what, overwrite)
+    if rows is not None and columns is not None:
+        check_disk(Path(path).parent, float(rows) * columns * _BYTES_PER_VALUE[fmt],
+                   f"{path}: a table of {rows} rows x {columns} columns", "use fewer or shorter axes")
+    return fmt
+
+
 def _check_meta(meta: Mapping) -> dict:
     out = {}
     for k, v in meta.items():
@@ -238,7 +268,7 @@ class _H5Sink:
 class _NpzSink:
     def __init__(self, tmp: Path, columns, meta):
         self.tmp, self.columns, self.meta = tmp, columns, meta
-        self.spool = Path(tempfile.mkdtemp(prefix=f".{tmp.name}.", dir=tmp.parent))
+        self.spool = Path(tempfile.mkdtemp(prefix=f"{tmp.name}.", dir=tmp.parent))
         self.files = [open(self.spool / f"{i}.raw", "wb") for i in range(len(columns))]
 
     def append(self, arrays):
@@ -286,6 +316,9 @@ class TableWriter:
     columns : sequence of Column
     meta : mapping
         Metadata and provenance; values must be str, int, float or bool.
+    overwrite : bool
+        Replace an existing file (refused otherwise, also when the file
+        appears while the table is written).
 
     Examples
     --------
@@ -297,17 +330,17 @@ class TableWriter:
     [1.0, 1.4]
     """
 
-    def __init__(self, path, columns: Sequence[Column], meta: Mapping):
+    def __init__(self, path, columns: Sequence[Column], meta: Mapping, overwrite: bool = False):
         self.path = Path(path)
-        self.format = table_format(self.path)
+        self.format = check_table_output(self.path, overwrite)
         names = [c.name for c in columns]
         if len(set(names)) != len(names):
             raise ValueError(f"duplicate column names in {names}")
-        if not self.path.parent.is_dir():
-            raise InputError(f"{self.path.parent}: no such folder for the output.")
         self.columns = list(columns)
         self.n_rows = 0
-        self._tmp = self.path.with_name(f".{self.path.name}.{os.getpid()}.tmp")
+        self.overwrite = overwrite
+        remove_litter(self.path)  # temporary files of writers that were killed
+        self._tmp = temp_path(self.path)
         self._sink = _SINKS[self.format](self._tmp, self.columns, _check_meta(meta))
         self._open = True
 
@@ -329,8 +362,11 @@ class TableWriter:
         """Finish the file and move it to its name; returns the path."""
         if self._open:
             self._open = False
-            self._sink.finish(self.n_rows)
-            os.replace(self._tmp, self.path)
+            try:
+                self._sink.finish(self.n_rows)
+                publish(self._tmp, self.path, "table", self.overwrite)
+            finally:
+                self._tmp.unlink(missing_ok=True)
         return self.path
 
     def abort(self) -> None:
@@ -447,8 +483,11 @@ def read_table(path) -> Table:
         table = {"csv": _read_csv, "h5": _read_h5, "npz": _read_npz}[fmt](path)
     except InputError:
         raise
-    except (OSError, ValueError, KeyError, zipfile.BadZipFile) as exc:
-        raise InputError(f"{path}: cannot read the table ({exc}).") from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{path}: the table is not UTF-8 text (byte at offset {exc.start}).") from None
+    except (OSError, ValueError, KeyError, TypeError, IndexError, AttributeError, EOFError,
+            zipfile.BadZipFile) as exc:
+        raise InputError(f"{path}: cannot read the table ({type(exc).__name__}: {exc}).") from None
     if fmt == "csv":
         table.meta.setdefault("format", FORMAT)
         table.meta.setdefault("format_version", FORMAT_VERSION)

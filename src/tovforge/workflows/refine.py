@@ -15,6 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .._files import check_output
+from .._limits import check_memory
 from .._provenance import provenance
 from ..errors import InputError
 from ..surrogate import (
@@ -89,10 +91,19 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
                          f"{model.kind} ({model.method}).")
     if budget < 1:
         raise InputError(f"budget must be at least 1 exact solve. Got {budget}.")
+    if n_candidates < budget:
+        raise InputError(f"n_candidates = {n_candidates} is below the budget of {budget} exact solves; the points "
+                         "are chosen among the candidates: give more candidates (several times the budget).")
+    # the candidates, their unit coordinates and scores are held at once (the scoring itself goes by blocks)
+    check_memory(8.0 * n_candidates * (3 * len(model.parameter_names) + 8), f"n_candidates = {n_candidates}",
+                 "score fewer candidates")
     fam = eos.get_family(model.family)
     lo, hi = model.bounds[:, 0], model.bounds[:, 1]
     cand = qmc.scale(qmc.Sobol(len(lo), seed=seed).random(n_candidates), lo, hi)
     cand = cand[[not msg for msg in fam.validate_rows(cand)]]
+    if len(cand) < budget:
+        raise InputError(f"only {len(cand)} of the {n_candidates} candidates are valid EOS of {fam.name}, fewer "
+                         f"than the budget of {budget}: give more candidates.")
     scores = np.concatenate([_score(model, c) for c in np.array_split(cand, max(1, len(cand) // 512))])
     x = (cand - lo) / (hi - lo)
     spacing = (1.0 / max(model.n_train, 1)) ** (1.0 / len(lo))
@@ -125,7 +136,8 @@ def _p95_row(model, holdout) -> LearningPoint:
 
 
 def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None) -> RefineResult:
+           workers=None, overwrite: bool = False, allow_mismatch: bool = False,
+           oversubscribe: bool = False) -> RefineResult:
     """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
 
     Parameters
@@ -135,45 +147,56 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     budget : int
         Exact solves to add.
     out : path
-        Folder of the retrained model; the added solves go to
-        ``out/refinement-points.h5`` (same layout as a grid).
+        Folder of the retrained model (a new folder, written whole: see
+        :meth:`Surrogate.save`); the added solves go to
+        ``out/refinement-points.h5`` (same layout as a grid).  It must not
+        hold any input of the refinement (the model's grids, the held-out grid).
     holdout : path, optional
         Held-out grid: the errors before and after are measured and stored in
         the model as its learning curve.
+    overwrite : bool
+        Replace an existing folder ``out``.
+    allow_mismatch : bool
+        Read grids whose datasets do not match their content hash (forensics).
+    oversubscribe : bool
+        Allow more workers than cores.
     """
     from ..grid import DesignSpec, parse_spec, read_grid, solve_points, write_grid
 
     tr = model.meta.training
     grid_path = tr.grid_path
+    out = check_output(out, "model folder", overwrite, folder=True)  # before the work, not after it
+    inputs = [p for p in (grid_path, *tr.refinement_grids, holdout) if p]
+    inside = [p for p in inputs if Path(p).resolve().is_relative_to(out.resolve())]
+    if inside:
+        raise InputError(f"out {out}: the folder holds {inside[0]}, an input of this refinement, which the new "
+                         "model folder would replace; choose another folder.")
     if not grid_path or not Path(grid_path).is_file():
         raise InputError(f"the model's training grid {grid_path!r} is not available; refine needs it.")
-    base = read_training_data(grid_path, family=model.family)
+    base = read_training_data(grid_path, family=model.family, allow_mismatch=allow_mismatch)
     want = tr.grid_content_sha256
     if want and base.provenance["grid_content_sha256"] != want:
         raise InputError(f"{grid_path}: the training grid changed since the model was trained "
                          "(content hash differs); retrain first.")
     for extra in tr.refinement_grids:
-        base = _merge(base, read_training_data(extra, family=model.family, min_points=0))
+        base = _merge(base, read_training_data(extra, family=model.family, min_points=0,
+                                               allow_mismatch=allow_mismatch))
     if len(base.theta) != tr.n_train:
         # e.g. a model trained in memory on part of the grid: retraining on the whole file would
         # silently change what the learning curve compares
         raise InputError(f"the model was trained on {tr.n_train} points, but {grid_path} and its refinements "
                          f"hold {len(base.theta)} usable points; refine needs a model trained on the whole "
                          "grid file (tovforge train GRID).")
-    g = read_grid(grid_path)
+    g = read_grid(grid_path, allow_mismatch)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     added = select_points(model, budget, n_candidates, seed)
     logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
-    result = solve_points(spec, added, workers=workers)
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    result = solve_points(spec, added, workers=workers, oversubscribe=oversubscribe)
     points_path = out / "refinement-points.h5"
     rspec = dataclasses.replace(
         spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
         description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
                     f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
-    write_grid(points_path, rspec, added, result,
-               provenance("scipy", "h5py", refinement_of=str(grid_path), refinement_of_sha256=tr.grid_content_sha256))
     new = training_data_from_arrays(
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
         parameter_units=model.parameter_units, box=model.bounds, theta=added,
@@ -190,5 +213,11 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
             curve.append(_p95_row(model, holdout))
         curve.append(_p95_row(new_model, holdout))
         new_model = new_model.with_meta(learning_curve=tuple(curve), learning_curve_holdout=str(holdout))
-    new_model.save(out)
+
+    def write_points(folder):  # into the new model folder, before it takes its name
+        write_grid(folder / points_path.name, rspec, added, result,
+                   provenance("scipy", "h5py", refinement_of=str(grid_path),
+                              refinement_of_sha256=tr.grid_content_sha256))
+
+    new_model.save(out, overwrite=overwrite, extra=write_points)
     return RefineResult(new_model, added, points_path, tuple(curve))

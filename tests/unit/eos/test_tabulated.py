@@ -99,5 +99,5 @@ def test_malformed_tables_name_file_and_line(tmp_path, header, rows, match):
 
 
 def test_missing_file(tmp_path):
-    with pytest.raises(TableFormatError, match="cannot read EOS table"):
+    with pytest.raises(TableFormatError, match="cannot read the EOS table"):
         eos.make("table", path=str(tmp_path / "nope.csv"))

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import json
 import re
+import subprocess
+import sys
 
 import h5py
 import numpy as np
@@ -93,11 +95,11 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path, monkeypatch):
     real = grid_run._solve_task
     calls = []
 
-    def interrupt_after_two(spec_, k, theta):
+    def interrupt_after_two(spec_, k, theta, *rest):
         if len(calls) == 2:
             raise KeyboardInterrupt  # as Ctrl-C would
         calls.append(k)
-        return real(spec_, k, theta)
+        return real(spec_, k, theta, *rest)
 
     monkeypatch.setattr(grid_run, "_solve_task", interrupt_after_two)
     with pytest.raises(KeyboardInterrupt):
@@ -111,9 +113,9 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path, monkeypatch):
 
     calls.clear()
 
-    def counting(spec_, k, theta):
+    def counting(spec_, k, theta, *rest):
         calls.append(k)
-        return real(spec_, k, theta)
+        return real(spec_, k, theta, *rest)
 
     monkeypatch.setattr(grid_run, "_solve_task", counting)
     with pytest.warns(UserWarning, match=r"chunk-000003\.h5 is unreadable or foreign; chunk 3 will be solved again"):
@@ -168,3 +170,52 @@ def test_info_aligns_long_parameter_names(tmp_path):
     rows = [ln for ln in text.splitlines() if " box [" in ln]
     assert len(rows) == 7 and any("log_p_transition" in r for r in rows)
     assert len({r.index(" box [") for r in rows}) == 1
+
+
+def test_litter_of_killed_runs_is_removed_and_a_finished_file_cleans_its_chunks(tmp_path):
+    """A temporary grid file of a run killed while assembling, and chunks left by a run killed after
+    writing the file, are gone after the next run (which has nothing else to do)."""
+    from tovforge._files import HOST
+
+    spec = parse_spec({"family": "piecewise-polytrope", "chunk_size": 2,
+                       "design": {"method": "sobol", "points": 4, "seed": 2}})
+    out = tmp_path / "g.h5"
+    run_grid(spec, out, workers=1, progress=False)
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    (tmp_path / f".g.h5.{dead.pid}@{HOST}.tmp").write_bytes(b"half a grid")
+    parts_folder(out).mkdir()
+    (parts_folder(out) / "chunk-000000.h5").write_bytes(b"left behind")
+    summary = run_grid(spec, out, workers=1, progress=False)
+    assert summary.already_complete
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["g.h5"]
+
+
+def test_workers_are_capped_to_the_cores_unless_oversubscribed(monkeypatch):
+    from tovforge import _limits
+
+    monkeypatch.setattr(_limits, "machine_cores", lambda: 2)
+    with pytest.warns(UserWarning, match="workers = 1000 is more than the 2 cores of this machine; using 2"):
+        assert _limits.worker_count(1000) == 2
+    assert _limits.worker_count(1000, oversubscribe=True) == 1000
+    assert _limits.worker_count(2) == 2 and _limits.worker_count(None) is None
+
+
+def test_sizes_beyond_the_memory_budget_are_refused_before_any_work(tmp_path, monkeypatch):
+    from tovforge.errors import ResourceLimit
+
+    spec = parse_spec({"family": "piecewise-polytrope", "chunk_size": 2,
+                       "design": {"method": "sobol", "points": 4096, "seed": 2}})
+    from tovforge._limits import size_text
+
+    need = grid_run.grid_memory_bytes(spec)  # 2 x 4096 points x (8 bytes x 179 values + 65 bytes)
+    assert need == 2 * 4096 * (8 * (4 + 7 + 6 * 24 + 3 * 8) + 65)
+    monkeypatch.setenv("TOVFORGE_MEMORY_GB", "0.001")  # 1 MB: below the 12 MB of this grid
+    with pytest.raises(ResourceLimit, match=re.escape(f"design.points = 4096 with 24 u nodes and 16 outputs: needs "
+                                                      f"about {size_text(need)} of memory, above the budget of 1 MB "
+                                                      "(TOVFORGE_MEMORY_GB)")):
+        run_grid(spec, tmp_path / "g.h5", workers=1, progress=False)
+    assert list(tmp_path.iterdir()) == []
+    monkeypatch.setenv("TOVFORGE_MEMORY_GB", "lots")
+    with pytest.raises(InputError, match="TOVFORGE_MEMORY_GB='lots'"):
+        run_grid(spec, tmp_path / "g.h5", workers=1, progress=False)

@@ -160,7 +160,7 @@ def test_solve_points_cuts_any_number_of_points_into_chunks_and_keeps_their_orde
         assert list(a) == list(b)
         for k in a:
             np.testing.assert_array_equal(a[k], b[k], err_msg=k)
-    with pytest.raises(InputError, match="workers must be at least 1"):
+    with pytest.raises(InputError, match="workers must be a whole number >= 1"):
         solve_points(spec, theta, workers=0)
 
 

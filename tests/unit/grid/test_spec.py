@@ -47,7 +47,7 @@ def _spec(text: str = BASE):
     (BASE.replace("points = 8", "points_per_axis = 3"), "design.points_per_axis: unknown key"),
     (BASE.replace('"piecewise-polytrope"', '"table"'), "family: 'table' has no numeric parameters"),
     (BASE.replace('"piecewise-polytrope"', '"piecewise"'), "family: Unknown EOS family 'piecewise'"),
-    (BASE.replace("chunk_size = 4", "chunk_size = 0"), "chunk_size: must be an integer >= 1. Got 0."),
+    (BASE.replace("chunk_size = 4", "chunk_size = 0"), "chunk_size: must be an integer in [1, 4096]. Got 0."),
     (BASE + "[solver]\nmass_rtol = 0.1\n", "solver.mass_rtol: must be a finite number in [1e-14, 0.0001]"),
 ])
 def test_bad_specs_name_the_key_path(text, match):

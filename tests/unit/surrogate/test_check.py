@@ -14,6 +14,7 @@ from typer.testing import CliRunner
 from tovforge import surrogate
 from tovforge.cli import app
 from tovforge.errors import InputError
+from tovforge.grid import parse_spec, run_grid
 from tovforge.surrogate import CheckReport, GPSettings, check, read_training_data, train_on
 
 ROOT = Path(__file__).resolve().parents[3]
@@ -93,11 +94,17 @@ def test_bad_inputs_exit_2(spline_model, tmp_path):
     spline_model.save(model_dir)
     # held-out grid of another family
     other = tmp_path / "other-family.h5"
-    shutil.copy(HOLDOUT, other)
-    with h5py.File(other, "r+") as f:
-        f.attrs["family"] = "spectral"
+    run_grid(parse_spec({"family": "spectral", "design": {"method": "sobol", "points": 4, "seed": 1}}), other,
+             workers=1, progress=False)
     res = runner.invoke(app, ["check", str(model_dir), "--holdout", str(other)])
     assert res.exit_code == 2 and "family 'spectral'" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+    # an edited family attribute: the file no longer matches its spec
+    edited = tmp_path / "edited-family.h5"
+    shutil.copy(HOLDOUT, edited)
+    with h5py.File(edited, "r+") as f:
+        f.attrs["family"] = "spectral"
+    res = runner.invoke(app, ["check", str(model_dir), "--holdout", str(edited)])
+    assert res.exit_code == 2 and "was altered" in res.stderr and len(res.stderr.strip().splitlines()) == 1
     # corrupt and truncated grid files
     junk = tmp_path / "junk.h5"
     junk.write_bytes(b"not an HDF5 file at all\n" * 10)
@@ -123,4 +130,4 @@ def test_bad_inputs_exit_2(spline_model, tmp_path):
     assert res.exit_code == 2 and "checksum" in res.stderr
     # no model folder at all
     res = runner.invoke(app, ["check", str(tmp_path / "nothing"), "--holdout", str(HOLDOUT)])
-    assert res.exit_code == 2 and "missing model.json" in res.stderr
+    assert res.exit_code == 2 and "no such model folder" in res.stderr

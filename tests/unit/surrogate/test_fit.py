@@ -128,6 +128,42 @@ def test_save_then_load_gives_identical_predictions(tmp_path, kind):
         np.testing.assert_array_equal(a.std[k], b.std[k])
 
 
+def test_a_save_that_fails_halfway_leaves_the_old_model_loadable(tmp_path, monkeypatch):
+    """Issue 15: save wrote arrays.npz in place, then model.json; a failed second write left neither model
+    loadable.  Now a new folder is written whole and renamed: an injected failure while writing model.json
+    leaves the old model as it was, and no temporary folder behind."""
+    import json
+    from pathlib import Path
+
+    from tovforge.errors import OutputExists
+
+    old = train_on(synthetic(64, seed=1), "spline")
+    new = train_on(synthetic(64, seed=2), "spline")
+    folder = tmp_path / "m"
+    old.save(folder)
+    before = {p.name: p.read_bytes() for p in folder.iterdir()}
+    with pytest.raises(OutputExists, match="pass overwrite=True"):
+        new.save(folder)
+    real = Path.write_text
+
+    def disk_full(self, *args, **kwargs):
+        if self.name == "model.json":
+            raise OSError(28, "No space left on device")
+        return real(self, *args, **kwargs)
+
+    monkeypatch.setattr(Path, "write_text", disk_full)
+    with pytest.raises(OSError, match="No space left"):
+        new.save(folder, overwrite=True)
+    monkeypatch.undo()
+    assert {p.name: p.read_bytes() for p in folder.iterdir()} == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["m"]
+    theta = np.mean(BOX, axis=1)
+    assert surrogate.load(folder).mass_max(theta).value == old.mass_max(theta).value
+    new.save(folder, overwrite=True)
+    assert surrogate.load(folder).mass_max(theta).value == new.mass_max(theta).value
+    assert json.loads((folder / "model.json").read_text())["arrays_sha256"] == new.meta.arrays_sha256
+
+
 def test_gradients_match_finite_differences():
     """Analytic d/dtheta against central differences (step 1e-4 of the box: the GP weights are
     large, so smaller steps are dominated by rounding)."""

@@ -143,7 +143,7 @@ def test_rerunning_an_exact_box_reuses_its_grid(tmp_path, monkeypatch):
 
     monkeypatch.setattr(_run, "_execute", no_solving)
     exact_box_table(tmp_path / "e.csv", "piecewise-polytrope", axes, fixed, ["mass_max"], workers=1,
-                    progress=False)
+                    progress=False, overwrite=True)
     second = read_table(tmp_path / "e.csv")
     assert not (tmp_path / "e.csv.grid.h5").exists()  # used as it was, then removed
     np.testing.assert_array_equal(first["mass_max"], second["mass_max"])

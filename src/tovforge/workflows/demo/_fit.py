@@ -105,7 +105,7 @@ def _write_samples(out: Path, settings, model, chain, names) -> dict:
     tsum = samples_table(out / "posterior_table.csv", model, samples_csv,
                          quantities=("mass_max", "radius", "lambda"), masses=settings.band_masses,
                          band=out / "posterior_band.csv", ignore=("log_posterior",), sigma=False, progress=False,
-                         command="tovforge demo")
+                         command="tovforge demo", overwrite=True)
     return {"samples": samples_csv, "table": tsum.path, "band": out / "posterior_band.csv"}
 
 

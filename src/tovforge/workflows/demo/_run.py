@@ -15,6 +15,7 @@ import numpy as np
 
 from ... import __version__
 from ..._extras import require
+from ..._files import check_output
 from ..._provenance import provenance
 from ...errors import InputError
 from ...surrogate import GPSettings
@@ -127,7 +128,7 @@ class DemoResult:
     failures: tuple = ()
 
 
-def run_demo(out="demo-output", settings: DemoSettings | None = None) -> DemoResult:
+def run_demo(out="demo-output", settings: DemoSettings | None = None, overwrite: bool = False) -> DemoResult:
     """Run the whole demo and write its outputs into ``out``.
 
     BLAS runs on one thread (grid workers and GP hyperparameter workers are
@@ -139,8 +140,11 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None) -> DemoRes
     Parameters
     ----------
     out : path-like
-        Output folder (created).
+        Output folder (created; its parent must exist).
     settings : DemoSettings, optional
+    overwrite : bool
+        Run into an existing folder that holds files (the outputs of an earlier
+        run are replaced); refused otherwise.
 
     Every stage reports what it does and measures through the ``tovforge``
     logger at level INFO: ``tovforge demo`` prints these lines; from Python,
@@ -159,6 +163,7 @@ def run_demo(out="demo-output", settings: DemoSettings | None = None) -> DemoRes
         require(module, "demo", "the demo")
     from threadpoolctl import threadpool_limits
 
+    check_output(out, "demo folder", overwrite, folder=True)  # before the work, not after it
     with threadpool_limits(limits=1):
         return _run_demo(out, settings)
 
@@ -209,7 +214,7 @@ def _run_demo(out, settings) -> DemoResult:
     stages = _Stages(8)
     out = Path(out)
     inputs = read_inputs(s)  # everything the user supplied, before the long stages
-    out.mkdir(parents=True, exist_ok=True)
+    out.mkdir(exist_ok=True)
     prov = provenance("scipy", "scikit-learn", "emcee")
     _say_start(out, inputs.obs)
     grids = stages.run(1, "grids", "exact solves over the EOS box (reused when the file of the same spec exists)",

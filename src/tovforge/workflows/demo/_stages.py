@@ -181,7 +181,8 @@ def train_models(settings, grids: Grids, out: Path) -> Training:
     for kind in KINDS:
         t0 = time.perf_counter()
         model = train_on(data, kind, gp if kind == "gp" else None)
-        folder = model.save(out / "models" / kind)
+        (out / "models").mkdir(exist_ok=True)
+        folder = model.save(out / "models" / kind, overwrite=True)  # the demo's folder: run_demo allowed it
         models[kind] = model
         say(f"  {kind:<7}{model.method} on {len(data.theta)} points in {time.perf_counter() - t0:.1f} s -> {folder}")
     numbers = {"n_train": int(len(data.theta)), "gp_settings": dataclasses.asdict(gp),
@@ -207,7 +208,8 @@ def check_models(models: dict, holdout: Path, out: Path) -> Checks:
 
     reports, files = {}, {}
     for kind in KINDS:
-        res = check(models[kind], holdout, out / "check" / kind)
+        (out / "check").mkdir(exist_ok=True)
+        res = check(models[kind], holdout, out / "check" / kind, overwrite=True)
         reports[kind] = res
         files[f"check_{kind}"] = out / "check" / kind / "report.md"
         say(f"  {kind}: report {files[f'check_{kind}']}")
@@ -256,8 +258,9 @@ def export_models(settings, models: dict, reports: dict, out: Path) -> Exports:
     evaluators, files, numbers, failures = {}, {}, {}, []
     for kind in KINDS:
         target = out / "evaluators" / f"demo_{kind}.py"
+        target.parent.mkdir(exist_ok=True)
         try:
-            res = export_model(models[kind], target, reports[kind])
+            res = export_model(models[kind], target, reports[kind], overwrite=True)
         except ExportError as exc:
             failures.append(f"export of the {kind} model: {exc}")
             warnings.warn(f"export of the {kind} model failed: {exc}", UserWarning, stacklevel=2)
