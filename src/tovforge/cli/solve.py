@@ -34,6 +34,32 @@ def families_cmd():
             )
 
 
+def _keep_stars(seq, n: int):
+    """``seq`` with exactly ``n`` branch stars (``--stars``), the lightest and the maximum-mass star kept.
+
+    The solver adds the stars that locate the maximum (crowded just below it) to the ``n`` it spreads along
+    the branch; the stars of the smallest spacing in ``u = sqrt(1 - M / M_max)`` are left out until ``n``
+    remain, so every star shown is still an exact solve.
+    """
+    import dataclasses
+
+    import numpy as np
+
+    m = np.asarray(seq.branch.mass_msun, dtype=float)
+    if not seq.success or m.size <= n:
+        return seq
+    u = np.sqrt(np.clip(1.0 - m / seq.mass_max.mass_msun, 0.0, None))
+    keep = list(range(m.size))
+    while len(keep) > n:  # a few stars (the cluster around the maximum): no hot path
+        span = [u[keep[i - 1]] - u[keep[i + 1]] for i in range(1, len(keep) - 1)]
+        del keep[1 + int(np.argmin(span))]
+    index = np.asarray(keep)
+    err = seq.error_estimate
+    if err is not None:
+        err = dataclasses.replace(err, relative={k: np.asarray(v)[index] for k, v in err.relative.items()})
+    return dataclasses.replace(seq, branch=seq.branch.select(index), error_estimate=err)
+
+
 def solve_cmd(
     family: FamilyArg,
     parameters: ParametersArg = None,
@@ -49,7 +75,8 @@ def solve_cmd(
     profile: Annotated[
         Optional[float], typer.Option("--profile", help="Also print the interior profile of the star of this mass.")
     ] = None,
-    stars: Annotated[int, typer.Option("--stars", min=8, max=2000, help="Stars along the stable branch.")] = 100,
+    stars: Annotated[int, typer.Option("--stars", min=8, max=2000, help="Stars shown along the stable branch, the "
+                                                                     "maximum-mass star included.")] = 100,
     overwrite: OverwriteOpt = False,
 ):
     """Solve the stable branch of one EOS: M_max, the M-R-Lambda-I sequence, stars at given masses."""
@@ -64,7 +91,7 @@ def solve_cmd(
             raise InputError("--masses must be positive (Msun).")
         if profile is not None and not (profile > 0 and math.isfinite(profile)):
             raise InputError(f"--profile must be a positive mass in Msun. Got {profile}.")
-        seq = solve.solve_sequence(eos_obj, n_stars=stars, masses=qm)
+        seq = _keep_stars(solve.solve_sequence(eos_obj, n_stars=stars, masses=qm), stars)
         prof = None
         if profile is not None and seq.success:
             if profile > seq.mass_max.mass_msun:
