@@ -86,3 +86,15 @@ def test_central_pressures_bad_input_is_one_line(args, words):
     res = runner.invoke(app, ["solve", "uniform-density", "energy_density=1e15", *args])
     assert res.exit_code == 2
     assert words in res.stderr and len(res.stderr.strip().splitlines()) == 1
+
+
+def test_a_spectral_eos_without_maximum_is_not_told_of_a_table():
+    """Issue 16: the spectral "no maximum" message spoke of "the EOS table"."""
+    from tovforge.status import Status
+
+    soft = ["gamma0=0.3485", "gamma1=-0.10528", "gamma2=0.010064", "gamma3=0.000197"]  # M rises to x = 10
+    seq = solve.solve_sequence(eos.make("spectral", **{k: float(v) for k, v in (a.split("=") for a in soft)}))
+    assert seq.status == Status.EOS_ENDS
+    res = runner.invoke(app, ["solve", "spectral", *soft])
+    assert res.exit_code == 2
+    assert "tabulated" not in res.stderr and "for the spectral family x = ln(p/p0) = 10" in res.stderr
