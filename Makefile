@@ -5,7 +5,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-stamp
 
-.PHONY: demo test test-all bench grids export install constraints clean FORCE
+.PHONY: demo test test-all bench grids export install constraints docs clean FORCE
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -30,6 +30,10 @@ test: $(STAMP)
 ## make test-all: every test, the slow ones included
 test-all: $(STAMP)
 	$(BIN)/python -m pytest -q -m "slow or not slow"
+
+## make docs: regenerate docs/reference/cli.md from the commands' --help (a test compares the two)
+docs: $(STAMP)
+	$(BIN)/python -m tovforge.cli._reference > docs/reference/cli.md
 
 ## make bench: speed and accuracy benchmarks on this machine
 bench: $(STAMP)
