@@ -31,9 +31,11 @@ test: $(STAMP)
 test-all: $(STAMP)
 	$(BIN)/python -m pytest -q -m "slow or not slow"
 
-## make docs: regenerate docs/reference/cli.md from the commands' --help (a test compares the two)
+## make docs: regenerate docs/reference/cli.md (the commands' --help) and docs/reference/python-api.md (the
+## public names and docstrings); a test compares both with the code
 docs: $(STAMP)
-	$(BIN)/python -m tovforge.cli._reference > docs/reference/cli.md
+	$(BIN)/python -m tovforge.cli._reference cli > docs/reference/cli.md
+	$(BIN)/python -m tovforge.cli._reference api > docs/reference/python-api.md
 
 ## make bench: speed and accuracy benchmarks on this machine
 bench: $(STAMP)
