@@ -114,3 +114,17 @@ def test_the_readme_has_runnable_blocks_and_the_parser_finds_them(tmp_path):
     readme = blocks_of(ROOT / "README.md")
     assert any(b.language == "sh" and not b.flags for b in readme)
     assert any(b.language == "python" for b in readme)
+
+
+_LINK = re.compile(r"\]\((?P<target>[^)\s]+)\)")
+
+
+@pytest.mark.parametrize("path", DOCS, ids=lambda p: str(p.relative_to(ROOT)))
+def test_relative_links_point_to_files_that_exist(path):
+    text = _FENCE.sub("", path.read_text(encoding="utf-8"))  # links inside code are code
+    for m in _LINK.finditer(text):
+        target = m["target"]
+        if re.match(r"[a-z]+:", target) or target.startswith("#"):
+            continue
+        file_part = target.split("#")[0]
+        assert (path.parent / file_part).exists(), f"{path.relative_to(ROOT)}: broken link {target}"
