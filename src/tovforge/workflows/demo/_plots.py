@@ -95,10 +95,13 @@ def corner_plot(path, samples, names, bounds, marker=None, title="", units=None)
                 h, xe, ye = np.histogram2d(samples[:, j], samples[:, i], bins=bins, range=[b[j], b[i]])
                 ax.imshow(h.T, origin="lower", extent=(xe[0], xe[-1], ye[0], ye[-1]), aspect="auto",
                           cmap="Blues")
-                # contours of the histogram smoothed by 1.5 bins: raw counts of a few thousand samples draw
-                # islands around every noisy bin, and one bin was not enough on the flat (prior-dominated)
-                # panels (issue 16)
-                hs = gaussian_filter(h, 1.5, mode="nearest")
+                # contours of the histogram smoothed like a Gaussian kernel density estimate with Scott's
+                # bandwidth, sigma * n^(-1/6) per axis in two dimensions (Scott 1992, Multivariate Density
+                # Estimation, eq. 6.42): raw counts of a few thousand samples draw islands around every noisy
+                # bin, most on the flat (prior-dominated) panels (issue 16); at least one bin
+                scott = samples.shape[0] ** (-1.0 / 6.0)
+                width = [np.std(samples[:, k]) * scott / ((b[k, 1] - b[k, 0]) / bins) for k in (j, i)]
+                hs = gaussian_filter(h, [max(1.0, w) for w in width], mode="nearest")
                 levels = sorted(v for v in set(credible_levels(hs)) if v > 0)
                 if levels:
                     xc, yc = 0.5 * (xe[1:] + xe[:-1]), 0.5 * (ye[1:] + ye[:-1])
@@ -190,7 +193,7 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
     ax.set_ylim(m_lo, m_hi)
     ax.set(xlabel="R [km]", ylabel="M [Msun]", title="mass-radius: posterior band and the pulsars")
     # legends below the panels: inside they would cover the band or the measurements
-    ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=2, frameon=False)
+    ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=1, frameon=False)
 
     bx.fill_between(m[show], band["lambda_p05"][show], band["lambda_p95"][show], color="tab:blue", alpha=0.3, lw=0,
                     label="emulated 90 % band of Lambda(M), all samples")
@@ -209,11 +212,11 @@ def band_plot(path, band: dict, exact: dict | None, observations, generator_curv
     bx.set_xlim(m_lo, m_hi)
     bx.set_yscale("log")
     bx.set(xlabel="M [Msun]", ylabel="Lambda (dimensionless)", title="tidal deformability")
-    bx.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=2, frameon=False)
+    bx.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=1, frameon=False)
     if title:
         fig.suptitle(title, fontsize=9)
     fig.tight_layout()
-    fig.savefig(path, dpi=110)
+    fig.savefig(path, dpi=110, bbox_inches="tight")  # the legends below the panels are part of the figure
     plt.close(fig)
     return Path(path)
 
