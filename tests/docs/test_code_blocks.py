@@ -62,9 +62,24 @@ def _workspace(tmp_path: Path) -> Path:
 
 
 def _run_file(path: Path, tmp_path: Path, monkeypatch, with_slow: bool) -> int:
+    from tovforge.eos import _base as eos_base
+
     work = _workspace(tmp_path)
     monkeypatch.chdir(work)
+    monkeypatch.setattr(sys, "path", list(sys.path))  # a page may add folders (`sys.path.insert(0, "exported")`)
     monkeypatch.syspath_prepend(str(work))
+    # what a page's Python leaves behind stays with the page: the families it registers, and the modules it
+    # imports from its folder (exported files), which another page may write anew under the same name
+    monkeypatch.setattr(eos_base, "_REGISTRY", dict(eos_base._REGISTRY))
+    try:
+        return _run_blocks(path, work, with_slow)
+    finally:
+        for name, module in list(sys.modules.items()):
+            if str(getattr(module, "__file__", None) or "").startswith(str(work)):
+                del sys.modules[name]
+
+
+def _run_blocks(path: Path, work: Path, with_slow: bool) -> int:
     env = {**os.environ, "PATH": f"{Path(sys.executable).parent}{os.pathsep}{os.environ.get('PATH', '')}",
            "MPLBACKEND": "Agg"}
     namespace: dict = {"__name__": "__docs__"}
