@@ -204,17 +204,19 @@ def _bench_export(quick: bool, echo) -> None:
         echo(f"{pair.label}: {pair.sizes}")
         echo(f"    {'query':<38}{'old-style':>14}{'generated':>14}{'ratio':>8}")
         for title, fn, repeat, what in queries:
-            if what == "std" and not pair.new.HAS_STD:
+            if what == "std" and not (pair.new or pair.old).HAS_STD:
                 continue
             old = _styled(pair.old, pair.old is pair.new)(fn) if pair.old is not None else None
-            t_old, t_new = _side_by_side(old, _styled(pair.new, False)(fn), repeat, rounds)
+            new = _styled(pair.new, False)(fn) if pair.new is not None else None  # no trained model: old only
+            t_old, t_new = _side_by_side(old, new, repeat, rounds)
             if what == "batch":
                 cells = [f"{n_batch / t:>10.3g} /s" if math.isfinite(t) else f"{'-':>12}" for t in (t_old, t_new)]
             else:
                 cells = [f"{t * 1e6:>11.0f} us" if math.isfinite(t) else f"{'-':>14}" for t in (t_old, t_new)]
-            ratio = f"{t_old / t_new:>7.2f}x" if math.isfinite(t_old) else ""
+            ratio = f"{t_old / t_new:>7.2f}x" if math.isfinite(t_old) and math.isfinite(t_new) else ""
             echo(f"    {title:<38}{cells[0]:>14}{cells[1]:>14}{ratio:>8}")
-        t_curve = timeit_median(lambda: pair.new.curve(one, n=100), reps)
+        fastest = pair.new or pair.old
+        t_curve = timeit_median(lambda: fastest.curve(one, n=100), reps)
         echo(f"    speed-up over the exact solver: {t_exact / t_curve:.3g} (one-theta curve)")
     tmp.cleanup()
     echo("")

@@ -34,6 +34,9 @@ def bench_likelihood(quick: bool = False, echo=print) -> None:
              f"{reps} calls, best of {rounds} interleaved rounds")
         echo(f"    {'evaluator':<44}{'old-style':>12}{'generated':>12}{'ratio':>8}{'evaluator calls':>18}")
         for pair in pairs:
+            if pair.new is None:
+                echo(f"    {pair.label}: no generated evaluator (no trained model); skipped")
+                continue
             rng = np.random.default_rng(7)
             b = np.asarray(pair.new.BOUNDS, float)
             walkers = b[:, 0] + (b[:, 1] - b[:, 0]) * (0.3 + 0.4 * rng.random((32, len(b))))
@@ -46,7 +49,7 @@ def bench_likelihood(quick: bool = False, echo=print) -> None:
                                              rounds)
                 t_eval = _evaluator_seconds(pair.new, posts[1], theta, reps)
                 n = len(theta)
-                echo(f"    {pair.label[:28] + ', ' + label:<44}{t_old / n * 1e6:>9.0f} us{t_new / n * 1e6:>9.0f} us"
+                echo(f"    {pair.label.split(' ')[0] + ', ' + label:<44}{t_old / n * 1e6:>9.0f} us{t_new / n * 1e6:>9.0f} us"
                      f"{t_old / t_new:>7.2f}x{t_eval / n * 1e6:>15.0f} us")
     echo("evaluator calls: the generated evaluator's own queries for these theta (M_max, R at the pulsar masses, "
          "Lambda at the merger masses); the rest is the likelihood's arithmetic.")
