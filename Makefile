@@ -5,7 +5,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-stamp
 
-.PHONY: demo test test-all bench grids export install constraints clean FORCE
+.PHONY: demo test test-all bench grids export install constraints docs clean FORCE
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -30,6 +30,12 @@ test: $(STAMP)
 ## make test-all: every test, the slow ones included
 test-all: $(STAMP)
 	$(BIN)/python -m pytest -q -m "slow or not slow"
+
+## make docs: regenerate docs/reference/cli.md (the commands' --help) and docs/reference/python-api.md (the
+## public names and docstrings); a test compares both with the code
+docs: $(STAMP)
+	$(BIN)/python -m tovforge.cli._reference cli > docs/reference/cli.md
+	$(BIN)/python -m tovforge.cli._reference api > docs/reference/python-api.md
 
 ## make bench: speed and accuracy benchmarks on this machine
 bench: $(STAMP)

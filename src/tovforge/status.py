@@ -68,5 +68,6 @@ _MESSAGES = {
     Status.BELOW_FLOOR: "The maximum mass is below the floor of the grid spec.",
     Status.NO_MAXIMUM: "No maximum of M(h_c) below the largest central enthalpy tried.",
     Status.SOLVER_FAILURE: "Structure integration failed for too many stars.",
-    Status.EOS_ENDS: "The EOS ends (its largest tabulated pressure) before the maximum mass is reached.",
+    Status.EOS_ENDS: "The EOS ends at its highest pressure (a table's last row; for the spectral family "
+                     "x = ln(p/p0) = 10) before the maximum mass is reached.",
 }

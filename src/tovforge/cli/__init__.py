@@ -26,8 +26,11 @@ __all__ = ["app", "main"]
 
 _HELP = "Exact neutron-star structure, EOS-parameter grids, surrogates and exported evaluators."
 
+# rich_markup_mode=None: help in plain text, because rich markup would swallow every "[...]" of a help text
+# (the "[default: 32]" of options whose default depends on --quick, "tovforge[demo]") and show "<bool>" after
+# flags (issue 16)
 app = typer.Typer(help=_HELP, cls=OneLineErrors, no_args_is_help=True, add_completion=False,
-                  pretty_exceptions_enable=False)
+                  pretty_exceptions_enable=False, rich_markup_mode=None)
 
 
 def _version(value: bool):

@@ -15,7 +15,7 @@ __all__ = ["demo_cmd"]
 def demo_cmd(
     out: Annotated[Path, typer.Option("--out", help="Output folder (figures, tables, models, summary.md).",
                                       file_okay=False)] = Path("demo-output"),
-    quick: Annotated[bool, typer.Option("--quick", help="A smoke run well under a minute: 512 training points, "
+    quick: Annotated[bool, typer.Option("--quick", help="A smoke run of about a minute: 512 training points, "
                                                         "a short chain, 100 exact re-solves.")] = False,
     data: Annotated[Optional[Path], typer.Option("--data", help="Observations file (TOML; default: the invented "
                                                                 "demo data shipped with tovforge).",

@@ -12,7 +12,7 @@ from ._common import run, show_progress
 __all__ = ["app", "info_cmd", "run_cmd"]
 
 app = typer.Typer(help="Build, resume and inspect grids of exact solves over an EOS parameter box.",
-                  no_args_is_help=True)
+                  no_args_is_help=True, rich_markup_mode=None)
 
 
 @app.command("run")

@@ -22,6 +22,7 @@ app = typer.Typer(
     help="Lookup tables: one EOS's stable branch, observables over a parameter box, posterior samples, "
          "binary Lambda-tilde.  Formats by extension: .csv (units in the header), .h5, .npz.",
     no_args_is_help=True,
+    rich_markup_mode=None,
 )
 
 _OUT_HELP = "Table file: .csv, .h5 or .npz (chosen by the extension)."

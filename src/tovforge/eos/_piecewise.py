@@ -125,10 +125,20 @@ class PiecewisePolytrope(EOSFamily):
                     f"The 'gamma1' parameter of {self.name} must exceed the crust index "
                     f"{CRUST_GAMMA[3]} so that the core meets the crust. Got {t[1]:g} instead."
                 )
-            elif not (lo < r0 < CORE_RHO1_CGS):
+            elif not r0 > lo:
+                # the core pressure is too high at low density: it meets the crust inside the crust's last
+                # piece; the join density falls with log_p1 and rises with gamma1 (issue 16: one message
+                # served both cases and gave the wrong advice here)
                 msgs.append(
-                    f"log_p1={t[0]:g} with gamma1={t[1]:g} joins the crust at {r0:.3g} g/cm^3, outside the "
-                    f"allowed ({lo:.4g}, {CORE_RHO1_CGS:.4g}) g/cm^3; raise log_p1 or gamma1."
+                    f"log_p1={t[0]:g} with gamma1={t[1]:g} joins the crust at {r0:.3g} g/cm^3, below the "
+                    f"allowed ({lo:.4g}, {CORE_RHO1_CGS:.4g}) g/cm^3 (the core is too stiff at low density); "
+                    "lower log_p1 or raise gamma1."
+                )
+            elif not r0 < CORE_RHO1_CGS:
+                msgs.append(
+                    f"log_p1={t[0]:g} with gamma1={t[1]:g} joins the crust at {r0:.3g} g/cm^3, above the "
+                    f"allowed ({lo:.4g}, {CORE_RHO1_CGS:.4g}) g/cm^3 (the core pressure at 10^14.7 g/cm^3 is "
+                    "below the crust's); raise log_p1 or gamma1."
                 )
             else:
                 msgs.append("")

@@ -156,6 +156,10 @@ CONNECT_TIMEOUT_S = 10.0
 #: How often a chunk lost with its Dask workers is resubmitted before the run gives up.
 MAX_RESUBMITS = 3
 
+#: Share of a design's points breaking the family's rules above which ``run_grid`` warns (issue 16: the
+#: spectral family's former default box lost 81 % of its points to the Gamma rule, and nothing said so).
+INVALID_SHARE_WARNING = 0.25
+
 
 def _connect(scheduler: str):
     """A dask.distributed client of the scheduler at ``scheduler`` (one-line error if unreachable).
@@ -436,6 +440,19 @@ def _provenance(spec, manifest: dict) -> dict:
     )
 
 
+def _warn_if_mostly_invalid(spec, theta) -> None:
+    """Warn, before any solve, when more than :data:`INVALID_SHARE_WARNING` of the design is invalid."""
+    from .. import eos
+
+    messages = eos.get_family(spec.family).validate_rows(theta)
+    bad = [m for m in messages if m]
+    if len(bad) > INVALID_SHARE_WARNING * len(theta):
+        warnings.warn(f"{len(bad)} of {len(theta)} design points ({100 * len(bad) / len(theta):.0f} %) break the "
+                      f"rules of the {spec.family} family and will only be stored as invalid (status 1), for "
+                      f"example: {bad[0].rstrip('.')}.  Narrow [box] to where the family is valid "
+                      "(`tovforge families` shows its demo box).", stacklevel=3)
+
+
 def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = None, overwrite: bool = False,
              progress: bool = True, stream=None, oversubscribe: bool = False) -> RunSummary:
     """Solve every point of a grid spec and write the grid file ``out``.
@@ -502,6 +519,7 @@ def run_grid(spec, out, *, workers: int | None = None, scheduler: str | None = N
             return RunSummary(out, spec.n_points, spec.n_chunks, spec.n_chunks, 0, counts, digest,
                               time.monotonic() - t0, already_complete=True)
         theta = design_points(spec)
+        _warn_if_mostly_invalid(spec, theta)
         client = _connect(scheduler) if scheduler is not None else None
         told = Counter()
         try:

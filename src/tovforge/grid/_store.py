@@ -1,6 +1,6 @@
 """HDF5 storage of grids and of their chunks (h5py; readable without tovforge).
 
-Layout of a grid file (the README has the reader's version)::
+Layout of a grid file (docs/reference/grid-file.md has the reader's version)::
 
     /                         attributes: format = "tovforge-grid", format_version,
                               family, description, n_points, spec_json, spec_toml,

@@ -43,6 +43,11 @@ def train_on(data: TrainingData, kind: str = "gp", settings=None) -> Surrogate:
     Progress (kernels fitted, length scales, times) goes to the ``tovforge``
     logger at level INFO.
     """
+    n, d = np.shape(data.theta)
+    n_min = (d + 1) * (d + 2) // 2  # terms of the quadratic trend (GP) and of the RBF's polynomial
+    if n < n_min:  # issue 16: 11 points trained "successfully" (the GP's length scales at their bounds)
+        raise InputError(f"training needs at least {n_min} usable points for {d} parameters (the quadratic "
+                         f"trend has {n_min} terms); the grid has {n}: run a grid with more points.")
     m = resolve(kind, data)
     if settings is None:
         settings = m.settings()

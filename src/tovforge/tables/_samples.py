@@ -401,9 +401,19 @@ def _plot_band(path, model, theta, masses, mass_max, label, overwrite):
     ax.plot(med[show], grid[show], color="tab:blue", lw=2, label="median R(M)")
     ax.axhspan(mq["p05"], mq["p95"], color="tab:red", alpha=0.12, lw=0, label="90 % band of M_max")
     ax.axhline(mq["median"], color="tab:red", lw=1, ls="--", label="median M_max")
+    # the band at a mass is over the samples whose M_max exceeds it: say how many those are (issue 16)
+    thin = np.flatnonzero(show & (frac < 0.5))
+    if thin.size:
+        ax.axhline(grid[thin[0]], color="grey", lw=0.8, ls="-.",
+                   label=f"above {grid[thin[0]]:.2f} Msun: band over the < 50 % of samples reaching M")
+    share = ax.twiny()
+    share.plot(100.0 * frac, grid, color="0.45", lw=1, ls=":")
+    share.set_xlim(0.0, 100.0)
+    share.set_xlabel("samples with a star of mass M [%] (grey dotted line)", fontsize=8, color="0.35")
+    share.tick_params(labelsize=7, colors="0.35")
     ax.set_xlabel("R [km]")
     ax.set_ylabel("M [Msun]")
-    ax.set_title(f"{len(theta)} samples, {model.kind} model" + (f" (every {stride}th)" if stride > 1 else ""),
+    fig.suptitle(f"{len(theta)} samples, {model.kind} model" + (f" (every {stride}th)" if stride > 1 else ""),
                  fontsize=10)
     ax.legend(loc="lower left", fontsize=8)
     fig.text(0.01, 0.005, f"model: {label}", fontsize=6, color="0.4")

@@ -71,3 +71,23 @@ def test_validate_rows_reports_without_raising():
     msgs = fam.validate_rows(theta)
     assert msgs[0] == ""
     assert "gamma1" in msgs[1] and "gamma2" in msgs[2]
+
+
+@pytest.mark.parametrize("theta, advice, step", [
+    ((35.0, 2.0, 3.0, 3.0), "lower log_p1 or raise gamma1", -1),  # joins the crust too low (issue 16)
+    ((33.5, 2.0, 3.0, 3.0), "raise log_p1 or gamma1", +1),        # joins the crust above 10^14.7 g/cm^3
+])
+def test_crust_join_advice_is_the_direction_that_solves_it(theta, advice, step):
+    """Issue 16: 'raise log_p1 or gamma1' was given for both failures; for log_p1=35, gamma1=2 raising
+    log_p1 makes it worse.  Each message's advice, followed along log_p1 alone, reaches a valid EOS;
+    the other direction does not."""
+    fam = eos.get_family("piecewise-polytrope")
+    msg = fam.validate_rows(np.array([theta]))[0]
+    assert msg.endswith(advice + ".") and "log_p1=" in msg
+    moved = np.array([theta] * 8)
+    moved[:, 0] += step * 0.05 * np.arange(1, 9)  # log_p1 in steps of 0.05 the advised way
+    assert any(m == "" for m in fam.validate_rows(moved))
+    against = np.array([theta] * 8)
+    against[:, 0] -= step * 0.05 * np.arange(1, 9)
+    against = against[(against[:, 0] >= 33) & (against[:, 0] <= 36)]
+    assert all(m != "" for m in fam.validate_rows(against))

@@ -152,3 +152,24 @@ def test_plot_is_a_png(samples_run):
 
 def test_band_path():
     assert band_path("a/post.csv").as_posix() == "a/post.band.csv"
+
+
+def test_plot_says_how_many_samples_reach_each_mass(tmp_path, monkeypatch):
+    """Issue 16: above ~1.8 Msun the band covers only the samples whose M_max exceeds the mass, silently."""
+    import matplotlib.pyplot as plt
+
+    from tovforge.tables._samples import _plot_band
+
+    kept = []
+    monkeypatch.setattr(plt, "close", lambda fig=None: kept.append(fig))
+    model = tiny_model("spline")
+    th = _theta(60, seed=1)
+    _plot_band(tmp_path / "p.png", model, th, [1.2, 1.4], None, "test", overwrite=False)
+    monkeypatch.undo()
+    fig = kept[-1]
+    share = next(ax for ax in fig.axes if "samples with a star of mass M" in ax.get_xlabel())
+    x, y = share.lines[0].get_data()
+    mm = model.mass_max(th).value
+    j = len(y) // 2
+    assert x[j] == pytest.approx(100.0 * np.mean(mm >= y[j]), abs=1e-9)  # the share drawn is the share reaching M
+    plt.close(fig)

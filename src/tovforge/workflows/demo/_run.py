@@ -238,7 +238,8 @@ def _run_demo(out, settings) -> DemoResult:
                                               "bands and likelihoods compared",
                             compare_with_exact, s, sampling, timing, checks.reports[s.sampler_model])
     stages.begin(8, "figures", "corner plot, M-R and Lambda bands with the observations, chain traces, summary.md")
-    figures = draw_figures(out, inputs, s.sampler_model, grids.names, ev.BOUNDS, sampling, comparison, s.n_burn)
+    figures = draw_figures(out, inputs, s.sampler_model, grids.names, ev.BOUNDS, sampling, comparison, s.n_burn,
+                           units=ev.UNITS)
     files = {**checks.files, **exports.files, **sampling.files, **figures.files}
     stages.end("figures")
     numbers = {**prov, "settings": settings_numbers(s), "stages_seconds": stages.seconds, "grids": grids.numbers,

@@ -179,6 +179,11 @@ def train_models(settings, grids: Grids, out: Path) -> Training:
     data = _subset(read_training_data(grids.paths["train"]), settings.n_train)
     models = {}
     for kind in KINDS:
+        # said before the fit: the GP's kernels are fitted in parallel and listed only when all are done,
+        # which left the demo silent for up to a minute and a half (issue 16)
+        say(f"  {kind:<7}training on {len(data.theta)} points ..."
+            + (" (the GP's kernel groups are fitted in parallel and listed when all are done)" if kind == "gp"
+               else ""))
         t0 = time.perf_counter()
         model = train_on(data, kind, gp if kind == "gp" else None)
         (out / "models").mkdir(exist_ok=True)

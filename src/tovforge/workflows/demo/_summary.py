@@ -42,14 +42,17 @@ class Summary:
     numbers: dict
 
 
-def draw_figures(out: Path, inputs, sampler_model: str, names, bounds, sampling, comparison, n_burn: int) -> Figures:
+def draw_figures(out: Path, inputs, sampler_model: str, names, bounds, sampling, comparison, n_burn: int,
+                 units=None) -> Figures:
     """Corner plot, mass-radius and Lambda bands with the observations, chain traces."""
     obs, chain, cc = inputs.obs, sampling.chain, comparison.cc
     title = (f"{len(chain.samples)} posterior samples, exported {sampler_model} evaluator; data: "
              f"{'INVENTED (demo)' if 'invent' in obs.note.lower() else obs.path.name}")
-    exact_band = {"mass": cc.masses, "n": cc.n_samples, **{k: cc.exact[k] for k in ("median", "p05", "p95")}}
+    # the exact band and the emulated band over the same re-solved samples, beside the band of all samples
+    exact_band = {"mass": cc.masses, "n": cc.n_samples, **{k: cc.exact[k] for k in ("median", "p05", "p95")},
+                  **{f"emulated_{k}": cc.emulated[k] for k in ("median", "p05", "p95")}}
     return Figures({
-        "corner": corner_plot(out / "corner.png", chain.samples, names, bounds, inputs.marker, title),
+        "corner": corner_plot(out / "corner.png", chain.samples, names, bounds, inputs.marker, title, units),
         "mass_radius": band_plot(out / "mass_radius.png", sampling.band, exact_band, obs, inputs.generator_curve,
                                  title),
         "trace": trace_plot(out / "trace.png", chain.chain, names, n_burn),
