@@ -94,45 +94,172 @@ def _library_shift(data):
     return sh if np.isfinite(sh).any() else None
 
 
-def cmd_pu(a):
+def auto_cells(n, s, per_cell=256):
+    """Cells per parameter: split the parameter of largest stretch per cell until cells hold ~per_cell points."""
+    cells = np.ones(len(s), dtype=int)
+    while n / np.prod(cells) > 1.5 * per_cell:
+        i = int(np.argmax(np.asarray(s) / cells))
+        cells[i] += 1
+    return tuple(int(c) for c in cells)
+
+
+def make_warp(a, data, Z, index, slices):
     import proto
+
+    shift = _library_shift(data) if a.warp in ("library", "library+learned", "libstretch") else None
+    if a.warp in ("learned", "library+learned"):
+        warp, _ = proto.learn_warp(data.theta, Z, data.bounds, _weights(index, slices), n_sub=a.n_sub,
+                                   log_shift=shift, learn_k=not a.no_k, log=print)
+        return warp
+    warp = proto.Warp(data.bounds[:, 0], data.bounds[:, 1], np.zeros(len(data.bounds)),
+                      np.ones(len(data.bounds)), shift)
+    if a.warp == "libstretch":  # the library RBF's stretch: l_min / l_i of one GP on 256 points
+        from tovforge.surrogate._fit import SplineSettings, _anisotropy
+        warp.s = _anisotropy(warp(data.theta), Z, slices, SplineSettings())[0]
+        print("library stretch", np.round(warp.s, 3))
+    if a.scale:
+        warp.s = np.array(a.scale, float)
+    return warp
+
+
+def fit_pu(a, theta, Y, warp, log=print):
+    """PU-RBF and its LOO error model on (theta, Y); returns predict(theta) -> (y, sd) and the parts."""
+    import proto
+
+    mu, sd = Y.mean(0), np.where(Y.std(0) > 0, Y.std(0), 1.0)
+    Z = (Y - mu) / sd
+    X = warp(theta)
+    cells = tuple(a.cells) if a.cells else auto_cells(len(X), warp.s, a.per_cell)
+    pu = proto.PURBF.fit(X, Z, cells, overlap=a.overlap, margin=a.margin, degree=a.degree, loo=True, log=log)
+    if a.err == "knn":
+        em = proto.ErrorModel.fit(X, pu.loo, k=a.k_err, target=a.err_target)
+    else:
+        em = proto.SmoothErrorModel.fit(X, pu.loo, h=a.err_h, target=a.err_target)
+
+    def predict(th):
+        x = warp(th)
+        return mu + sd * pu.predict(x), sd * em(x)
+
+    return predict, pu, em, cells
+
+
+def cmd_pu(a):
     from harness import evaluate, runtime_view, table
 
     data = load_train(a.box, a.n)
     Y, index, slices = data.output_matrix()
-    mu, sd = Y.mean(0), np.where(Y.std(0) > 0, Y.std(0), 1.0)
-    Z = (Y - mu) / sd
+    Z = (Y - Y.mean(0)) / np.where(Y.std(0) > 0, Y.std(0), 1.0)
     t0 = time.perf_counter()
-    shift = _library_shift(data) if a.warp in ("library", "library+learned") else None
-    if a.warp in ("learned", "library+learned"):
-        warp, _ = proto.learn_warp(data.theta, Z, data.bounds, _weights(index, slices), n_sub=a.n_sub,
-                                   log_shift=shift, learn_k=not a.no_k, log=print)
-    else:
-        warp = proto.Warp(data.bounds[:, 0], data.bounds[:, 1], np.zeros(len(data.bounds)),
-                          np.ones(len(data.bounds)), shift)
-        if a.scale:
-            warp.s = np.array(a.scale, float)
+    warp = make_warp(a, data, Z, index, slices)
     t_warp = time.perf_counter() - t0
-    X = warp(data.theta)
-    cells = tuple(a.cells) if a.cells else (1,) * X.shape[1]
-    pu = proto.PURBF.fit(X, Z, cells, overlap=a.overlap, margin=a.margin, loo=True, log=print)
+    predict, pu, em, cells = fit_pu(a, data.theta, Y, warp)
     secs = time.perf_counter() - t0
-    em = proto.ErrorModel.fit(X, pu.loo, k=a.k_err)
     ho = holdout(a.box)
-
-    def predict(theta):
-        x = warp(theta)
-        return mu + sd * pu.predict(x), sd * em(x)
-
     m = runtime_view(data.u_nodes, slices, index["mass_max_msun"])
     res = evaluate(predict, m, ho)
     ppp = pu.patches_per_point(warp(ho.theta))
-    label = (f"pu {a.box} n={len(data.theta)} warp={a.warp} cells={cells} ov={a.overlap} mg={a.margin}")
+    label = (f"pu {a.box} n={len(data.theta)} warp={a.warp} cells={cells} ov={a.overlap} mg={a.margin} "
+             f"deg={a.degree} {a.tag}")
     print(table(res, f"{label} ({secs:.0f} s; warp {t_warp:.0f} s; patches {pu.stats['patch_sizes']}, "
                      f"stored rows {pu.stats['stored_rows']}, patches/query {ppp.mean():.2f})"))
+    if a.worst:
+        _show_worst(predict, m, ho, a.worst)
     record(label, res, {"box": a.box, "kind": "pu", "n_train": len(data.theta), "train_seconds": secs,
                         "warp_k": warp.k.tolist(), "warp_s": warp.s.tolist(), "pu": pu.stats,
                         "patches_per_query": float(ppp.mean())})
+
+
+GOALS = {"mass_max": 0.002, "radius": 0.010, "log_lambda": 0.005}
+
+
+def _score(sd_nodes, index, slices):
+    """Largest node sigma in units of the goals (M_max, R, ln Lambda)."""
+    im = index["mass_max_msun"]
+    sc = sd_nodes[:, im] / GOALS["mass_max"]
+    sc = np.maximum(sc, sd_nodes[:, slice(*slices[0])].max(1) / GOALS["radius"])
+    return np.maximum(sc, sd_nodes[:, slice(*slices[1])].max(1) / GOALS["log_lambda"])
+
+
+def cmd_adaptive(a):
+    """Designs chosen from the solved pool (the box's largest Sobol grid): stages of error-driven picks."""
+    from scipy.spatial import cKDTree
+
+    from harness import evaluate, runtime_view, table
+
+    pool = load_train(a.box, a.pool)
+    Y, index, slices = pool.output_matrix()
+    ho = holdout(a.box)
+    m = runtime_view(pool.u_nodes, slices, index["mass_max_msun"])
+    first = load_train(a.box, a.n0)
+    chosen = np.arange(len(first.theta))  # the Sobol prefix is the start of the pool (same rows, same filter)
+    assert np.array_equal(pool.theta[chosen], first.theta)
+    Z = (Y - Y.mean(0)) / np.where(Y.std(0) > 0, Y.std(0), 1.0)
+    sub = type(pool)(**{**pool.__dict__, "theta": pool.theta[chosen]})
+    warp = make_warp(a, sub, Z[chosen], index, slices)
+    t0 = time.perf_counter()
+    if a.static_faces:  # no error model: uniform picks among pool points within static_faces of a face
+        unit = (pool.theta - pool.bounds[:, 0]) / (pool.bounds[:, 1] - pool.bounds[:, 0])
+        near = np.flatnonzero(np.any((unit < a.static_faces) | (unit > 1 - a.static_faces), axis=1))
+        near = np.setdiff1d(near, chosen)
+        pick = np.random.default_rng(0).choice(near, a.stages * a.add, replace=False)
+        chosen = np.concatenate([chosen, pick])
+    for stage in range(0 if a.static_faces else a.stages):
+        predict, pu, em, cells = fit_pu(a, pool.theta[chosen], Y[chosen], warp, log=None)
+        rest = np.setdiff1d(np.arange(len(pool.theta)), chosen)
+        xr = warp(pool.theta[rest])
+        sd_nodes = em(xr) * np.where(Y.std(0) > 0, Y.std(0), 1.0)
+        score = _score(sd_nodes, index, slices)
+        xc = warp(pool.theta[chosen])
+        tree = cKDTree(xc)
+        if a.distance:
+            dnn = tree.query(xr, 1)[0]
+            score = score * (dnn / np.median(dnn)) ** a.distance
+        # greedy with damping around each pick (nearest-neighbour spacing of the current design)
+        spacing = np.median(tree.query(xc, 2)[0][:, 1])
+        picks = []
+        sc = score.copy()
+        for _ in range(a.add):
+            i = int(np.argmax(sc))
+            picks.append(i)
+            d2 = np.sum((xr - xr[i]) ** 2, axis=1)
+            sc = sc * (1.0 - np.exp(-d2 / (a.damp * spacing) ** 2))
+            sc[i] = -np.inf
+        chosen = np.concatenate([chosen, rest[np.array(picks)]])
+        print(f"stage {stage + 1}: +{len(picks)} points -> {len(chosen)}; picked score median "
+              f"{np.median(score[picks]):.3g} vs pool median {np.median(score):.3g}", flush=True)
+    predict, pu, em, cells = fit_pu(a, pool.theta[chosen], Y[chosen], warp)
+    secs = time.perf_counter() - t0
+    res = evaluate(predict, m, ho)
+    label = (f"adaptive {a.box} n0={a.n0} +{a.stages}x{a.add} -> {len(chosen)} damp={a.damp} dist={a.distance} "
+             f"{a.tag}")
+    print(table(res, f"{label} ({secs:.0f} s)"))
+    if a.worst:
+        _show_worst(predict, m, ho, a.worst)
+    unit = (pool.theta[chosen] - pool.bounds[:, 0]) / (pool.bounds[:, 1] - pool.bounds[:, 0])
+    print("added points: unit-box mean", np.round(unit[a.n0:].mean(0), 2), "share within 3 % of a face",
+          np.round(np.mean(np.any((unit[a.n0:] < 0.03) | (unit[a.n0:] > 0.97), axis=1)), 3))
+    record(label, res, {"box": a.box, "kind": "pu-adaptive", "n_train": len(chosen), "train_seconds": secs})
+
+
+def _show_worst(predict, m, ho, k):
+    """The k largest R(M) errors: parameters (unit box), M_max, M, error, sigma."""
+    from harness import GAP, MASS_LOW
+
+    from tovforge.surrogate import _runtime as rt
+
+    y, sd = predict(ho.theta)
+    R, _, sR = rt.curve_at_mass(np, m, y, None, sd, ho.masses, "radius_km")
+    sel = (ho.masses[None, :] >= MASS_LOW) & (ho.masses[None, :] <= ho.mass_max[:, None] - GAP) & np.isfinite(ho.radius)
+    e = np.where(sel, np.abs(R - ho.radius), -1)
+    unit = (ho.theta - ho.box[:, 0]) / (ho.box[:, 1] - ho.box[:, 0])
+    flat = np.argsort(e, axis=None)[::-1][:k]
+    for f in flat:
+        i, j = np.unravel_index(f, e.shape)
+        im = int(m["i_mass_max"])
+        print(f"  unit {np.round(unit[i], 3)} face {bool(ho.is_face[i])} Mmax {ho.mass_max[i]:.3f} (err "
+              f"{y[i, im] - ho.mass_max[i]:+.1e}, sd {sd[i, im] if sd is not None else 0:.1e}) M {ho.masses[j]:.1f} "
+              f"R {ho.radius[i, j]:.3f} err {1000 * (R[i, j] - ho.radius[i, j]):+.0f} m sd "
+              f"{1000 * sR[i, j] if sR is not None else 0:.0f} m")
 
 
 def main(argv=None):
@@ -143,19 +270,38 @@ def main(argv=None):
     b.add_argument("--kind", default="gp", choices=("gp", "spline"))
     b.add_argument("--n", type=int, default=4096)
     b.add_argument("--save", action="store_true")
-    p = sub.add_parser("pu")
+    ad = sub.add_parser("adaptive")
+    ad.add_argument("--pool", type=int, default=32768)
+    ad.add_argument("--n0", type=int, default=2048)
+    ad.add_argument("--stages", type=int, default=2)
+    ad.add_argument("--add", type=int, default=1024)
+    ad.add_argument("--damp", type=float, default=1.0)
+    ad.add_argument("--distance", type=float, default=0.0)
+    ad.add_argument("--static-faces", type=float, default=0.0)
+    for p in (sub.add_parser("pu"), ad):
+        _pu_args(p)
+    a = ap.parse_args(argv)
+    {"baseline": cmd_baseline, "pu": cmd_pu, "adaptive": cmd_adaptive}[a.cmd](a)
+
+
+def _pu_args(p):
     p.add_argument("box", choices=BOXES)
     p.add_argument("--n", type=int, default=4096)
     p.add_argument("--cells", type=int, nargs="*")
     p.add_argument("--overlap", type=float, default=0.15)
     p.add_argument("--margin", type=float, default=0.25)
-    p.add_argument("--warp", default="learned", choices=("none", "library", "learned", "library+learned"))
+    p.add_argument("--warp", default="learned", choices=("none", "library", "learned", "library+learned", "libstretch"))
     p.add_argument("--no-k", action="store_true", help="learn the scales only")
     p.add_argument("--scale", type=float, nargs="*")
     p.add_argument("--n-sub", type=int, default=1200)
     p.add_argument("--k-err", type=int, default=12)
-    a = ap.parse_args(argv)
-    {"baseline": cmd_baseline, "pu": cmd_pu}[a.cmd](a)
+    p.add_argument("--worst", type=int, default=0)
+    p.add_argument("--per-cell", type=int, default=256)
+    p.add_argument("--degree", type=int, default=2)
+    p.add_argument("--tag", default="")
+    p.add_argument("--err", default="knn", choices=("knn", "smooth"))
+    p.add_argument("--err-h", type=float, default=1.5)
+    p.add_argument("--err-target", type=float, default=0.005)
 
 
 if __name__ == "__main__":

@@ -156,6 +156,18 @@ def evaluate(predict, m, ho: HeldOut, margin_msun=0.02, boot=True) -> dict:
                       "lambda": float(np.mean(zL[ok & face] > 3)) if (ok & face).any() else np.nan}}
         # margin from the GP: M_max - 3 sigma above the truth
         out["mass_max_minus_3sigma_above_true"] = float(np.mean(mm - 3 * sd[:, im] > ho.mass_max))
+        # sharpness: median sigma over median error (1.0 for a well-scaled Gaussian is about 1.48)
+        out["sigma_over_err_median"] = {"radius": float(np.median(sR[ok]) / np.median(eR[ok] / 1000.0)),
+                                        "lambda": float(np.median(sL[ok] / L[ok]) / np.median(eL[ok] / 100.0))}
+        # a trust flag: sigma_R > 50 m or sigma_Lambda > 2 % (the floors), or M within max(0.02, 3 sigma) of M_max
+        gapM = np.maximum(0.02, 3.0 * sd[:, im])[:, None]
+        flag = (sR > 0.05) | (sL / L > 0.02) | (ho.masses[None, :] > mm[:, None] - gapM)
+        bigR, bigL = ok & (eR > 150.0), ok & (eL > 5.0)
+        out["flag"] = {"flagged_share": float(np.mean(flag[ok])),
+                       "R_gt150m": int(bigR.sum()), "R_gt150m_flagged": int((bigR & flag).sum()),
+                       "L_gt5pct": int(bigL.sum()), "L_gt5pct_flagged": int((bigL & flag).sum()),
+                       "unflagged": {"radius_m": percentiles(eR[ok & ~flag]),
+                                     "lambda_pct": percentiles(eL[ok & ~flag])}}
     # where the worst 1 % (EOS by largest R error) sit, in unit coordinates of the box
     worstR = np.where(ok, eR, -np.inf).max(axis=1)
     k = max(1, int(round(0.01 * n)))
@@ -189,6 +201,14 @@ def table(res: dict, label: str = "") -> str:
         z = res["z_gt3"]
         rows.append("|z|>3: all M {mass_max:.3f} R {radius:.3f} L {lambda:.3f}".format(**z["all"])
                     + "   faces M {mass_max:.3f} R {radius:.3f} L {lambda:.3f}".format(**z["faces"]))
+    if "flag" in res:
+        f = res["flag"]
+        u = f["unflagged"]
+        rows.append(f"sigma/err medians R {res['sigma_over_err_median']['radius']:.2f} L "
+                    f"{res['sigma_over_err_median']['lambda']:.2f}; trust flag: {f['flagged_share']:.3f} of stars "
+                    f"flagged; R > 150 m flagged {f['R_gt150m_flagged']}/{f['R_gt150m']}, Lambda > 5 % flagged "
+                    f"{f['L_gt5pct_flagged']}/{f['L_gt5pct']}; unflagged R p99/max {u['radius_m']['p99']:.3g}/"
+                    f"{u['radius_m']['max']:.3g} m, Lambda {u['lambda_pct']['p99']:.3g}/{u['lambda_pct']['max']:.3g} %")
     rows.append(f"emulated M_max > true: {res['mass_max_above_true']:.3f}; > true + 0.02: "
                 f"{res['mass_max_above_true_minus_margin']:.4f}"
                 + (f"; M_max - 3 sigma > true: {res['mass_max_minus_3sigma_above_true']:.4f}"

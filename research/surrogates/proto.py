@@ -33,7 +33,7 @@ import scipy.linalg
 
 from tovforge.surrogate._fit import trend_powers
 
-__all__ = ["Warp", "rbf_fit", "rbf_eval", "PURBF", "ErrorModel", "learn_warp", "loo_objective"]
+__all__ = ["Warp", "rbf_fit", "rbf_eval", "PURBF", "ErrorModel", "SmoothErrorModel", "learn_warp", "loo_objective"]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -267,6 +267,47 @@ class ErrorModel:
         w = 1.0 / (dist + 1e-12 + dist[:, :1]) ** 2
         w /= w.sum(1, keepdims=True)
         return np.sqrt(np.einsum("nk,nko->no", w, self.E2[idx]))
+
+    def __call__(self, x):
+        return self._raw(x) * self.scale
+
+
+@dataclass
+class SmoothErrorModel:
+    """sigma(x) per output: Gaussian-kernel (Nadaraya-Watson) average of squared LOO residuals, calibrated.
+
+    Smooth in x (differentiable, no neighbour search), bandwidth ``h`` times the median
+    nearest-neighbour spacing of the training points.
+    """
+
+    X: np.ndarray
+    E2: np.ndarray
+    bw: float
+    scale: np.ndarray
+    floor: np.ndarray
+
+    @staticmethod
+    def fit(X, loo, h=1.5, target=0.005):
+        from scipy.spatial import cKDTree
+
+        spacing = float(np.median(cKDTree(X).query(X, 2)[0][:, 1]))
+        e2 = loo ** 2
+        em = SmoothErrorModel(X, e2, h * spacing, np.ones(loo.shape[1]), 0.1 * np.sqrt(np.median(e2, axis=0)))
+        raw = em._raw(X, skip_self=True)
+        z = np.abs(loo) / raw
+        em.scale = np.quantile(z, 1.0 - target, axis=0) / 3.0
+        return em
+
+    def _raw(self, x, skip_self=False, block=2048):
+        out = np.empty((len(x), self.E2.shape[1]))
+        for s in range(0, len(x), block):
+            xb = x[s:s + block]
+            d2 = np.sum(xb * xb, 1)[:, None] + np.sum(self.X ** 2, 1)[None, :] - 2 * xb @ self.X.T
+            K = np.exp(-0.5 * np.maximum(d2, 0.0) / self.bw ** 2)
+            if skip_self:
+                K[np.arange(len(xb)), np.arange(s, s + len(xb))] = 0.0
+            out[s:s + block] = (K @ self.E2) / np.maximum(K.sum(1), 1e-300)[:, None]
+        return np.sqrt(out + self.floor ** 2)
 
     def __call__(self, x):
         return self._raw(x) * self.scale
