@@ -103,10 +103,12 @@ def auto_cells(n, s, per_cell=256):
     return tuple(int(c) for c in cells)
 
 
-def make_warp(a, data, Z, index, slices):
+def make_warp(a, data, Z, index, slices, cols=None):
     import proto
 
     shift = _library_shift(data) if a.warp in ("library", "library+learned", "libstretch") else None
+    if a.log_all:  # ln(theta - log_all_shift) for every parameter (e.g. ln c_s^2)
+        shift = np.full(len(data.bounds), a.log_all_shift)
     if a.warp in ("learned", "library+learned"):
         warp, _ = proto.learn_warp(data.theta, Z, data.bounds, _weights(index, slices), n_sub=a.n_sub,
                                    log_shift=shift, learn_k=not a.no_k, log=print)
@@ -115,11 +117,143 @@ def make_warp(a, data, Z, index, slices):
                       np.ones(len(data.bounds)), shift)
     if a.warp == "libstretch":  # the library RBF's stretch: l_min / l_i of one GP on 256 points
         from tovforge.surrogate._fit import SplineSettings, _anisotropy
-        warp.s = _anisotropy(warp(data.theta), Z, slices, SplineSettings())[0]
+        if cols is not None:
+            sl = None
+            warp.s = _anisotropy(warp(data.theta), Z[:, cols], np.array([[0, len(cols)]]), SplineSettings())[0]
+        elif a.stretch_on == "curves":
+            sl = slices
+        elif a.stretch_on == "mmax":
+            im = index["mass_max_msun"]
+            sl = np.array([[im, im + 1]])
+        else:
+            sl = np.array([[0, Z.shape[1]]])
+        if sl is not None:
+            warp.s = _anisotropy(warp(data.theta), Z, sl, SplineSettings())[0]
         print("library stretch", np.round(warp.s, 3))
     if a.scale:
         warp.s = np.array(a.scale, float)
     return warp
+
+
+def _loo_score(loo_phys, cols, index, slices):
+    """Sum over M_max, R nodes, ln Lambda nodes (those among ``cols``) of log p95 + log p99 of |LOO| / goal."""
+    goal = {}
+    goal[index["mass_max_msun"]] = GOALS["mass_max"]
+    for c in range(*slices[0]):
+        goal[c] = GOALS["radius"]
+    for c in range(*slices[1]):
+        goal[c] = GOALS["log_lambda"]
+    total = 0.0
+    for group in ([index["mass_max_msun"]], list(range(*slices[0])), list(range(*slices[1]))):
+        g = [cols.index(c) for c in group if c in cols]
+        if not g:
+            continue
+        e = np.abs(loo_phys[:, g]) / np.array([goal[cols[i]] for i in g])
+        total += np.log(np.percentile(e, 95)) + np.log(np.percentile(e, 99))
+    return float(total)
+
+
+def select_warp_loo(a, data, Y, cols, index, slices, candidates=(None, 1.0, 0.3, 0.1, 0.03), log=print):
+    """Per-parameter warp ln(theta - lo + c (hi - lo)), chosen coordinate-wise by the PU model's own LOO
+    residuals on all training points (p95 + p99 in goal units); the stretch of each candidate from one GP."""
+    import proto
+
+    from tovforge.surrogate._fit import MIN_STRETCH, SplineSettings, _anisotropy
+
+    d = data.theta.shape[1]
+    lo, hi = data.bounds[:, 0].astype(float), data.bounds[:, 1].astype(float)
+    sd = np.where(Y.std(0) > 0, Y.std(0), 1.0)
+    Z = (Y - Y.mean(0)) / sd
+
+    def evaluate(cs):
+        shift = np.array([np.nan if c is None else l - c * (h - l) for c, l, h in zip(cs, lo, hi)])
+        w = proto.Warp(lo, hi, np.zeros(d), np.ones(d), shift if np.isfinite(shift).any() else None)
+        import warnings
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            w.s = _anisotropy(w(data.theta), Z[:, cols], np.array([[0, len(cols)]]), SplineSettings())[0]
+        X = w(data.theta)
+        cells = auto_cells(len(X), w.s, a.per_cell)
+        pu = proto.PURBF.fit(X, Z[:, cols], cells, overlap=a.overlap, margin=a.margin, degree=a.degree, loo=True)
+        return _loo_score(pu.loo * sd[cols], cols, index, slices), w
+
+    t0 = time.perf_counter()
+    cs = [None] * d
+    best, wbest = evaluate(cs)
+    for i in range(d):
+        for c in candidates:
+            if c == cs[i]:
+                continue
+            trial = list(cs)
+            trial[i] = c
+            v, w = evaluate(trial)
+            if v < best - 0.05:
+                best, wbest, cs = v, w, trial
+    if log:
+        log(f"select_warp_loo: c = {cs}, score {best:.2f}, stretch {np.round(wbest.s, 3)}, "
+            f"{time.perf_counter() - t0:.0f} s")
+    return wbest, cs
+
+
+def fit_pu_groups(a, data, Y, index, slices, log=print):
+    """PU-RBF per output group, each with its own warp and stretch (``--groups two``: scalars | curves)."""
+    import proto
+
+    Z = (Y - Y.mean(0)) / np.where(Y.std(0) > 0, Y.std(0), 1.0)
+    if a.groups == "two":
+        groups = [list(range(slices[0][0])), list(range(slices[0][0], Y.shape[1]))]
+    elif a.groups == "three":  # scalars | first half of the u nodes of every curve | second half
+        half = [(int(a0), int(a0 + (b0 - a0) // 2), int(b0)) for a0, b0 in slices]
+        groups = [list(range(slices[0][0])), [c for a0, h, _ in half for c in range(a0, h)],
+                  [c for _, h, b0 in half for c in range(h, b0)]]
+    else:
+        groups = [list(range(Y.shape[1]))]
+    parts = []
+    warps = getattr(a, "_warps", None) or {}
+    for g, cols in enumerate(groups):
+        if g in warps:
+            warp = warps[g]
+        elif a.warp == "select":
+            warp, cs = proto.select_warp(data.theta, Z, data.bounds, cols, n_sub=a.sel_sub, log=log)
+        elif a.warp == "selectloo":
+            warp, cs = select_warp_loo(a, data, Y, cols, index, slices, log=log)
+        else:
+            warp = make_warp(a, data, Z, index, slices, cols if a.groups != "one" else None)
+        warps[g] = warp
+        pred, pu, em, cells = fit_pu(a, data.theta, Y[:, cols], warp, log=log)
+        parts.append((cols, pred, pu, warp))
+
+    a._warps = warps
+
+    def predict(th):
+        y = np.empty((len(th), Y.shape[1]))
+        s = np.empty_like(y)
+        for cols, pred, _, _ in parts:
+            y[:, cols], s[:, cols] = pred(th)
+        return y, s
+
+    return predict, parts
+
+
+def cmd_pug(a):
+    """PU-RBF with per-group warps and stretches."""
+    from harness import evaluate, runtime_view, table
+
+    data = load_train(a.box, a.n)
+    Y, index, slices = data.output_matrix()
+    t0 = time.perf_counter()
+    predict, parts = fit_pu_groups(a, data, Y, index, slices)
+    secs = time.perf_counter() - t0
+    ho = holdout(a.box)
+    m = runtime_view(data.u_nodes, slices, index["mass_max_msun"])
+    res = evaluate(predict, m, ho)
+    label = f"pug {a.box} n={len(data.theta)} warp={a.warp} groups={a.groups} {a.tag}"
+    print(table(res, f"{label} ({secs:.0f} s)"))
+    if a.worst:
+        _show_worst(predict, m, ho, a.worst)
+    record(label, res, {"box": a.box, "kind": "pug", "n_train": len(data.theta), "train_seconds": secs,
+                        "warps": [(p[3].log_shift.tolist() if p[3].log_shift is not None else None, p[3].s.tolist())
+                                  for p in parts]})
 
 
 def fit_pu(a, theta, Y, warp, log=print):
@@ -193,9 +327,11 @@ def cmd_adaptive(a):
     first = load_train(a.box, a.n0)
     chosen = np.arange(len(first.theta))  # the Sobol prefix is the start of the pool (same rows, same filter)
     assert np.array_equal(pool.theta[chosen], first.theta)
-    Z = (Y - Y.mean(0)) / np.where(Y.std(0) > 0, Y.std(0), 1.0)
-    sub = type(pool)(**{**pool.__dict__, "theta": pool.theta[chosen]})
-    warp = make_warp(a, sub, Z[chosen], index, slices)
+    import dataclasses
+
+    def subset(rows):
+        return dataclasses.replace(pool, theta=pool.theta[rows])
+
     t0 = time.perf_counter()
     if a.static_faces:  # no error model: uniform picks among pool points within static_faces of a face
         unit = (pool.theta - pool.bounds[:, 0]) / (pool.bounds[:, 1] - pool.bounds[:, 0])
@@ -204,10 +340,11 @@ def cmd_adaptive(a):
         pick = np.random.default_rng(0).choice(near, a.stages * a.add, replace=False)
         chosen = np.concatenate([chosen, pick])
     for stage in range(0 if a.static_faces else a.stages):
-        predict, pu, em, cells = fit_pu(a, pool.theta[chosen], Y[chosen], warp, log=None)
+        predict, parts = fit_pu_groups(a, subset(chosen), Y[chosen], index, slices, log=None)
+        warp = parts[-1][3]  # the curves' metric steers distances and damping
         rest = np.setdiff1d(np.arange(len(pool.theta)), chosen)
         xr = warp(pool.theta[rest])
-        sd_nodes = em(xr) * np.where(Y.std(0) > 0, Y.std(0), 1.0)
+        sd_nodes = predict(pool.theta[rest])[1]
         score = _score(sd_nodes, index, slices)
         xc = warp(pool.theta[chosen])
         tree = cKDTree(xc)
@@ -227,7 +364,7 @@ def cmd_adaptive(a):
         chosen = np.concatenate([chosen, rest[np.array(picks)]])
         print(f"stage {stage + 1}: +{len(picks)} points -> {len(chosen)}; picked score median "
               f"{np.median(score[picks]):.3g} vs pool median {np.median(score):.3g}", flush=True)
-    predict, pu, em, cells = fit_pu(a, pool.theta[chosen], Y[chosen], warp)
+    predict, parts = fit_pu_groups(a, subset(chosen), Y[chosen], index, slices, log=None)
     secs = time.perf_counter() - t0
     res = evaluate(predict, m, ho)
     label = (f"adaptive {a.box} n0={a.n0} +{a.stages}x{a.add} -> {len(chosen)} damp={a.damp} dist={a.distance} "
@@ -278,10 +415,13 @@ def main(argv=None):
     ad.add_argument("--damp", type=float, default=1.0)
     ad.add_argument("--distance", type=float, default=0.0)
     ad.add_argument("--static-faces", type=float, default=0.0)
-    for p in (sub.add_parser("pu"), ad):
+    pg = sub.add_parser("pug")
+    pg.add_argument("--groups", default="two", choices=("one", "two", "three"))
+    ad.add_argument("--groups", default="one", choices=("one", "two", "three"))
+    for p in (sub.add_parser("pu"), ad, pg):
         _pu_args(p)
     a = ap.parse_args(argv)
-    {"baseline": cmd_baseline, "pu": cmd_pu, "adaptive": cmd_adaptive}[a.cmd](a)
+    {"baseline": cmd_baseline, "pu": cmd_pu, "adaptive": cmd_adaptive, "pug": cmd_pug}[a.cmd](a)
 
 
 def _pu_args(p):
@@ -290,7 +430,7 @@ def _pu_args(p):
     p.add_argument("--cells", type=int, nargs="*")
     p.add_argument("--overlap", type=float, default=0.15)
     p.add_argument("--margin", type=float, default=0.25)
-    p.add_argument("--warp", default="learned", choices=("none", "library", "learned", "library+learned", "libstretch"))
+    p.add_argument("--warp", default="learned", choices=("none", "library", "learned", "library+learned", "libstretch", "select", "selectloo"))
     p.add_argument("--no-k", action="store_true", help="learn the scales only")
     p.add_argument("--scale", type=float, nargs="*")
     p.add_argument("--n-sub", type=int, default=1200)
@@ -299,6 +439,10 @@ def _pu_args(p):
     p.add_argument("--per-cell", type=int, default=256)
     p.add_argument("--degree", type=int, default=2)
     p.add_argument("--tag", default="")
+    p.add_argument("--log-all", action="store_true")
+    p.add_argument("--stretch-on", default="curves", choices=("curves", "mmax", "all"))
+    p.add_argument("--sel-sub", type=int, default=400)
+    p.add_argument("--log-all-shift", type=float, default=0.0)
     p.add_argument("--err", default="knn", choices=("knn", "smooth"))
     p.add_argument("--err-h", type=float, default=1.5)
     p.add_argument("--err-target", type=float, default=0.005)

@@ -357,3 +357,66 @@ def learn_warp(theta, Z, bounds, weights, n_sub=1200, seed=0, log_shift=None, le
         log(f"learn_warp: objective {f0:.3f} -> {res.fun:.3f} in {res.nfev} evaluations, "
             f"{time.perf_counter() - t0:.0f} s; k {np.round(k, 2)}, s {np.round(s, 3)}")
     return Warp(base.lo, base.hi, k, s, log_shift), res
+
+
+# ---------------------------------------------------------------------------------------------
+# warp selection by Gaussian-process marginal likelihood
+# ---------------------------------------------------------------------------------------------
+
+def _gp_nlml(x, R, seed=0):
+    """Negative log marginal likelihood and ARD length scales of one Matern-5/2 GP (sklearn) on R."""
+    import warnings
+
+    from sklearn.gaussian_process import GaussianProcessRegressor
+
+    from tovforge.surrogate._fit import GPSettings, _matern_kernel
+
+    kernel = _matern_kernel(x.shape[1], GPSettings().noise_bounds)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        gp = GaussianProcessRegressor(kernel, random_state=seed, n_restarts_optimizer=0).fit(x, R)
+    return -float(gp.log_marginal_likelihood_value_), np.atleast_1d(gp.kernel_.k1.k2.length_scale).astype(float)
+
+
+LOG_CANDIDATES = (None, 1.0, 0.3, 0.1, 0.03)
+
+
+def select_warp(theta, Z, bounds, cols, n_sub=400, seed=0, candidates=LOG_CANDIDATES, log=None):
+    """Per-parameter warp ln(theta - lo + c (hi - lo)) (c None: none), chosen coordinate-wise by GP NLML.
+
+    The GP (quadratic trend removed, one ARD Matern-5/2 kernel for the columns ``cols`` of Z)
+    runs on a space-filling subset; returns the Warp with stretch l_min / l_i of the best fit.
+    """
+    from tovforge.surrogate._fit import MIN_STRETCH, _space_filling_subset, _trend_residuals
+
+    d = theta.shape[1]
+    lo, hi = bounds[:, 0].astype(float), bounds[:, 1].astype(float)
+    sub = _space_filling_subset((theta - lo) / (hi - lo), min(n_sub, len(theta)), seed)
+    th, Zs = theta[sub], Z[sub][:, cols]
+
+    def warp_of(cs):
+        shift = np.array([np.nan if c is None else l - c * (h - l) for c, l, h in zip(cs, lo, hi)])
+        return Warp(lo, hi, np.zeros(d), np.ones(d), shift if np.isfinite(shift).any() else None)
+
+    def score(cs):
+        x = warp_of(cs)(th)
+        R = _trend_residuals(x, Zs, 2)[2]
+        return _gp_nlml(x, R, seed)
+
+    cs = [None] * d
+    best, length = score(cs)
+    t0 = time.perf_counter()
+    for i in range(d):
+        for c in candidates:
+            if c == cs[i]:
+                continue
+            trial = list(cs)
+            trial[i] = c
+            v, ls = score(trial)
+            if v < best - 1.0:  # a clear gain in log evidence
+                best, length, cs = v, ls, trial
+    w = warp_of(cs)
+    w.s = np.maximum(length.min() / length, MIN_STRETCH)
+    if log:
+        log(f"select_warp: c = {cs}, NLML {best:.1f}, stretch {np.round(w.s, 3)}, {time.perf_counter() - t0:.0f} s")
+    return w, cs
