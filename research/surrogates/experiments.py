@@ -85,6 +85,16 @@ def _weights(index, slices):
     return [([im], 1.0), (list(range(*slices[0])), 1.0), (list(range(*slices[1])), 1.0)]
 
 
+def _open_lower_shift(data):
+    from tovforge import eos
+
+    fam = eos.get_family(data.family)
+    par = {p.name: p for p in fam.parameters}
+    sh = np.array([par[n].allowed[0] if par[n].open_ends[0] else np.nan for n in data.parameter_names], float)
+    print("open-lower-bound warp shifts", sh)
+    return sh if np.isfinite(sh).any() else None
+
+
 def _library_shift(data):
     from tovforge import eos
 
@@ -109,6 +119,8 @@ def make_warp(a, data, Z, index, slices, cols=None):
     shift = _library_shift(data) if a.warp in ("library", "library+learned", "libstretch") else None
     if a.log_all:  # ln(theta - log_all_shift) for every parameter (e.g. ln c_s^2)
         shift = np.full(len(data.bounds), a.log_all_shift)
+    if a.open_log:  # ln(theta - allowed lower bound) where the family's allowed range is open below
+        shift = _open_lower_shift(data)
     if a.warp in ("learned", "library+learned"):
         warp, _ = proto.learn_warp(data.theta, Z, data.bounds, _weights(index, slices), n_sub=a.n_sub,
                                    log_shift=shift, learn_k=not a.no_k, log=print)
@@ -120,6 +132,12 @@ def make_warp(a, data, Z, index, slices, cols=None):
         if cols is not None:
             sl = None
             warp.s = _anisotropy(warp(data.theta), Z[:, cols], np.array([[0, len(cols)]]), SplineSettings())[0]
+        elif a.stretch_on == "maxof":  # elementwise max of the curves' and M_max's stretches
+            im = index["mass_max_msun"]
+            s1 = _anisotropy(warp(data.theta), Z, slices, SplineSettings())[0]
+            s2 = _anisotropy(warp(data.theta), Z, np.array([[im, im + 1]]), SplineSettings())[0]
+            warp.s = np.maximum(s1 / s1.max(), s2 / s2.max())
+            sl = None
         elif a.stretch_on == "curves":
             sl = slices
         elif a.stretch_on == "mmax":
@@ -206,6 +224,10 @@ def fit_pu_groups(a, data, Y, index, slices, log=print):
         half = [(int(a0), int(a0 + (b0 - a0) // 2), int(b0)) for a0, b0 in slices]
         groups = [list(range(slices[0][0])), [c for a0, h, _ in half for c in range(a0, h)],
                   [c for _, h, b0 in half for c in range(h, b0)]]
+    elif a.groups == "ublocks":  # scalars with the near-maximum half of every curve | the light half
+        half = [(int(a0), int(a0 + (b0 - a0) // 2), int(b0)) for a0, b0 in slices]
+        groups = [list(range(slices[0][0])) + [c for a0, h, _ in half for c in range(a0, h)],
+                  [c for _, h, b0 in half for c in range(h, b0)]]
     else:
         groups = [list(range(Y.shape[1]))]
     parts = []
@@ -267,6 +289,14 @@ def fit_pu(a, theta, Y, warp, log=print):
     pu = proto.PURBF.fit(X, Z, cells, overlap=a.overlap, margin=a.margin, degree=a.degree, loo=True, log=log)
     if a.err == "knn":
         em = proto.ErrorModel.fit(X, pu.loo, k=a.k_err, target=a.err_target)
+        # the exact solves' own accuracy (DESIGN floors: 1e-6 in M and R, 1e-5 in Lambda), times 3,
+        # in standardised units: sigma never claims more than the training data can give
+        rel = np.full(Y.shape[1], 3e-6)
+        if getattr(a, "_log_cols", None) is not None:
+            rel[a._log_cols] = 3e-5
+        em.floor = rel * np.abs(mu) / sd
+        if getattr(a, "_log_cols", None) is not None:
+            em.floor[a._log_cols] = 3e-5 / sd[a._log_cols]  # ln Lambda, ln I: absolute in the log
     else:
         em = proto.SmoothErrorModel.fit(X, pu.loo, h=a.err_h, target=a.err_target)
 
@@ -282,6 +312,7 @@ def cmd_pu(a):
 
     data = load_train(a.box, a.n)
     Y, index, slices = data.output_matrix()
+    a._log_cols = np.arange(slices[1][0], slices[2][1])
     Z = (Y - Y.mean(0)) / np.where(Y.std(0) > 0, Y.std(0), 1.0)
     t0 = time.perf_counter()
     warp = make_warp(a, data, Z, index, slices)
@@ -416,8 +447,8 @@ def main(argv=None):
     ad.add_argument("--distance", type=float, default=0.0)
     ad.add_argument("--static-faces", type=float, default=0.0)
     pg = sub.add_parser("pug")
-    pg.add_argument("--groups", default="two", choices=("one", "two", "three"))
-    ad.add_argument("--groups", default="one", choices=("one", "two", "three"))
+    pg.add_argument("--groups", default="two", choices=("one", "two", "three", "ublocks"))
+    ad.add_argument("--groups", default="one", choices=("one", "two", "three", "ublocks"))
     for p in (sub.add_parser("pu"), ad, pg):
         _pu_args(p)
     a = ap.parse_args(argv)
@@ -440,7 +471,8 @@ def _pu_args(p):
     p.add_argument("--degree", type=int, default=2)
     p.add_argument("--tag", default="")
     p.add_argument("--log-all", action="store_true")
-    p.add_argument("--stretch-on", default="curves", choices=("curves", "mmax", "all"))
+    p.add_argument("--open-log", action="store_true", help="ln(theta - allowed lower bound) where it is open")
+    p.add_argument("--stretch-on", default="curves", choices=("curves", "mmax", "all", "maxof"))
     p.add_argument("--sel-sub", type=int, default=400)
     p.add_argument("--log-all-shift", type=float, default=0.0)
     p.add_argument("--err", default="knn", choices=("knn", "smooth"))

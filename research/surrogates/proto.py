@@ -269,7 +269,9 @@ class ErrorModel:
         return np.sqrt(np.einsum("nk,nko->no", w, self.E2[idx]))
 
     def __call__(self, x):
-        return self._raw(x) * self.scale
+        s = self._raw(x) * self.scale
+        floor = getattr(self, "floor", None)
+        return s if floor is None else np.sqrt(s * s + floor * floor)
 
 
 @dataclass
