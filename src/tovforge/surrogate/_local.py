@@ -52,7 +52,7 @@ from __future__ import annotations
 import itertools
 import logging
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
@@ -61,7 +61,7 @@ from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
 from ._prepare import FitResult, prepare, trend_powers
-from ._rbf import SplineSettings, _anisotropy
+from ._rbf import RBFFit, SplineSettings, _anisotropy
 from ._record import Record
 
 __all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "auto_cells",
@@ -114,16 +114,11 @@ class LocalSettings(Record):
 
 
 @dataclass(frozen=True)
-class LocalFit(Record):
-    """What a local fit found (recorded in the model).
+class LocalFit(RBFFit):
+    """What a local fit found (recorded in the model): the input metric as :class:`RBFFit`, and the cells.
 
     Attributes
     ----------
-    kernel : str
-    input_warp : dict
-    input_scale : tuple of float
-        The stretch of each parameter's unit interval (empty: isotropic).
-    anisotropy_length_scales : tuple of float
     cells : tuple of int
         Cells per parameter.
     patch_points : tuple of int
@@ -137,9 +132,6 @@ class LocalFit(Record):
     """
 
     kernel: str = "r^5, partition of unity"
-    input_warp: dict = field(default_factory=dict)
-    input_scale: tuple = ()
-    anisotropy_length_scales: tuple = ()
     cells: tuple = ()
     patch_points: tuple = ()
     stored_rows: int = 0
@@ -293,7 +285,8 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
     arrays.update(fitted, X=x, trend_powers=np.zeros((1, d), dtype=np.int64),
                   trend_coef=np.zeros((1, Z.shape[1])), loo_residual=loo * arrays["out_scale"])
     details = LocalFit(input_warp=p.input_warp, input_scale=tuple(scale.tolist()) if s.anisotropic else (),
-                       anisotropy_length_scales=tuple(length.tolist()), cells=cells,
+                       anisotropy_length_scales=tuple(length.tolist()),
+                       anisotropy_subset=min(s.n_subset, len(x)) if s.anisotropic else 0, cells=cells,
                        patch_points=(int(sizes.min()), int(np.median(sizes)), int(sizes.max())),
                        stored_rows=int(sizes.sum()), loo_rms=float(np.sqrt(np.mean(loo**2))), seconds_solve=seconds)
     return FitResult(arrays=arrays, settings=s, details=details)

@@ -46,6 +46,13 @@ and those of the method:
 ``"tensor"``
     ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened,
     n_out), ``coef_shape`` (d,); tensor-product cubic B-splines.
+``"local"``
+    ``X`` (n, d); per cell ``p`` the rows ``patch_rows[p]:patch_rows[p+1]`` of
+    ``patch_index`` (training points) and ``alpha`` (r^5 weights), a polynomial
+    ``patch_coef`` (P, n_terms, n_out) in ``(x - patch_centre[p]) /
+    patch_scale[p]`` with ``local_powers``; the cells ``cell_counts``,
+    ``cell_edges``, ``cell_half`` (see ``surrogate/_local.py``).  A partition
+    of unity blends the cells a row touches (:func:`local_cells`).  NumPy only.
 
 A new method is a function ``part(xp, m, x, grad, columns) -> (z, dz)`` here,
 an entry in :data:`PARTS` (and in :data:`STD` if it has a predictive sigma),
