@@ -7,7 +7,7 @@ every 0.1 Msun (the conventions of ``harness.py``); with ``--export``, the expor
 one-theta and batched query latency.
 
     python research/surrogates/local_scaling.py demo 4096 8192 16384 32768 [--export 32768]
-    python research/surrogates/local_scaling.py ss 8192
+    python research/surrogates/local_scaling.py ss 8192 [--one-group]
 
 Results are appended to data/local_scaling.jsonl and printed as table rows.
 """
@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from tovforge.grid import read_grid
-from tovforge.surrogate import read_training_data, train_on
+from tovforge.surrogate import LocalSettings, read_training_data, train_on
 from tovforge.surrogate import _runtime as rt
 
 HERE = Path(__file__).resolve().parent
@@ -109,6 +109,7 @@ def main():
     ap.add_argument("box", choices=sorted(BOXES))
     ap.add_argument("sizes", type=int, nargs="+")
     ap.add_argument("--export", type=int, nargs="*", default=[])
+    ap.add_argument("--one-group", action="store_true", help="LocalSettings(separate_scalars=False)")
     a = ap.parse_args()
     train, *holdouts = BOXES[a.box]
     grid = DATA / f"{train}.h5"
@@ -116,10 +117,10 @@ def main():
     for n in a.sizes:
         data = prefix(full, grid, n)
         t0 = time.perf_counter()
-        model = train_on(data, "local")
+        model = train_on(data, "local", LocalSettings(separate_scalars=not a.one_group))
         seconds = time.perf_counter() - t0
         fit = model.meta.fit
-        res = {"box": a.box, "n_design": n, "n_train": int(len(data.theta)), "train_seconds": seconds,
+        res = {"box": a.box, "groups": len(fit.groups), "n_design": n, "n_train": int(len(data.theta)), "train_seconds": seconds,
                "cells": list(fit.cells), "patch_points": list(fit.patch_points), "stored_rows": fit.stored_rows,
                **errors(model, [DATA / f"{h}.h5" for h in holdouts])}
         if n in a.export:
@@ -127,7 +128,8 @@ def main():
         with open(DATA / "local_scaling.jsonl", "a") as fh:
             fh.write(json.dumps(res) + "\n")
         f = lambda v, fmt: " / ".join(format(x, fmt) for x in v)  # noqa: E731
-        print(f"| {a.box} | {res['n_train']:,} | {seconds:.0f} | {'x'.join(map(str, fit.cells))} | "
+        print(f"| {a.box} | {len(fit.groups)} | {res['n_train']:,} | {seconds:.0f} | "
+              f"{' + '.join('x'.join(map(str, c)) for c in fit.cells)} | "
               f"{f(res['mass_max'], '.1e')} | {f(res['radius_m'], '.3g')} | {f(res['lambda_pct'], '.3g')} |", flush=True)
         if n in a.export:
             print(f"  export {res['file_mb']:.1f} MB in {res['export_seconds']:.0f} s; one theta (M_max, R, Lambda) "

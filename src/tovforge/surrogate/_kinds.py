@@ -121,9 +121,11 @@ METHODS: dict[str, Method] = {m.name: m for m in (
     Method("local", "local", "local polyharmonic splines: a partition of unity of r^5 interpolants plus quadratic "
            "polynomials on quantile cells (per-query cost independent of the training size; NumPy only)",
            fit_local, LocalSettings, LocalFit,
-           arrays=("X", "alpha", "patch_index", "patch_rows", "patch_centre", "patch_scale", "patch_coef",
-                   "local_powers", "cell_counts", "cell_edges", "cell_half"),
-           static_arrays=("patch_index", "patch_rows", "local_powers", "cell_counts"), reverse=reverse_patches,
+           arrays=("X", "alpha", "group_columns", "group_scale", "group_patches", "patch_index", "patch_rows",
+                   "patch_centre", "patch_scale", "patch_coef", "local_powers", "cell_counts", "cell_edges",
+                   "cell_half"),
+           static_arrays=("group_columns", "group_patches", "patch_index", "patch_rows", "local_powers",
+                          "cell_counts"), reverse=reverse_patches,
            describe=describe_local),
 )}
 

@@ -52,7 +52,7 @@ from __future__ import annotations
 import itertools
 import logging
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg
@@ -61,10 +61,10 @@ from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
 from ._prepare import FitResult, prepare, trend_powers
-from ._rbf import RBFFit, SplineSettings, _anisotropy
+from ._rbf import SplineSettings, _anisotropy
 from ._record import Record
 
-__all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "auto_cells",
+__all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "join_groups", "auto_cells",
            "reverse_patches", "describe_local"]
 
 logger = logging.getLogger(__name__)
@@ -98,7 +98,13 @@ class LocalSettings(Record):
         A cell whose grown box holds fewer training points is refused (and at
         least twice the polynomial's terms are always needed).
     cells : tuple of int
-        Cells per parameter; empty: chosen from ``points_per_cell``.
+        Cells per parameter (every metric group); empty: chosen from ``points_per_cell``.
+    separate_scalars : bool
+        Two metric groups: the scalars (M_max and the others per EOS) get their own
+        stretch (a GP on the scalars) and their own cells, the curves theirs (a GP
+        on the curves).  On the sound-speed box a stretch fitted to the curves
+        squeezes the parameters that hardly move the radii and starves M_max
+        (research/surrogates/LOG.md).  False: one group, the curves' stretch.
     """
 
     warp_inputs: bool = True
@@ -110,19 +116,29 @@ class LocalSettings(Record):
     margin: float = 0.25
     min_points: int = 50
     cells: tuple = ()
+    separate_scalars: bool = True
     seed: int = 0
 
 
 @dataclass(frozen=True)
-class LocalFit(RBFFit):
-    """What a local fit found (recorded in the model): the input metric as :class:`RBFFit`, and the cells.
+class LocalFit(Record):
+    """What a local fit found (recorded in the model); per metric group where a tuple of tuples.
 
     Attributes
     ----------
-    cells : tuple of int
-        Cells per parameter.
+    kernel : str
+    input_warp : dict
+        ``{name: "ln(name - offset)"}`` of the warped parameters.
+    groups : tuple of (int, int)
+        The output columns of each metric group.
+    input_scale : tuple of tuple of float
+        Each group's stretch of the parameters' unit intervals.
+    length_scales : tuple of tuple of float
+        The GP length scales each stretch came from (empty: isotropic).
+    cells : tuple of tuple of int
+        Each group's cells per parameter.
     patch_points : tuple of int
-        Training points per cell's interpolant: min, median, max.
+        Training points per cell's interpolant (all groups): min, median, max.
     stored_rows : int
         Rows of ``alpha`` (training points counted once per cell that learns them).
     loo_rms : float
@@ -132,6 +148,10 @@ class LocalFit(RBFFit):
     """
 
     kernel: str = "r^5, partition of unity"
+    input_warp: dict = field(default_factory=dict)
+    groups: tuple = ()
+    input_scale: tuple = ()
+    length_scales: tuple = ()
     cells: tuple = ()
     patch_points: tuple = ()
     stored_rows: int = 0
@@ -227,8 +247,7 @@ def fit_patches(x: np.ndarray, Z: np.ndarray, part: Partition, margin: float, de
         scales.append(scale)
     return {"patch_index": np.concatenate(index).astype(np.int64), "patch_rows": np.asarray(rows, dtype=np.int64),
             "alpha": np.concatenate(alphas), "patch_coef": np.stack(coefs), "patch_centre": np.stack(centres),
-            "patch_scale": np.asarray(scales, float), "local_powers": powers, "cell_counts": part.counts,
-            "cell_edges": part.edges, "cell_half": part.half, "loo": loo}
+            "patch_scale": np.asarray(scales, float), "local_powers": powers, "loo": loo}
 
 
 def _weights(x, part):
@@ -266,30 +285,74 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         raise InputError(f"points_per_cell must be >= 1; got {s.points_per_cell}.")
     p = prepare(data, s.warp_inputs)
     arrays, x, Z = dict(p.arrays), p.x, p.Z
-    d = x.shape[1]
+    n, d = x.shape
     if s.cells and (len(s.cells) != d or min(s.cells) < 1):
         raise InputError(f"cells must give d = {d} counts >= 1; got {tuple(s.cells)}.")
-    scale, length = np.ones(d), np.zeros(0)
-    if s.anisotropic:
-        scale, length = _anisotropy(x, Z, p.slices, SplineSettings(n_subset=s.n_subset, seed=s.seed))
-        arrays["input_scale"] = scale
-        x = rt.unit_inputs(np, arrays, data.theta)[0]
-    cells = tuple(int(c) for c in s.cells) or auto_cells(len(x), scale, s.points_per_cell)
-    t0 = time.perf_counter()
-    fitted = fit_patches(x, Z, partition(x, scale, cells, s.overlap), s.margin, s.degree, s.min_points)
-    seconds = time.perf_counter() - t0
-    loo = fitted.pop("loo")
-    sizes = np.diff(fitted["patch_rows"])
-    logger.info(f"  local r^5 on {len(x)} points: cells {cells}, points per cell {sizes.min()}/{int(np.median(sizes))}"
-                f"/{sizes.max()}, {seconds:.1f} s")
-    arrays.update(fitted, X=x, trend_powers=np.zeros((1, d), dtype=np.int64),
-                  trend_coef=np.zeros((1, Z.shape[1])), loo_residual=loo * arrays["out_scale"])
-    details = LocalFit(input_warp=p.input_warp, input_scale=tuple(scale.tolist()) if s.anisotropic else (),
-                       anisotropy_length_scales=tuple(length.tolist()),
-                       anisotropy_subset=min(s.n_subset, len(x)) if s.anisotropic else 0, cells=cells,
+    first_curve, n_out = int(p.slices[0][0]), Z.shape[1]
+    groups = [(0, first_curve), (first_curve, n_out)] if s.separate_scalars and first_curve > 0 else [(0, n_out)]
+    t_solve = 0.0
+    parts, fits, scales, lengths = [], [], [], []
+    loo = np.zeros(Z.shape)
+    for a, b in groups:
+        scale, length = np.ones(d), np.zeros(0)
+        if s.anisotropic:  # the curves' stretch for a single group, as the RBF spline
+            cols = (a, b) if len(groups) > 1 else (first_curve, n_out)
+            scale, length = _anisotropy(x, Z, cols, SplineSettings(n_subset=s.n_subset, seed=s.seed))
+        xg = x * scale
+        cells = tuple(int(c) for c in s.cells) or auto_cells(n, scale, s.points_per_cell)
+        part = partition(xg, scale, cells, s.overlap)
+        t0 = time.perf_counter()
+        fitted = fit_patches(xg, Z[:, a:b], part, s.margin, s.degree, s.min_points)
+        t_solve += time.perf_counter() - t0
+        loo[:, a:b] = fitted.pop("loo")
+        sizes = np.diff(fitted["patch_rows"])
+        logger.info(f"  local r^5, outputs {a}:{b}: stretch {np.array2string(scale, precision=3)}, cells {cells}, "
+                    f"points per cell {sizes.min()}/{int(np.median(sizes))}/{sizes.max()}")
+        parts.append(part)
+        fits.append(_widen(fitted, a, b, n_out))
+        scales.append(scale)
+        lengths.append(length)
+    arrays.update(join_groups(parts, fits), X=x, group_columns=np.array([g[0] for g in groups] + [n_out], dtype=np.int64),
+                  group_scale=np.stack(scales), trend_powers=np.zeros((1, d), dtype=np.int64),
+                  trend_coef=np.zeros((1, n_out)), loo_residual=loo * arrays["out_scale"])
+    sizes = np.diff(arrays["patch_rows"])
+    logger.info(f"  local r^5 on {n} points: {len(sizes)} cells, {t_solve:.1f} s of solves")
+    details = LocalFit(input_warp=p.input_warp, groups=tuple(groups), input_scale=tuple(tuple(v.tolist()) for v in scales),
+                       length_scales=tuple(tuple(v.tolist()) for v in lengths),
+                       cells=tuple(tuple(int(c) for c in q.counts) for q in parts),
                        patch_points=(int(sizes.min()), int(np.median(sizes)), int(sizes.max())),
-                       stored_rows=int(sizes.sum()), loo_rms=float(np.sqrt(np.mean(loo**2))), seconds_solve=seconds)
+                       stored_rows=int(sizes.sum()), loo_rms=float(np.sqrt(np.mean(loo**2))), seconds_solve=t_solve)
     return FitResult(arrays=arrays, settings=s, details=details)
+
+
+def _widen(fitted: dict, a: int, b: int, n_out: int) -> dict:
+    """A group's weights and coefficients (outputs a:b) as columns a:b of n_out-wide arrays (zeros elsewhere)."""
+    alpha = np.zeros((fitted["alpha"].shape[0], n_out))
+    alpha[:, a:b] = fitted["alpha"]
+    coef = np.zeros(fitted["patch_coef"].shape[:2] + (n_out,))
+    coef[:, :, a:b] = fitted["patch_coef"]
+    return {**fitted, "alpha": alpha, "patch_coef": coef}
+
+
+def join_groups(parts: list, fits: list) -> dict:
+    """The groups' cells and interpolants as one set of arrays (cells numbered group after group)."""
+    d = parts[0].counts.shape[0]
+    K = max(int(q.counts.max()) for q in parts)
+    edges = np.zeros((len(parts), d, K + 1))
+    half = np.zeros((len(parts), d, K + 1))
+    for g, q in enumerate(parts):
+        k = q.edges.shape[1]
+        edges[g, :, :k], half[g, :, :k] = q.edges, q.half
+        edges[g, :, k:] = q.edges[:, -1:]
+    offsets = np.cumsum([0] + [f["alpha"].shape[0] for f in fits[:-1]])
+    return {"patch_index": np.concatenate([f["patch_index"] for f in fits]),
+            "patch_rows": np.concatenate([[0]] + [f["patch_rows"][1:] + o for f, o in zip(fits, offsets)]),
+            "group_patches": np.cumsum([0] + [len(f["patch_scale"]) for f in fits]).astype(np.int64),
+            "alpha": np.concatenate([f["alpha"] for f in fits]),
+            "patch_coef": np.concatenate([f["patch_coef"] for f in fits]),
+            "patch_centre": np.concatenate([f["patch_centre"] for f in fits]),
+            "patch_scale": np.concatenate([f["patch_scale"] for f in fits]), "local_powers": fits[0]["local_powers"],
+            "cell_counts": np.stack([q.counts for q in parts]), "cell_edges": edges, "cell_half": half}
 
 
 def reverse_patches(arrays: dict) -> dict:
@@ -302,5 +365,5 @@ def reverse_patches(arrays: dict) -> dict:
 def describe_local(arrays: dict) -> str:
     """A few words on a fitted local model: its cells and points per cell."""
     sizes = np.diff(arrays["patch_rows"])
-    cells = "x".join(str(int(c)) for c in arrays["cell_counts"])
+    cells = " + ".join("x".join(str(int(c)) for c in g) for g in arrays["cell_counts"])
     return f"{cells} cells of {int(sizes.min())}-{int(sizes.max())} points"

@@ -47,12 +47,15 @@ and those of the method:
     ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened,
     n_out), ``coef_shape`` (d,); tensor-product cubic B-splines.
 ``"local"``
-    ``X`` (n, d); per cell ``p`` the rows ``patch_rows[p]:patch_rows[p+1]`` of
-    ``patch_index`` (training points) and ``alpha`` (r^5 weights), a polynomial
-    ``patch_coef`` (P, n_terms, n_out) in ``(x - patch_centre[p]) /
-    patch_scale[p]`` with ``local_powers``; the cells ``cell_counts``,
-    ``cell_edges``, ``cell_half`` (see ``surrogate/_local.py``).  A partition
-    of unity blends the cells a row touches (:func:`local_cells`).  NumPy only.
+    ``X`` (n, d) unit inputs; metric groups of output columns
+    ``group_columns`` (G + 1,), each with its stretch ``group_scale`` (G, d)
+    and cells ``cell_counts`` (G, d), ``cell_edges``, ``cell_half`` (G, d,
+    K + 1), numbered from ``group_patches[g]``; per cell ``p`` the rows
+    ``patch_rows[p]:patch_rows[p+1]`` of ``patch_index`` (training points) and
+    ``alpha`` (r^5 weights), a polynomial ``patch_coef`` (P, n_terms, n_out) in
+    ``(x - patch_centre[p]) / patch_scale[p]`` with ``local_powers`` (see
+    ``surrogate/_local.py``).  A partition of unity blends the cells a row
+    touches (:func:`local_cells`).  NumPy only.
 
 A new method is a function ``part(xp, m, x, grad, columns) -> (z, dz)`` here,
 an entry in :data:`PARTS` (and in :data:`STD` if it has a predictive sigma),
@@ -1064,18 +1067,22 @@ def local_weights_1d(xp, t, edges, half, grad):
 
 
 def local_tables(m):
-    """The cells of a local model as plain Python values (cached): counts, edges, half-widths, strides, rows."""
+    """The cells of a local model as plain Python values (cached): per metric group its output columns,
+    stretch, counts, strides, edges, half-widths and first cell; the rows of every cell; the polynomial plan."""
     def make():
-        counts = [int(c) for c in m["cell_counts"]]
-        d = len(counts)
-        strides = [1] * d
-        for i in range(d - 2, -1, -1):
-            strides[i] = strides[i + 1] * counts[i + 1]
-        return {"counts": counts, "strides": strides,
-                "edges": [[float(v) for v in m["cell_edges"][i][: counts[i] + 1]] for i in range(d)],
-                "half": [[float(v) for v in m["cell_half"][i][: counts[i] + 1]] for i in range(d)],
-                "rows": [int(v) for v in m["patch_rows"]],
-                "plan": trend_plan(m["local_powers"])}
+        gc = [int(v) for v in m["group_columns"]]
+        gp = [int(v) for v in m["group_patches"]]
+        groups = []
+        for g in range(len(gc) - 1):
+            counts = [int(c) for c in m["cell_counts"][g]]
+            d = len(counts)
+            strides = [1] * d
+            for i in range(d - 2, -1, -1):
+                strides[i] = strides[i + 1] * counts[i + 1]
+            groups.append({"columns": (gc[g], gc[g + 1]), "first": gp[g], "counts": counts, "strides": strides,
+                           "edges": [[float(v) for v in m["cell_edges"][g][i][: counts[i] + 1]] for i in range(d)],
+                           "half": [[float(v) for v in m["cell_half"][g][i][: counts[i] + 1]] for i in range(d)]})
+        return {"groups": groups, "rows": [int(v) for v in m["patch_rows"]], "plan": trend_plan(m["local_powers"])}
 
     return m.cache.plain("local_tables", None, make)
 
@@ -1121,11 +1128,12 @@ def local_cells(xp, x, T, grad):
     return (xp.concat(rows), xp.concat(cells), xp.concat(ws), xp.concat(dws, axis=0) if grad else None)
 
 
-def _local_patch(xp, m, c, T):
-    """Cell c's training points transposed (d, N_c), their squared norms (1, N_c), its first and last weight rows."""
+def _local_patch(xp, m, g, c, T):
+    """Cell c's training points in its group's stretch, transposed (d, N_c), their squared norms (1, N_c), and its
+    first and last weight rows."""
     def make():
         a, b = T["rows"][c], T["rows"][c + 1]
-        X = xp.take(m["X"], m["patch_index"][a:b], axis=0)
+        X = xp.take(m["X"], m["patch_index"][a:b], axis=0) * m["group_scale"][g]
         XT = xp.permute_dims(X, (1, 0))
         if _is_numpy(xp):
             XT = xp.ascontiguousarray(XT)
@@ -1144,7 +1152,11 @@ def _local_part(xp, m, x, grad, columns):
 
 
 def _local_rows(xp, x, m, grad, spans, T):
-    """The partition's sums at rows x (n, d): (n, n_out) and (n, n_out, d); outputs outside ``spans`` NaN."""
+    """The partition's sums at rows x (n, d): (n, n_out) and (n, n_out, d); outputs outside ``spans`` NaN.
+
+    Each metric group blends its own cells in its own stretch of x; gradients are taken in the
+    stretched inputs and multiplied by the stretch at the end.
+    """
     n, d = x.shape
     n_out = m["alpha"].shape[1]
     nan = float("nan")
@@ -1154,27 +1166,35 @@ def _local_rows(xp, x, m, grad, spans, T):
         out[:, a:b] = 0.0
         if grad:
             dout[:, a:b, :] = 0.0
-    rows, cells, ws, dws = local_cells(xp, x, T, grad)
     powers = m["local_powers"]
-    for c in [int(v) for v in xp.unique(cells)]:
-        pick = xp.nonzero(cells == c)[0]
-        r = xp.take(rows, pick, axis=0)  # distinct rows: each row meets a cell once
-        w = xp.take(ws, pick, axis=0)[:, None]
-        xr = xp.take(x, r, axis=0)
-        XT, X2, s0, s1 = _local_patch(xp, m, c, T)
-        phi, dphi = polyharmonic_rows(xp, xr, XT, X2, grad)
-        scale = float(m["patch_scale"][c])
-        F, dF = trend_terms(xp, powers, T["plan"], (xr - m["patch_centre"][c]) / scale, grad)
-        coef = m["patch_coef"][c]
-        for a, b in spans:
-            alpha = _cached(xp, m, "local_alpha", (c, a, b), lambda: m["alpha"][s0:s1, a:b] * 1.0)
-            f = phi @ alpha + F @ coef[:, a:b]
-            out[r, a:b] += w * f
-            if grad:
-                df = xp.stack([g @ alpha for g in dphi], axis=-1)
-                df = df + xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), coef[:, a:b]), (0, 2, 1)) / scale
-                dw = xp.take(dws, pick, axis=0)
-                dout[r, a:b, :] += w[:, :, None] * df + f[:, :, None] * dw[:, None, :]
+    for g, G in enumerate(T["groups"]):
+        lo, hi = G["columns"]
+        mine = [(max(a, lo), min(b, hi)) for a, b in spans if a < hi and lo < b]
+        if not mine:
+            continue
+        stretch = m["group_scale"][g]
+        xg = x * stretch
+        rows, cells, ws, dws = local_cells(xp, xg, G, grad)
+        for c in [int(v) for v in xp.unique(cells)]:
+            pick = xp.nonzero(cells == c)[0]
+            r = xp.take(rows, pick, axis=0)  # distinct rows: each row meets a cell once
+            w = xp.take(ws, pick, axis=0)[:, None]
+            xr = xp.take(xg, r, axis=0)
+            p = G["first"] + c
+            XT, X2, s0, s1 = _local_patch(xp, m, g, p, T)
+            phi, dphi = polyharmonic_rows(xp, xr, XT, X2, grad)
+            scale = float(m["patch_scale"][p])
+            F, dF = trend_terms(xp, powers, T["plan"], (xr - m["patch_centre"][p]) / scale, grad)
+            coef = m["patch_coef"][p]
+            for a, b in mine:
+                alpha = _cached(xp, m, "local_alpha", (p, a, b), lambda: m["alpha"][s0:s1, a:b] * 1.0)
+                f = phi @ alpha + F @ coef[:, a:b]
+                out[r, a:b] += w * f
+                if grad:
+                    df = xp.stack([q @ alpha for q in dphi], axis=-1)
+                    df = df + xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), coef[:, a:b]), (0, 2, 1)) / scale
+                    dw = xp.take(dws, pick, axis=0)
+                    dout[r, a:b, :] += (w[:, :, None] * df + f[:, :, None] * dw[:, None, :]) * stretch
     return out, dout
 
 

@@ -14,7 +14,7 @@ from tovforge.errors import InputError
 from tovforge.export import export_model
 from tovforge.surrogate import LocalSettings, TrainingData, read_training_data, train_on
 from tovforge.surrogate import _runtime as rt
-from tovforge.surrogate._local import fit_patches, partition
+from tovforge.surrogate._local import join_groups, fit_patches, partition
 
 ROOT = Path(__file__).resolve().parents[3]
 TRAIN_GRID = ROOT / "grids" / "demo-train.h5"
@@ -54,8 +54,10 @@ def _linear_data(x: np.ndarray, A: np.ndarray, b: np.ndarray) -> TrainingData:
 
 
 def test_interpolates_training_data(model, demo):
-    assert model.method == "local" and len(model.meta.fit.cells) == 4 and np.prod(model.meta.fit.cells) >= 4
     Y, _ = demo.output_matrix()
+    fit = model.meta.fit
+    assert model.method == "local" and fit.groups == ((0, 3), (3, Y.shape[1]))
+    assert [len(c) for c in fit.cells] == [4, 4] and np.prod(fit.cells[1]) >= 4
     got = model.evaluate(demo.theta).values
     spread = Y.std(axis=0)
     assert np.max(np.abs(got - Y) / spread) < 1e-6
@@ -67,7 +69,7 @@ def test_reproduces_linear_function():
     data = _linear_data(rng.random((500, 4)), A, b)
     m = train_on(data, "local", LocalSettings(warp_inputs=False, anisotropic=False, points_per_cell=80,
                                               min_points=40))
-    assert np.prod(m.meta.fit.cells) > 1
+    assert np.prod(m.meta.fit.cells[1]) > 1
     test = _linear_data(rng.random((400, 4)), A, b)
     got, want = m.evaluate(test.theta).values, test.output_matrix()[0]
     assert np.max(np.abs(got - want)) < 1e-8 * np.max(np.abs(want))
@@ -93,10 +95,12 @@ def test_blend_zones_are_used(model, demo):
     """Queries in the demo box do blend several cells (so the gradient test covers the weights' derivatives)."""
     rng = np.random.default_rng(4)
     lo, hi = demo.bounds[:, 0], demo.bounds[:, 1]
-    x = rt.unit_inputs(np, model._model, lo + (hi - lo) * rng.random((400, 4)))[0]
-    rows = rt.local_cells(np, x, rt.local_tables(model._model), False)[0]
-    counts = np.bincount(rows, minlength=400)
-    assert counts.min() >= 1 and (counts > 1).mean() > 0.1
+    m = model._model
+    x = rt.unit_inputs(np, m, lo + (hi - lo) * rng.random((400, 4)))[0]
+    for g, group in enumerate(rt.local_tables(m)["groups"]):
+        rows = rt.local_cells(np, x * m["group_scale"][g], group, False)[0]
+        counts = np.bincount(rows, minlength=400)
+        assert counts.min() >= 1 and (counts > 1).mean() > 0.1
 
 
 def _import(path: Path):
@@ -169,7 +173,8 @@ def test_loo_residuals_equal_brute_force_refit():
         keep = np.arange(n) != i
         arrays = fit_patches(x[keep], Z[keep], part, 0.25, 2, 20)
         arrays.pop("loo")
-        m = rt.Model({**arrays, "X": x[keep], "curve_slices": np.array([[1, n_out]])}, "local")
+        m = rt.Model({**join_groups([part], [arrays]), "X": x[keep], "curve_slices": np.array([[1, n_out]]),
+                      "group_columns": np.array([0, n_out]), "group_scale": np.ones((1, 2))}, "local")
         pred = rt.PARTS["local"](np, m, x[i : i + 1], False, None)[0][0]
         np.testing.assert_allclose(full["loo"][i], Z[i] - pred, rtol=1e-5, atol=1e-8)
     assert np.median(np.abs(full["loo"])) > 1e-5
