@@ -18,7 +18,8 @@ from tovforge.surrogate._local import join_groups, fit_patches, partition
 
 ROOT = Path(__file__).resolve().parents[3]
 TRAIN_GRID = ROOT / "grids" / "demo-train.h5"
-SMALL = LocalSettings(points_per_cell=60, min_points=40)  # several cells on 300 points
+# several cells on 300 points, two metric groups (the export tests cover the default, one group)
+SMALL = LocalSettings(points_per_cell=60, min_points=40, separate_scalars=True)
 
 
 def _subset(data: TrainingData, n: int) -> TrainingData:
@@ -69,7 +70,7 @@ def test_reproduces_linear_function():
     data = _linear_data(rng.random((500, 4)), A, b)
     m = train_on(data, "local", LocalSettings(warp_inputs=False, anisotropic=False, points_per_cell=80,
                                               min_points=40))
-    assert np.prod(m.meta.fit.cells[1]) > 1
+    assert len(m.meta.fit.groups) == 1 and np.prod(m.meta.fit.cells[0]) > 1
     test = _linear_data(rng.random((400, 4)), A, b)
     got, want = m.evaluate(test.theta).values, test.output_matrix()[0]
     assert np.max(np.abs(got - want)) < 1e-8 * np.max(np.abs(want))
@@ -195,3 +196,13 @@ def test_save_load_round_trip(model, demo, tmp_path):
     back = load(tmp_path / "m")
     theta = demo.theta[:20] * 1.0001
     np.testing.assert_array_equal(back.evaluate(theta).values, model.evaluate(theta).values)
+
+
+def test_metric_groups_keep_the_curves_of_one_group(model, demo):
+    """Two groups change only the scalars' metric: the curves' stretch and cells are those of one group."""
+    one = train_on(demo, "local", dataclasses.replace(SMALL, separate_scalars=False))
+    assert len(one.meta.fit.groups) == 1 and one.meta.fit.cells[0] == model.meta.fit.cells[1]
+    theta = demo.theta[:50] * 1.0001
+    a, b = model.evaluate(theta).values, one.evaluate(theta).values
+    np.testing.assert_allclose(a[:, 3:], b[:, 3:], rtol=1e-9, atol=1e-9)
+    assert np.max(np.abs(a[:, :3] - b[:, :3])) > 1e-6  # the scalars' own metric does change them
