@@ -120,8 +120,9 @@ def main():
         model = train_on(data, "local", LocalSettings(separate_scalars=not a.one_group))
         seconds = time.perf_counter() - t0
         fit = model.meta.fit
-        res = {"box": a.box, "groups": len(fit.groups), "n_design": n, "n_train": int(len(data.theta)), "train_seconds": seconds,
-               "cells": list(fit.cells), "patch_points": list(fit.patch_points), "stored_rows": fit.stored_rows,
+        res = {"box": a.box, "groups": len(fit.groups), "n_design": n, "n_train": int(len(data.theta)),
+               "train_seconds": seconds, "cells": list(fit.cells), "patch_points": list(fit.patch_points),
+               "stored_rows": fit.stored_rows,
                **errors(model, [DATA / f"{h}.h5" for h in holdouts])}
         if n in a.export:
             res.update(latency(model, DATA, np.random.default_rng(0)))
@@ -130,7 +131,8 @@ def main():
         f = lambda v, fmt: " / ".join(format(x, fmt) for x in v)  # noqa: E731
         print(f"| {a.box} | {len(fit.groups)} | {res['n_train']:,} | {seconds:.0f} | "
               f"{' + '.join('x'.join(map(str, c)) for c in fit.cells)} | "
-              f"{f(res['mass_max'], '.1e')} | {f(res['radius_m'], '.3g')} | {f(res['lambda_pct'], '.3g')} |", flush=True)
+              f"{f(res['mass_max'], '.1e')} | {f(res['radius_m'], '.3g')} | {f(res['lambda_pct'], '.3g')} |",
+              flush=True)
         if n in a.export:
             print(f"  export {res['file_mb']:.1f} MB in {res['export_seconds']:.0f} s; one theta (M_max, R, Lambda) "
                   f"{res['one_theta_ms_median']:.2f} ms; batched R(1.4) {res['batched_radius_theta_per_s']:.0f} "

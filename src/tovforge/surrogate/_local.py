@@ -64,8 +64,8 @@ from ._prepare import FitResult, prepare, trend_powers
 from ._rbf import SplineSettings, _anisotropy
 from ._record import Record
 
-__all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "join_groups", "auto_cells",
-           "reverse_patches", "describe_local"]
+__all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "join_groups",
+           "auto_cells", "reverse_patches", "describe_local"]
 
 logger = logging.getLogger(__name__)
 
@@ -318,12 +318,14 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         fits.append(_widen(fitted, a, b, n_out))
         scales.append(scale)
         lengths.append(length)
-    arrays.update(join_groups(parts, fits), X=x, group_columns=np.array([g[0] for g in groups] + [n_out], dtype=np.int64),
-                  group_scale=np.stack(scales), trend_powers=np.zeros((1, d), dtype=np.int64),
-                  trend_coef=np.zeros((1, n_out)), loo_residual=loo * arrays["out_scale"])
+    arrays.update(join_groups(parts, fits), X=x, group_scale=np.stack(scales),
+                  group_columns=np.array([g[0] for g in groups] + [n_out], dtype=np.int64),
+                  trend_powers=np.zeros((1, d), dtype=np.int64), trend_coef=np.zeros((1, n_out)),
+                  loo_residual=loo * arrays["out_scale"])
     sizes = np.diff(arrays["patch_rows"])
     logger.info(f"  local r^5 on {n} points: {len(sizes)} cells, {t_solve:.1f} s of solves")
-    details = LocalFit(input_warp=p.input_warp, groups=tuple(groups), input_scale=tuple(tuple(v.tolist()) for v in scales),
+    details = LocalFit(input_warp=p.input_warp, groups=tuple(groups),
+                       input_scale=tuple(tuple(v.tolist()) for v in scales),
                        length_scales=tuple(tuple(v.tolist()) for v in lengths),
                        cells=tuple(tuple(int(c) for c in q.counts) for q in parts),
                        patch_points=(int(sizes.min()), int(np.median(sizes)), int(sizes.max())),

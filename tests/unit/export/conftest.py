@@ -1,9 +1,10 @@
 """Small surrogates of every kind, and their exported files, shared by the export tests.
 
 The GP models (one with its own kernel per output group, one whose curves share
-kernels), the RBF model and the local spline (cells of ~60 points) learn 300 rows of the demo training grid (a few seconds);
-the tensor-spline model learns a smooth synthetic function on a 5^4 regular grid
-(the demo grid is scattered, and tensor splines need a regular one).
+kernels), the RBF model and the local spline (cells of ~60 points) learn 300 rows
+of the demo training grid (a few seconds); the tensor-spline model learns a smooth
+synthetic function on a 5^4 regular grid (the demo grid is scattered, and tensor
+splines need a regular one).
 """
 
 from __future__ import annotations
