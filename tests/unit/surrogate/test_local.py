@@ -144,7 +144,7 @@ def test_nan_outside_the_box(model, demo):
 
 def test_too_few_points_per_cell_refused(demo):
     with pytest.raises(InputError) as info:
-        train_on(demo, "local", LocalSettings(cells=(6, 6, 1, 1), min_points=40))
+        train_on(demo, "local", LocalSettings(cells=(6, 6, 1, 1), min_points=40, anisotropic=False))
     msg = str(info.value)
     assert "\n" not in msg and "cell (" in msg and "min_points 40" in msg
 
