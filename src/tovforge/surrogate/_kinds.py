@@ -1,7 +1,7 @@
 """The table of surrogate kinds: everything the rest of the package needs to know about each.
 
 A *method* is one way of fitting and evaluating a model (``gp``, ``rbf``,
-``tensor``); users ask for a *kind* (``--kind gp`` or ``--kind spline``),
+``tensor``, ``local``); users ask for a *kind* (``--kind gp``, ``spline`` or ``local``),
 and the first method offered as that kind that applies to the training data
 is used (tensor splines on complete regular grids, the RBF otherwise).
 Models record both: ``kind`` (what users asked for, shown first) and
@@ -123,7 +123,7 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            fit_local, LocalSettings, LocalFit,
            arrays=("X", "alpha", "group_columns", "group_scale", "group_patches", "patch_index", "patch_rows",
                    "patch_centre", "patch_scale", "patch_coef", "local_powers", "cell_counts", "cell_edges",
-                   "cell_half"),
+                   "cell_half", "loo_residual"),
            static_arrays=("group_columns", "group_patches", "patch_index", "patch_rows", "local_powers",
                           "cell_counts"), reverse=reverse_patches,
            describe=describe_local),
