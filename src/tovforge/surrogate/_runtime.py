@@ -1151,6 +1151,42 @@ def _local_part(xp, m, x, grad, columns):
     return _chunked(xp, _local_rows, x, 2 * step, m, grad, _rbf_blocks(m, columns), T)
 
 
+def _local_geometry(xp, x, m, g, G, grad, T):
+    """What group g's sums at rows x need, per cell the row touches: ``(p, r, w, dw, phi, dphi, F, dF, s0, s1)``.
+
+    The cell p, its rows r and weights w (and d w / dx), its r^5 and polynomial rows
+    and first and last weight rows.  Kept for the latest single row (a likelihood asks
+    M_max, then R and Lambda at masses of one theta): each query then reuses them, and
+    the numbers are those of a fresh evaluation (the same operations on the same row).
+    """
+    if x.shape[0] == 1:
+        key = (x.tobytes(), g, grad)
+        slot = m.cache.plain("local_last", g, dict)
+        if slot.get("key") != key:
+            slot["key"], slot["value"] = key, _local_geometry_rows(xp, x, m, g, G, grad, T)
+        return slot["value"]
+    return _local_geometry_rows(xp, x, m, g, G, grad, T)
+
+
+def _local_geometry_rows(xp, x, m, g, G, grad, T):
+    stretch = m["group_scale"][g]
+    xg = x * stretch
+    rows, cells, ws, dws = local_cells(xp, xg, G, grad)
+    out = []
+    for c in [int(v) for v in xp.unique(cells)]:
+        pick = xp.nonzero(cells == c)[0]
+        r = xp.take(rows, pick, axis=0)  # distinct rows: each row meets a cell once
+        xr = xp.take(xg, r, axis=0)
+        p = G["first"] + c
+        XT, X2, s0, s1 = _local_patch(xp, m, g, p, T)
+        phi, dphi = polyharmonic_rows(xp, xr, XT, X2, grad)
+        F, dF = trend_terms(xp, m["local_powers"], T["plan"], (xr - m["patch_centre"][p]) / float(m["patch_scale"][p]),
+                            grad)
+        out.append((p, r, xp.take(ws, pick, axis=0)[:, None], xp.take(dws, pick, axis=0) if grad else None,
+                    phi, dphi, F, dF, s0, s1))
+    return out
+
+
 def _local_rows(xp, x, m, grad, spans, T):
     """The partition's sums at rows x (n, d): (n, n_out) and (n, n_out, d); outputs outside ``spans`` NaN.
 
@@ -1166,25 +1202,14 @@ def _local_rows(xp, x, m, grad, spans, T):
         out[:, a:b] = 0.0
         if grad:
             dout[:, a:b, :] = 0.0
-    powers = m["local_powers"]
     for g, G in enumerate(T["groups"]):
         lo, hi = G["columns"]
         mine = [(max(a, lo), min(b, hi)) for a, b in spans if a < hi and lo < b]
         if not mine:
             continue
         stretch = m["group_scale"][g]
-        xg = x * stretch
-        rows, cells, ws, dws = local_cells(xp, xg, G, grad)
-        for c in [int(v) for v in xp.unique(cells)]:
-            pick = xp.nonzero(cells == c)[0]
-            r = xp.take(rows, pick, axis=0)  # distinct rows: each row meets a cell once
-            w = xp.take(ws, pick, axis=0)[:, None]
-            xr = xp.take(xg, r, axis=0)
-            p = G["first"] + c
-            XT, X2, s0, s1 = _local_patch(xp, m, g, p, T)
-            phi, dphi = polyharmonic_rows(xp, xr, XT, X2, grad)
+        for p, r, w, dw, phi, dphi, F, dF, s0, s1 in _local_geometry(xp, x, m, g, G, grad, T):
             scale = float(m["patch_scale"][p])
-            F, dF = trend_terms(xp, powers, T["plan"], (xr - m["patch_centre"][p]) / scale, grad)
             coef = m["patch_coef"][p]
             for a, b in mine:
                 alpha = _cached(xp, m, "local_alpha", (p, a, b), lambda: m["alpha"][s0:s1, a:b] * 1.0)
@@ -1193,7 +1218,6 @@ def _local_rows(xp, x, m, grad, spans, T):
                 if grad:
                     df = xp.stack([q @ alpha for q in dphi], axis=-1)
                     df = df + xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), coef[:, a:b]), (0, 2, 1)) / scale
-                    dw = xp.take(dws, pick, axis=0)
                     dout[r, a:b, :] += (w[:, :, None] * df + f[:, :, None] * dw[:, None, :]) * stretch
     return out, dout
 

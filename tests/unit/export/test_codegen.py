@@ -125,8 +125,9 @@ def test_one_theta_outside_the_box_or_off_the_branch(kind, models, exported):
 
 def test_kernel_rows_kept_for_the_latest_theta_never_serve_another(models, exported):
     """The generated one-theta code keeps the kernel rows of the latest theta (M_max, then R and Lambda at
-    masses, make each row once); alternating theta must give each its own answers."""
-    for kind in ("gp", "rbf"):
+    masses, make each row once; the local spline's runtime part keeps the cells and rows of the latest theta);
+    alternating theta must give each its own answers."""
+    for kind in ("gp", "rbf", "local"):
         model, mod = models[kind], exported[kind][0]
         theta = box_points(model, 3, seed=25, inner=0.2)
         want = [(model.mass_max(t).value, model.radius(t, 1.3).value, model.tidal_deformability(t, 1.3).value)
