@@ -7,7 +7,7 @@ every 0.1 Msun (the conventions of ``harness.py``); with ``--export``, the expor
 one-theta and batched query latency.
 
     python research/surrogates/local_scaling.py demo 4096 8192 16384 32768 [--export 32768]
-    python research/surrogates/local_scaling.py ss 8192 [--one-group]
+    python research/surrogates/local_scaling.py ss 8192 [--two-groups]
 
 Results are appended to data/local_scaling.jsonl and printed as table rows.
 """
@@ -109,7 +109,7 @@ def main():
     ap.add_argument("box", choices=sorted(BOXES))
     ap.add_argument("sizes", type=int, nargs="+")
     ap.add_argument("--export", type=int, nargs="*", default=[])
-    ap.add_argument("--one-group", action="store_true", help="LocalSettings(separate_scalars=False)")
+    ap.add_argument("--two-groups", action="store_true", help="LocalSettings(separate_scalars=True)")
     a = ap.parse_args()
     train, *holdouts = BOXES[a.box]
     grid = DATA / f"{train}.h5"
@@ -117,7 +117,7 @@ def main():
     for n in a.sizes:
         data = prefix(full, grid, n)
         t0 = time.perf_counter()
-        model = train_on(data, "local", LocalSettings(separate_scalars=not a.one_group))
+        model = train_on(data, "local", LocalSettings(separate_scalars=a.two_groups))
         seconds = time.perf_counter() - t0
         fit = model.meta.fit
         res = {"box": a.box, "groups": len(fit.groups), "n_design": n, "n_train": int(len(data.theta)),
