@@ -71,6 +71,7 @@ class Kind(str, Enum):
 
     gp = "gp"
     spline = "spline"
+    local = "local"
 
 
 class Namespace(str, Enum):

@@ -16,8 +16,9 @@ __all__ = ["check_cmd", "export_cmd", "refine_cmd", "train_cmd"]
 def train_cmd(
     grid: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)],
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
-    kind: Annotated[Kind, typer.Option("--kind", help="Gaussian process, or spline (tensor splines on a regular "
-                                                      "grid, r^5 RBF otherwise).")] = Kind.gp,
+    kind: Annotated[Kind, typer.Option("--kind", help="Gaussian process, spline (tensor splines on a regular "
+                                                      "grid, r^5 RBF otherwise), or local (r^5 interpolants on "
+                                                      "cells, for large grids).")] = Kind.gp,
     subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 512,
     restarts: Annotated[int, typer.Option("--restarts", min=0, help="GP: extra optimiser starts.")] = 1,
     curve_groups: Annotated[
@@ -32,20 +33,21 @@ def train_cmd(
                                                     "as ln(value - offset).")
     ] = True,
     isotropic: Annotated[
-        bool, typer.Option("--isotropic", help="Spline (RBF): no per-parameter stretch of the inputs.")
+        bool, typer.Option("--isotropic", help="Spline (RBF) and local: no per-parameter stretch of the inputs.")
     ] = False,
     overwrite: OverwriteOpt = False,
     allow_mismatch: AllowMismatchOpt = False,
 ):
     """Train a surrogate on a grid and save it."""
     from .._files import check_output
-    from ..surrogate import GPSettings, SplineSettings, train
+    from ..surrogate import GPSettings, LocalSettings, SplineSettings, train
 
     def work():
         check_output(out, "model folder", overwrite, folder=True)  # before the training, not after it
         settings = {"gp": GPSettings(n_subset=subset, n_restarts=restarts, curve_groups=curve_groups,
                                      share_curve_kernels=share_kernels, warp_inputs=warp),
-                    "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic)}.get(kind.value)
+                    "spline": SplineSettings(warp_inputs=warp, anisotropic=not isotropic),
+                    "local": LocalSettings(warp_inputs=warp, anisotropic=not isotropic)}.get(kind.value)
         model = train(grid, kind.value, settings, allow_mismatch=allow_mismatch)
         model.save(out, overwrite=overwrite)
         return model

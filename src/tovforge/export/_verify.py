@@ -120,8 +120,9 @@ def rounding_noise(model, theta) -> float:
     rounding; the result says what another library, BLAS or machine can be
     expected to reproduce.  Zero for methods without such sums (tensor splines).
     """
-    rows = model.method_info.training_rows
-    flipped = model.with_arrays(**{k: np.array(model.arrays[k][::-1]) for k in rows})
+    info = model.method_info
+    flipped = model.with_arrays(**(info.reverse(model.arrays) if info.reverse is not None else
+                                   {k: np.array(model.arrays[k][::-1]) for k in info.training_rows}))
     a, b = model.evaluate(theta, grad=True), flipped.evaluate(theta, grad=True)
     pairs = [(a.values, b.values), (a.grad, b.grad)]
     for q in model.star_queries:  # as the queries amplify it

@@ -19,6 +19,7 @@ from ._contract import Curve, Estimate, MassPrediction, Prediction, QueryError
 from ._data import TrainingData, read_training_data, training_data_from_arrays
 from ._gp import GPSettings
 from ._kinds import kinds
+from ._local import LocalSettings
 from ._meta import LearningPoint, ModelMeta
 from ._model import Evaluation, ModelFormatError, Surrogate, load
 from ._prepare import FitResult
@@ -33,6 +34,7 @@ __all__ = [
     "FitResult",
     "GPSettings",
     "LearningPoint",
+    "LocalSettings",
     "MassPrediction",
     "ModelFormatError",
     "ModelMeta",

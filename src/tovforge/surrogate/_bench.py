@@ -14,7 +14,7 @@ _TRAIN = Path("grids/demo-train.h5")
 
 
 def bench_surrogate(quick: bool = False, echo=print) -> None:
-    """Training time of GP and spline on the demo training grid; in-library prediction speed."""
+    """Training time of GP, spline and local on the demo training grid; in-library prediction speed."""
     import dataclasses
     import time
 
@@ -31,7 +31,7 @@ def bench_surrogate(quick: bool = False, echo=print) -> None:
     echo(f"training on {n} points of {_TRAIN} (GP: hyperparameters on {settings.n_subset} points, "
          f"{settings.curve_groups} kernels per curve, all cores)")
     models = {}
-    for kind in ("spline", "gp"):
+    for kind in ("spline", "gp", "local"):
         t0 = time.perf_counter()
         models[kind] = train_on(data, kind, settings if kind == "gp" else None)
         echo(f"  train {kind:<7} {time.perf_counter() - t0:8.1f} s")

@@ -1,7 +1,7 @@
 """The table of surrogate kinds: everything the rest of the package needs to know about each.
 
 A *method* is one way of fitting and evaluating a model (``gp``, ``rbf``,
-``tensor``); users ask for a *kind* (``--kind gp`` or ``--kind spline``),
+``tensor``, ``local``); users ask for a *kind* (``--kind gp``, ``spline`` or ``local``),
 and the first method offered as that kind that applies to the training data
 is used (tensor splines on complete regular grids, the RBF otherwise).
 Models record both: ``kind`` (what users asked for, shown first) and
@@ -27,6 +27,7 @@ from . import _gp_code, _rbf_code, _tensor_code
 from ._codegen import Template
 from ._data import TrainingData
 from ._gp import GPFit, GPSettings, describe_gp, fit_gp
+from ._local import LocalFit, LocalSettings, describe_local, fit_local, reverse_patches
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._tensor import TensorFit, fit_tensor, is_regular
 
@@ -70,6 +71,10 @@ class Method:
     training_rows : tuple of str
         Its arrays whose rows are the training points (their order is reversed to
         measure a model's rounding noise).
+    reverse : callable or None
+        ``reverse(arrays) -> dict``: the arrays to replace so that every weight sum runs
+        in reverse order, for methods whose sums do not run over ``training_rows``
+        (local splines: each cell's rows); None: ``training_rows`` reversed.
     has_std : bool
         True if the method has a predictive standard deviation.
     applies : callable
@@ -91,6 +96,7 @@ class Method:
     arrays: tuple = ()
     static_arrays: tuple = ()
     training_rows: tuple = ()
+    reverse: Callable | None = None
     has_std: bool = False
     applies: Callable[[TrainingData], bool] = _always
     describe: Callable | None = None
@@ -112,6 +118,15 @@ METHODS: dict[str, Method] = {m.name: m for m in (
     Method("rbf", "spline", "polyharmonic splines: r^5 radial basis functions plus a quadratic polynomial",
            fit_rbf, SplineSettings, RBFFit, arrays=("X", "alpha"), training_rows=("X", "alpha"),
            template=_rbf_code.TEMPLATE),
+    Method("local", "local", "local polyharmonic splines: a partition of unity of r^5 interpolants plus quadratic "
+           "polynomials on quantile cells (per-query cost independent of the training size; NumPy only)",
+           fit_local, LocalSettings, LocalFit,
+           arrays=("X", "alpha", "group_columns", "group_scale", "group_patches", "patch_index", "patch_rows",
+                   "patch_centre", "patch_scale", "patch_coef", "local_powers", "cell_counts", "cell_edges",
+                   "cell_half", "loo_residual"),
+           static_arrays=("group_columns", "group_patches", "patch_index", "patch_rows", "local_powers",
+                          "cell_counts"), reverse=reverse_patches,
+           describe=describe_local),
 )}
 
 

@@ -182,7 +182,9 @@ class Surrogate:
         if X is None:
             return np.zeros(len(t), dtype=bool)
         x = rt.unit_inputs(np, self._model, t)[0]
-        d2 = ((x[:, None, :] - X[None, :, :]) ** 2).sum(-1).min(axis=1)
+        step = max(1, (1 << 22) // (X.shape[0] * X.shape[1]))  # rows at a time: memory bounded for large models
+        d2 = np.concatenate([((x[s : s + step, None, :] - X[None, :, :]) ** 2).sum(-1).min(axis=1)
+                             for s in range(0, len(x), step)] or [np.zeros(0)])
         return d2 < tol * tol
 
     def _ask(self, fn, *args):

@@ -84,9 +84,10 @@ class RBFFit(Record):
     anisotropy_subset: int = 0
 
 
-def _anisotropy(x, Z, slices, settings: SplineSettings):
-    """Per-parameter stretch ``l_min / l_i`` from one GP kernel over the curve outputs (see SplineSettings)."""
-    R = trend_residuals(x, Z, 2)[2][:, slices[0][0]:slices[-1][1]]
+def _anisotropy(x, Z, columns: tuple, settings: SplineSettings):
+    """Per-parameter stretch ``l_min / l_i`` from one GP kernel over the output columns ``columns`` (a, b)
+    (the RBF: the curve outputs; see SplineSettings)."""
+    R = trend_residuals(x, Z, 2)[2][:, columns[0]:columns[1]]
     sub = space_filling_subset(x, settings.n_subset, settings.seed)
     # bounds hits of the nugget are expected: the warnings are dropped
     kernel, _ = fit_gaussian_process(x, R, sub, matern_kernel(x.shape[1]), 0, settings.seed)
@@ -123,7 +124,7 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitRe
     details = RBFFit(input_warp=p.input_warp)
     if settings.anisotropic:
         t0 = time.perf_counter()
-        scale, length = _anisotropy(x, Z, p.slices, settings)
+        scale, length = _anisotropy(x, Z, (int(p.slices[0][0]), int(p.slices[-1][1])), settings)
         arrays["input_scale"] = scale
         x = rt.unit_inputs(np, arrays, data.theta)[0]
         details = RBFFit(input_warp=p.input_warp, input_scale=tuple(scale.tolist()),

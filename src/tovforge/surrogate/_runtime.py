@@ -46,6 +46,16 @@ and those of the method:
 ``"tensor"``
     ``knots`` (d, k) padded, ``n_knots`` (d,), ``coef`` (n_1..n_d flattened,
     n_out), ``coef_shape`` (d,); tensor-product cubic B-splines.
+``"local"``
+    ``X`` (n, d) unit inputs; metric groups of output columns
+    ``group_columns`` (G + 1,), each with its stretch ``group_scale`` (G, d)
+    and cells ``cell_counts`` (G, d), ``cell_edges``, ``cell_half`` (G, d,
+    K + 1), numbered from ``group_patches[g]``; per cell ``p`` the rows
+    ``patch_rows[p]:patch_rows[p+1]`` of ``patch_index`` (training points) and
+    ``alpha`` (r^5 weights), a polynomial ``patch_coef`` (P, n_terms, n_out) in
+    ``(x - patch_centre[p]) / patch_scale[p]`` with ``local_powers`` (see
+    ``surrogate/_local.py``).  A partition of unity blends the cells a row
+    touches (:func:`local_cells`).  NumPy only.
 
 A new method is a function ``part(xp, m, x, grad, columns) -> (z, dz)`` here,
 an entry in :data:`PARTS` (and in :data:`STD` if it has a predictive sigma),
@@ -650,8 +660,6 @@ def _tensor_rows(xp, x, T, coef, grad):
     return tensor_rows(xp, x, T, coef, grad)
 
 
-#: The runtime part of each method (``Model.method``).
-PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part}
 
 
 def _bmm(xp, a, b):
@@ -1010,3 +1018,209 @@ def curve_at_mass(xp, m, y, dy, sd, mass, query):
         s_nodes = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
         s = xp.sqrt(s_nodes**2 + (der * dudm * sd[:, im][:, None]) ** 2)
     return _inverse_with(xp, o[3], val, g, s)
+
+
+# ---------------------------------------------------------------------------
+# Local polyharmonic splines (partition of unity of r^5 interpolants on cells)
+# ---------------------------------------------------------------------------
+
+
+def local_weights_1d(xp, t, edges, half, grad):
+    """One parameter's partition-of-unity weights at t (n,), for cells with ``edges`` and blend ``half`` (lists).
+
+    Returns the lower cell each row touches ``low`` (n,) int, its weight, the
+    weight of the cell above (zero outside a blend zone), and their
+    t-derivatives (or None): around interior edge j the weights are
+    ``1 - s`` and ``s`` with ``s`` the quintic smoothstep of
+    ``(t - e_j + h_j) / (2 h_j)`` (C^2).  Blend zones do not overlap
+    (``h_j`` < half the narrower cell), so a row touches at most two cells.
+    """
+    k = len(edges) - 1
+    low = xp.zeros(t.shape, dtype=xp.int64)
+    wl = xp.ones(t.shape, dtype=t.dtype)
+    wh = xp.zeros(t.shape, dtype=t.dtype)
+    dl = xp.zeros(t.shape, dtype=t.dtype) if grad else None
+    dh = xp.zeros(t.shape, dtype=t.dtype) if grad else None
+    for j in range(1, k):
+        e, h = float(edges[j]), float(half[j])
+        above = t >= e + h
+        low = xp.where(above, j, low)
+        wl = xp.where(above, 1.0, wl)
+        wh = xp.where(above, 0.0, wh)
+        if grad:
+            dl = xp.where(above, 0.0, dl)
+            dh = xp.where(above, 0.0, dh)
+        if h <= 0.0:
+            continue
+        u = (t - (e - h)) / (2.0 * h)
+        zone = (u > 0.0) & (u < 1.0)
+        u = xp.clip(u, 0.0, 1.0)
+        s = u * u * u * (u * (6.0 * u - 15.0) + 10.0)
+        low = xp.where(zone, j - 1, low)
+        wl = xp.where(zone, 1.0 - s, wl)
+        wh = xp.where(zone, s, wh)
+        if grad:
+            ds = (30.0 / (2.0 * h)) * (u * (u - 1.0)) ** 2
+            dl = xp.where(zone, -ds, dl)
+            dh = xp.where(zone, ds, dh)
+    return low, wl, wh, dl, dh
+
+
+def local_tables(m):
+    """The cells of a local model as plain Python values (cached): per metric group its output columns,
+    stretch, counts, strides, edges, half-widths and first cell; the rows of every cell; the polynomial plan."""
+    def make():
+        gc = [int(v) for v in m["group_columns"]]
+        gp = [int(v) for v in m["group_patches"]]
+        groups = []
+        for g in range(len(gc) - 1):
+            counts = [int(c) for c in m["cell_counts"][g]]
+            d = len(counts)
+            strides = [1] * d
+            for i in range(d - 2, -1, -1):
+                strides[i] = strides[i + 1] * counts[i + 1]
+            groups.append({"columns": (gc[g], gc[g + 1]), "first": gp[g], "counts": counts, "strides": strides,
+                           "edges": [[float(v) for v in m["cell_edges"][g][i][: counts[i] + 1]] for i in range(d)],
+                           "half": [[float(v) for v in m["cell_half"][g][i][: counts[i] + 1]] for i in range(d)]})
+        return {"groups": groups, "rows": [int(v) for v in m["patch_rows"]], "plan": trend_plan(m["local_powers"])}
+
+    return m.cache.plain("local_tables", None, make)
+
+
+def local_cells(xp, x, T, grad):
+    """The (row, cell, weight) triples of rows x (n, d) with a nonzero partition weight, and d weight / dx.
+
+    Returns ``rows`` (k,) int, ``cells`` (k,) int (C order over the counts),
+    ``w`` (k,) and ``dw`` (k, d) or None.  Only parameters along which some
+    row sits in a blend zone multiply the combinations, so one theta inside a
+    cell costs one combination.
+    """
+    n, d = x.shape
+    per = [local_weights_1d(xp, x[:, i], T["edges"][i], T["half"][i], grad) for i in range(d)]
+    base = per[0][0] * T["strides"][0]
+    for i in range(1, d):
+        base = base + per[i][0] * T["strides"][i]
+    active = [i for i in range(d) if bool(xp.any(per[i][2] > 0.0))]
+    all_rows = xp.arange(n, dtype=xp.int64)
+    rows, cells, ws, dws = [], [], [], []
+    for combo in range(2 ** len(active)):
+        up = {i: (combo >> b) & 1 for b, i in enumerate(active)}
+        f = [per[i][2] if up.get(i) else per[i][1] for i in range(d)]
+        w = f[0]
+        for i in range(1, d):
+            w = w * f[i]
+        keep = xp.nonzero(w > 0.0)[0]
+        if keep.shape[0] == 0:
+            continue
+        cell = base + sum(T["strides"][i] for i in active if up[i])
+        rows.append(xp.take(all_rows, keep, axis=0))
+        cells.append(xp.take(cell, keep, axis=0))
+        ws.append(xp.take(w, keep, axis=0))
+        if grad:
+            cols = []
+            for i in range(d):
+                g = per[i][4] if up.get(i) else per[i][3]
+                for j in range(d):
+                    if j != i:
+                        g = g * f[j]
+                cols.append(xp.take(g, keep, axis=0))
+            dws.append(xp.stack(cols, axis=-1))
+    return (xp.concat(rows), xp.concat(cells), xp.concat(ws), xp.concat(dws, axis=0) if grad else None)
+
+
+def _local_patch(xp, m, g, c, T):
+    """Cell c's training points in its group's stretch, transposed (d, N_c), their squared norms (1, N_c), and its
+    first and last weight rows."""
+    def make():
+        a, b = T["rows"][c], T["rows"][c + 1]
+        X = xp.take(m["X"], m["patch_index"][a:b], axis=0) * m["group_scale"][g]
+        XT = xp.permute_dims(X, (1, 0))
+        if _is_numpy(xp):
+            XT = xp.ascontiguousarray(XT)
+        return XT, xp.reshape(xp.sum(X * X, axis=-1), (1, -1)), a, b
+
+    return _cached(xp, m, "local_patch", c, make)
+
+
+def _local_part(xp, m, x, grad, columns):
+    """Local polyharmonic splines: each row blends the r^5 sums of the cells it touches (NumPy only)."""
+    if not _is_numpy(xp):
+        raise TypeError("local splines evaluate under NumPy only (rows are gathered per cell by index assignment).")
+    T = local_tables(m)
+    step = max(T["rows"][c + 1] - T["rows"][c] for c in range(len(T["rows"]) - 1))
+    return _chunked(xp, _local_rows, x, 2 * step, m, grad, _rbf_blocks(m, columns), T)
+
+
+def _local_geometry(xp, x, m, g, G, grad, T):
+    """What group g's sums at rows x need, per cell the row touches: ``(p, r, w, dw, phi, dphi, F, dF, s0, s1)``.
+
+    The cell p, its rows r and weights w (and d w / dx), its r^5 and polynomial rows
+    and first and last weight rows.  Kept for the latest single row (a likelihood asks
+    M_max, then R and Lambda at masses of one theta): each query then reuses them, and
+    the numbers are those of a fresh evaluation (the same operations on the same row).
+    """
+    if x.shape[0] == 1:
+        key = (x.tobytes(), g, grad)
+        slot = m.cache.plain("local_last", g, dict)
+        if slot.get("key") != key:
+            slot["key"], slot["value"] = key, _local_geometry_rows(xp, x, m, g, G, grad, T)
+        return slot["value"]
+    return _local_geometry_rows(xp, x, m, g, G, grad, T)
+
+
+def _local_geometry_rows(xp, x, m, g, G, grad, T):
+    stretch = m["group_scale"][g]
+    xg = x * stretch
+    rows, cells, ws, dws = local_cells(xp, xg, G, grad)
+    out = []
+    for c in [int(v) for v in xp.unique(cells)]:
+        pick = xp.nonzero(cells == c)[0]
+        r = xp.take(rows, pick, axis=0)  # distinct rows: each row meets a cell once
+        xr = xp.take(xg, r, axis=0)
+        p = G["first"] + c
+        XT, X2, s0, s1 = _local_patch(xp, m, g, p, T)
+        phi, dphi = polyharmonic_rows(xp, xr, XT, X2, grad)
+        F, dF = trend_terms(xp, m["local_powers"], T["plan"], (xr - m["patch_centre"][p]) / float(m["patch_scale"][p]),
+                            grad)
+        out.append((p, r, xp.take(ws, pick, axis=0)[:, None], xp.take(dws, pick, axis=0) if grad else None,
+                    phi, dphi, F, dF, s0, s1))
+    return out
+
+
+def _local_rows(xp, x, m, grad, spans, T):
+    """The partition's sums at rows x (n, d): (n, n_out) and (n, n_out, d); outputs outside ``spans`` NaN.
+
+    Each metric group blends its own cells in its own stretch of x; gradients are taken in the
+    stretched inputs and multiplied by the stretch at the end.
+    """
+    n, d = x.shape
+    n_out = m["alpha"].shape[1]
+    nan = float("nan")
+    out = xp.full((n, n_out), nan, dtype=x.dtype)
+    dout = xp.full((n, n_out, d), nan, dtype=x.dtype) if grad else None
+    for a, b in spans:
+        out[:, a:b] = 0.0
+        if grad:
+            dout[:, a:b, :] = 0.0
+    for g, G in enumerate(T["groups"]):
+        lo, hi = G["columns"]
+        mine = [(max(a, lo), min(b, hi)) for a, b in spans if a < hi and lo < b]
+        if not mine:
+            continue
+        stretch = m["group_scale"][g]
+        for p, r, w, dw, phi, dphi, F, dF, s0, s1 in _local_geometry(xp, x, m, g, G, grad, T):
+            scale = float(m["patch_scale"][p])
+            coef = m["patch_coef"][p]
+            for a, b in mine:
+                alpha = _cached(xp, m, "local_alpha", (p, a, b), lambda: m["alpha"][s0:s1, a:b] * 1.0)
+                f = phi @ alpha + F @ coef[:, a:b]
+                out[r, a:b] += w * f
+                if grad:
+                    df = xp.stack([q @ alpha for q in dphi], axis=-1)
+                    df = df + xp.permute_dims(_bmm(xp, xp.permute_dims(dF, (0, 2, 1)), coef[:, a:b]), (0, 2, 1)) / scale
+                    dout[r, a:b, :] += (w[:, :, None] * df + f[:, :, None] * dw[:, None, :]) * stretch
+    return out, dout
+
+
+#: The runtime part of each method (``Model.method``).
+PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part, "local": _local_part}

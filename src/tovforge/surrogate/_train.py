@@ -26,8 +26,9 @@ def train(grid_path, kind: str = "gp", settings=None, allow_mismatch: bool = Fal
     kind : str
         One of :func:`tovforge.surrogate.kinds` (``"gp"``: Gaussian process;
         ``"spline"``: tensor-product cubic splines on a complete regular grid,
-        polyharmonic radial basis functions otherwise).
-    settings : GPSettings or SplineSettings, optional
+        polyharmonic radial basis functions otherwise; ``"local"``: a partition
+        of unity of local polyharmonic splines, for large grids).
+    settings : GPSettings, SplineSettings or LocalSettings, optional
         Options of the kind (default: its defaults).
     allow_mismatch : bool
         Train on a grid whose datasets do not match its content hash (for

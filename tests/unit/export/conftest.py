@@ -1,9 +1,10 @@
 """Small surrogates of every kind, and their exported files, shared by the export tests.
 
 The GP models (one with its own kernel per output group, one whose curves share
-kernels) and the RBF model learn 300 rows of the demo training grid (a few seconds);
-the tensor-spline model learns a smooth synthetic function on a 5^4 regular grid
-(the demo grid is scattered, and tensor splines need a regular one).
+kernels), the RBF model and the local spline (cells of ~60 points) learn 300 rows
+of the demo training grid (a few seconds); the tensor-spline model learns a smooth
+synthetic function on a 5^4 regular grid (the demo grid is scattered, and tensor
+splines need a regular one).
 """
 
 from __future__ import annotations
@@ -18,12 +19,12 @@ import pytest
 
 from tovforge.export import export_model
 from tovforge.export._bench import synthetic_training_data
-from tovforge.surrogate import GPSettings, TrainingData, read_training_data, train_on
+from tovforge.surrogate import GPSettings, LocalSettings, TrainingData, read_training_data, train_on
 
 ROOT = Path(__file__).resolve().parents[3]
 TRAIN_GRID = ROOT / "grids" / "demo-train.h5"
 HOLDOUT_GRID = ROOT / "grids" / "demo-holdout.h5"
-KINDS = ("gp", "gp-shared", "rbf", "tensor")  # gp-shared: curves share kernels per block of u
+KINDS = ("gp", "gp-shared", "rbf", "tensor", "local")  # gp-shared: curves share kernels per block of u
 
 
 def import_file(path: Path, name: str | None = None):
@@ -55,6 +56,8 @@ def models():
         "gp-shared": train_on(data, "gp", GPSettings(n_subset=100, n_restarts=0, share_curve_kernels=True)),
         "rbf": train_on(data, "spline"),
         "tensor": train_on(synthetic_training_data(5), "spline"),
+        # small cells, so that queries blend several cells' interpolants
+        "local": train_on(data, "local", LocalSettings(points_per_cell=60, min_points=40)),
     }
     assert [m.method for m in out.values()] == [k.split("-")[0] for k in KINDS]
     return out

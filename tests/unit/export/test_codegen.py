@@ -36,10 +36,17 @@ def _theta_rows(model, n, seed):
     return theta
 
 
+#: Methods whose exported files run their general runtime part (no template of generated code yet).
+WITHOUT_TEMPLATE = {"local"}
+
+
 @pytest.mark.parametrize("kind", KINDS)
 def test_batches_are_the_library_bit_for_bit(kind, models, exported):
     model, mod = models[kind], exported[kind][0]
-    assert mod._GENERATED_PARTS and mod._GM is not mod._M  # the NumPy model runs the generated sums
+    if model.method in WITHOUT_TEMPLATE:  # its general runtime part
+        assert not mod._GENERATED_PARTS and mod._GM is mod._M
+    else:
+        assert mod._GENERATED_PARTS and mod._GM is not mod._M  # the NumPy model runs the generated sums
     theta = _theta_rows(model, 40, seed=21)
     for name, args, kw in query_calls(model.star_queries, MASSES):
         got, want = flatten(getattr(mod, name)(theta, *args, **kw)), flatten(getattr(model, name)(theta, *args, **kw))
@@ -118,8 +125,9 @@ def test_one_theta_outside_the_box_or_off_the_branch(kind, models, exported):
 
 def test_kernel_rows_kept_for_the_latest_theta_never_serve_another(models, exported):
     """The generated one-theta code keeps the kernel rows of the latest theta (M_max, then R and Lambda at
-    masses, make each row once); alternating theta must give each its own answers."""
-    for kind in ("gp", "rbf"):
+    masses, make each row once; the local spline's runtime part keeps the cells and rows of the latest theta);
+    alternating theta must give each its own answers."""
+    for kind in ("gp", "rbf", "local"):
         model, mod = models[kind], exported[kind][0]
         theta = box_points(model, 3, seed=25, inner=0.2)
         want = [(model.mass_max(t).value, model.radius(t, 1.3).value, model.tidal_deformability(t, 1.3).value)
@@ -164,7 +172,11 @@ def test_plans_cover_the_columns_each_query_reads(kind, models):
         assert list(blocks) == sorted(blocks)
 
 
-@pytest.mark.parametrize("method", list(_kinds.METHODS))
+def test_only_the_listed_methods_lack_a_template():
+    assert {n for n, m in _kinds.METHODS.items() if m.template is None} == WITHOUT_TEMPLATE
+
+
+@pytest.mark.parametrize("method", [n for n in _kinds.METHODS if n not in WITHOUT_TEMPLATE])
 def test_every_template_has_its_helpers_between_the_markers(method):
     template = _kinds.METHODS[method].template
     assert template is not None, f"{method} has no template (its exported files would be slow)"
