@@ -11,6 +11,26 @@ from .._extras import pyplot
 __all__ = ["figures"]
 
 
+def _theta_title(model, theta) -> str:
+    """``name = value`` of each parameter, two to a line."""
+    parts = [f"{n} = {v:.4g}" for n, v in zip(model.parameter_names, theta)]
+    return "\n".join(", ".join(parts[i:i + 2]) for i in range(0, len(parts), 2))
+
+
+def _exact_branch(family: str, theta):
+    """``(R [km], M [Msun])`` of the exact stable branch of the EOS at ``theta`` (200 stars), or None."""
+    from .. import eos
+    from ..solve import solve_sequence
+
+    try:
+        seq = solve_sequence(eos.get_family(family).from_array(np.asarray(theta, float)), n_stars=200)
+    except Exception:  # noqa: BLE001 - a figure without the line beats a failed check report
+        return None
+    if not seq.success:
+        return None
+    return np.asarray(seq.branch.radius_km), np.asarray(seq.branch.mass_msun)
+
+
 def figures(model, g, ok, th, mm, mm_exact, q, finite, worst, out: Path) -> list[str]:
     """Write the PNG figures of a check into ``out``; returns their file names.
 
@@ -65,15 +85,37 @@ def figures(model, g, ok, th, mm, mm_exact, q, finite, worst, out: Path) -> list
     save(fig, "error_vs_parameters.png")
 
     k = min(4, len(worst))
-    fig, ax = plt.subplots(1, max(k, 1), figsize=(4 * max(k, 1), 4), squeeze=False)
+    fig, ax = plt.subplots(1, max(k, 1), figsize=(4 * max(k, 1), 4.4), squeeze=False)
     ok_idx = np.flatnonzero(ok)
     for j, i in enumerate(worst[:k]):
         gi = ok_idx[i]
         a = ax[0, j]
-        a.plot(g.curves["radius_km"][gi], g.curves["mass_msun"][gi], "k.-", ms=3, label="exact (grid nodes)")
+        exact = _exact_branch(model.family, th[i])
+        if exact is not None:  # the exact branch at plotting resolution, not a polyline through the nodes
+            a.plot(exact[0], exact[1], "k-", lw=1.0, label="exact (solver)")
+        a.plot(g.curves["radius_km"][gi], g.curves["mass_msun"][gi], "k.", ms=4, label="exact (grid nodes)")
         c = model.curve(th[i], n=120)
         a.plot(c.radius_km, c.masses_msun, "r-", lw=1.2, label="emulated")
-        a.set(xlabel="R [km]", ylabel="M [Msun]", title=", ".join(f"{v:.3g}" for v in th[i]))
+        a.set(xlabel="R [km]", ylabel="M [Msun]",
+              title=f"largest R(M) error {worst_r[i]:.0f} m\n" + _theta_title(model, th[i]))
+        a.title.set_fontsize(8)
         a.legend(fontsize=7)
     save(fig, "worst_mass_radius.png")
+
+    with_std = [(name, v, s, x) for name, (v, s, x) in q.items()
+                if s is not None and np.isfinite(np.asarray(s, float)[finite]).any()]
+    if with_std:  # calibration: errors in units of the predicted sigma against the unit normal
+        fig, ax = plt.subplots(1, len(with_std), figsize=(4.2 * len(with_std), 3.8), squeeze=False)
+        grid_z = np.linspace(-6.0, 6.0, 241)
+        for a, (name, v, s, x) in zip(ax[0], with_std):
+            z = ((np.asarray(v) - np.asarray(x)) / np.asarray(s))[finite]
+            z = z[np.isfinite(z)]
+            beyond = 100.0 * float(np.mean(np.abs(z) > 3.0)) if z.size else float("nan")
+            a.hist(np.clip(z, -6, 6), bins=48, range=(-6, 6), density=True,
+                   label=f"held-out stars ({z.size}); |z| > 3: {beyond:.2f} %")
+            a.plot(grid_z, np.exp(-0.5 * grid_z**2) / np.sqrt(2 * np.pi), "k-", lw=1, label="unit normal")
+            a.set(xlabel="(emulated - exact) / sigma (clipped at 6)", ylabel="density", yscale="log",
+                  ylim=(1e-5, 1.0), title=f"calibration of sigma: {name}")
+            a.legend(fontsize=7)
+        save(fig, "calibration.png")
     return files

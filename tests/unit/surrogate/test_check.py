@@ -131,3 +131,26 @@ def test_bad_inputs_exit_2(spline_model, tmp_path):
     # no model folder at all
     res = runner.invoke(app, ["check", str(tmp_path / "nothing"), "--holdout", str(HOLDOUT)])
     assert res.exit_code == 2 and "no such model folder" in res.stderr
+
+
+def test_check_figures_draw_the_exact_branch_and_the_calibration(gp_model, tmp_path):
+    """Issue 16: the worst-case panels draw the exact solver's branch (not a polyline through the grid nodes)
+    and are titled with parameter names; a model with a sigma gets a calibration figure."""
+    from tovforge.surrogate._report_figures import _exact_branch, _theta_title
+
+    check(gp_model, HOLDOUT, tmp_path / "rep")
+    assert (tmp_path / "rep" / "calibration.png").stat().st_size > 0
+    with h5py.File(HOLDOUT, "r") as f:
+        i = int(np.flatnonzero(f["status/code"][...] == 0)[0])
+        theta = f["parameters/values"][i]
+        mmax = float(f["scalars/mass_max_msun"][i])
+        r_nodes = f["curves/radius_km"][i]
+        m_nodes = f["curves/mass_msun"][i]
+    r, m = _exact_branch(gp_model.family, theta)
+    assert r.size >= 200 and abs(m.max() - mmax) < 1e-6 * mmax  # the branch reaches the exact maximum
+    inside = (m_nodes > m.min()) & (m_nodes < m.max() - 0.05)  # linear interpolation fails at the turn
+    order = np.argsort(m[: int(np.argmax(m)) + 1])
+    r_at_nodes = np.interp(m_nodes[inside], m[order], r[order])
+    np.testing.assert_allclose(r_at_nodes, r_nodes[inside], atol=0.02)  # the same stars, 200 of them
+    title = _theta_title(gp_model, theta)
+    assert all(f"{n} = " in title for n in gp_model.parameter_names)
