@@ -32,7 +32,8 @@ import math
 import numpy as np
 
 from ..surrogate._contract import Curve, Estimate, QueryError, _require_inside, _require_on_branch
-from ..surrogate._runtime import DERIVED, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights, _inverse_with
+from ..surrogate._runtime import (DERIVED, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights, _inverse_with,
+                                  error_model_std)
 
 # ---- the exported code starts below this line ----
 
@@ -200,6 +201,10 @@ def _outputs_one(plan, t, grad, std):
         dy = (plan.scale[:, None] * dz) / np.array(_span_one(t))
     if std:
         sd = s[0] if s is not None else np.full(plan.width, _NAN)
+        err = error_model_std(_NUMPY, _GM, xr)  # the runtime's output_std: both sigmas in quadrature
+        if err is not None:
+            e = err[0, plan.idx]
+            sd = e if s is None else np.sqrt(sd * sd + e * e)
     return y, dy, sd
 
 

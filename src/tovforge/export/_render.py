@@ -256,7 +256,7 @@ def constants(model, check, info: dict, index: list) -> list[str]:
         f"KIND = {literal(str(meta.kind))}",
         f"METHOD = {literal(str(meta.method))}",
         "#: True if the model has a predictive sigma (return_std); otherwise std fields are NaN.",
-        f"HAS_STD = {literal(bool(method.has_std))}",
+        f"HAS_STD = {literal(bool(model.has_std))}",
         f"PARAMETERS = {literal(tuple(meta.parameters))}",
         f"UNITS = {literal(tuple(str(u) for u in meta.parameter_units))}",
         f"BOUNDS = {literal(tuple((float(a), float(b)) for a, b in meta.bounds))}",

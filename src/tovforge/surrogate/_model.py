@@ -96,8 +96,12 @@ class Surrogate:
 
     @property
     def has_std(self) -> bool:
-        """True if the model has a predictive standard deviation (otherwise ``std`` fields are NaN)."""
-        return self.method_info.has_std
+        """True if the model has a predictive standard deviation (otherwise ``std`` fields are NaN).
+
+        Gaussian processes have their own; any model trained with leave-one-out residuals has the
+        error model (``loo_residual``, see :mod:`tovforge.surrogate._errors`).
+        """
+        return self.method_info.has_std or "loo_residual" in self.arrays
 
     @property
     def family(self) -> str:

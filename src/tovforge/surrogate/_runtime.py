@@ -801,6 +801,51 @@ def _gp_std(xp, m, x, columns):
     return gp_local_std(xp, m, x, columns=columns)
 
 
+#: Training points whose leave-one-out residuals make the error model's sigma at a query.
+ERROR_NEIGHBOURS = 12
+
+
+def error_model_std(xp, m, x, skip_nearest=0):
+    """The error model's sigma of every output (n, n_out) at unit inputs x (n, d), or None without one.
+
+    A model with the arrays ``loo_residual`` (n_train, n_out: each training
+    point's leave-one-out residual, in the model's output units) and
+    ``error_scale`` (n_out,: the calibration factor) predicts its own error
+    from the residuals of the :data:`ERROR_NEIGHBOURS` training points nearest
+    to the query in the model's input metric: the root of their
+    inverse-square-distance weighted mean square, times the factor.  The
+    weights are ``1 / (d_j + d_1)^2`` (d_1 the nearest distance), so a query
+    on top of a training point still averages over its neighbours.  The cost
+    per query is one pass over the training points (as the mean's own), and
+    the answer needs no kernel inverse.  ``skip_nearest``: leave out that many
+    nearest points (1 at a training point: its leave-one-out sigma, for
+    calibration).
+    """
+    if m.get("loo_residual") is None:
+        return None
+    return _chunked(xp, _error_model_rows, x, m["X"].shape[0], m, skip_nearest)[0]
+
+
+def _error_model_rows(xp, x, m, skip):
+    XT, X2 = rbf_points(xp, m)
+    q = xp.matmul(x * -2.0, XT)
+    q += xp.sum(x * x, axis=-1)[:, None]
+    q += X2
+    K = min(ERROR_NEIGHBOURS + skip, X2.shape[1])
+    nn = nearest(xp, q, K)
+    d2 = xp.take_along_axis(q, nn, axis=-1)
+    order = xp.argsort(d2, axis=-1)
+    nn = xp.take_along_axis(nn, order, axis=-1)[:, skip:]
+    d2 = xp.take_along_axis(d2, order, axis=-1)[:, skip:]
+    dist = xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))
+    w = 1.0 / (dist + dist[:, :1] + 1e-12) ** 2
+    w = w / xp.sum(w, axis=-1)[:, None]
+    E2 = _cached(xp, m, "error_sq", None, lambda: (m["loo_residual"] * m["error_scale"]) ** 2)
+    n, k = nn.shape
+    Ek = xp.reshape(xp.take(E2, xp.reshape(nn, (-1,)), axis=0), (n, k, E2.shape[1]))
+    return (xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1)),)
+
+
 #: Methods with a predictive standard deviation; the others have none (NaN, see :func:`output_std`).
 STD = {"gp": _gp_std}
 
@@ -837,9 +882,15 @@ def output_std(xp, m, theta, columns=None):
     x, inside = unit_inputs(xp, m, theta)
     nan = float("nan")
     part = STD.get(m.method)
-    if part is None:
+    err = error_model_std(xp, m, x)
+    if part is None and err is None:
         return xp.full((x.shape[0], m["out_mean"].shape[0]), nan, dtype=x.dtype)
-    s = part(xp, m, x, columns)
+    if part is None:
+        s = err
+    else:
+        s = part(xp, m, x, columns)
+        if err is not None:  # the method's own sigma and the error model's, in quadrature
+            s = xp.sqrt(s * s + err * err)
     return xp.where(inside[:, None], s, nan)
 
 
