@@ -33,7 +33,7 @@ SELF_CHECK_POINTS = 48
 #: Unit of each field of a prediction (``predict``), from the registry of quantities.
 OUTPUT_UNITS = {
     name: {"u_nodes": "1 (u = sqrt(1 - M/M_max))", "out_of_box": "bool"}.get(name) or quantities.get(name).unit
-    for name in Prediction.__dataclass_fields__ if name != "std"
+    for name in Prediction.__dataclass_fields__ if name not in ("std", "trusted")
 }
 
 

@@ -226,6 +226,12 @@ class Surrogate:
     def predict_at_masses(self, theta, masses, return_std: bool = False, strict: bool = False) -> MassPrediction:
         return self._ask(qc.query_predict_at_masses, theta, masses, return_std, strict)
 
+    def set_trust_limits(self, **limits) -> dict:
+        try:
+            return qc.query_set_trust_limits(self._model, limits)
+        except qc.QueryError as exc:
+            raise InputError(str(exc)) from None
+
     # -- storage --------------------------------------------------------------------
     def save(self, folder, overwrite: bool = False, extra=None) -> Path:
         """Write ``model.json`` and ``arrays.npz`` as the folder ``folder``, atomically.

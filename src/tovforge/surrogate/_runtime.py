@@ -64,6 +64,15 @@ PAIRS_PER_CHUNK = 1 << 15
 MASS_MAX = "mass_max_msun"
 
 
+#: Default limits of the trust flag of the queries (``Estimate.trusted``; see the query contract), in the
+#: quantity's unit or relative (``_rel``).  The sigma limits are the accuracy every model must reach at the
+#: 95th percentile (issue 13: 0.01 Msun, 50 m, 2 %); k2's is Lambda's 2 % and 50 m at 12 km in quadrature
+#: (sqrt(0.02^2 + (5 x 0.05 / 12)^2) = 0.029).  A star is not trusted closer to the emulated M_max than
+#: ``max(mass_margin_msun, mass_margin_sigmas x sigma_M)``: no emulated star above the true M_max.
+TRUST_LIMITS = {"mass_max_msun": 0.01, "radius_km": 0.05, "tidal_deformability_rel": 0.02,
+                "moment_of_inertia_rel": 0.02, "k2_rel": 0.03, "mass_margin_msun": 0.02, "mass_margin_sigmas": 3.0}
+
+
 def _is_numpy(xp) -> bool:
     return getattr(xp, "__name__", "") == "numpy"
 
@@ -117,13 +126,18 @@ class Model:
         The trained box (plain floats, for messages).
     mass_floor_msun : float
         The floor of M_max of the training grid.
+    trust_limits : dict, optional
+        The limits of the trust flag (:data:`TRUST_LIMITS` by default); kept by
+        reference, so models made by :meth:`replace` share them.
 
     Indexing (``m["X"]``, ``m.get("warp_log")``) reads the arrays; the
     :class:`Cache` in ``m.cache`` holds what the runtime derives from them.
     """
 
-    def __init__(self, arrays, method=None, outputs=(), parameters=(), bounds=(), mass_floor_msun=0.0):
+    def __init__(self, arrays, method=None, outputs=(), parameters=(), bounds=(), mass_floor_msun=0.0,
+                 trust_limits=None):
         self.arrays = arrays
+        self.trust_limits = dict(TRUST_LIMITS) if trust_limits is None else trust_limits
         self.method = method
         self.outputs = tuple(tuple(o) for o in outputs)
         self.parameters = tuple(parameters)
@@ -141,7 +155,7 @@ class Model:
     def replace(self, **arrays):
         """The same model with some arrays replaced (and a cache of its own)."""
         return Model({**self.arrays, **arrays}, self.method, self.outputs, self.parameters, self.bounds,
-                     self.mass_floor_msun)
+                     self.mass_floor_msun, self.trust_limits)
 
 
 def _column_differences(xp, x, X):

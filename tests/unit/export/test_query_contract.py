@@ -149,8 +149,9 @@ def test_prediction_fields_follow_the_registry():
     fields = set(Prediction.__dataclass_fields__)
     assert {q.name for q in sequence + star} <= fields
     extra = fields - {q.name for q in sequence + star}
-    assert extra == {"u_nodes", "mass_msun", "mass_max_margin_msun", "causality_margin", "out_of_box", "std"}
-    for name in extra - {"u_nodes", "out_of_box", "std"}:
+    assert extra == {"u_nodes", "mass_msun", "mass_max_margin_msun", "causality_margin", "out_of_box", "std",
+                     "trusted"}
+    for name in extra - {"u_nodes", "out_of_box", "std", "trusted"}:
         quantities.get(name)  # the rest are registry quantities too
 
 
@@ -171,7 +172,7 @@ def test_units_of_the_exported_outputs_come_from_the_registry(exported):
     mod = exported["rbf"][0]
     assert mod.OUTPUT_UNITS["central_pressure_at_mass_max_dyn_cm2"] == "dyn/cm^2"
     assert mod.OUTPUT_UNITS["moment_of_inertia_1e45_g_cm2"] == quantities.get("moment_of_inertia").unit
-    assert mod.OUTPUTS == tuple(f for f in Prediction.__dataclass_fields__ if f != "std")
+    assert mod.OUTPUTS == tuple(f for f in Prediction.__dataclass_fields__ if f not in ("std", "trusted"))
     # the header lists every emulated quantity with its registry unit and meaning, and how it was modelled
     sequence, star = emulated_outputs()
     for q in sequence + star:

@@ -81,6 +81,7 @@ def test_error_model_is_calibrated_on_held_out_points_and_grows_at_the_kink():
     err = np.abs(_rbf_predict(x, y, xq) - _kinked(xq))
     sd = rt.error_model_std(np, m, xq)
     assert sd.shape == err.shape and np.all(sd > 0)
+    assert np.median(sd / err) < 20.0  # calibrated, not merely wide (measured 11)
     assert np.mean(err > 3.0 * sd) <= 0.01
     near = np.abs(xq[:, 0] - 0.6) < 0.02
     far = np.abs(xq[:, 0] - 0.6) > 0.2
