@@ -146,6 +146,29 @@ class Surrogate:
         """The same model with some arrays replaced (e.g. to measure its rounding noise)."""
         return Surrogate(self.meta, {**self.arrays, **arrays})
 
+    @property
+    def has_error_model(self) -> bool:
+        """True if the model carries leave-one-out residuals and their error model."""
+        return "loo_residual" in self.arrays
+
+    def error_model_std(self, theta) -> np.ndarray:
+        """The error model's sigma of every output (n, n_out), in the model's output units (NaN outside the box).
+
+        The error model alone (for a GP without its own sigma); see
+        :func:`tovforge.surrogate._runtime.error_model_std`.
+
+        Raises
+        ------
+        InputError
+            For a model without one (trained before it existed, or a tensor spline).
+        """
+        if not self.has_error_model:
+            raise InputError(f"this {self.kind} ({self.method}) model has no error model (no leave-one-out "
+                             "residuals); retrain it with this version of tovforge.")
+        t = np.asarray(theta, dtype=float).reshape(-1, len(self.parameter_names))
+        x, inside = rt.unit_inputs(np, self._model, t)
+        return np.where(inside[:, None], rt.error_model_std(np, self._model, x), np.nan)
+
     # -- evaluation -------------------------------------------------------------
     def evaluate(self, theta, columns=None, grad: bool = False, std: bool = False) -> Evaluation:
         """Every output in the model's own terms (see :class:`Evaluation`).
