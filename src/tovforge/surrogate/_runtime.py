@@ -29,6 +29,11 @@ The arrays:
     cubic-spline cardinal coefficients: the not-a-knot cubic spline through
     node values ``v`` is ``sum_p spline_c[p, j] . v (u - u_j)^(3 - p)`` on
     interval ``j``.
+``loo_residual`` (n_train, n_out), ``error_scale`` (n_out,), optional
+    Each training point's leave-one-out residual in the output units, and
+    the calibration factor of the error model built on them
+    (:func:`error_model_std`; training points ``X``).  Models with them have
+    a sigma whatever their method; a GP adds its own in quadrature.
 and those of the method:
 
 ``"gp"``
@@ -888,8 +893,9 @@ def outputs(xp, m, theta, grad=False, columns=None):
 def output_std(xp, m, theta, columns=None):
     """Predictive standard deviation of every output (n, n_out), in the model's output units.
 
-    NaN for methods without one (not in :data:`STD`): they carry no error
-    estimate, and zeros would claim they are exact.  ``columns``: optional
+    The method's own (:data:`STD`) and the error model's (:func:`error_model_std`)
+    in quadrature, whichever the model has.  NaN for a model with neither: it
+    carries no error estimate, and zeros would claim it is exact.  ``columns``: optional
     output ranges a query needs (as in :func:`outputs`); outputs outside them
     may be NaN.
     """
