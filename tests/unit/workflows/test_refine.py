@@ -11,7 +11,7 @@ from typer.testing import CliRunner
 from tovforge.cli import app
 from tovforge.errors import InputError
 from tovforge.grid import load_spec, read_grid, run_grid
-from tovforge.surrogate import GPSettings, read_training_data, train, train_on
+from tovforge.surrogate import GPSettings, Surrogate, read_training_data, train, train_on
 from tovforge.workflows.refine import refine, select_points
 
 ROOT = Path(__file__).resolve().parents[3]
@@ -89,9 +89,12 @@ def test_refine_refuses_a_model_trained_on_part_of_its_grid(small_gp, tmp_path):
         refine(model, 4, tmp_path / "r", n_candidates=256, workers=1)
 
 
-def test_refine_of_a_spline_model_is_one_line_with_exit_2(small_gp, tmp_path):
+def test_refine_of_a_model_without_sigma_is_one_line_with_exit_2(small_gp, tmp_path):
+    """A spline without leave-one-out residuals (trained before the error model) has no sigma to refine by."""
     _, d = small_gp
-    train(d / "small.h5", "spline").save(tmp_path / "spline")
+    m = train(d / "small.h5", "spline")
+    Surrogate(m.meta, {k: v for k, v in m.arrays.items() if k not in ("loo_residual", "error_scale")}).save(
+        tmp_path / "spline")
     res = runner.invoke(app, ["grid", "refine", str(tmp_path / "spline"), "--budget", "4"])
     assert res.exit_code == 2 and "needs a model with a predictive sigma" in res.stderr
     assert res.stderr.count("\n") == 1 and "Traceback" not in res.output
