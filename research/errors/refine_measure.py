@@ -6,7 +6,9 @@ BASE_MODEL_DIR: a spline model trained on grids/demo-train.h5 (4,096 Sobol rows)
 (a) `tovforge.workflows.refine.refine` (error-model sigma, damped greedy picks among 8,192 Sobol
 candidates), (b) the next Sobol points of the training design (rows 4,096.. of the same scrambled
 sequence), solved and added.  Both retrained with the base model's settings and checked on
-grids/demo-holdout.h5 (p95 / p99 / max).  One JSON line per run.
+grids/demo-holdout.h5 (p95 / p99 / max).  With ``--errors-from GRID`` also (c) refine with the measured
+errors of GRID (an independent validation grid, research/errors/specs/demo-validation.toml) joining the
+error model.  One JSON line per run.
 """
 
 from __future__ import annotations
@@ -46,16 +48,25 @@ def main():
     ap.add_argument("base")
     ap.add_argument("out")
     ap.add_argument("--budgets", type=int, nargs="+", default=[256, 512])
+    ap.add_argument("--errors-from", help="also refine with the measured errors of this grid (not the held-out)")
+    ap.add_argument("--only-errors-from", action="store_true", help="only that run (the others were measured)")
     a = ap.parse_args()
     base = load(a.base)
     out = Path(a.out)
     out.mkdir(parents=True, exist_ok=True)
-    row("base", base, 0, 0.0)
+    if not a.only_errors_from:
+        row("base", base, 0, 0.0)
     grid_path = base.meta.training.grid_path
     g = read_grid(grid_path)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
     data = read_training_data(grid_path)
     for budget in a.budgets:
+        if a.errors_from:
+            t0 = time.perf_counter()
+            res = refine(base, budget, out / f"refined-errors-{budget}", errors_from=a.errors_from, overwrite=True)
+            row("error-model + measured errors refine", res.model, budget, time.perf_counter() - t0)
+            if a.only_errors_from:
+                continue
         t0 = time.perf_counter()
         res = refine(base, budget, out / f"refined-{budget}", overwrite=True)
         row("error-model refine", res.model, budget, time.perf_counter() - t0)

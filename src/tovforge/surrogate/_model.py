@@ -169,6 +169,39 @@ class Surrogate:
         x, inside = rt.unit_inputs(np, self._model, t)
         return np.where(inside[:, None], rt.error_model_std(np, self._model, x), np.nan)
 
+    def with_measured_errors(self, data) -> Surrogate:
+        """The model whose error model also holds its measured errors at the points of ``data``.
+
+        ``data`` (:class:`TrainingData` of exact solves the model was not trained on): the error of
+        every output there (emulated minus exact, in the model's output units) joins the
+        leave-one-out residuals as if it were one, at its point; the means are unchanged.  For
+        choosing where to solve next (``grid refine --errors-from``); a model checked on the same
+        points afterwards would no longer be checked on independent data.
+
+        Raises
+        ------
+        InputError
+            For a model without an error model, or data of other parameters or outputs.
+        """
+        if not self.has_error_model:
+            raise InputError(f"this {self.kind} ({self.method}) model has no error model (no leave-one-out "
+                             "residuals); retrain it with this version of tovforge.")
+        if list(data.parameter_names) != list(self.parameter_names):
+            raise InputError(f"{data.provenance.get('grid_path', 'data')}: parameters {list(data.parameter_names)} "
+                             f"differ from the model's {list(self.parameter_names)}.")
+        Y, _ = data.output_matrix()
+        if Y.shape[1] != self.arrays["loo_residual"].shape[1]:
+            raise InputError(f"{data.provenance.get('grid_path', 'data')}: {Y.shape[1]} outputs per point, the model "
+                             f"has {self.arrays['loo_residual'].shape[1]}; measure errors on a grid of the same "
+                             "outputs.")
+        theta = np.asarray(data.theta, float)
+        x, inside = rt.unit_inputs(np, self._model, theta)
+        err = self.evaluate(theta).values - Y
+        keep = inside & np.all(np.isfinite(err), axis=1)
+        points = self.arrays.get("error_points", self.arrays["X"])
+        return self.with_arrays(error_points=np.vstack([points, x[keep]]),
+                                loo_residual=np.vstack([self.arrays["loo_residual"], err[keep]]))
+
     # -- evaluation -------------------------------------------------------------
     def evaluate(self, theta, columns=None, grad: bool = False, std: bool = False) -> Evaluation:
         """Every output in the model's own terms (see :class:`Evaluation`).

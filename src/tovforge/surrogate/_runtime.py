@@ -32,8 +32,9 @@ The arrays:
 ``loo_residual`` (n_train, n_out), ``error_scale`` (n_out,), optional
     Each training point's leave-one-out residual in the output units, and
     the calibration factor of the error model built on them
-    (:func:`error_model_std`; training points ``X``).  Models with them have
-    a sigma whatever their method; a GP adds its own in quadrature.
+    (:func:`error_model_std`; training points ``X``, or ``error_points`` when
+    measured errors at more points join them).  Models with them have a
+    sigma whatever their method; a GP adds its own in quadrature.
 and those of the method:
 
 ``"gp"``
@@ -842,11 +843,27 @@ def error_model_std(xp, m, x, skip_nearest=0):
     """
     if m.get("loo_residual") is None:
         return None
-    return _chunked(xp, _error_model_rows, x, m["X"].shape[0], m, skip_nearest)[0]
+    return _chunked(xp, _error_model_rows, x, m["loo_residual"].shape[0], m, skip_nearest)[0]
+
+
+def _error_points(xp, m):
+    """The points of the error model: ``error_points`` if the model has them (training points plus points of
+    measured errors, see ``Surrogate.with_measured_errors``), else the training points; as :func:`rbf_points`."""
+    if m.get("error_points") is None:
+        return rbf_points(xp, m)
+
+    def make():
+        P = m["error_points"]
+        PT = xp.permute_dims(P, (1, 0))
+        if _is_numpy(xp):
+            PT = xp.ascontiguousarray(PT)
+        return PT, xp.reshape(xp.sum(P * P, axis=-1), (1, -1))
+
+    return _cached(xp, m, "error_points", None, make)
 
 
 def _error_model_rows(xp, x, m, skip):
-    XT, X2 = rbf_points(xp, m)
+    XT, X2 = _error_points(xp, m)
     q = xp.matmul(x * -2.0, XT)
     q += xp.sum(x * x, axis=-1)[:, None]
     q += X2

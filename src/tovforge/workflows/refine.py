@@ -142,8 +142,8 @@ def _p95_row(model, holdout) -> LearningPoint:
                          lambda_rel_p95=rep.errors["tidal_deformability_at_mass"].rel_p95)
 
 
-def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None, overwrite: bool = False, allow_mismatch: bool = False,
+def refine(model: Surrogate, budget: int, out, *, holdout=None, errors_from=None, n_candidates: int = 8192,
+           seed: int = 0, workers=None, overwrite: bool = False, allow_mismatch: bool = False,
            oversubscribe: bool = False) -> RefineResult:
     """Add ``budget`` exact solves where the model's sigma (its error model's, if any) is largest and retrain.
 
@@ -162,6 +162,12 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     holdout : path, optional
         Held-out grid: the errors before and after are measured and stored in
         the model as its learning curve.
+    errors_from : path, optional
+        A grid of exact solves (not the training grid, not ``holdout``) whose
+        measured errors join the error model's residuals when the points are
+        chosen (:meth:`Surrogate.with_measured_errors`): the picks go where the
+        model is measured wrong as well as where its sigma is large.  Needs a
+        model with an error model.
     overwrite : bool
         Replace an existing folder ``out``.
     allow_mismatch : bool
@@ -174,7 +180,10 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     tr = model.meta.training
     grid_path = tr.grid_path
     out = check_output(out, "model folder", overwrite, folder=True)  # before the work, not after it
-    inputs = [p for p in (grid_path, *tr.refinement_grids, holdout) if p]
+    inputs = [p for p in (grid_path, *tr.refinement_grids, holdout, errors_from) if p]
+    if errors_from is not None and holdout is not None and Path(errors_from).resolve() == Path(holdout).resolve():
+        raise InputError(f"errors_from {errors_from} is the held-out grid: points chosen by its errors would make "
+                         "the learning curve on it optimistic; measure errors on another grid.")
     inside = [p for p in inputs if Path(p).resolve().is_relative_to(out.resolve())]
     if inside:
         raise InputError(f"out {out}: the folder holds {inside[0]}, an input of this refinement, which the new "
@@ -197,8 +206,14 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
                          "grid file (tovforge train GRID).")
     g = read_grid(grid_path, allow_mismatch)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
-    added = select_points(model, budget, n_candidates, seed)
+    scorer = model
+    if errors_from is not None:
+        scorer = model.with_measured_errors(read_training_data(errors_from, family=model.family, min_points=0,
+                                                               allow_mismatch=allow_mismatch))
+    added = select_points(scorer, budget, n_candidates, seed)
     what = "error-model" if model.has_error_model else "GP"
+    if errors_from is not None:
+        what += f" (with the measured errors of {errors_from})"
     logger.info(f"solving {len(added)} points of largest {what} sigma (from {n_candidates} Sobol candidates)")
     result = solve_points(spec, added, workers=workers, oversubscribe=oversubscribe)
     points_path = out / "refinement-points.h5"
