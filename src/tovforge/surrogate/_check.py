@@ -460,8 +460,10 @@ def check(model: Surrogate, holdout_path, report_dir=None, *, overwrite: bool = 
     eos = np.broadcast_to(np.arange(len(th))[:, None], sel.shape)  # the held-out EOS of each star
     errors = {"mass_max_msun": error_stats(mm, mm_exact, np.arange(len(th)))}
     if "radius_at_mass_max_km" in g.scalars:  # the u = 0 node is the maximum-mass star
-        errors["radius_at_mass_max_km"] = error_stats(pred.radius_km[:, 0], g.scalars["radius_at_mass_max_km"][ok])
-    errors["max_sound_speed_sq"] = error_stats(pred.max_sound_speed_sq, g.scalars["max_sound_speed_sq"][ok])
+        errors["radius_at_mass_max_km"] = error_stats(pred.radius_km[:, 0], g.scalars["radius_at_mass_max_km"][ok],
+                                                      np.arange(len(th)))
+    errors["max_sound_speed_sq"] = error_stats(pred.max_sound_speed_sq, g.scalars["max_sound_speed_sq"][ok],
+                                               np.arange(len(th)))
     finite = sel & np.isfinite(q["radius_km"][0])
     for name, (val, _, exact) in q.items():
         m = finite & np.isfinite(exact)
