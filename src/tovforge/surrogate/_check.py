@@ -86,6 +86,14 @@ class Target(Record):
     meets_must_reach: bool
     meets_aim: bool
 
+    @classmethod
+    def from_json(cls, data: dict):
+        """Also reads reports written before the rename (``floor``, ``goal``, ``meets_floor``, ``meets_goal``)."""
+        if isinstance(data, dict) and "floor" in data and "must_reach" not in data:
+            old = {"floor": "must_reach", "goal": "aim", "meets_floor": "meets_must_reach", "meets_goal": "meets_aim"}
+            data = {old.get(k, k): v for k, v in data.items()}
+        return super().from_json(data)
+
 
 @dataclass(frozen=True)
 class Coverage(Record):

@@ -93,6 +93,15 @@ def test_report_numbers_equal_an_independent_recomputation(spline_model, tmp_pat
     assert "spline (rbf)" in text  # the kind users asked for, the method beside it
 
 
+def test_a_report_from_before_the_rename_still_reads():
+    from tovforge.surrogate._check import Target
+
+    old = {"stat": "abs_p95", "floor": 0.05, "goal": 0.01, "unit": "km", "value": 0.02, "meets_floor": True,
+           "meets_goal": False}
+    t = Target.from_json(old)
+    assert (t.must_reach, t.aim, t.meets_must_reach, t.meets_aim) == (0.05, 0.01, True, False)
+
+
 def test_bootstrap_interval_contains_the_true_p95():
     """Exponential errors: the true p95 is ln 20; its 90 % interval holds it in about 90 % of samples."""
     from tovforge.surrogate._check import bootstrap_p95
