@@ -98,13 +98,19 @@ class Target(Record):
 @dataclass(frozen=True)
 class Coverage(Record):
     """Fraction of held-out errors inside the predicted 1 and 2 sigma (a Gaussian gives 0.683 and 0.954),
-    and beyond 3 sigma (all points and near the faces; the project asks for at most 1 %)."""
+    and beyond 3 sigma (all points and near the faces; the project asks for at most 1 %).
+
+    ``scale_for_1_percent``: the factor the sigma would need for exactly 1 % of these held-out errors
+    to lie beyond 3 sigma (below 1: the sigma is wider than the held-out errors ask; the model's own
+    factor was chosen on its training points' leave-one-out residuals).
+    """
 
     within_1_sigma: float
     within_2_sigma: float
     n: int
     beyond_3_sigma: float | None = None
     beyond_3_sigma_faces: float | None = None
+    scale_for_1_percent: float | None = None
 
 
 @dataclass(frozen=True)
@@ -338,7 +344,7 @@ def _read_holdout(path, model: Surrogate, allow_mismatch: bool = False):
 def _coverage(err, sd, faces) -> Coverage:
     z = np.abs(err) / sd
     return Coverage(within_1_sigma=float(np.mean(z <= 1.0)), within_2_sigma=float(np.mean(z <= 2.0)), n=int(z.size),
-                    beyond_3_sigma=float(np.mean(z > 3.0)),
+                    beyond_3_sigma=float(np.mean(z > 3.0)), scale_for_1_percent=float(np.quantile(z, 0.99) / 3.0),
                     beyond_3_sigma_faces=float(np.mean(z[faces] > 3.0)) if faces.any() else None)
 
 
@@ -592,7 +598,8 @@ def _text_table(r: CheckReport) -> str:
                      "beyond 3 sigma, all and near the faces; the project asks for <= 1 %):")
         for k, c in r.calibration.items():
             lines.append(f"  {k:<22} 1 sigma {c.within_1_sigma:.3f}   2 sigma {c.within_2_sigma:.3f}   "
-                         f"> 3 sigma {_g(c.beyond_3_sigma, '.4f')} (faces {_g(c.beyond_3_sigma_faces, '.4f')})")
+                         f"> 3 sigma {_g(c.beyond_3_sigma, '.4f')} (faces {_g(c.beyond_3_sigma_faces, '.4f')}); "
+                         f"sigma x {_g(c.scale_for_1_percent)} would put 1 % beyond 3 sigma")
     if r.trust is not None:
         t = r.trust
         lines.append(f"trust flag: {t.stars_flagged:.1%} of stars and {t.mass_max_flagged:.1%} of M_max not trusted; "
@@ -640,11 +647,12 @@ def _markdown(r: CheckReport, figures) -> str:
         md += ["", "## Sigma calibration", "",
                "Fraction of held-out errors inside the predicted 1 and 2 sigma (a Gaussian gives 0.683 and 0.954), "
                "and beyond 3 sigma (the project asks for at most 1 %).", "",
-               "| output | within 1 sigma | within 2 sigma | beyond 3 sigma | beyond 3 sigma, faces |",
-               "|---|---|---|---|---|"]
+               "| output | within 1 sigma | within 2 sigma | beyond 3 sigma | beyond 3 sigma, faces | "
+               "sigma factor for 1 % beyond 3 sigma |",
+               "|---|---|---|---|---|---|"]
         for k, c in r.calibration.items():
             md.append(f"| {k} | {c.within_1_sigma:.3f} | {c.within_2_sigma:.3f} | {_g(c.beyond_3_sigma, '.4f')} | "
-                      f"{_g(c.beyond_3_sigma_faces, '.4f')} |")
+                      f"{_g(c.beyond_3_sigma_faces, '.4f')} | {_g(c.scale_for_1_percent)} |")
     if r.trust is not None:
         t = r.trust
         md += ["", "## Trust flag", "",

@@ -75,6 +75,7 @@ def test_report_numbers_equal_an_independent_recomputation(spline_model, tmp_pat
     er = spline_model.radius(theta, masses, return_std=True)
     z = (np.abs(r - r_exact) / er.std)[sel]
     assert saved["calibration"]["radius_km"]["beyond_3_sigma"] == pytest.approx(np.mean(z > 3.0), abs=1e-12)
+    assert saved["calibration"]["radius_km"]["scale_for_1_percent"] == pytest.approx(np.quantile(z, 0.99) / 3.0)
     assert saved["errors"]["radius_km_at_mass"]["abs_p99"] == pytest.approx(np.percentile(dr, 99), rel=1e-12)
     lo, hi = saved["errors"]["radius_km_at_mass"]["abs_p95_interval"]
     assert lo <= np.percentile(dr, 95) <= hi
