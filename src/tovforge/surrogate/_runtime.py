@@ -392,16 +392,22 @@ def _matern(xp, x, m, groups, grad):
     return q, (matern_gradients(xp, x, m["X"], k, c) if grad else None)
 
 
-def rbf_points(xp, m):
-    """The training points transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N); cached."""
+def _points_of(xp, m, name):
+    """The points ``m[name]`` (N, d) transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N);
+    cached under ``name``."""
     def make():
-        X = m["X"]
+        X = m[name]
         XT = xp.permute_dims(X, (1, 0))
         if _is_numpy(xp):
             XT = xp.ascontiguousarray(XT)
         return XT, xp.reshape(xp.sum(X * X, axis=-1), (1, -1))
 
-    return _cached(xp, m, "rbf_points", None, make)
+    return _cached(xp, m, f"points:{name}", None, make)
+
+
+def rbf_points(xp, m):
+    """The training points transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N); cached."""
+    return _points_of(xp, m, "X")
 
 
 def polyharmonic_rows(xp, x, XT, X2, grad):
@@ -849,17 +855,7 @@ def error_model_std(xp, m, x, skip_nearest=0):
 def _error_points(xp, m):
     """The points of the error model: ``error_points`` if the model has them (training points plus points of
     measured errors, see ``Surrogate.with_measured_errors``), else the training points; as :func:`rbf_points`."""
-    if m.get("error_points") is None:
-        return rbf_points(xp, m)
-
-    def make():
-        P = m["error_points"]
-        PT = xp.permute_dims(P, (1, 0))
-        if _is_numpy(xp):
-            PT = xp.ascontiguousarray(PT)
-        return PT, xp.reshape(xp.sum(P * P, axis=-1), (1, -1))
-
-    return _cached(xp, m, "error_points", None, make)
+    return _points_of(xp, m, "X" if m.get("error_points") is None else "error_points")
 
 
 def _error_model_rows(xp, x, m, skip):
