@@ -315,7 +315,6 @@ CASES = [
     C("grid-info-spec-not-json", "grid info {bad}", "damaged", setup=_edit_grid(_spoil_spec_attribute)),
     # -- grid refine --------------------------------------------------------------------------------
     C("refine-missing-budget", "grid refine {gp}", "--budget"),
-    C("refine-spline-model", "grid refine {spline} --budget 2 --out {here}/r", "predictive sigma"),
     C("refine-budget-above-candidates", "grid refine {gp} --budget 100 --candidates 16 --out {here}/r",
       "candidates"),
     C("refine-too-many-candidates", "grid refine {gp} --budget 4 --candidates 100000000000 --out {here}/r",

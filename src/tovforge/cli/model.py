@@ -78,13 +78,18 @@ def check_cmd(
 
 
 def refine_cmd(
-    model: Annotated[Path, typer.Argument(help="GP model folder written by `tovforge train`.", file_okay=False)],
+    model: Annotated[Path, typer.Argument(help="Model folder written by `tovforge train` (a GP, or any model with "
+                                          "an error model).", file_okay=False)],
     budget: Annotated[int, typer.Option("--budget", min=1, help="Exact solves to add.")],
     out: Annotated[
         Optional[Path], typer.Option("--out", help="Folder of the retrained model (default: MODEL-refined).")
     ] = None,
     holdout: Annotated[
         Optional[Path], typer.Option("--holdout", help="Held-out grid: print error against training size.")
+    ] = None,
+    errors_from: Annotated[
+        Optional[Path], typer.Option("--errors-from", help="Grid of exact solves (not the training or held-out "
+                                     "grid) whose measured errors also steer the choice.")
     ] = None,
     candidates: Annotated[int, typer.Option("--candidates", min=16, help="Sobol candidates to score.")] = 8192,
     seed: Annotated[int, typer.Option("--seed", help="Seed of the candidate design.")] = 0,
@@ -95,7 +100,7 @@ def refine_cmd(
     overwrite: OverwriteOpt = False,
     allow_mismatch: AllowMismatchOpt = False,
 ):
-    """Add exact solves where the GP's sigma is largest, retrain, and print the learning curve."""
+    """Add exact solves where the model's sigma (its error model's, if any) is largest; retrain; print the errors."""
     from ..surrogate import load
     from ..workflows.refine import refine
 
@@ -105,9 +110,9 @@ def refine_cmd(
         if model.resolve().is_relative_to(target.resolve()):
             raise InputError(f"--out {target}: the retrained model would replace the model being refined "
                              f"({model}); choose another folder.")
-        return refine(load(model, allow_mismatch), budget, target, holdout=holdout, n_candidates=candidates,
-                      seed=seed, workers=workers, overwrite=overwrite, allow_mismatch=allow_mismatch,
-                      oversubscribe=oversubscribe)
+        return refine(load(model, allow_mismatch), budget, target, holdout=holdout, errors_from=errors_from,
+                      n_candidates=candidates, seed=seed, workers=workers, overwrite=overwrite,
+                      allow_mismatch=allow_mismatch, oversubscribe=oversubscribe)
 
     res = run(work, WRITE_FLAGS)
     typer.echo(f"added {len(res.added)} exact solves ({res.points_path}); retrained model in {target}")

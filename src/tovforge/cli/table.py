@@ -150,7 +150,7 @@ def box_cmd(
         Optional[str], typer.Option("--exact", help="Solve exactly with this EOS family instead of a model "
                                                     "(parallel, resumable grid run).")
     ] = None,
-    no_sigma: Annotated[bool, typer.Option("--no-sigma", help="Leave out the GP's sigma columns.")] = False,
+    no_sigma: Annotated[bool, typer.Option("--no-sigma", help="Leave out the sigma columns (models with a sigma).")] = False,
     workers: Annotated[Optional[int], typer.Option("--workers", min=1, help="--exact: worker processes.")] = None,
     scheduler: Annotated[
         Optional[str], typer.Option("--scheduler", help="--exact: address of a dask.distributed scheduler.")
@@ -229,7 +229,7 @@ def samples_cmd(
         Optional[str], typer.Option("--ignore", help="Comma-separated columns of the samples file to skip "
                                                      "(weights, likelihoods).")
     ] = None,
-    no_sigma: Annotated[bool, typer.Option("--no-sigma", help="Leave out the GP's sigma columns.")] = False,
+    no_sigma: Annotated[bool, typer.Option("--no-sigma", help="Leave out the sigma columns (models with a sigma).")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
     overwrite: OverwriteOpt = False,
     allow_mismatch: AllowMismatchOpt = False,

@@ -33,7 +33,7 @@ import zlib
 import numpy as np
 
 from ..surrogate._contract import (QUERY_DOCS, device_of, query_at_mass, query_curve, query_in_domain,
-                                   query_mass_max, query_predict, query_predict_at_masses)
+                                   query_mass_max, query_predict, query_predict_at_masses, query_set_trust_limits)
 from ..surrogate._runtime import Model
 from ._fast import _fast_at_mass, _fast_curve, _fast_mass_max, _one_theta
 
@@ -44,7 +44,8 @@ _M = _GM = _PLANS = None  # set at the end of every exported file
 __all__ = [
     "PARAMETERS", "UNITS", "BOUNDS", "OUTPUTS", "OUTPUT_UNITS", "FAMILY", "KIND", "METHOD", "HAS_STD", "CHECK",
     "in_domain", "mass_max", "radius", "tidal_deformability", "moment_of_inertia", "k2", "curve", "predict",
-    "predict_at_masses", "Estimate", "Curve", "Prediction", "MassPrediction", "QueryError", "PayloadError",
+    "predict_at_masses", "set_trust_limits", "TRUST_LIMITS", "Estimate", "Curve", "Prediction", "MassPrediction",
+    "QueryError", "PayloadError",
 ]
 
 
@@ -211,7 +212,11 @@ def predict_at_masses(theta, masses, return_std=False, strict=False):
     return query_predict_at_masses(xp, m, theta, masses, return_std, strict)
 
 
+def set_trust_limits(**limits):
+    return query_set_trust_limits(_M, limits)  # every model of this file shares _M's limits
+
+
 for _query in (in_domain, mass_max, radius, tidal_deformability, moment_of_inertia, k2, curve, predict,
-               predict_at_masses):
+               predict_at_masses, set_trust_limits):
     _query.__doc__ = QUERY_DOCS[_query.__name__]
 del _query

@@ -113,7 +113,10 @@ def _report(report, model) -> dict | None:
                               f"the model's is {text(v)!r}.")
     data = rep.to_json()
     check = plain({k: data.get(k) for k in ("created_utc", "tovforge_version", "holdout", "errors", "targets",
-                                             "calibration")}, "report")
+                                             "calibration", "trust")}, "report")
+    regions = data.get("regions") or {}
+    if "faces" in regions:  # the faces vs the interior (the bands of distance to M_max stay in the report)
+        check["regions"] = plain({k: regions[k] for k in ("faces", "interior") if k in regions}, "report")
     check["holdout"].pop("masses_msun", None)
     return check
 

@@ -31,8 +31,10 @@ import math
 
 import numpy as np
 
-from ..surrogate._contract import Curve, Estimate, QueryError, _require_inside, _require_on_branch
-from ..surrogate._runtime import DERIVED, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights, _inverse_with
+from ..surrogate._contract import (Curve, Estimate, QueryError, _require_inside, _require_on_branch, trusted_at_mass,
+                                   trusted_mass_max)
+from ..surrogate._runtime import (DERIVED, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights, _inverse_with,
+                                  error_model_std)
 
 # ---- the exported code starts below this line ----
 
@@ -89,7 +91,7 @@ def _setup_generated(m):
         PARTS[method] = _generated_part
         if m.method in STD:
             STD[method] = _generated_std
-        _GM = Model(m.arrays, method, m.outputs, m.parameters, m.bounds, m.mass_floor_msun)
+        _GM = Model(m.arrays, method, m.outputs, m.parameters, m.bounds, m.mass_floor_msun, m.trust_limits)
 
 
 def _general_only(on=True):
@@ -200,6 +202,10 @@ def _outputs_one(plan, t, grad, std):
         dy = (plan.scale[:, None] * dz) / np.array(_span_one(t))
     if std:
         sd = s[0] if s is not None else np.full(plan.width, _NAN)
+        err = error_model_std(_NUMPY, _GM, xr)  # the runtime's output_std: both sigmas in quadrature
+        if err is not None:
+            e = err[0, plan.idx]
+            sd = e if s is None else np.sqrt(sd * sd + e * e)
     return y, dy, sd
 
 
@@ -210,7 +216,7 @@ def _strict_inside(t):
 
 def _nan_estimate(shape, grad, std):
     return Estimate(value=np.full(shape, _NAN), grad=np.full(shape + (_D,), _NAN) if grad else None,
-                    std=np.full(shape, _NAN) if std else None)
+                    std=np.full(shape, _NAN) if std else None, trusted=np.zeros(shape, dtype=bool) if std else None)
 
 
 def _fast_mass_max(t, lead, grad, std, strict):
@@ -224,7 +230,8 @@ def _fast_mass_max(t, lead, grad, std, strict):
     y, dy, sd = out
     i = plan.i_mmax
     return Estimate(value=y[i:i + 1].reshape(lead), grad=dy[i].reshape(lead + (_D,)) if grad else None,
-                    std=sd[i:i + 1].reshape(lead) if std else None)
+                    std=sd[i:i + 1].reshape(lead) if std else None,
+                    trusted=trusted_mass_max(_NUMPY, _M, y[i:i + 1], sd[i:i + 1]).reshape(lead) if std else None)
 
 
 def _at_one_mass(v, mmax, mass, want_w):
@@ -326,8 +333,13 @@ def _fast_at_mass(query, t, lead, mass, grad, std, strict):
     if strict:
         _require_on_branch(_NUMPY, _M, val[None, :], masses[None, :], np.array([y[plan.i_mmax]]))
     shape = lead + tail
+    ok = None
+    if std:
+        im = plan.i_mmax
+        ok = trusted_at_mass(_NUMPY, _M, query, val[None, :], s[None, :], masses[None, :], y[im:im + 1][:, None],
+                             sd[im:im + 1][:, None]).reshape(shape)
     return Estimate(value=val.reshape(shape), grad=g.reshape(shape + (_D,)) if grad else None,
-                    std=s.reshape(shape) if std else None)
+                    std=s.reshape(shape) if std else None, trusted=ok)
 
 
 def _fast_curve(t, lead, n, strict):

@@ -33,7 +33,7 @@ SELF_CHECK_POINTS = 48
 #: Unit of each field of a prediction (``predict``), from the registry of quantities.
 OUTPUT_UNITS = {
     name: {"u_nodes": "1 (u = sqrt(1 - M/M_max))", "out_of_box": "bool"}.get(name) or quantities.get(name).unit
-    for name in Prediction.__dataclass_fields__ if name != "std"
+    for name in Prediction.__dataclass_fields__ if name not in ("std", "trusted")
 }
 
 
@@ -100,25 +100,48 @@ def _error_table(check: dict | None) -> list[str]:
              f"on {text(check.get('created_utc'))}.",
              "Absolute errors in Msun (masses), km (radii), 1e45 g cm^2 (I); Lambda, k2 and c_s^2 are dimensionless.",
              "",
-             f"    {'output':<34}{'abs median':>11}{'abs p95':>10}{'abs max':>10}{'rel median':>11}{'rel p95':>10}"
-             f"{'rel max':>10}"]
+             f"    {'output':<34}{'abs median':>11}{'abs p95':>10}{'abs p99':>10}{'abs max':>10}{'rel p95':>10}"
+             f"{'rel p99':>10}{'rel max':>10}"]
     for name, s in check["errors"].items():
         lines.append(f"    {text(name):<34}{_fmt(s.get('abs_median')):>11}{_fmt(s.get('abs_p95')):>10}"
-                     f"{_fmt(s.get('abs_max')):>10}{_fmt(s.get('rel_median'), '.2e'):>11}"
-                     f"{_fmt(s.get('rel_p95'), '.2e'):>10}{_fmt(s.get('rel_max'), '.2e'):>10}")
+                     f"{_fmt(s.get('abs_p99')):>10}{_fmt(s.get('abs_max')):>10}{_fmt(s.get('rel_p95'), '.2e'):>10}"
+                     f"{_fmt(s.get('rel_p99'), '.2e'):>10}{_fmt(s.get('rel_max'), '.2e'):>10}")
+    regions = check.get("regions") or {}
+    if "faces" in regions:
+        lines += ["", "    Near the faces of the box vs the interior (p95 / p99 / max):"]
+        for label in ("faces", "interior"):
+            reg = regions[label]
+            cells = []
+            for name, key, unit in (("mass_max_msun", "abs", "Msun"), ("radius_km_at_mass", "abs", "km"),
+                                    ("tidal_deformability_at_mass", "rel", "rel")):
+                e = reg.get("errors", {}).get(name)
+                if e:
+                    cells.append(f"{name.split('_at_')[0]} " + " / ".join(_fmt(e.get(f"{key}_{p}"))
+                                                                          for p in ("p95", "p99", "max")) + f" {unit}")
+            lines.append(f"    {label:<9}({reg.get('n_eos')} EOS, {text(reg.get('rule'))}): " + "; ".join(cells))
     if check.get("targets"):
-        lines += ["", "    Targets of the project for the 95th percentile:"]
+        lines += ["", "    Targets for the 95th percentile (must reach: every model must reach it, a model above "
+                      "it is not fit for use; aim: what the project aims for):"]
         for key, t in check["targets"].items():
-            verdict = "meets the goal" if t.get("meets_goal") else (
-                "meets the floor" if t.get("meets_floor") else "MISSES THE FLOOR")
+            must, aim = t.get("must_reach", t.get("floor")), t.get("aim", t.get("goal"))
+            reached_aim = t.get("meets_aim", t.get("meets_goal"))
+            reached = t.get("meets_must_reach", t.get("meets_floor"))
+            verdict = ("reaches the aim" if reached_aim else
+                       "reaches what it must" if reached else "MISSES WHAT IT MUST REACH")
             lines.append(f"    {text(key):<24}{_fmt(t.get('value'), '.4g')} {text(t.get('unit'))} "
-                         f"(floor {_fmt(t.get('floor'), 'g')}, goal {_fmt(t.get('goal'), 'g')}): {verdict}")
+                         f"(must reach {_fmt(must, 'g')}, aim {_fmt(aim, 'g')}): {verdict}")
     if check.get("calibration"):
-        lines += ["", "    Sigma calibration (fraction of held-out errors inside 1 and 2 sigma; a Gaussian gives "
-                      "0.683 and 0.954):"]
+        lines += ["", "    Sigma calibration (fraction of held-out errors inside 1 and 2 sigma, a Gaussian gives "
+                      "0.683 and 0.954; beyond 3 sigma):"]
         for key, c in check["calibration"].items():
             lines.append(f"    {text(key):<24}{_fmt(c.get('within_1_sigma'), '.3f')}   "
-                         f"{_fmt(c.get('within_2_sigma'), '.3f')}")
+                         f"{_fmt(c.get('within_2_sigma'), '.3f')}   {_fmt(c.get('beyond_3_sigma'), '.4f')}")
+    trust = check.get("trust")
+    if trust:
+        caught = ", ".join(f"{text(k)} {trust['n_caught'].get(k)} of {trust['n_large'].get(k)}"
+                           for k in trust.get("n_large", {}))
+        lines += ["", f"    Trust flag: {_fmt(100 * trust.get('stars_flagged', 0), '.1f')} % of held-out stars not "
+                      f"trusted; large errors flagged: {caught}."]
     return lines
 
 
@@ -222,8 +245,10 @@ def header(model, check, info: dict, namespaces: dict) -> str:
         f"    c = {mod}.curve(theta, n=100)                  # c.masses_msun, c.radius_km, c.tidal_deformability",
         f"    {mod}.predict(theta, return_std=True)          # everything (a Prediction), with sigma",
         f"    {mod}.radius(theta, 2.9, strict=True)          # QueryError (a ValueError) instead of NaN",
-        "return_std=True gives the predictive sigma of Gaussian processes; splines have none (NaN: no error",
-        "estimate, never a false zero).",
+        "return_std=True gives the predictive sigma (the error model from leave-one-out residuals, with a",
+        "Gaussian process's own sigma in quadrature; NaN where the model has none: never a false zero) and",
+        "`trusted`: False where sigma exceeds the limits of set_trust_limits() or the star is within",
+        "max(0.02 Msun, 3 sigma_M) of M_max.  Reject or down-weight untrusted points.",
         "Queries accept NumPy arrays; JAX arrays; PyTorch tensors through array-api-compat (pip install",
         "array-api-compat); results stay in the caller's namespace.  JAX needs",
         "jax.config.update('jax_enable_x64', True) for float64.",
@@ -256,7 +281,7 @@ def constants(model, check, info: dict, index: list) -> list[str]:
         f"KIND = {literal(str(meta.kind))}",
         f"METHOD = {literal(str(meta.method))}",
         "#: True if the model has a predictive sigma (return_std); otherwise std fields are NaN.",
-        f"HAS_STD = {literal(bool(method.has_std))}",
+        f"HAS_STD = {literal(bool(model.has_std))}",
         f"PARAMETERS = {literal(tuple(meta.parameters))}",
         f"UNITS = {literal(tuple(str(u) for u in meta.parameter_units))}",
         f"BOUNDS = {literal(tuple((float(a), float(b)) for a, b in meta.bounds))}",

@@ -27,12 +27,12 @@ namespace ``xp``.
 
 import dataclasses
 
-from ._runtime import (MASS_MAX, branch_curve, curve_at_mass, named_outputs, named_std, needed_columns,
-                       output_std, outputs, star_queries, unit_inputs)
+from ._runtime import (MASS_MAX, TRUST_LIMITS, branch_curve, curve_at_mass, named_outputs, named_std,
+                       needed_columns, output_std, outputs, star_queries, unit_inputs)
 
 __all__ = ["QueryError", "Estimate", "Curve", "Prediction", "MassPrediction", "AT_MASS_FIELDS", "QUERY_DOCS",
            "device_of", "query_in_domain", "query_mass_max", "query_at_mass", "query_curve", "query_predict",
-           "query_predict_at_masses"]
+           "query_predict_at_masses", "query_set_trust_limits", "trusted_mass_max", "trusted_at_mass"]
 
 # ---- the exported code starts below this line ----
 
@@ -56,12 +56,19 @@ class Estimate:
     std : array or None
         Predictive standard deviation, shape ``value.shape``, in the value's
         unit (``return_std=True``; None otherwise).  NaN for models without a
-        predictive sigma (splines).
+        predictive sigma.
+    trusted : array of bool or None
+        ``return_std=True``: True where the answer can be used, shape
+        ``value.shape``: inside the box, ``std`` within the trust limits
+        (``set_trust_limits``) and, at a mass, the mass at least
+        ``max(0.02 Msun, 3 sigma_M)`` below the emulated M_max.  False where
+        the model has no sigma.  None otherwise.
     """
 
     value: object
     grad: object = None
     std: object = None
+    trusted: object = None
 
 
 @dataclasses.dataclass(frozen=True)
@@ -109,6 +116,10 @@ class Prediction:
         Predictive standard deviations of the emulated quantities, by field
         name, in their units (``return_std=True``; NaN for models without a
         sigma).
+    trusted : array of bool or None
+        ``return_std=True``: True where M_max and every node of the radius,
+        Lambda and I curves have sigmas within the trust limits (shape
+        ``theta.shape[:-1]``); None otherwise.
     """
 
     mass_max_msun: object
@@ -123,6 +134,7 @@ class Prediction:
     causality_margin: object
     out_of_box: object
     std: object = None
+    trusted: object = None
 
 
 @dataclasses.dataclass(frozen=True)
@@ -141,6 +153,9 @@ class MassPrediction:
         the emulated branch or outside the box.
     std : dict or None
         Predictive standard deviations of the four per-mass arrays (``return_std=True``).
+    trusted : array of bool or None
+        ``return_std=True``: True where the star at each mass is trusted for
+        every per-mass quantity (as ``Estimate.trusted``); None otherwise.
     """
 
     prediction: object
@@ -150,6 +165,7 @@ class MassPrediction:
     moment_of_inertia_1e45_g_cm2: object
     k2: object
     std: object = None
+    trusted: object = None
 
 
 #: The per-mass fields of MassPrediction and the query that answers each.
@@ -254,6 +270,47 @@ def _require_on_branch(xp, m, value, mass, mmax, offset=0):
                      f"[{lowest}, {mm}] Msun (above M_max, or below the lowest emulated mass).")
 
 
+#: The trust limit of each query at a mass, and whether it bounds the relative sigma.
+_TRUST_OF = {"radius": ("radius_km", False), "tidal_deformability": ("tidal_deformability_rel", True),
+             "moment_of_inertia": ("moment_of_inertia_rel", True), "k2": ("k2_rel", True)}
+
+
+def trusted_mass_max(xp, m, value, std):
+    """The trust flag of M_max: an answer, with a sigma within the limit (False where either is NaN)."""
+    return (value == value) & (std <= m.trust_limits["mass_max_msun"])
+
+
+def trusted_at_mass(xp, m, query, value, std, mass, mmax, std_mmax):
+    """The trust flag of a query at masses: values, sigmas and masses (n, q), M_max and its sigma (n, 1).
+
+    False where there is no answer or no sigma, where the sigma (relative for Lambda, I and k2)
+    exceeds the query's limit, and for masses within ``max(mass_margin_msun, mass_margin_sigmas
+    sigma_M)`` of the emulated M_max.
+    """
+    lim = m.trust_limits
+    key, relative = _TRUST_OF[query]
+    spread = xp.abs(std / value) if relative else std
+    margin = lim["mass_margin_sigmas"] * std_mmax
+    margin = xp.where(margin > lim["mass_margin_msun"], margin, lim["mass_margin_msun"])
+    return (value == value) & (spread <= lim[key]) & (mass <= mmax - margin)
+
+
+def query_set_trust_limits(m, limits):
+    """Change some trust limits of the model ``m`` (names of :data:`TRUST_LIMITS`); the limits now in effect.
+
+    The limits are kept by the model (and the models made from it), so every later query uses them.
+    """
+    new = {}
+    for key, v in limits.items():
+        if key not in TRUST_LIMITS:
+            raise QueryError(f"unknown trust limit {key!r}; known: {', '.join(TRUST_LIMITS)}.")
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not v >= 0.0 or v == float("inf"):
+            raise QueryError(f"trust limit {key} must be a finite number >= 0; got {v!r}.")
+        new[key] = float(v)
+    m.trust_limits.update(new)
+    return dict(m.trust_limits)
+
+
 def query_in_domain(xp, m, theta):
     """True where ``theta`` lies inside the trained box, shape ``theta.shape[:-1]``."""
     t, batch = _rows(xp, m, theta)
@@ -273,13 +330,15 @@ def query_mass_max(xp, m, theta, return_grad=False, return_std=False, strict=Fal
         if strict:
             _require_inside(xp, m, tb, inside, a)
         sd = output_std(xp, m, tb, columns)[:, i] if return_std else None
-        return _own(y[:, i]), _own(dy[:, i, :]) if return_grad else None, _own(sd)
+        ok = trusted_mass_max(xp, m, y[:, i], sd) if return_std else None
+        return _own(y[:, i]), _own(dy[:, i, :]) if return_grad else None, _own(sd), ok
 
-    val, g, s = _by_blocks(xp, t.shape[0], block)
+    val, g, s, ok = _by_blocks(xp, t.shape[0], block)
     return Estimate(
         value=_shape(xp, val, batch, ()),
         grad=_shape(xp, g, batch, (t.shape[1],)) if return_grad else None,
         std=_shape(xp, s, batch, ()) if return_std else None,
+        trusted=_shape(xp, ok, batch, ()) if return_std else None,
     )
 
 
@@ -300,13 +359,18 @@ def query_at_mass(xp, m, query, theta, mass, return_grad=False, return_std=False
         val, g, s = curve_at_mass(xp, m, y, dy, sd, rb, query)
         if strict:
             _require_on_branch(xp, m, val, rb, y[:, m.i_mass_max], a)
-        return _own(val), _own(g), _own(s)
+        ok = None
+        if return_std:
+            im = m.i_mass_max
+            ok = trusted_at_mass(xp, m, query, val, s, rb, y[:, im][:, None], sd[:, im][:, None])
+        return _own(val), _own(g), _own(s), ok
 
-    val, g, s = _by_blocks(xp, t.shape[0], block)
+    val, g, s, ok = _by_blocks(xp, t.shape[0], block)
     return Estimate(
         value=_shape(xp, val, batch, tail),
         grad=_shape(xp, g, batch, tail + (t.shape[1],)) if return_grad else None,
         std=_shape(xp, s, batch, tail) if return_std else None,
+        trusted=_shape(xp, ok, batch, tail) if return_std else None,
     )
 
 
@@ -334,11 +398,19 @@ def _prediction(xp, m, y, inside, sd, batch):
     f["mass_max_margin_msun"] = f[MASS_MAX] - m.mass_floor_msun
     f["causality_margin"] = 1.0 - f["max_sound_speed_sq"]
     f["out_of_box"] = ~inside
-    std = None
+    std = ok = None
     if sd is not None:
-        std = {k: _shape(xp, v, batch, tuple(v.shape[1:])) for k, v in named_std(xp, m, sd, f).items()}
+        named = named_std(xp, m, sd, f)
+        ok = trusted_mass_max(xp, m, f[MASS_MAX], named[MASS_MAX])
+        for o in m.outputs:
+            if o[2] == "star" and o[4] in _TRUST_OF:
+                key, relative = _TRUST_OF[o[4]]
+                spread = xp.abs(named[o[1]] / f[o[1]]) if relative else named[o[1]]
+                ok = ok & xp.all(spread <= m.trust_limits[key], axis=-1)
+        std = {k: _shape(xp, v, batch, tuple(v.shape[1:])) for k, v in named.items()}
+        ok = _shape(xp, ok, batch, ())
     fields = {k: (v if k == "u_nodes" else _shape(xp, v, batch, tuple(v.shape[1:]))) for k, v in f.items()}
-    return Prediction(std=std, **fields)
+    return Prediction(std=std, trusted=ok, **fields)
 
 
 def _evaluated(xp, m, t, return_std, strict):
@@ -366,22 +438,27 @@ def query_predict_at_masses(xp, m, theta, masses, return_std=False, strict=False
     rows, tail = _masses(xp, masses, batch, t.shape[0], t)
     y, inside, sd = _evaluated(xp, m, t, return_std, strict)
 
+    im = m.i_mass_max
+
     def block(a, b):
-        values, std = {}, ({} if return_std else None)
+        values, std, ok = {}, ({} if return_std else None), None
         for field, query in AT_MASS_FIELDS:
             v, _, s = curve_at_mass(xp, m, y[a:b], None, None if sd is None else sd[a:b], rows[a:b], query)
             if strict and field == "radius_km":
-                _require_on_branch(xp, m, v, rows[a:b], y[a:b, m.i_mass_max], a)
+                _require_on_branch(xp, m, v, rows[a:b], y[a:b, im], a)
             values[field] = _own(v)
             if return_std:
                 std[field] = _own(s)
-        return values, std
+                flag = trusted_at_mass(xp, m, query, v, s, rows[a:b], y[a:b, im][:, None], sd[a:b, im][:, None])
+                ok = flag if ok is None else ok & flag
+        return values, std, ok
 
-    values, std = _by_blocks(xp, t.shape[0], block)
+    values, std, ok = _by_blocks(xp, t.shape[0], block)
     values = {k: _shape(xp, v, batch, tail) for k, v in values.items()}
     std = None if std is None else {k: _shape(xp, v, batch, tail) for k, v in std.items()}
     return MassPrediction(prediction=_prediction(xp, m, y, inside, sd, batch),
-                          masses_msun=xp.asarray(masses, dtype=xp.float64, **device_of(t)), std=std, **values)
+                          masses_msun=xp.asarray(masses, dtype=xp.float64, **device_of(t)), std=std,
+                          trusted=None if ok is None else _shape(xp, ok, batch, tail), **values)
 
 
 _THETA = """theta : array_like, shape (d,) or (n, d)
@@ -391,8 +468,8 @@ _STRICT = """strict : bool
         Raise ValueError (QueryError) instead of returning NaN outside the
         box{more}."""
 _STD = """return_std : bool
-        Also fill ``std``: the predictive standard deviation (Gaussian
-        processes; NaN for splines, which carry no error estimate)."""
+        Also fill ``std``, the predictive standard deviation (NaN for models
+        without one), and ``trusted``, the trust flag."""
 _AT_MASS = f"""
 
     Parameters
@@ -475,6 +552,23 @@ QUERY_DOCS = {
         Scalars of shape ``theta.shape[:-1]``, curves at the ``u_nodes`` with a
         last axis (n_u,), the validity margins, ``out_of_box`` and ``std``
         (a dict of the same fields, or None).
+    """,
+    "set_trust_limits": """Change limits of the trust flag (``trusted`` of the answers with ``return_std=True``).
+
+    Parameters
+    ----------
+    **limits : float
+        Any of ``mass_max_msun`` (sigma of M_max, Msun; default 0.01),
+        ``radius_km`` (sigma of R, km; 0.05), ``tidal_deformability_rel``,
+        ``moment_of_inertia_rel`` (relative sigmas; 0.02), ``k2_rel`` (0.03),
+        ``mass_margin_msun`` (0.02) and ``mass_margin_sigmas`` (3): a star is
+        not trusted within ``max(mass_margin_msun, mass_margin_sigmas
+        sigma_M)`` of the emulated M_max.  Nothing: only read them.
+
+    Returns
+    -------
+    dict
+        The limits now in effect (every later query uses them).
     """,
     "predict_at_masses": f"""Everything of ``predict`` plus R, Lambda, I and k2 at masses, from one evaluation.
 

@@ -12,6 +12,7 @@ import scipy.linalg
 
 from . import _runtime as rt
 from ._data import TrainingData
+from ._errors import calibrate_error_model, gp_inverse_diagonal
 from ._prepare import (NOISE_BOUNDS, FitResult, degenerate_kernels, fit_gaussian_process, matern_kernel, prepare,
                        space_filling_subset, trend_residuals)
 from ._record import Record
@@ -106,6 +107,10 @@ class GPFit(Record):
     degenerate_kernels : tuple of str
         Kernels under which neighbouring training points are nearly uncorrelated (see
         :func:`tovforge.surrogate._prepare.degenerate_kernels`).
+    error_model : dict
+        The error model made from the leave-one-out residuals, combined in quadrature
+        with the nearest-neighbour GP sigma (:func:`tovforge.surrogate._errors.calibrate_error_model`;
+        empty for models trained before it existed).
     """
 
     n_subset: int = 0
@@ -117,6 +122,7 @@ class GPFit(Record):
     fit_seconds: tuple = ()
     optimizer_warnings: tuple = ()
     degenerate_kernels: tuple = ()
+    error_model: dict = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -130,6 +136,7 @@ class _KernelFit:
     seconds: float
     warnings: list
     sigma_scale: np.ndarray  # (n_outputs of the group,)
+    loo: np.ndarray  # (n, n_outputs of the group): leave-one-out residuals of R (Rasmussen & Williams Eq. 5.12)
 
 
 def _groups(n_scalars, slices, n_out, curve_groups=1, mass_max_with_radius=False):
@@ -199,31 +206,27 @@ def _fit_group(x, R, sub, settings: GPSettings, d) -> _KernelFit:
             "remove duplicate parameter rows or raise the nugget bounds.") from exc
     # Alg. 2.1, line 3: alpha = L^T \ (L \ y)
     alpha = scipy.linalg.cho_solve(cf, R, check_finite=False)
-    scale = _loo_sigma_scale(x, R, sub, cf, alpha, length, amp2, noise)
-    return _KernelFit(length, amp2, noise, alpha, time.perf_counter() - t0, caught, scale)
+    # GPML Eq. 5.12: mu_-i = y_i - [K^-1 y]_i / [K^-1]_ii, so the residual is alpha_i / [K^-1]_ii
+    loo = alpha / gp_inverse_diagonal(cf[0])[:, None]
+    scale = _loo_sigma_scale(x, sub, loo, length, amp2, noise)
+    return _KernelFit(length, amp2, noise, alpha, time.perf_counter() - t0, caught, scale, loo)
 
 
-def _loo_sigma_scale(x, R, sub, cf, alpha, length, amp2, noise):
+def _loo_sigma_scale(x, sub, loo, length, amp2, noise):
     """Scale of the shipped predictive sigma, per output, from leave-one-out residuals.
 
     For the GP on all points, the leave-one-out residual of point i is
     ``alpha_i / [K^-1]_ii`` (Rasmussen & Williams 2006, Sec. 5.4.2); it is
-    computed at the points of the subset ``sub`` from the Cholesky factor
-    ``cf`` of the full kernel matrix.  The sigma users get is the
-    nearest-neighbour one of :func:`_runtime.gp_local_std`; at a training point
-    with that point left out it is the matching leave-one-out sigma.  The
-    robust spread (MAD / 0.6745) of residual over sigma is the factor that
-    makes the sigma match the errors, per output.
+    taken at the points of the subset ``sub`` (``loo``: every point's).  The
+    sigma users get is the nearest-neighbour one of :func:`_runtime.gp_local_std`;
+    at a training point with that point left out it is the matching
+    leave-one-out sigma.  The robust spread (MAD / 0.6745) of residual over
+    sigma is the factor that makes the sigma match the errors, per output.
     """
-    L = cf[0]
-    E = np.zeros((len(x), len(sub)))
-    E[sub, np.arange(len(sub))] = 1.0
-    W = scipy.linalg.solve_triangular(L, E, lower=True, check_finite=False)
-    kinv_diag = np.sum(W * W, axis=0)  # [K^-1]_ii = |L^-1 e_i|^2
-    resid = alpha[sub] / kinv_diag[:, None]
+    resid = loo[sub]
     m = {"X": x, "length": length[None, :], "amp2": np.array([amp2]), "noise": np.array([noise]),
-         "group_bounds": np.array([0, R.shape[1]]), "resid_scale": np.ones(R.shape[1]),
-         "out_scale": np.ones(R.shape[1])}
+         "group_bounds": np.array([0, loo.shape[1]]), "resid_scale": np.ones(loo.shape[1]),
+         "out_scale": np.ones(loo.shape[1])}
     sd = rt.gp_local_std(np, m, x[sub], skip_nearest=1)
     return np.median(np.abs(resid / sd), axis=0) / 0.6745
 
@@ -262,11 +265,11 @@ def fit_gp(data: TrainingData, settings: GPSettings | None = None) -> FitResult:
     cols = [np.concatenate([np.arange(bounds[g], bounds[g + 1]) for g in s]) for s in sets]
     fits = Parallel(n_jobs=settings.n_jobs)(delayed(_fit_group)(x, R[:, c], sub, settings, d) for c in cols)
     length, amp2, noise = np.zeros((n_g, d)), np.zeros(n_g), np.zeros(n_g)
-    alpha, sigma_scale = np.zeros_like(R), np.zeros(R.shape[1])
+    alpha, sigma_scale, loo = np.zeros_like(R), np.zeros(R.shape[1]), np.zeros_like(R)
     group_kernel = np.zeros(n_g, dtype=np.int64)
     for s, c, f in zip(sets, cols, fits):
         length[s], amp2[s], noise[s], group_kernel[s] = f.length, f.amp2, f.noise, s[0]
-        alpha[:, c], sigma_scale[c] = f.alpha, f.sigma_scale
+        alpha[:, c], sigma_scale[c], loo[:, c] = f.alpha, f.sigma_scale, f.loo
     boundary_hits = [f"kernel {k} (groups {s}): {msg}" for k, (s, f) in enumerate(zip(sets, fits)) for msg in f.warnings]
     degenerate = degenerate_kernels(x, sub, np.array([f.length for f in fits]))
     for msg in degenerate:
@@ -281,10 +284,13 @@ def fit_gp(data: TrainingData, settings: GPSettings | None = None) -> FitResult:
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
     arrays.update(trend_powers=powers, trend_coef=coef, X=x, alpha=alpha * rscale, group_bounds=bounds,
                   group_kernel=group_kernel, length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
+    # residuals of R (scaled by rscale) -> standardised outputs -> output units
+    em_arrays, em_summary = calibrate_error_model(arrays, loo * rscale * arrays["out_scale"])
+    arrays.update(em_arrays)
     details = GPFit(n_subset=int(len(sub)), n_kernels=len(sets), input_warp=p.input_warp,
                     sigma_loo_scale=tuple(float(v) for v in sigma_scale), group_bounds=tuple(bounds.tolist()),
                     fit_seconds=tuple(f.seconds for f in fits), optimizer_warnings=tuple(boundary_hits),
-                    degenerate_kernels=tuple(degenerate))
+                    degenerate_kernels=tuple(degenerate), error_model=em_summary)
     return FitResult(arrays=arrays, settings=settings, details=details)
 
 

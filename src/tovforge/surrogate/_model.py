@@ -96,8 +96,12 @@ class Surrogate:
 
     @property
     def has_std(self) -> bool:
-        """True if the model has a predictive standard deviation (otherwise ``std`` fields are NaN)."""
-        return self.method_info.has_std
+        """True if the model has a predictive standard deviation (otherwise ``std`` fields are NaN).
+
+        Gaussian processes have their own; any model trained with leave-one-out residuals has the
+        error model (``loo_residual``, see :mod:`tovforge.surrogate._errors`).
+        """
+        return self.method_info.has_std or "loo_residual" in self.arrays
 
     @property
     def family(self) -> str:
@@ -141,6 +145,62 @@ class Surrogate:
     def with_arrays(self, **arrays) -> Surrogate:
         """The same model with some arrays replaced (e.g. to measure its rounding noise)."""
         return Surrogate(self.meta, {**self.arrays, **arrays})
+
+    @property
+    def has_error_model(self) -> bool:
+        """True if the model carries leave-one-out residuals and their error model."""
+        return "loo_residual" in self.arrays
+
+    def error_model_std(self, theta) -> np.ndarray:
+        """The error model's sigma of every output (n, n_out), in the model's output units (NaN outside the box).
+
+        The error model alone (for a GP without its own sigma); see
+        :func:`tovforge.surrogate._runtime.error_model_std`.
+
+        Raises
+        ------
+        InputError
+            For a model without one (trained before it existed, or a tensor spline).
+        """
+        if not self.has_error_model:
+            raise InputError(f"this {self.kind} ({self.method}) model has no error model (no leave-one-out "
+                             "residuals); retrain it with this version of tovforge.")
+        t = np.asarray(theta, dtype=float).reshape(-1, len(self.parameter_names))
+        x, inside = rt.unit_inputs(np, self._model, t)
+        return np.where(inside[:, None], rt.error_model_std(np, self._model, x), np.nan)
+
+    def with_measured_errors(self, data) -> Surrogate:
+        """The model whose error model also holds its measured errors at the points of ``data``.
+
+        ``data`` (:class:`TrainingData` of exact solves the model was not trained on): the error of
+        every output there (emulated minus exact, in the model's output units) joins the
+        leave-one-out residuals as if it were one, at its point; the means are unchanged.  For
+        choosing where to solve next (``grid refine --errors-from``); a model checked on the same
+        points afterwards would no longer be checked on independent data.
+
+        Raises
+        ------
+        InputError
+            For a model without an error model, or data of other parameters or outputs.
+        """
+        if not self.has_error_model:
+            raise InputError(f"this {self.kind} ({self.method}) model has no error model (no leave-one-out "
+                             "residuals); retrain it with this version of tovforge.")
+        if list(data.parameter_names) != list(self.parameter_names):
+            raise InputError(f"{data.provenance.get('grid_path', 'data')}: parameters {list(data.parameter_names)} "
+                             f"differ from the model's {list(self.parameter_names)}.")
+        Y, _ = data.output_matrix()
+        if Y.shape[1] != self.arrays["loo_residual"].shape[1]:
+            raise InputError(f"{data.provenance.get('grid_path', 'data')}: {Y.shape[1]} outputs per point, the model "
+                             f"has {self.arrays['loo_residual'].shape[1]}; measure errors on a grid of the same "
+                             "outputs.")
+        theta = np.asarray(data.theta, float)
+        x, inside = rt.unit_inputs(np, self._model, theta)
+        err = self.evaluate(theta).values - Y
+        keep = inside & np.all(np.isfinite(err), axis=1)
+        points = self.arrays.get("error_points", self.arrays["X"])
+        return self.with_arrays(error_points=np.vstack([points, x[keep]]),
+                                loo_residual=np.vstack([self.arrays["loo_residual"], err[keep]]))
 
     # -- evaluation -------------------------------------------------------------
     def evaluate(self, theta, columns=None, grad: bool = False, std: bool = False) -> Evaluation:
@@ -223,6 +283,12 @@ class Surrogate:
 
     def predict_at_masses(self, theta, masses, return_std: bool = False, strict: bool = False) -> MassPrediction:
         return self._ask(qc.query_predict_at_masses, theta, masses, return_std, strict)
+
+    def set_trust_limits(self, **limits) -> dict:
+        try:
+            return qc.query_set_trust_limits(self._model, limits)
+        except qc.QueryError as exc:
+            raise InputError(str(exc)) from None
 
     # -- storage --------------------------------------------------------------------
     def save(self, folder, overwrite: bool = False, extra=None) -> Path:

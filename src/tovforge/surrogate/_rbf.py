@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import time
 import warnings
@@ -13,6 +14,7 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
+from ._errors import calibrate_error_model, rbf_loo_residuals
 from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, matern_kernel, prepare,
                        space_filling_subset, trend_matrix, trend_powers, trend_residuals)
 from ._record import Record
@@ -75,6 +77,10 @@ class RBFFit(Record):
         The GP length scales the stretch came from (empty: isotropic).
     anisotropy_subset : int
         Points of that GP (0: isotropic).
+    error_model : dict
+        The error model made from the leave-one-out residuals
+        (:func:`tovforge.surrogate._errors.calibrate_error_model`; empty for models
+        trained before it existed).
     """
 
     kernel: str = "r^5"
@@ -82,6 +88,7 @@ class RBFFit(Record):
     input_scale: tuple = ()
     anisotropy_length_scales: tuple = ()
     anisotropy_subset: int = 0
+    error_model: dict = field(default_factory=dict)
 
 
 def _anisotropy(x, Z, columns: tuple, settings: SplineSettings):
@@ -146,4 +153,10 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitRe
     sol = scipy.linalg.solve(A, rhs, assume_a="sym", check_finite=False)
     logger.info(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
+    t0 = time.perf_counter()
+    loo = rbf_loo_residuals(A, sol[:n], n) * arrays["out_scale"]  # standardised -> output units
+    em_arrays, summary = calibrate_error_model(arrays, loo)
+    arrays.update(em_arrays)
+    details = dataclasses.replace(details, error_model=summary)
+    logger.info(f"  leave-one-out residuals and error model: {time.perf_counter() - t0:.1f} s")
     return FitResult(arrays=arrays, settings=settings, details=details)

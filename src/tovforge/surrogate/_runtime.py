@@ -29,6 +29,12 @@ The arrays:
     cubic-spline cardinal coefficients: the not-a-knot cubic spline through
     node values ``v`` is ``sum_p spline_c[p, j] . v (u - u_j)^(3 - p)`` on
     interval ``j``.
+``loo_residual`` (n_train, n_out), ``error_scale`` (n_out,), optional
+    Each training point's leave-one-out residual in the output units, and
+    the calibration factor of the error model built on them
+    (:func:`error_model_std`; training points ``X``, or ``error_points`` when
+    measured errors at more points join them).  Models with them have a
+    sigma whatever their method; a GP adds its own in quadrature.
 and those of the method:
 
 ``"gp"``
@@ -72,6 +78,15 @@ MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 no
 PAIRS_PER_CHUNK = 1 << 15
 #: The output every model has: the maximum mass (queries at a mass go through it).
 MASS_MAX = "mass_max_msun"
+
+
+#: Default limits of the trust flag of the queries (``Estimate.trusted``; see the query contract), in the
+#: quantity's unit or relative (``_rel``).  The sigma limits are the accuracy every model must reach at the
+#: 95th percentile (issue 13: 0.01 Msun, 50 m, 2 %); k2's is Lambda's 2 % and 50 m at 12 km in quadrature
+#: (sqrt(0.02^2 + (5 x 0.05 / 12)^2) = 0.029).  A star is not trusted closer to the emulated M_max than
+#: ``max(mass_margin_msun, mass_margin_sigmas x sigma_M)``: no emulated star above the true M_max.
+TRUST_LIMITS = {"mass_max_msun": 0.01, "radius_km": 0.05, "tidal_deformability_rel": 0.02,
+                "moment_of_inertia_rel": 0.02, "k2_rel": 0.03, "mass_margin_msun": 0.02, "mass_margin_sigmas": 3.0}
 
 
 def _is_numpy(xp) -> bool:
@@ -127,13 +142,18 @@ class Model:
         The trained box (plain floats, for messages).
     mass_floor_msun : float
         The floor of M_max of the training grid.
+    trust_limits : dict, optional
+        The limits of the trust flag (:data:`TRUST_LIMITS` by default); kept by
+        reference, so models made by :meth:`replace` share them.
 
     Indexing (``m["X"]``, ``m.get("warp_log")``) reads the arrays; the
     :class:`Cache` in ``m.cache`` holds what the runtime derives from them.
     """
 
-    def __init__(self, arrays, method=None, outputs=(), parameters=(), bounds=(), mass_floor_msun=0.0):
+    def __init__(self, arrays, method=None, outputs=(), parameters=(), bounds=(), mass_floor_msun=0.0,
+                 trust_limits=None):
         self.arrays = arrays
+        self.trust_limits = dict(TRUST_LIMITS) if trust_limits is None else trust_limits
         self.method = method
         self.outputs = tuple(tuple(o) for o in outputs)
         self.parameters = tuple(parameters)
@@ -151,7 +171,7 @@ class Model:
     def replace(self, **arrays):
         """The same model with some arrays replaced (and a cache of its own)."""
         return Model({**self.arrays, **arrays}, self.method, self.outputs, self.parameters, self.bounds,
-                     self.mass_floor_msun)
+                     self.mass_floor_msun, self.trust_limits)
 
 
 def _column_differences(xp, x, X):
@@ -382,16 +402,22 @@ def _matern(xp, x, m, groups, grad):
     return q, (matern_gradients(xp, x, m["X"], k, c) if grad else None)
 
 
-def rbf_points(xp, m):
-    """The training points transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N); cached."""
+def _points_of(xp, m, name):
+    """The points ``m[name]`` (N, d) transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N);
+    cached under ``name``."""
     def make():
-        X = m["X"]
+        X = m[name]
         XT = xp.permute_dims(X, (1, 0))
         if _is_numpy(xp):
             XT = xp.ascontiguousarray(XT)
         return XT, xp.reshape(xp.sum(X * X, axis=-1), (1, -1))
 
-    return _cached(xp, m, "rbf_points", None, make)
+    return _cached(xp, m, f"points:{name}", None, make)
+
+
+def rbf_points(xp, m):
+    """The training points transposed (d, N) (C-ordered under NumPy) and their squared norms (1, N); cached."""
+    return _points_of(xp, m, "X")
 
 
 def polyharmonic_rows(xp, x, XT, X2, grad):
@@ -809,6 +835,57 @@ def _gp_std(xp, m, x, columns):
     return gp_local_std(xp, m, x, columns=columns)
 
 
+#: Training points whose leave-one-out residuals make the error model's sigma at a query.
+ERROR_NEIGHBOURS = 12
+
+
+def error_model_std(xp, m, x, skip_nearest=0):
+    """The error model's sigma of every output (n, n_out) at unit inputs x (n, d), or None without one.
+
+    A model with the arrays ``loo_residual`` (n_train, n_out: each training
+    point's leave-one-out residual, in the model's output units) and
+    ``error_scale`` (n_out,: the calibration factor) predicts its own error
+    from the residuals of the :data:`ERROR_NEIGHBOURS` training points nearest
+    to the query in the model's input metric: the root of their
+    inverse-square-distance weighted mean square, times the factor.  The
+    weights are ``1 / (d_j + d_1)^2`` (d_1 the nearest distance), so a query
+    on top of a training point still averages over its neighbours.  The cost
+    per query is one pass over the training points (as the mean's own), and
+    the answer needs no kernel inverse.  ``skip_nearest``: leave out that many
+    nearest points (1 at a training point: its leave-one-out sigma, for
+    calibration).
+    """
+    if m.get("loo_residual") is None:
+        return None
+    return _chunked(xp, _error_model_rows, x, m["loo_residual"].shape[0], m, skip_nearest)[0]
+
+
+def _error_points(xp, m):
+    """The points of the error model: ``error_points`` if the model has them (training points plus points of
+    measured errors, see ``Surrogate.with_measured_errors``), else the training points; as :func:`rbf_points`."""
+    return _points_of(xp, m, "X" if m.get("error_points") is None else "error_points")
+
+
+def _error_model_rows(xp, x, m, skip):
+    XT, X2 = _error_points(xp, m)
+    q = xp.matmul(x * -2.0, XT)
+    q += xp.sum(x * x, axis=-1)[:, None]
+    q += X2
+    K = min(ERROR_NEIGHBOURS + skip, X2.shape[1])
+    nn = nearest(xp, q, K)
+    d2 = xp.take_along_axis(q, nn, axis=-1)
+    order = xp.argsort(d2, axis=-1)
+    nn = xp.take_along_axis(nn, order, axis=-1)[:, skip:]
+    d2 = xp.take_along_axis(d2, order, axis=-1)[:, skip:]
+    dist = xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))
+    w = 1.0 / (dist + dist[:, :1] + 1e-12) ** 2
+    w = w / xp.sum(w, axis=-1)[:, None]
+    E2 = _cached(xp, m, "error_sq", None, lambda: (m["loo_residual"] * m["error_scale"]) ** 2)
+    n, k = nn.shape
+    Ek = xp.reshape(xp.take(E2, xp.reshape(nn, (-1,)), axis=0), (n, k, E2.shape[1]))
+    return (xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1)),)
+
+
 #: Methods with a predictive standard deviation; the others have none (NaN, see :func:`output_std`).
 STD = {"gp": _gp_std}
 
@@ -837,17 +914,24 @@ def outputs(xp, m, theta, grad=False, columns=None):
 def output_std(xp, m, theta, columns=None):
     """Predictive standard deviation of every output (n, n_out), in the model's output units.
 
-    NaN for methods without one (not in :data:`STD`): they carry no error
-    estimate, and zeros would claim they are exact.  ``columns``: optional
+    The method's own (:data:`STD`) and the error model's (:func:`error_model_std`)
+    in quadrature, whichever the model has.  NaN for a model with neither: it
+    carries no error estimate, and zeros would claim it is exact.  ``columns``: optional
     output ranges a query needs (as in :func:`outputs`); outputs outside them
     may be NaN.
     """
     x, inside = unit_inputs(xp, m, theta)
     nan = float("nan")
     part = STD.get(m.method)
-    if part is None:
+    err = error_model_std(xp, m, x)
+    if part is None and err is None:
         return xp.full((x.shape[0], m["out_mean"].shape[0]), nan, dtype=x.dtype)
-    s = part(xp, m, x, columns)
+    if part is None:
+        s = err
+    else:
+        s = part(xp, m, x, columns)
+        if err is not None:  # the method's own sigma and the error model's, in quadrature
+            s = xp.sqrt(s * s + err * err)
     return xp.where(inside[:, None], s, nan)
 
 

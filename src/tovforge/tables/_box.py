@@ -5,7 +5,7 @@ Each parameter is either an axis (``n`` evenly spaced values from ``lo`` to
 product of the axes in C order: the first axis varies slowest, so a column
 reshaped to ``shape`` (the axis lengths, in the order given) is the grid.
 
-Values come from a trained surrogate (fast; GP models add ``sigma_`` columns)
+Values come from a trained surrogate (fast; models with a sigma add ``sigma_`` columns)
 or from exact solves, which run through the grid machinery
 (:func:`tovforge.grid.run_grid`: chunks in parallel on all cores or on a Dask
 cluster, a progress bar, resumption after a crash); the exact table then has a
@@ -200,7 +200,7 @@ def box_table(out, model, axes, fixed=None, quantities=DEFAULT_QUANTITIES, masse
     masses : sequence of float
         Masses in Msun for the per-mass quantities.
     sigma : bool
-        Add ``sigma_`` columns (GP models only; splines have none).
+        Add ``sigma_`` columns (models with a sigma: GPs and splines with an error model).
     progress : bool
         Progress bar on ``stream`` (default stderr).
     command : str, optional

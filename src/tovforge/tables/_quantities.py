@@ -102,7 +102,7 @@ def quantity_columns(quantities, masses, sigma: bool) -> list[Column]:
         for key, desc in keys:
             cols.append(Column(key, q.unit, desc))
             if sigma:
-                cols.append(Column(f"sigma_{key}", q.unit, f"GP predictive standard deviation of {key}"))
+                cols.append(Column(f"sigma_{key}", q.unit, f"predictive standard deviation of {key}"))
     return cols
 
 
@@ -123,7 +123,7 @@ def model_values(model, theta, quantities, masses, sigma: bool) -> dict:
     masses : sequence of float
         Gravitational masses in Msun for the per-mass quantities.
     sigma : bool
-        Also return the ``sigma_`` columns (GP models).
+        Also return the ``sigma_`` columns (models with a sigma).
 
     Returns
     -------

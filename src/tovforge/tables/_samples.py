@@ -274,7 +274,7 @@ def samples_table(out, model, samples, quantities=DEFAULT_SAMPLE_QUANTITIES, mas
     ignore : sequence of str
         Columns of the samples file that are not parameters.
     sigma : bool
-        Add ``sigma_`` columns (GP models).
+        Add ``sigma_`` columns (models with a sigma).
     progress, stream, command, chunk_rows
         As in :func:`tovforge.tables.box_table`.
     overwrite : bool

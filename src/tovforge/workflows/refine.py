@@ -1,4 +1,4 @@
-"""Refinement of a GP model (``tovforge grid refine``): exact solves where it is least certain, then retrain.
+"""Refinement of a surrogate (``tovforge grid refine``): exact solves where it is least certain, then retrain.
 
 A workflow, not a stage: it runs the grid's solver on new points, writes them
 as a grid file and retrains the surrogate, through the public APIs of
@@ -62,12 +62,19 @@ class RefineResult:
 
 
 def _score(model: Surrogate, theta: np.ndarray) -> np.ndarray:
-    """Largest predictive sigma over M_max, the radius and ln Lambda nodes, in units of the goals."""
-    ev = model.evaluate(theta, std=True)
+    """Largest sigma over M_max, the radius and ln Lambda nodes, in units of the goals.
+
+    The error model's sigma (leave-one-out residuals of the nearest training points) where the
+    model has one: it points at the measured errors themselves.  A GP's own sigma grows at every
+    face from extrapolation, not where the errors are (research/surrogates/LOG.md, "Refinement:
+    does it help?"), so it serves only models without an error model.
+    """
+    ev = model.evaluate(theta, std=not model.has_error_model)
+    sd = model.error_model_std(theta) if model.has_error_model else ev.std
     cols = model.output_columns()
-    score = ev.std[:, cols["mass_max_msun"]][:, 0] / _SIGMA_SCALES["mass_max_msun"]
+    score = sd[:, cols["mass_max_msun"]][:, 0] / _SIGMA_SCALES["mass_max_msun"]
     for name in ("radius_km", "log_tidal_deformability"):
-        score = np.maximum(score, ev.std[:, cols[name]].max(axis=1) / _SIGMA_SCALES[name])
+        score = np.maximum(score, sd[:, cols[name]].max(axis=1) / _SIGMA_SCALES[name])
     # points whose M_max is far below the floor matter less to users
     mm = ev.values[:, cols["mass_max_msun"]][:, 0]
     floor = model.meta.outputs.mass_floor_msun
@@ -75,7 +82,7 @@ def _score(model: Surrogate, theta: np.ndarray) -> np.ndarray:
 
 
 def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed: int = 0) -> np.ndarray:
-    """Choose ``budget`` parameter points where the GP's sigma is largest.
+    """Choose ``budget`` parameter points where the model's sigma (its error model's, if any) is largest.
 
     Candidates are a scrambled Sobol sample of the box (valid points only);
     after each choice the scores of nearby candidates are damped by
@@ -87,8 +94,8 @@ def select_points(model: Surrogate, budget: int, n_candidates: int = 8192, seed:
     from .. import eos
 
     if not model.has_std:
-        raise InputError(f"grid refine needs a model with a predictive sigma (a Gaussian process); this model is "
-                         f"{model.kind} ({model.method}).")
+        raise InputError(f"grid refine needs a model with a predictive sigma (a Gaussian process, or any model "
+                         f"with leave-one-out residuals); this model is {model.kind} ({model.method}).")
     if budget < 1:
         raise InputError(f"budget must be at least 1 exact solve. Got {budget}.")
     if n_candidates < budget:
@@ -135,15 +142,16 @@ def _p95_row(model, holdout) -> LearningPoint:
                          lambda_rel_p95=rep.errors["tidal_deformability_at_mass"].rel_p95)
 
 
-def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: int = 8192, seed: int = 0,
-           workers=None, overwrite: bool = False, allow_mismatch: bool = False,
+def refine(model: Surrogate, budget: int, out, *, holdout=None, errors_from=None, n_candidates: int = 8192,
+           seed: int = 0, workers=None, overwrite: bool = False, allow_mismatch: bool = False,
            oversubscribe: bool = False) -> RefineResult:
-    """Add ``budget`` exact solves where the GP's sigma is largest and retrain.
+    """Add ``budget`` exact solves where the model's sigma (its error model's, if any) is largest and retrain.
 
     Parameters
     ----------
     model : Surrogate
-        A GP model trained by ``tovforge train`` (its training grid must exist).
+        A model with a sigma (a GP, or one with leave-one-out residuals) trained by ``tovforge train`` (its training
+        grid must exist).
     budget : int
         Exact solves to add.
     out : path
@@ -154,6 +162,12 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     holdout : path, optional
         Held-out grid: the errors before and after are measured and stored in
         the model as its learning curve.
+    errors_from : path, optional
+        A grid of exact solves (not the training grid, not ``holdout``) whose
+        measured errors join the error model's residuals when the points are
+        chosen (:meth:`Surrogate.with_measured_errors`): the picks go where the
+        model is measured wrong as well as where its sigma is large.  Needs a
+        model with an error model.
     overwrite : bool
         Replace an existing folder ``out``.
     allow_mismatch : bool
@@ -166,7 +180,10 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
     tr = model.meta.training
     grid_path = tr.grid_path
     out = check_output(out, "model folder", overwrite, folder=True)  # before the work, not after it
-    inputs = [p for p in (grid_path, *tr.refinement_grids, holdout) if p]
+    inputs = [p for p in (grid_path, *tr.refinement_grids, holdout, errors_from) if p]
+    if errors_from is not None and holdout is not None and Path(errors_from).resolve() == Path(holdout).resolve():
+        raise InputError(f"errors_from {errors_from} is the held-out grid: points chosen by its errors would make "
+                         "the learning curve on it optimistic; measure errors on another grid.")
     inside = [p for p in inputs if Path(p).resolve().is_relative_to(out.resolve())]
     if inside:
         raise InputError(f"out {out}: the folder holds {inside[0]}, an input of this refinement, which the new "
@@ -189,14 +206,21 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, n_candidates: in
                          "grid file (tovforge train GRID).")
     g = read_grid(grid_path, allow_mismatch)
     spec = parse_spec(json.loads(g.attrs["spec_json"]))
-    added = select_points(model, budget, n_candidates, seed)
-    logger.info(f"solving {len(added)} points of largest GP sigma (from {n_candidates} Sobol candidates)")
+    scorer = model
+    if errors_from is not None:
+        scorer = model.with_measured_errors(read_training_data(errors_from, family=model.family, min_points=0,
+                                                               allow_mismatch=allow_mismatch))
+    added = select_points(scorer, budget, n_candidates, seed)
+    what = "error-model" if model.has_error_model else "GP"
+    if errors_from is not None:
+        what += f" (with the measured errors of {errors_from})"
+    logger.info(f"solving {len(added)} points of largest {what} sigma (from {n_candidates} Sobol candidates)")
     result = solve_points(spec, added, workers=workers, oversubscribe=oversubscribe)
     points_path = out / "refinement-points.h5"
     rspec = dataclasses.replace(
         spec, design=DesignSpec(method="refinement", points=len(added), seed=seed),
         description=f"{len(added)} points added by tovforge grid refine to {grid_path} "
-                    f"(largest GP sigma among {n_candidates} Sobol candidates, seed {seed})")
+                    f"(largest {what} sigma among {n_candidates} Sobol candidates, seed {seed})")
     new = training_data_from_arrays(
         path=points_path, family_name=model.family, parameter_names=model.parameter_names,
         parameter_units=model.parameter_units, box=model.bounds, theta=added,

@@ -11,9 +11,11 @@ import inspect
 
 import numpy as np
 import pytest
-from conftest import KINDS, box_points
+from conftest import KINDS, box_points, import_file
 
 from tovforge import quantities
+from tovforge.errors import InputError
+from tovforge.export import export_model
 from tovforge.export._verify import compare, flatten
 from tovforge.surrogate import Curve, Estimate, MassPrediction, Prediction, Surrogate
 from tovforge.surrogate._data import emulated_outputs
@@ -113,11 +115,15 @@ def test_mass_max_curve_predict_and_in_domain_have_the_contract_shapes(kind, the
 
 
 @pytest.mark.parametrize("kind", KINDS)
-def test_std_is_a_sigma_for_gp_and_nan_for_splines(kind, models, exported):
-    """return_std never changes the type; a model without a predictive sigma fills std with NaN."""
+def test_std_is_a_sigma_where_the_model_has_one_and_nan_otherwise(kind, models, exported):
+    """return_std never changes the type; a model without a predictive sigma fills std with NaN.
+
+    GPs and RBF splines carry one (the GP's own and the error model from leave-one-out residuals);
+    tensor splines have no leave-one-out residuals and no sigma.
+    """
     model, mod = models[kind], exported[kind][0]
     theta = box_points(model, 8, seed=3, inner=0.2)
-    assert mod.HAS_STD == model.has_std == (model.method == "gp")
+    assert mod.HAS_STD == model.has_std == (model.method in ("gp", "rbf"))
     for r in (model.radius(theta, 1.2, return_std=True), mod.radius(theta, 1.2, return_std=True),
               model.mass_max(theta, return_std=True), mod.mass_max(theta, return_std=True)):
         if model.has_std:
@@ -145,8 +151,9 @@ def test_prediction_fields_follow_the_registry():
     fields = set(Prediction.__dataclass_fields__)
     assert {q.name for q in sequence + star} <= fields
     extra = fields - {q.name for q in sequence + star}
-    assert extra == {"u_nodes", "mass_msun", "mass_max_margin_msun", "causality_margin", "out_of_box", "std"}
-    for name in extra - {"u_nodes", "out_of_box", "std"}:
+    assert extra == {"u_nodes", "mass_msun", "mass_max_margin_msun", "causality_margin", "out_of_box", "std",
+                     "trusted"}
+    for name in extra - {"u_nodes", "out_of_box", "std", "trusted"}:
         quantities.get(name)  # the rest are registry quantities too
 
 
@@ -167,10 +174,68 @@ def test_units_of_the_exported_outputs_come_from_the_registry(exported):
     mod = exported["rbf"][0]
     assert mod.OUTPUT_UNITS["central_pressure_at_mass_max_dyn_cm2"] == "dyn/cm^2"
     assert mod.OUTPUT_UNITS["moment_of_inertia_1e45_g_cm2"] == quantities.get("moment_of_inertia").unit
-    assert mod.OUTPUTS == tuple(f for f in Prediction.__dataclass_fields__ if f != "std")
+    assert mod.OUTPUTS == tuple(f for f in Prediction.__dataclass_fields__ if f not in ("std", "trusted"))
     # the header lists every emulated quantity with its registry unit and meaning, and how it was modelled
     sequence, star = emulated_outputs()
     for q in sequence + star:
         line = next(x for x in mod.__doc__.splitlines() if x.split()[:1] == [q.name])
         assert q.unit in line and q.description in line
         assert (f"(emulated as {q.transform})" in line) == (q.transform != "identity")
+
+
+@pytest.mark.parametrize("kind", ["gp", "rbf"])
+def test_the_trust_flag_catches_a_planted_bad_region_in_both_places(kind, models, tmp_path):
+    """Leave-one-out residuals made 1000 times larger at the training points of high gamma2: the flag must turn
+    False there (library, exported batch and exported one-theta path alike) and stay True where it was True
+    elsewhere; set_trust_limits moves it the same way in both places."""
+    model = models[kind].with_arrays()  # a copy: its trust limits are its own
+    x2 = model.arrays["X"][:, 2]
+    bad = x2 > np.quantile(x2, 0.85)
+    loo = np.array(model.arrays["loo_residual"])
+    loo[bad] *= 1e3
+    planted = model.with_arrays(loo_residual=loo)
+    path = tmp_path / f"planted_{kind}.py"
+    export_model(planted, path, namespaces=("numpy",))
+    mod = import_file(path)
+    # these models learn 300 points: limits 5 times the defaults leave most of their stars trusted
+    loose = {"mass_max_msun": 0.05, "radius_km": 0.25, "tidal_deformability_rel": 0.1}
+    for side in (model, planted, mod):
+        side.set_trust_limits(**loose)
+    lo, hi = model.bounds[:, 0], model.bounds[:, 1]
+    theta = box_points(model, 60, seed=31, inner=0.05)
+    in_bad = theta.copy()
+    in_bad[:, 2] = lo[2] + 0.97 * (hi[2] - lo[2])  # inside the planted region
+    far = theta.copy()
+    far[:, 2] = lo[2] + 0.3 * (hi[2] - lo[2])  # away from it (and from the soft segments at the lowest gamma2)
+    for q in ("mass_max", "radius", "tidal_deformability"):
+        args = () if q == "mass_max" else (1.3,)
+        clean = getattr(model, q)(far, *args, return_std=True).trusted
+        assert clean.any()  # the test can fail: some stars are trusted before planting
+        assert not getattr(planted, q)(in_bad, *args, return_std=True).trusted.any(), q
+        np.testing.assert_array_equal(getattr(planted, q)(far, *args, return_std=True).trusted, clean)
+        for th in (in_bad, far):
+            want = getattr(planted, q)(th, *args, return_std=True)
+            np.testing.assert_array_equal(getattr(mod, q)(th, *args, return_std=True).trusted, want.trusted)
+            one = [bool(getattr(mod, q)(t, *args, return_std=True).trusted) for t in th[:8]]
+            assert one == want.trusted[:8].tolist(), q
+    p = planted.predict_at_masses(far, [1.2, 1.4], return_std=True)
+    np.testing.assert_array_equal(mod.predict_at_masses(far, [1.2, 1.4], return_std=True).trusted, p.trusted)
+    assert p.trusted.shape == (60, 2) and planted.predict(far, return_std=True).trusted.shape == (60,)
+    assert planted.predict(far).trusted is None and planted.radius(far, 1.3).trusted is None
+    # limits a user sets: huge ones trust the planted region (but never a star next to M_max)
+    huge = {"mass_max_msun": 1e9, "radius_km": 1e9, "tidal_deformability_rel": 1e9, "mass_margin_sigmas": 0.0}
+    for side in (planted, mod):
+        assert side.set_trust_limits(**huge)["radius_km"] == 1e9
+        assert side.radius(in_bad, 1.3, return_std=True).trusted.mean() > 0.5
+        mm = side.mass_max(in_bad).value
+        assert not side.radius(in_bad, (mm - 0.01)[:, None], return_std=True).trusted.any()  # within 0.02 Msun
+    with pytest.raises(InputError, match="unknown trust limit"):
+        planted.set_trust_limits(radius=1.0)
+    with pytest.raises(mod.QueryError, match="finite number"):
+        mod.set_trust_limits(radius_km=-1.0)
+
+
+def test_trust_limits_are_documented_alike(exported):
+    mod = exported["rbf"][0]
+    assert mod.set_trust_limits.__doc__ == Surrogate.set_trust_limits.__doc__
+    assert mod.set_trust_limits() == mod.TRUST_LIMITS

@@ -53,7 +53,8 @@ def test_values_are_the_models(tmp_path):
         for j, m in enumerate(["1.2", "1.4", "2.5"]):
             np.testing.assert_allclose(t[f"{name}@{m}"], ref[:, j], rtol=1e-12, err_msg=f"{name}@{m}")
     assert np.isnan(t["radius@2.5"]).any()  # above M_max somewhere in this slice
-    assert not any(n.startswith("sigma_") for n in t.columns)  # splines have no sigma
+    # the spline's error model gives a sigma
+    np.testing.assert_allclose(t["sigma_mass_max"], model.mass_max(theta, return_std=True).std, rtol=1e-12)
     assert t.units["pressure_at_mass_max"] == "dyn/cm^2" and t.units["lambda@1.4"] == "1"
 
 

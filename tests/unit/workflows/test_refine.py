@@ -11,7 +11,7 @@ from typer.testing import CliRunner
 from tovforge.cli import app
 from tovforge.errors import InputError
 from tovforge.grid import load_spec, read_grid, run_grid
-from tovforge.surrogate import GPSettings, read_training_data, train, train_on
+from tovforge.surrogate import GPSettings, Surrogate, read_training_data, train, train_on
 from tovforge.workflows.refine import refine, select_points
 
 ROOT = Path(__file__).resolve().parents[3]
@@ -89,9 +89,30 @@ def test_refine_refuses_a_model_trained_on_part_of_its_grid(small_gp, tmp_path):
         refine(model, 4, tmp_path / "r", n_candidates=256, workers=1)
 
 
-def test_refine_of_a_spline_model_is_one_line_with_exit_2(small_gp, tmp_path):
+def test_refine_of_a_model_without_sigma_is_one_line_with_exit_2(small_gp, tmp_path):
+    """A spline without leave-one-out residuals (trained before the error model) has no sigma to refine by."""
     _, d = small_gp
-    train(d / "small.h5", "spline").save(tmp_path / "spline")
+    m = train(d / "small.h5", "spline")
+    Surrogate(m.meta, {k: v for k, v in m.arrays.items() if k not in ("loo_residual", "error_scale")}).save(
+        tmp_path / "spline")
     res = runner.invoke(app, ["grid", "refine", str(tmp_path / "spline"), "--budget", "4"])
     assert res.exit_code == 2 and "needs a model with a predictive sigma" in res.stderr
     assert res.stderr.count("\n") == 1 and "Traceback" not in res.output
+
+
+def test_measured_errors_join_the_error_model_and_steer_the_picks(small_gp, tmp_path):
+    """The demo held-out grid's measured errors, added at their points, raise the error model's sigma there
+    (the means do not move) and change which candidates refine picks; the held-out grid itself is refused."""
+    model, d = small_gp
+    data = read_training_data(HOLDOUT)
+    steered = model.with_measured_errors(data)
+    theta = data.theta[:50]
+    np.testing.assert_array_equal(steered.evaluate(theta).values, model.evaluate(theta).values)
+    err = np.abs(model.evaluate(theta).values - data.output_matrix()[0][:50])
+    before, after = model.error_model_std(theta), steered.error_model_std(theta)
+    # at a point of its own measured error the sigma follows that error (weights 1 / (d_j + d_1)^2)
+    assert np.corrcoef(np.log(after.ravel() + 1e-12), np.log(err.ravel() + 1e-12))[0, 1] > \
+        np.corrcoef(np.log(before.ravel() + 1e-12), np.log(err.ravel() + 1e-12))[0, 1]
+    assert not np.array_equal(select_points(model, 8, 512), select_points(steered, 8, 512))
+    with pytest.raises(InputError, match="is the held-out grid"):
+        refine(model, 4, tmp_path / "r", holdout=HOLDOUT, errors_from=HOLDOUT, n_candidates=256, workers=1)
