@@ -123,7 +123,7 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            fit_local, LocalSettings, LocalFit,
            arrays=("X", "alpha", "group_columns", "group_scale", "group_patches", "patch_index", "patch_rows",
                    "patch_centre", "patch_scale", "patch_coef", "local_powers", "cell_counts", "cell_edges",
-                   "cell_half", "loo_residual"),
+                   "cell_half", "loo_residual", "error_scale"),
            static_arrays=("group_columns", "group_patches", "patch_index", "patch_rows", "local_powers",
                           "cell_counts"), reverse=reverse_patches,
            describe=describe_local),

@@ -60,6 +60,7 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
+from ._errors import calibrate_error_model
 from ._prepare import FitResult, prepare, trend_powers
 from ._rbf import SplineSettings, _anisotropy
 from ._record import Record
@@ -151,6 +152,9 @@ class LocalFit(Record):
         Root mean square of the standardised leave-one-out residuals (all outputs).
     seconds_solve : float
         Time of the cells' solves.
+    error_model : dict
+        The error model's calibration
+        (:func:`tovforge.surrogate._errors.calibrate_error_model`).
     """
 
     kernel: str = "r^5, partition of unity"
@@ -163,6 +167,7 @@ class LocalFit(Record):
     stored_rows: int = 0
     loo_rms: float = 0.0
     seconds_solve: float = 0.0
+    error_model: dict = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -320,8 +325,11 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         lengths.append(length)
     arrays.update(join_groups(parts, fits), X=x, group_scale=np.stack(scales),
                   group_columns=np.array([g[0] for g in groups] + [n_out], dtype=np.int64),
-                  trend_powers=np.zeros((1, d), dtype=np.int64), trend_coef=np.zeros((1, n_out)),
-                  loo_residual=loo * arrays["out_scale"])
+                  trend_powers=np.zeros((1, d), dtype=np.int64), trend_coef=np.zeros((1, n_out)))
+    t0 = time.perf_counter()
+    em_arrays, em_summary = calibrate_error_model(arrays, loo * arrays["out_scale"])  # its sigma, as the RBF's
+    arrays.update(em_arrays)
+    logger.info(f"  error model from the leave-one-out residuals: {time.perf_counter() - t0:.1f} s")
     sizes = np.diff(arrays["patch_rows"])
     logger.info(f"  local r^5 on {n} points: {len(sizes)} cells, {t_solve:.1f} s of solves")
     details = LocalFit(input_warp=p.input_warp, groups=tuple(groups),
@@ -329,7 +337,8 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
                        length_scales=tuple(tuple(v.tolist()) for v in lengths),
                        cells=tuple(tuple(int(c) for c in q.counts) for q in parts),
                        patch_points=(int(sizes.min()), int(np.median(sizes)), int(sizes.max())),
-                       stored_rows=int(sizes.sum()), loo_rms=float(np.sqrt(np.mean(loo**2))), seconds_solve=t_solve)
+                       stored_rows=int(sizes.sum()), loo_rms=float(np.sqrt(np.mean(loo**2))), seconds_solve=t_solve,
+                       error_model=em_summary)
     return FitResult(arrays=arrays, settings=s, details=details)
 
 

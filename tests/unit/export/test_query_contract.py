@@ -118,12 +118,12 @@ def test_mass_max_curve_predict_and_in_domain_have_the_contract_shapes(kind, the
 def test_std_is_a_sigma_where_the_model_has_one_and_nan_otherwise(kind, models, exported):
     """return_std never changes the type; a model without a predictive sigma fills std with NaN.
 
-    GPs and RBF splines carry one (the GP's own and the error model from leave-one-out residuals);
-    tensor splines have no leave-one-out residuals and no sigma.
+    GPs, RBF splines and local splines carry one (the GP's own and the error model from leave-one-out
+    residuals); tensor splines have no leave-one-out residuals and no sigma.
     """
     model, mod = models[kind], exported[kind][0]
     theta = box_points(model, 8, seed=3, inner=0.2)
-    assert mod.HAS_STD == model.has_std == (model.method in ("gp", "rbf"))
+    assert mod.HAS_STD == model.has_std == (model.method in ("gp", "rbf", "local"))
     for r in (model.radius(theta, 1.2, return_std=True), mod.radius(theta, 1.2, return_std=True),
               model.mass_max(theta, return_std=True), mod.mass_max(theta, return_std=True)):
         if model.has_std:
