@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import itertools
+
 import numpy as np
 
 from ..._bench import timeit_median
@@ -41,12 +43,18 @@ def bench_likelihood(quick: bool = False, echo=print) -> None:
             b = np.asarray(pair.new.BOUNDS, float)
             walkers = b[:, 0] + (b[:, 1] - b[:, 0]) * (0.3 + 0.4 * rng.random((32, len(b))))
             one = walkers[:1]
-            for label, theta in (("one theta", one), ("32 walkers, per theta", walkers)):
+            # one theta: a new walker at every call (evaluators keep the latest theta's kernel rows, which
+            # serve the several queries of one call but must not serve the next call)
+            rows = itertools.cycle([walkers[i:i + 1] for i in range(len(walkers))])
+            for label, theta in (("one theta", None), ("32 walkers, per theta", walkers)):
                 posts = [Posterior(m, obs) if m is not None else None for m in (pair.old, pair.new)]
-                calls = [_styled(m, i == 0 and pair.old is pair.new)(lambda mm, p=p: p(theta))
-                         if p is not None else None for i, (m, p) in enumerate(zip((pair.old, pair.new), posts))]
-                t_old, t_new = _side_by_side(calls[0], calls[1], reps if len(theta) == 1 else max(3, reps // 10),
+                calls = [_styled(m, i == 0 and pair.old is pair.new)(
+                    lambda mm, p=p, t=theta: p(next(rows) if t is None else t))
+                    if p is not None else None for i, (m, p) in enumerate(zip((pair.old, pair.new), posts))]
+                theta_rows = one if theta is None else theta
+                t_old, t_new = _side_by_side(calls[0], calls[1], reps if theta is None else max(3, reps // 10),
                                              rounds)
+                theta = theta_rows
                 t_eval = _evaluator_seconds(pair.new, posts[1], theta, reps)
                 n = len(theta)
                 echo(f"    {pair.label.split(' ')[0] + ', ' + label:<44}{t_old / n * 1e6:>9.0f} us{t_new / n * 1e6:>9.0f} us"
