@@ -16,6 +16,6 @@ def test_quick_bench_runs_every_section():
     for section in ("== solver ==", "== grid ==", "== surrogate ==", "== export =="):
         assert section in r.stdout, section
     for words in ("SciPy baseline", "10^4 points on 2 cores", "train spline", "train gp", "demo_gp.py",
-                  "demo_spline.py", "floors:"):
+                  "demo_spline.py", "floors (goals)", "== likelihood ==", "train local"):
         assert words in r.stdout, words
     assert "Traceback" not in r.stderr
