@@ -1,0 +1,192 @@
+"""Far side of the transition family: does a curve coordinate with a node at the transition mass remove the kink?
+
+On the far side (the connected hybrid branch rises far above the jump; ``transition_sides.py``) R(M) kinks at
+the transition mass M_t (the star centred at p_t), and the kink moves along ``u = sqrt(1 - M / M_max)``.  Here
+each far EOS is solved exactly at masses of a coordinate ``t`` that puts M_t at t = 1/2::
+
+    t in [0, 1/2]:  M = M_lo + 2 t (M_t - M_lo),              M_lo = min(0.9, M_t - 0.1) Msun (base stars)
+    t in [1/2, 1):  M = M_max - (M_max - M_t) (2 - 2 t)^2     (hybrid stars; u-like crowding at M_max)
+
+and the node radii and ln Lambda (with M_t, M_max) are emulated by the library's spline (input warp, learned
+stretch; the t nodes stand in for the curves and M_t for a scalar: research only) and by a plain SciPy r^5 +
+quadratic RBF, against the same on the grid's own u nodes; each interpolates in its coordinate by cubic splines
+(t: one per segment).  Held-out errors at the grid's masses, 1.0 <= M <= M_max - 0.02: far EOS, then all EOS with
+the near side's own model on u nodes (the exact side).  Results in research/surrogates/LOG.md.
+
+    python research/surrogates/transition_far_curves.py
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+from scipy.interpolate import CubicSpline, RBFInterpolator
+
+from tovforge.eos import get_family
+from tovforge.grid import read_grid
+from tovforge.solve import StepSettings, solve_sequences
+from tovforge.solve._surface import integrate
+from tovforge.surrogate import read_training_data
+from tovforge.units import MSUN_KM
+
+NEAR = 0.3
+T_LOW = np.linspace(0.0, 0.5, 9)
+T_HIGH = np.linspace(0.5, 0.97, 13)[1:]
+
+
+def transition_mass(family, theta):
+    """Mass [Msun], radius [km] and ln Lambda of the star centred just below the jump (the transition mass M_t)."""
+    b = family.build(theta)
+    sv, _ = integrate(b, np.arange(b.n_eos), b.h_t * (1.0 - 1e-9), StepSettings())
+    return sv["mass"] / MSUN_KM, np.stack([sv["radius"], np.log(sv["tidal_deformability"])], axis=-1)
+
+
+def t_masses(m_t, m_max):
+    m_lo = np.minimum(0.9, m_t - 0.1)
+    low = m_lo[:, None] + 2.0 * T_LOW[None, :] * (m_t - m_lo)[:, None]
+    high = m_max[:, None] - (m_max - m_t)[:, None] * (2.0 - 2.0 * T_HIGH[None, :]) ** 2
+    return np.concatenate([low, high], axis=1), m_lo
+
+
+def solve_radii(family, theta, masses, m_t, r_t, chunk=64):
+    """Exact radii [km] and ln Lambda at the t nodes, (n, k, 2).  The node t = 1/2 is the star at p_t itself; when M_t < 1 Msun the base
+    segment (never asked at the held-out masses >= 1 Msun) may lie below the branch's lightest star: its NaN nodes
+    are filled with R(M_t)."""
+    out = []
+    for s in range(0, len(theta), chunk):
+        seq = solve_sequences(family.build(theta[s : s + chunk]), n_stars=0, masses=masses[s : s + chunk])
+        out.append(np.stack([np.asarray(seq.at_mass.radius_km, float),
+                             np.log(np.asarray(seq.at_mass.tidal_deformability, float))], axis=-1))
+    R = np.concatenate(out)
+    nl = T_LOW.size
+    R[:, nl - 1] = r_t
+    low = R[:, :nl]
+    R[:, :nl] = np.where(np.isnan(low) & (m_t < 1.0)[:, None, None], r_t[:, None, :], low)
+    return R
+
+
+def main():
+    fam = get_family("piecewise-polytrope-transition")
+    data = read_training_data("/work/data/trans/train.h5")
+    g = read_grid("/work/data/trans/holdout.h5")
+    ok = g.status == 0
+    th = np.asarray(g.parameters, float)[ok]
+    far_t = ~(data.scalars["log10_central_pressure_at_mass_max"] - data.theta[:, 4] < NEAR)
+    far_h = ~(np.log10(g.scalars["central_pressure_at_mass_max_dyn_cm2"][ok]) - th[:, 4] < NEAR)
+    far_t &= data.scalars["mass_max_msun"] >= 1.0  # below-floor rows carry no stars at the held-out masses
+    tt, th = np.asarray(data.theta, float)[far_t], th[far_h]
+    mm_t, mm_h = data.scalars["mass_max_msun"][far_t], g.scalars["mass_max_msun"][ok][far_h]
+    t0 = time.perf_counter()
+    (mt_t, rt_t), (mt_h, _) = transition_mass(fam, tt), transition_mass(fam, th)
+    masses_t, _ = t_masses(mt_t, mm_t)
+    R_t = solve_radii(fam, tt, masses_t, mt_t, rt_t)
+    L_t, R_t = R_t[:, :, 1], R_t[:, :, 0]
+    keep = np.all(np.isfinite(R_t) & np.isfinite(L_t), axis=1)
+    print(f"far rows: training {len(tt)}, held-out {len(th)}; exact stars at the t nodes {time.perf_counter() - t0:.0f} s;"
+          f" training rows with a NaN node (dropped for the t nodes) {int((~keep).sum())}")
+    lo, hi = data.bounds[:, 0], data.bounds[:, 1]
+    xt, xh = (tt - lo) / (hi - lo), (th - lo) / (hi - lo)
+    masses = np.asarray(g.masses_msun, float)
+    R_exact = g.at_mass["radius_km"][ok][far_h]
+    sel = (masses[None, :] >= 1.0 - 1e-9) & (masses[None, :] <= mm_h[:, None] - 0.02) & np.isfinite(R_exact)
+    # (a) the grid's u nodes
+    Yu = np.concatenate([data.curves["radius_km"][far_t], mm_t[:, None]], axis=1)
+    fu = RBFInterpolator(xt, Yu, kernel="quintic", degree=2)(xh)
+    un = np.asarray(data.u_nodes, float)
+    Ru = np.full(sel.shape, np.nan)
+    for i in range(len(th)):
+        u = np.sqrt(np.clip(1.0 - masses / fu[i, -1], 0.0, None))
+        Ru[i] = np.where(masses <= fu[i, -1], CubicSpline(un, fu[i, :-1])(u), np.nan)
+    # (b) the t nodes with M_t at t = 1/2
+    Yt = np.concatenate([R_t, mt_t[:, None], mm_t[:, None]], axis=1)[keep]
+    ft = RBFInterpolator(xt[keep], Yt, kernel="quintic", degree=2)(xh)
+    nl = T_LOW.size
+    Rt = np.full(sel.shape, np.nan)
+    for i in range(len(th)):
+        m_t, m_max = ft[i, -2], ft[i, -1]
+        m_nodes, _ = t_masses(np.array([m_t]), np.array([m_max]))
+        low = CubicSpline(m_nodes[0, :nl], ft[i, :nl])
+        high_t = np.concatenate([[0.5], T_HIGH])
+        high = CubicSpline(high_t, np.concatenate([[ft[i, nl - 1]], ft[i, nl : nl + T_HIGH.size]]))
+        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max - masses) / (m_max - m_t), 0.0, None))
+        Rt[i] = np.where(masses <= m_t, low(masses), np.where(masses <= m_max, high(tq), np.nan))
+    # (c), (d): the library's spline (input warp and learned stretch) on the same two representations; the t nodes
+    # go in as every curve (the stretch then follows R alone) and M_t in a scalar's slot (research only)
+    import dataclasses
+
+    from tovforge.surrogate import train_on
+    from tovforge.surrogate import _runtime as rt
+
+    sub = lambda d, k: dataclasses.replace(  # noqa: E731
+        d, theta=d.theta[k], scalars={n: v[k] for n, v in d.scalars.items()}, curves={n: v[k] for n, v in d.curves.items()})
+    lib_u = train_on(sub(data, far_t), "spline")._model
+    yu = rt.outputs(np, lib_u, th)[0]
+    Rlu = rt.curve_at_mass(np, lib_u, yu, None, None, masses, "radius")[0]
+    dt = sub(data, far_t)
+    dt = dataclasses.replace(dt, u_nodes=np.linspace(0.0, 0.85, R_t.shape[1]),
+                             curves={"radius_km": R_t, "log_tidal_deformability": L_t, "log_moment_of_inertia": R_t},
+                             scalars={**dt.scalars, "max_sound_speed_sq": mt_t})
+    lib_t = train_on(sub(dt, keep), "spline")._model
+    yt = rt.outputs(np, lib_t, th)[0]
+    o = next(o for o in lib_t.outputs if o[2] == "star" and o[4] == "radius")
+    col = {q[1]: q[5] for q in lib_t.outputs}
+    Rlt = np.full(sel.shape, np.nan)
+    for i in range(len(th)):
+        nodes = yt[i, o[5] : o[6]]
+        m_t, m_max = yt[i, col["max_sound_speed_sq"]], yt[i, col["mass_max_msun"]]
+        m_nodes, _ = t_masses(np.array([m_t]), np.array([m_max]))
+        low = CubicSpline(m_nodes[0, :nl], nodes[:nl])
+        high = CubicSpline(np.concatenate([[0.5], T_HIGH]), np.concatenate([[nodes[nl - 1]], nodes[nl:]]))
+        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max - masses) / (m_max - m_t), 0.0, None))
+        Rlt[i] = np.where(masses <= m_t, low(masses), np.where(masses <= m_max, high(tq), np.nan))
+    L_exact = g.at_mass["tidal_deformability"][ok][far_h]
+    Llu = rt.curve_at_mass(np, lib_u, yu, None, None, masses, "tidal_deformability")[0]
+    ol = next(o for o in lib_t.outputs if o[2] == "star" and o[4] == "tidal_deformability")
+    Llt = np.full(sel.shape, np.nan)
+    for i in range(len(th)):
+        nodes = yt[i, ol[5] : ol[6]]
+        m_t, m_max = yt[i, col["max_sound_speed_sq"]], yt[i, col["mass_max_msun"]]
+        m_nodes, _ = t_masses(np.array([m_t]), np.array([m_max]))
+        low = CubicSpline(m_nodes[0, :nl], nodes[:nl])
+        high = CubicSpline(np.concatenate([[0.5], T_HIGH]), np.concatenate([[nodes[nl - 1]], nodes[nl:]]))
+        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max - masses) / (m_max - m_t), 0.0, None))
+        Llt[i] = np.exp(np.where(masses <= m_t, low(masses), np.where(masses <= m_max, high(tq), np.nan)))
+    for name, L in (("library spline on the grid's u nodes", Llu), ("library spline on t nodes", Llt)):
+        e = np.abs(L / L_exact - 1.0)[sel] * 100.0
+        p = np.nanpercentile(e, [50, 95, 99])
+        print(f"{name}: Lambda [%] p50/p95/p99/max {p[0]:.3g} / {p[1]:.3g} / {p[2]:.3g} / {np.nanmax(e):.3g}")
+    for name, y, m in (("u nodes", yu, lib_u), ("t nodes", yt, lib_t)):
+        e = np.abs(y[:, m.i_mass_max] - mm_h)
+        print(f"library spline on {name}: M_max [Msun] p50/p95/p99/max "
+              + " / ".join(f"{v:.2g}" for v in [*np.percentile(e, [50, 95, 99]), e.max()]))
+    # the whole held-out set with the exact side: the near side's library spline on the grid's u nodes (its
+    # training rows: near, status 0 or 2) beside the far side's on t nodes
+    near_rows = data.scalars["log10_central_pressure_at_mass_max"] - data.theta[:, 4] < NEAR
+    lib_n = train_on(sub(data, near_rows), "spline")._model
+    thn = np.asarray(g.parameters, float)[ok][~far_h]
+    yn = rt.outputs(np, lib_n, thn)[0]
+    mm_n = g.scalars["mass_max_msun"][ok][~far_h]
+    Rn, Ln = (rt.curve_at_mass(np, lib_n, yn, None, None, masses, q)[0] for q in ("radius", "tidal_deformability"))
+    Rn_x, Ln_x = g.at_mass["radius_km"][ok][~far_h], g.at_mass["tidal_deformability"][ok][~far_h]
+    seln = (masses[None, :] >= 1.0 - 1e-9) & (masses[None, :] <= mm_n[:, None] - 0.02) & np.isfinite(Rn_x)
+    eM = np.concatenate([np.abs(yn[:, lib_n.i_mass_max] - mm_n), np.abs(yt[:, lib_t.i_mass_max] - mm_h)])
+    eR = np.concatenate([np.abs(Rn - Rn_x)[seln], np.abs(Rlt - R_exact)[sel]]) * 1000.0
+    eL = np.concatenate([np.abs(Ln / Ln_x - 1.0)[seln], np.abs(Llt / L_exact - 1.0)[sel]]) * 100.0
+    f = lambda e, fmt: " / ".join(format(v, fmt) for v in [*np.nanpercentile(e, [50, 95, 99]), np.nanmax(e)])  # noqa: E731
+    print(f"all {len(eM)} held-out EOS ({eR.size} stars), exact side, near on u nodes + far on t nodes (library "
+          f"spline): M_max {f(eM, '.2g')} Msun; R {f(eR, '.3g')} m; Lambda {f(eL, '.3g')} %; NaN stars "
+          f"{int(np.isnan(eR).sum())}")
+    for name, R in (("RBF on the grid's u nodes", Ru), ("RBF on t nodes (M_t at t = 1/2)", Rt),
+                    ("library spline on the grid's u nodes", Rlu), ("library spline on t nodes", Rlt)):
+        e = np.abs(R - R_exact)[sel] * 1000.0
+        p = np.nanpercentile(e, [50, 95, 99])
+        print(f"{name}: R [m] p50/p95/p99/max {p[0]:.3g} / {p[1]:.3g} / {p[2]:.3g} / {np.nanmax(e):.3g} "
+              f"({int(np.isnan(e).sum())} NaN of {e.size})")
+    e_mt = np.abs(ft[:, -2] - mt_h)
+    print(f"emulated M_t: |error| p50/p95/max {np.percentile(e_mt, 50):.2g} / {np.percentile(e_mt, 95):.2g} / "
+          f"{e_mt.max():.2g} Msun")
+
+
+if __name__ == "__main__":
+    main()
