@@ -32,7 +32,7 @@ from tovforge.units import MSUN_KM
 
 NEAR = 0.3
 T_LOW = np.linspace(0.0, 0.5, 9)
-T_HIGH = np.linspace(0.5, 0.97, 13)[1:]
+T_HIGH = 0.5 + 0.47 * np.linspace(0.0, 1.0, 13)[1:]  # main() may set other nodes
 
 
 def transition_mass(family, theta):
@@ -67,6 +67,14 @@ def solve_radii(family, theta, masses, m_t, r_t, chunk=64):
 
 
 def main():
+    import argparse
+
+    global T_HIGH
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--high-nodes", type=int, default=12, help="nodes on the hybrid segment, t in (1/2, 0.97]")
+    ap.add_argument("--power", type=float, default=1.0, help="> 1 crowds them towards M_t")
+    a = ap.parse_args()
+    T_HIGH = 0.5 + 0.47 * np.linspace(0.0, 1.0, a.high_nodes + 1)[1:] ** a.power
     fam = get_family("piecewise-polytrope-transition")
     data = read_training_data("/work/data/trans/train.h5")
     g = read_grid("/work/data/trans/holdout.h5")
@@ -156,6 +164,14 @@ def main():
         e = np.abs(L / L_exact - 1.0)[sel] * 100.0
         p = np.nanpercentile(e, [50, 95, 99])
         print(f"{name}: Lambda [%] p50/p95/p99/max {p[0]:.3g} / {p[1]:.3g} / {p[2]:.3g} / {np.nanmax(e):.3g}")
+    eLt = np.abs(Llt / L_exact - 1.0) * 100.0
+    eRt = np.abs(Rlt - R_exact) * 1000.0
+    for label, dist in (("M - M_t", masses[None, :] - mt_h[:, None]), ("M_max - M", mm_h[:, None] - masses[None, :])):
+        for lo_, hi_ in ((-9.0, -0.1), (-0.1, 0.0), (0.0, 0.1), (0.1, 0.3), (0.3, 9.0)):
+            c = sel & (dist >= lo_) & (dist < hi_)
+            if c.any():
+                print(f"  t nodes, {label} in [{lo_:g}, {hi_:g}): {int(c.sum())} stars, p95 R {np.nanpercentile(eRt[c], 95):.3g}"
+                      f" m, Lambda {np.nanpercentile(eLt[c], 95):.3g} %")
     for name, y, m in (("u nodes", yu, lib_u), ("t nodes", yt, lib_t)):
         e = np.abs(y[:, m.i_mass_max] - mm_h)
         print(f"library spline on {name}: M_max [Msun] p50/p95/p99/max "
