@@ -126,8 +126,7 @@ def main():
     from tovforge.surrogate import train_on
     from tovforge.surrogate import _runtime as rt
 
-    sub = lambda d, k: dataclasses.replace(  # noqa: E731
-        d, theta=d.theta[k], scalars={n: v[k] for n, v in d.scalars.items()}, curves={n: v[k] for n, v in d.curves.items()})
+    from transition_sides import subset as sub
     lib_u = train_on(sub(data, far_t), "spline")._model
     yu = rt.outputs(np, lib_u, th)[0]
     Rlu = rt.curve_at_mass(np, lib_u, yu, None, None, masses, "radius")[0]

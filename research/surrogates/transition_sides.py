@@ -6,11 +6,13 @@ the central pressure of the base EOS's maximum-mass star (above it the transitio
 labels every EOS exactly from its parameters (the family's EOS gives ``e_t`` at ``p_t``; a base-family solve gives
 the base's central pressure at M_max), trains one library model per side (spline or local kind on the subset),
 picks by the side, and measures held-out p50/p95/p99/max of M_max [Msun], R(M) [m] and Lambda(M) [%] for
-1.0 <= M <= M_max(exact) - 0.02 (masses of the grid, as ``harness.py``) against one model on all points; also the
-side chosen by the sign of an emulated margin (an r^5 + quadratic RBF of the exact margin on the training points)
-against the exact side.
+1.0 <= M <= M_max(exact) - 0.02 (masses of the grid, as ``harness.py``) against one model on all points.  A second
+split, "near/far" (the solved first maximum within NEAR decades of p_t or not), is measured the same way, and for
+both the side chosen without solving: by the sign of an emulated margin (r^5 + quadratic RBFs of the exact Seidov
+margin, of a +-1 indicator, or of the scanned margin of ``transition_margin.py``) or a nearest-neighbour vote,
+with the errors outside a band of the smallest scores.  Results: research/surrogates/LOG.md.
 
-    python research/surrogates/transition_sides.py [--kinds spline local] [--train T.h5] [--holdout H.h5]
+    python research/surrogates/transition_sides.py [--kinds spline local] [--splits near/far "margin sign"]
 
 Data (not committed): /work/data/trans/train.h5 (specs/transition-train.toml) and holdout.h5
 (specs/transition-holdout.toml).  Results are appended to data/transition_sides.jsonl.
