@@ -19,6 +19,7 @@ the near side's own model on u nodes (the exact side).  Results in research/surr
 from __future__ import annotations
 
 import time
+from pathlib import Path
 
 import numpy as np
 from scipy.interpolate import CubicSpline, RBFInterpolator
@@ -30,6 +31,7 @@ from tovforge.solve._surface import integrate
 from tovforge.surrogate import read_training_data
 from tovforge.units import MSUN_KM
 
+HERE = Path(__file__).resolve().parent
 NEAR = 0.3
 T_LOW = np.linspace(0.0, 0.5, 9)
 T_HIGH = 0.5 + 0.47 * np.linspace(0.0, 1.0, 13)[1:]  # main() may set other nodes
@@ -47,6 +49,30 @@ def t_masses(m_t, m_max):
     low = m_lo[:, None] + 2.0 * T_LOW[None, :] * (m_t - m_lo)[:, None]
     high = m_max[:, None] - (m_max - m_t)[:, None] * (2.0 - 2.0 * T_HIGH[None, :]) ** 2
     return np.concatenate([low, high], axis=1), m_lo
+
+
+def at_t_masses(nodes, m_t, m_max, masses):
+    """Node values (n, k) at the t nodes to values at ``masses`` (q,): a cubic spline per segment, NaN above M_max."""
+    nl = T_LOW.size
+    out = np.full((len(nodes), masses.size), np.nan)
+    for i in range(len(nodes)):
+        m_nodes, _ = t_masses(np.array([m_t[i]]), np.array([m_max[i]]))
+        low = CubicSpline(m_nodes[0, :nl], nodes[i, :nl])
+        high = CubicSpline(np.concatenate([[0.5], T_HIGH]), np.concatenate([[nodes[i, nl - 1]], nodes[i, nl:]]))
+        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max[i] - masses) / (m_max[i] - m_t[i]), 0.0, None))
+        out[i] = np.where(masses <= m_t[i], low(masses), np.where(masses <= m_max[i], high(tq), np.nan))
+    return out
+
+
+def t_model_curves(m, y, masses):
+    """R [km] and Lambda at ``masses`` from a library model trained on t nodes (M_t in a scalar's slot)."""
+    col = {q[1]: q[5] for q in m.outputs}
+    m_t, m_max = y[:, col["max_sound_speed_sq"]], y[:, col["mass_max_msun"]]
+    out = []
+    for query in ("radius", "tidal_deformability"):
+        o = next(o for o in m.outputs if o[2] == "star" and o[4] == query)
+        out.append(at_t_masses(y[:, o[5] : o[6]], m_t, m_max, masses))
+    return out[0], np.exp(out[1])
 
 
 def solve_radii(family, theta, masses, m_t, r_t, chunk=64):
@@ -109,18 +135,9 @@ def main():
     # (b) the t nodes with M_t at t = 1/2
     Yt = np.concatenate([R_t, mt_t[:, None], mm_t[:, None]], axis=1)[keep]
     ft = RBFInterpolator(xt[keep], Yt, kernel="quintic", degree=2)(xh)
-    nl = T_LOW.size
-    Rt = np.full(sel.shape, np.nan)
-    for i in range(len(th)):
-        m_t, m_max = ft[i, -2], ft[i, -1]
-        m_nodes, _ = t_masses(np.array([m_t]), np.array([m_max]))
-        low = CubicSpline(m_nodes[0, :nl], ft[i, :nl])
-        high_t = np.concatenate([[0.5], T_HIGH])
-        high = CubicSpline(high_t, np.concatenate([[ft[i, nl - 1]], ft[i, nl : nl + T_HIGH.size]]))
-        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max - masses) / (m_max - m_t), 0.0, None))
-        Rt[i] = np.where(masses <= m_t, low(masses), np.where(masses <= m_max, high(tq), np.nan))
+    Rt = at_t_masses(ft[:, :-2], ft[:, -2], ft[:, -1], masses)
     # (c), (d): the library's spline (input warp and learned stretch) on the same two representations; the t nodes
-    # go in as every curve (the stretch then follows R alone) and M_t in a scalar's slot (research only)
+    # go in as the curves (R and ln Lambda; R again for I) and M_t in a scalar's slot (research only)
     import dataclasses
 
     from tovforge.surrogate import train_on
@@ -136,29 +153,9 @@ def main():
                              scalars={**dt.scalars, "max_sound_speed_sq": mt_t})
     lib_t = train_on(sub(dt, keep), "spline")._model
     yt = rt.outputs(np, lib_t, th)[0]
-    o = next(o for o in lib_t.outputs if o[2] == "star" and o[4] == "radius")
-    col = {q[1]: q[5] for q in lib_t.outputs}
-    Rlt = np.full(sel.shape, np.nan)
-    for i in range(len(th)):
-        nodes = yt[i, o[5] : o[6]]
-        m_t, m_max = yt[i, col["max_sound_speed_sq"]], yt[i, col["mass_max_msun"]]
-        m_nodes, _ = t_masses(np.array([m_t]), np.array([m_max]))
-        low = CubicSpline(m_nodes[0, :nl], nodes[:nl])
-        high = CubicSpline(np.concatenate([[0.5], T_HIGH]), np.concatenate([[nodes[nl - 1]], nodes[nl:]]))
-        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max - masses) / (m_max - m_t), 0.0, None))
-        Rlt[i] = np.where(masses <= m_t, low(masses), np.where(masses <= m_max, high(tq), np.nan))
+    Rlt, Llt = t_model_curves(lib_t, yt, masses)
     L_exact = g.at_mass["tidal_deformability"][ok][far_h]
     Llu = rt.curve_at_mass(np, lib_u, yu, None, None, masses, "tidal_deformability")[0]
-    ol = next(o for o in lib_t.outputs if o[2] == "star" and o[4] == "tidal_deformability")
-    Llt = np.full(sel.shape, np.nan)
-    for i in range(len(th)):
-        nodes = yt[i, ol[5] : ol[6]]
-        m_t, m_max = yt[i, col["max_sound_speed_sq"]], yt[i, col["mass_max_msun"]]
-        m_nodes, _ = t_masses(np.array([m_t]), np.array([m_max]))
-        low = CubicSpline(m_nodes[0, :nl], nodes[:nl])
-        high = CubicSpline(np.concatenate([[0.5], T_HIGH]), np.concatenate([[nodes[nl - 1]], nodes[nl:]]))
-        tq = 1.0 - 0.5 * np.sqrt(np.clip((m_max - masses) / (m_max - m_t), 0.0, None))
-        Llt[i] = np.exp(np.where(masses <= m_t, low(masses), np.where(masses <= m_max, high(tq), np.nan)))
     for name, L in (("library spline on the grid's u nodes", Llu), ("library spline on t nodes", Llt)):
         e = np.abs(L / L_exact - 1.0)[sel] * 100.0
         p = np.nanpercentile(e, [50, 95, 99])
@@ -175,23 +172,44 @@ def main():
         e = np.abs(y[:, m.i_mass_max] - mm_h)
         print(f"library spline on {name}: M_max [Msun] p50/p95/p99/max "
               + " / ".join(f"{v:.2g}" for v in [*np.percentile(e, [50, 95, 99]), e.max()]))
-    # the whole held-out set with the exact side: the near side's library spline on the grid's u nodes (its
-    # training rows: near, status 0 or 2) beside the far side's on t nodes
+    # the whole held-out set: the near side's library spline on the grid's u nodes (its training rows: near,
+    # status 0 or 2) beside the far side's on t nodes, picked by the exact side or by the emulated margins of
+    # transition_sides.py (sign of the Seidov margin, then of the scanned margin asinh(g / 10) on its s < 0 rows)
+    from transition_sides import exact_sides, fit_margin
+
     near_rows = data.scalars["log10_central_pressure_at_mass_max"] - data.theta[:, 4] < NEAR
     lib_n = train_on(sub(data, near_rows), "spline")._model
-    thn = np.asarray(g.parameters, float)[ok][~far_h]
-    yn = rt.outputs(np, lib_n, thn)[0]
-    mm_n = g.scalars["mass_max_msun"][ok][~far_h]
-    Rn, Ln = (rt.curve_at_mass(np, lib_n, yn, None, None, masses, q)[0] for q in ("radius", "tidal_deformability"))
-    Rn_x, Ln_x = g.at_mass["radius_km"][ok][~far_h], g.at_mass["tidal_deformability"][ok][~far_h]
-    seln = (masses[None, :] >= 1.0 - 1e-9) & (masses[None, :] <= mm_n[:, None] - 0.02) & np.isfinite(Rn_x)
-    eM = np.concatenate([np.abs(yn[:, lib_n.i_mass_max] - mm_n), np.abs(yt[:, lib_t.i_mass_max] - mm_h)])
-    eR = np.concatenate([np.abs(Rn - Rn_x)[seln], np.abs(Rlt - R_exact)[sel]]) * 1000.0
-    eL = np.concatenate([np.abs(Ln / Ln_x - 1.0)[seln], np.abs(Llt / L_exact - 1.0)[sel]]) * 100.0
+    tha = np.asarray(g.parameters, float)[ok]
+    mm_a = g.scalars["mass_max_msun"][ok]
+    R_x, L_x = g.at_mass["radius_km"][ok], g.at_mass["tidal_deformability"][ok]
+    sel_a = (masses[None, :] >= 1.0 - 1e-9) & (masses[None, :] <= mm_a[:, None] - 0.02) & np.isfinite(R_x)
+    yn, yf = rt.outputs(np, lib_n, tha)[0], rt.outputs(np, lib_t, tha)[0]
+    near_pred = {"M": yn[:, lib_n.i_mass_max], "R": rt.curve_at_mass(np, lib_n, yn, None, None, masses, "radius")[0],
+                 "L": rt.curve_at_mass(np, lib_n, yn, None, None, masses, "tidal_deformability")[0]}
+    Rf, Lf = t_model_curves(lib_t, yf, masses)
+    far_pred = {"M": yf[:, lib_t.i_mass_max], "R": Rf, "L": Lf}
+    sides_t, sides_h = exact_sides(data.family, np.asarray(data.theta, float)), exact_sides(data.family, tha)
+    xa = (tha - lo) / (hi - lo)
+    xall = (np.asarray(data.theta, float) - lo) / (hi - lo)
+    s_hat = fit_margin(xall, sides_t.margin, xa)
+    neg = sides_t.margin < 0
+    g_hat = fit_margin(xall[neg], np.arcsinh(np.load(HERE / "data" / "transition_margin.npz")["gt"][neg] / 10.0), xa)
+    e_s = np.abs(s_hat - sides_h.margin)
+    score = np.where(s_hat > 0, np.abs(s_hat) / (3.0 * np.percentile(e_s, 99)), np.abs(g_hat))
+    band = score < np.quantile(score, 0.10)
     f = lambda e, fmt: " / ".join(format(v, fmt) for v in [*np.nanpercentile(e, [50, 95, 99]), np.nanmax(e)])  # noqa: E731
-    print(f"all {len(eM)} held-out EOS ({eR.size} stars), exact side, near on u nodes + far on t nodes (library "
-          f"spline): M_max {f(eM, '.2g')} Msun; R {f(eR, '.3g')} m; Lambda {f(eL, '.3g')} %; NaN stars "
-          f"{int(np.isnan(eR).sum())}")
+    for name, pick in (("exact side", ~far_h), ("emulated side", (s_hat > 0) | (g_hat < 0))):
+        for rows_name, rows in (("all", np.ones(len(tha), bool)), ("outside the 10 % band", ~band)):
+            P = {k: np.where(pick[:, None] if near_pred[k].ndim == 2 else pick, near_pred[k], far_pred[k])
+                 for k in near_pred}
+            c = sel_a & rows[:, None]
+            eM = np.abs(P["M"] - mm_a)[rows]
+            eR = np.abs(P["R"] - R_x)[c] * 1000.0
+            eL = np.abs(P["L"] / L_x - 1.0)[c] * 100.0
+            print(f"{name}, {rows_name}: {int(rows.sum())} EOS ({c.sum()} stars; wrong side "
+                  f"{int((pick != ~far_h)[rows].sum())}), near on u nodes + far on t nodes (library spline): "
+                  f"M_max {f(eM, '.2g')} Msun; R {f(eR, '.3g')} m; Lambda {f(eL, '.3g')} %; NaN stars "
+                  f"{int(np.isnan(eR).sum())}")
     for name, R in (("RBF on the grid's u nodes", Ru), ("RBF on t nodes (M_t at t = 1/2)", Rt),
                     ("library spline on the grid's u nodes", Rlu), ("library spline on t nodes", Rlt)):
         e = np.abs(R - R_exact)[sel] * 1000.0
