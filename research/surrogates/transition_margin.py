@@ -94,6 +94,34 @@ def fine_dip(family_name: str, theta_row: np.ndarray) -> tuple[float, float, flo
     return float(m[k]), float(m[k] - m[k + int(up[0])]) if up.size else float("nan"), float(dh[k])
 
 
+def loo_rbf(x, y, x_query, k=12):
+    """r^5 + quadratic RBF of y at x_query, and the sigma of an error model on its leave-one-out residuals.
+
+    The residuals by Rippa's closed form (Rippa 1999, Adv. Comput. Math. 11, 193) on the saddle-point system; the
+    sigma at a query: the inverse-square-distance weighted root mean square of the k nearest training points'
+    residuals (weights 1 / (d_j + d_1)^2), as the library's error model, without its calibration factor.
+    """
+    from itertools import combinations_with_replacement
+
+    n, d = x.shape
+    terms = [()] + [(i,) for i in range(d)] + list(combinations_with_replacement(range(d), 2))
+    P = np.stack([np.prod(x[:, list(t)], axis=1) if t else np.ones(n) for t in terms], axis=1)
+    r = np.sqrt(((x[:, None, :] - x[None, :, :]) ** 2).sum(-1))
+    A = np.zeros((n + len(terms),) * 2)
+    A[:n, :n], A[:n, n:], A[n:, :n] = r**5, P, P.T
+    inv = np.linalg.inv(A)
+    sol = inv @ np.concatenate([y, np.zeros(len(terms))])
+    loo = sol[:n] / np.diag(inv)[:n]
+    rq = np.sqrt(((x_query[:, None, :] - x[None, :, :]) ** 2).sum(-1))
+    Pq = np.stack([np.prod(x_query[:, list(t)], axis=1) if t else np.ones(len(x_query)) for t in terms], axis=1)
+    f = rq**5 @ sol[:n] + Pq @ sol[n:]
+    nn = np.argsort(rq, axis=1)[:, :k]
+    dist = np.take_along_axis(rq, nn, axis=1)
+    w = 1.0 / (dist + dist[:, :1] + 1e-12) ** 2
+    sigma = np.sqrt((w * loo[nn] ** 2).sum(1) / w.sum(1))
+    return f, sigma, loo
+
+
 def main():
     from transition_sides import fit_margin, pct
 
@@ -142,6 +170,23 @@ def main():
         print(f"  |emulated| < {band}: {inside.mean():.1%} of held-out EOS inside, wrong side outside "
               f"{int((wrong & ~inside).sum())}")
     print(json.dumps({"G0": G0, "wrong": int(wrong.sum()), "err": pct(err)}))
+    # the two-stage side (sign of the emulated Seidov margin, then of asinh(g / 10) learned on the s < 0 rows)
+    # with a band from each margin's own leave-one-out error model: |margin| < k sigma
+    from transition_sides import exact_sides
+
+    s_t, s_h = exact_sides(data.family, tt).margin, exact_sides(data.family, th).margin
+    xt_, xh_ = (tt - lo) / (hi - lo), (th - lo) / (hi - lo)
+    s_hat, s_sig, _ = loo_rbf(xt_, s_t, xh_)
+    neg = s_t < 0
+    q_hat, q_sig, _ = loo_rbf(xt_[neg], np.arcsinh(gt[neg] / 10.0), xh_)
+    near = (s_hat > 0) | (q_hat < 0)
+    wrong = near != near_h
+    print(f"two stages, each margin with its LOO error model: wrong side {int(wrong.sum())} of {len(near)}; "
+          f"sigma of s p50 {np.median(s_sig):.2g}, of asinh(g / 10) p50 {np.median(q_sig):.2g}")
+    for k in (1.0, 2.0, 3.0):
+        unsure = (np.abs(s_hat) < k * s_sig) | ((s_hat <= 0) & (np.abs(q_hat) < k * q_sig))
+        print(f"  band |margin| < {k:g} sigma: {unsure.mean():.1%} of held-out EOS inside, wrong side outside "
+              f"{int((wrong & ~unsure).sum())}, wrong side inside {int((wrong & unsure).sum())}")
 
 
 if __name__ == "__main__":
