@@ -10,12 +10,14 @@ the side by an emulated margin.  Candidate measured here::
 
 (NEAR = 0.3 decades, the threshold of the near side; no solved first maximum lies between 0.05 and 0.5 decades
 above p_t in the training or held-out sets).  ``z = dh^(3/2)``: the mass of a star with a small core of
-the dense phase moves as the core's volume (Seidov 1971), so dM/dz stays finite at the transition; it is negative
-there above Seidov's limit (a cusp).  Below the limit g < 0 when M falls between a hump and a twin branch, and g > 0
+the dense phase moves as the core's volume, with a coefficient that changes sign at Seidov's limit (Seidov 1971;
+the power from memory: the core radius grows as dh^(1/2) near the centre), so dM/dz stays finite at the
+transition; it is negative there above Seidov's limit (a cusp).  Below the limit g < 0 when M falls between a hump and a twin branch, and g > 0
 when the branch rises through the whole window (far side); at the fold where the hump disappears and at
 Seidov's limit next to a far branch, g passes through zero continuously.  The script scans each EOS of the grids
-(stars at ``h_t + dh``, dh geometric from 1e-5 to 1 times the window), emulates ``asinh(g / G0)`` by an r^5 + quadratic RBF on the
-training rows and reports how often the emulated sign picks the wrong side of held-out EOS.
+(stars at ``h_t + dh``, dh geometric from 1e-5 to 1 times the window), emulates ``asinh(g / G0)`` by an
+r^5 + quadratic RBF on the training rows and reports how often the emulated sign picks the wrong side of held-out EOS; last, the two-stage
+side (Seidov margin, then g below the limit) with a band from each margin's leave-one-out error model.
 
     python research/surrogates/transition_margin.py
 """
