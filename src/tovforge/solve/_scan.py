@@ -45,13 +45,19 @@ __all__ = ["Scan", "scan", "first_maximum", "twin_branch", "turning_jumps", "JUM
 #: Relative offsets ``h_c = h_t (1 + offset)`` of the stars the scan adds at every
 #: jump of the energy density: one just below (so that a maximum at the jump
 #: means a rise into it), the star centred on the transition, and stars with a
-#: growing core of the dense phase.  Just above a jump ``M(h_c)`` can turn twice
-#: within a few per cent of ``h_t`` (a shallow maximum and minimum, or the dip
-#: after a cusp), which the regular spacing (about 15 % in ``h_c``) would miss.
+#: growing core of the dense phase, 24 geometrically spaced offsets from 1e-3 to
+#: 0.3 (28 % apart).  Just above a jump ``M(h_c)`` can turn twice within a few
+#: per cent of ``h_t`` (a shallow maximum and minimum, or the dip after a cusp),
+#: which the regular spacing (about 15 % in ``h_c``) would miss.  Measured on 512
+#: EOS of the piecewise-polytrope-transition default box: with the 4 offsets
+#: 1e-3, 3e-3, 1e-2, 3e-2 used before, 3 EOS had a maximum 0.6-6e-3 above h_t
+#: followed by a dip 1.4e-6 to 2.7e-5 Msun deep that fell between the stars, and
+#: the far maximum (1.6-1.7 Msun) was taken for the first (0.58-1.15 Msun); these
+#: offsets find all three, and no other M_max moved by more than 4e-8 Msun.
 #: Closer to ``h_t`` the masses differ by less than the integration error of stars
 #: with so small a core; a dip after a cusp narrower than 1e-3 h_t falls between
 #: them and is still found: Seidov's criterion, not the scan, decides the cusp.
-JUMP_OFFSETS = (-1e-3, 0.0, 1e-3, 3e-3, 1e-2, 3e-2)
+JUMP_OFFSETS = (-1e-3, 0.0) + tuple(float(v) for v in np.geomspace(1e-3, 0.3, 24))
 
 
 @dataclass(frozen=True)

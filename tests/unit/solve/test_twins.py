@@ -154,3 +154,32 @@ def test_no_twin_branch_without_a_second_rise(sly):
     res = solve.solve_sequences(sly.batch, n_stars=10)
     for name in ("twin_mass_max_msun", "twin_mass_min_msun", "twin_radius_at_mass_max_km"):
         assert np.isnan(res.value(name)).all(), name
+
+
+# Three EOS of the piecewise-polytrope-transition default box (from a Latin hypercube of our own) whose
+# first maximum lies 0.4-3 % above the transition enthalpy and is followed by a dip 1.4e-6 to 2.7e-5 Msun
+# deep, then a twin branch to 1.6-1.7 Msun: a scan with stars only at 0.1, 0.3, 1 and 3 % above h_t took
+# the far maximum for the first.
+_SHALLOW_HUMPS = [
+    dict(log_p1=34.29140, gamma1=3.10420, gamma2=2.32760, gamma3=3.35370, log_p_transition=34.87230,
+         jump_ratio=0.51340, cs2_above=0.83090),
+    dict(log_p1=34.52520, gamma1=2.32560, gamma2=1.88360, gamma3=3.47930, log_p_transition=34.78660,
+         jump_ratio=0.41230, cs2_above=0.48110),
+    dict(log_p1=34.39380, gamma1=2.51410, gamma2=2.24850, gamma3=1.95360, log_p_transition=34.30450,
+         jump_ratio=0.54080, cs2_above=0.34710),
+]
+
+
+@pytest.mark.parametrize("params", _SHALLOW_HUMPS)
+def test_a_shallow_hump_just_above_the_transition_is_the_first_maximum(params):
+    """The first maximum is the hump, against a fine direct scan of 400 stars from h_t to 1.3 h_t polished
+    by Brent's method; the far maximum is the twin branch's."""
+    E = eos.make("piecewise-polytrope-transition", **params)
+    seq = solve.solve_sequence(E)
+    h_t = float(E.batch.h_t[0])
+    h = np.geomspace(h_t * (1 + 1e-4), 1.3 * h_t, 400)
+    m = solve.solve_stars(E, h).mass_msun
+    first = int(np.flatnonzero(np.diff(m) < 0)[0])  # the scan's first turn down
+    ref, _ = _fine_extremum(E, h[max(first - 1, 0)], h[first + 1], +1, n=41)
+    assert seq.mass_max.mass_msun == pytest.approx(ref, rel=1e-8)
+    assert seq.twin is not None and seq.twin_mass_max_msun > seq.mass_max.mass_msun + 0.3
