@@ -381,7 +381,8 @@ def scaled_distances(xp, x, k):
 def matern_values(xp, q, grad):
     """Matern-5/2 rows k / amp2 from ``q = 5 r^2`` (in place); for gradients ``c = -(5/3)(1 + sqrt5 r) e^(-sqrt5 r)``.
     """
-    q = xp.abs(q)  # a rounding-level negative 5 r^2 (see scaled_distances) counts as its size, ~1e-16
+    # a rounding-level negative 5 r^2 (see scaled_distances) counts as its size, ~1e-16
+    q = xp.abs(q, out=q) if _is_numpy(xp) else xp.abs(q)
     msr = xp.sqrt(q)
     msr *= -1.0  # -sqrt(5) r
     e = xp.exp(msr)
