@@ -187,6 +187,7 @@ class SoundSpeed(EOSFamily):
             (0.0, 1.0),
             (0.02, 0.2) if i == 0 else (0.05, 0.95),
             (True, False),
+            log_offset=0.0,
         )
         for i, mu in enumerate((1000.0, 1100.0, 1300.0, 1600.0, 2000.0))
     )
