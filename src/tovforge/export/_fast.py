@@ -31,10 +31,10 @@ import math
 
 import numpy as np
 
-from ..surrogate._contract import (Curve, Estimate, QueryError, _require_inside, _require_on_branch, trusted_at_mass,
-                                   trusted_mass_max)
-from ..surrogate._runtime import (DERIVED, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights, _inverse_with,
-                                  error_model_std)
+from ..surrogate._contract import (_TRUST_OF, Curve, Estimate, QueryError, _require_inside, _require_on_branch,
+                                   trusted_at_mass, trusted_mass_max)
+from ..surrogate._runtime import (DERIVED, ERROR_NEIGHBOURS, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights,
+                                  _error_points, _inverse_with)
 
 # ---- the exported code starts below this line ----
 
@@ -61,6 +61,8 @@ class _Plan:
         self.tc = np.ascontiguousarray(m["trend_coef"][:, idx])
         self.tct = np.ascontiguousarray(self.tc.T)
         self.i_mmax = local.get(m.i_mass_max)
+        self.error_sq = None  # the error model's squared residuals of the plan's columns, made at first use
+        self.error_aug = None  # and its points as the augmented product reads them
         self.curves = {o[4]: (local[o[5]], local[o[5]] + o[6] - o[5], o[3])
                        for o in m.outputs if o[2] == "star" and o[4] and o[5] in local}
 
@@ -202,11 +204,43 @@ def _outputs_one(plan, t, grad, std):
         dy = (plan.scale[:, None] * dz) / np.array(_span_one(t))
     if std:
         sd = s[0] if s is not None else np.full(plan.width, _NAN)
-        err = error_model_std(_NUMPY, _GM, xr)  # the runtime's output_std: both sigmas in quadrature
-        if err is not None:
-            e = err[0, plan.idx]
+        e = _error_std_one(plan, xr)  # the runtime's output_std: both sigmas in quadrature
+        if e is not None:
             sd = e if s is None else np.sqrt(sd * sd + e * e)
     return y, dy, sd
+
+
+def _error_std_one(plan, xr):
+    """The error model's sigma (width,) of the plan's columns at one row ``xr`` (1, d), or None without one.
+
+    :func:`error_model_std` of the runtime on one row, reading only the plan's
+    columns of the squared scaled residuals (a contiguous copy made once):
+    the same neighbours and weights (the squared distances as one product),
+    the weighted sum as one dot product in the order of the selection: equal
+    to the runtime's to rounding.
+    """
+    if _GM.get("loo_residual") is None:
+        return None
+    e2 = plan.error_sq
+    if e2 is None:
+        E2 = _GM["loo_residual"] * _GM["error_scale"]
+        e2 = plan.error_sq = np.ascontiguousarray((E2 * E2)[:, plan.idx])
+    aug = plan.error_aug
+    if aug is None:
+        XT, X2 = _error_points(_NUMPY, _GM)
+        aug = plan.error_aug = np.concatenate([XT, X2, np.ones_like(X2)])
+    x = xr[0]
+    xa = np.empty(x.shape[0] + 2)
+    xa[:-2] = x
+    xa[:-2] *= -2.0
+    xa[-2] = 1.0
+    xa[-1] = np.dot(x, x)
+    q = np.dot(xa, aug)  # squared distances to every point, as one product (see polyharmonic_rows)
+    K = min(ERROR_NEIGHBOURS, q.shape[0])
+    nn = np.argpartition(q, K - 1)[:K] if K < q.shape[0] else np.arange(q.shape[0])
+    dist = np.sqrt(np.maximum(q[nn], 0.0))
+    w = 1.0 / (dist + dist.min() + 1e-12) ** 2  # in the order of the selection: the sum is the same to rounding
+    return np.sqrt(np.dot(w, e2[nn]) / np.sum(w))
 
 
 def _strict_inside(t):
@@ -305,6 +339,19 @@ def _curve_one(plan, query, y, dy, sd, masses, grad, std):
     return val[0], (g[0] if grad else None), (s[0] if std else None)
 
 
+def _trusted_one(query, value, std, mass, mmax, std_mmax):
+    """The contract's ``trusted_at_mass`` for one value on floats (NaN compares false there as here)."""
+    lim = _M.trust_limits
+    key, relative = _TRUST_OF[query]
+    if relative:  # NumPy's std / 0 is inf or NaN: never trusted
+        spread = abs(std / value) if value != 0.0 else _NAN
+    else:
+        spread = std
+    margin = lim["mass_margin_sigmas"] * std_mmax
+    margin = margin if margin > lim["mass_margin_msun"] else lim["mass_margin_msun"]
+    return value == value and spread <= lim[key] and mass <= mmax - margin
+
+
 def _row(a):
     """``a`` as the one row of a batch (None stays None)."""
     return None if a is None else a[None]
@@ -336,8 +383,12 @@ def _fast_at_mass(query, t, lead, mass, grad, std, strict):
     ok = None
     if std:
         im = plan.i_mmax
-        ok = trusted_at_mass(_NUMPY, _M, query, val[None, :], s[None, :], masses[None, :], y[im:im + 1][:, None],
-                             sd[im:im + 1][:, None]).reshape(shape)
+        if masses.shape[0] == 1:
+            ok = np.array(_trusted_one(query, float(val[0]), float(s[0]), float(masses[0]), float(y[im]),
+                                       float(sd[im]))).reshape(shape)
+        else:
+            ok = trusted_at_mass(_NUMPY, _M, query, val[None, :], s[None, :], masses[None, :], y[im:im + 1][:, None],
+                                 sd[im:im + 1][:, None]).reshape(shape)
     return Estimate(value=val.reshape(shape), grad=g.reshape(shape + (_D,)) if grad else None,
                     std=s.reshape(shape) if std else None, trusted=ok)
 

@@ -233,6 +233,7 @@ def _loo_sigma_scale(x, sub, loo, length, amp2, noise):
     resid = loo[sub]
     m = {"X": x, "length": length[None, :], "amp2": np.array([amp2]), "noise": np.array([noise]),
          "group_bounds": np.array([0, loo.shape[1]]), "resid_scale": np.ones(loo.shape[1]),
+         "gp_neighbours": np.array(rt.GP_NEIGHBOURS),
          "out_scale": np.ones(loo.shape[1])}
     sd = rt.gp_local_std(np, m, x[sub], skip_nearest=1)
     return np.median(np.abs(resid / sd), axis=0) / 0.6745
@@ -311,7 +312,8 @@ def _fit_prepared(p: Prepared, settings: GPSettings) -> FitResult:
     arrays = dict(p.arrays)
     # the trend and the GP act on standardised outputs; the residual was scaled by rscale
     arrays.update(trend_powers=powers, trend_coef=coef, X=x, alpha=alpha * rscale, group_bounds=bounds,
-                  group_kernel=group_kernel, length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale)
+                  group_kernel=group_kernel, length=length, amp2=amp2, noise=noise, resid_scale=rscale * sigma_scale,
+                  gp_neighbours=np.array(rt.GP_NEIGHBOURS))
     # residuals of R (scaled by rscale) -> standardised outputs -> output units
     em_arrays, em_summary = calibrate_error_model(arrays, loo * rscale * arrays["out_scale"])
     arrays.update(em_arrays)

@@ -17,8 +17,8 @@ from __future__ import annotations
 import numpy as np
 
 from ._codegen import Template, distinct_plans, literal
-from ._runtime import (PAIRS_PER_CHUNK, kernel_stack, local_sd, matern_gradients, matern_values, nearest,
-                       scaled_distances)
+from ._runtime import (PAIRS_PER_CHUNK, gp_neighbours, kernel_stack, local_sd, matern_gradients, matern_values,
+                       nearest, scaled_distances)
 
 _GP_N = 0  # training points of the model (a literal of the generated code)
 
@@ -145,7 +145,7 @@ def emit(arrays, plans) -> list[str]:
     """The lines of ``_method_parts(m)`` for a GP model and the plans (name -> group indices)."""
     bounds = _bounds(arrays)
     kernel_of = _kernel_of(arrays)
-    near = min(48, int(arrays["X"].shape[0]))  # the runtime's n_neighbours
+    near = min(gp_neighbours(arrays), int(arrays["X"].shape[0]))  # the runtime's n_neighbours
     lines = [
         f"_GP_N = {int(arrays['X'].shape[0])}",
         "",

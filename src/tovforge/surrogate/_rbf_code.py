@@ -27,18 +27,18 @@ _NUMPY = np  # in an exported file: NumPy, or its stand-in under NumPy 1 (the ru
 _RBF_LAST = (None, None)
 
 
-def _rbf_sums(x, grad, XT, X2, blocks, width):
+def _rbf_sums(x, grad, XT, X2, blocks, width, aug):
     """r^5 kernel sums of the blocks ``((weights (N, o), first column), ...)`` at rows x: z (n, width), dz."""
     global _RBF_LAST
     n, d = x.shape
     if n == 1 and not grad:
         key, phi = _RBF_LAST  # one read: another thread may replace it meanwhile
         if key != x.tobytes():
-            phi = polyharmonic_rows(_NUMPY, x, XT, X2, False)[0]
+            phi = polyharmonic_rows(_NUMPY, x, XT, X2, False, aug)[0]
             _RBF_LAST = (x.tobytes(), phi)
         dphi = None
     else:
-        phi, dphi = polyharmonic_rows(_NUMPY, x, XT, X2, grad)
+        phi, dphi = polyharmonic_rows(_NUMPY, x, XT, X2, grad, aug)
     z = np.empty((n, width))
     dz = np.empty((n, width, d)) if grad else None
     for W, at in blocks:
@@ -50,12 +50,12 @@ def _rbf_sums(x, grad, XT, X2, blocks, width):
     return z, dz
 
 
-def _rbf_part(x, grad, XT, X2, blocks, width):
+def _rbf_part(x, grad, XT, X2, blocks, width, aug):
     """``(z, dz)`` of the blocks at rows x, in the runtime's chunks of rows (its products, its bits)."""
     step = max(1, PAIRS_PER_CHUNK // XT.shape[1])
     if x.shape[0] <= step:
-        return _rbf_sums(x, grad, XT, X2, blocks, width)
-    pieces = [_rbf_sums(x[i:i + step], grad, XT, X2, blocks, width) for i in range(0, x.shape[0], step)]
+        return _rbf_sums(x, grad, XT, X2, blocks, width, aug)
+    pieces = [_rbf_sums(x[i:i + step], grad, XT, X2, blocks, width, aug) for i in range(0, x.shape[0], step)]
     return (np.concatenate([p[0] for p in pieces]),
             np.concatenate([p[1] for p in pieces]) if grad else None)
 
@@ -75,6 +75,7 @@ def emit(arrays, plans) -> list[str]:
         "def _method_parts(m):",
         '    """r^5 kernel sums of this RBF model for each plan (generated: output blocks resolved)."""',
         "    XT, X2 = rbf_points(_NUMPY, m)",
+        "    A = rbf_augmented(_NUMPY, m)",
         "    alpha = m['alpha']",
         "    W = [" + ", ".join(f"np.ascontiguousarray(alpha[:, {a}:{b}])" for a, b in bounds) + "]",
         "    parts = {}",
@@ -92,7 +93,7 @@ def emit(arrays, plans) -> list[str]:
         lines += [
             f"    # plan {name}: columns {', '.join(f'{bounds[g][0]}:{bounds[g][1]}' for g in blocks)}",
             f"    b{v} = ({', '.join(items)},)",
-            f"    parts[{name!r}] = (lambda x, grad, b=b{v}: _rbf_part(x, grad, XT, X2, b, {at}), None, None)",
+            f"    parts[{name!r}] = (lambda x, grad, b=b{v}: _rbf_part(x, grad, XT, X2, b, {at}, A), None, None)",
         ]
     lines.append("    return parts")
     return lines

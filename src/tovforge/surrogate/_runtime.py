@@ -75,7 +75,7 @@ LN10 = math.log(10.0)
 MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 nominal)
 #: Kernel models evaluate at most this many (query, training point) pairs at a
 #: time: the temporaries then stay in cache and memory stays bounded for any batch.
-PAIRS_PER_CHUNK = 1 << 15
+PAIRS_PER_CHUNK = 1 << 16
 #: The output every model has: the maximum mass (queries at a mass go through it).
 MASS_MAX = "mass_max_msun"
 
@@ -338,9 +338,12 @@ def kernel_stack(xp, m, kernels):
         amp2 = xp.take(m["amp2"], pick, axis=0)
         noise = xp.take(m["noise"], pick, axis=0)
         XT = xp.permute_dims(m["X"], (1, 0))
+        b2 = xp.sum(b * b, axis=-1)[:, None, :]
+        aug = None
         if _is_numpy(xp):
             bT, XT = xp.ascontiguousarray(bT), xp.ascontiguousarray(XT)
-        return {"s": s, "bT": bT, "b2": xp.sum(b * b, axis=-1)[:, None, :], "inv2": inv * inv,
+            aug = xp.concat([bT, b2, xp.ones_like(b2)], axis=1)  # (G, d + 2, N), see scaled_distances
+        return {"s": s, "bT": bT, "b2": b2, "aug": aug, "inv2": inv * inv,
                 "w": 1.0 / (length * length), "XT": XT,
                 "invT": xp.reshape(xp.permute_dims(inv, (1, 0)), (inv.shape[1], inv.shape[0], 1, 1)),
                 "amp2": xp.reshape(amp2, (-1, 1, 1)), "jitter": xp.reshape(noise + 1e-10 * amp2, (-1, 1, 1, 1))}
@@ -360,6 +363,15 @@ def scaled_distances(xp, x, k):
     exact and saves a pass over q.
     """
     a = x[None, :, :] * k["s"][:, None, :]  # (G, n, d)
+    if _is_numpy(xp):
+        # one product of [-2 a, 1, |a|^2] by [b^T; |b|^2; 1]: two passes less over the (G, n, N) rows
+        G, n, d = a.shape
+        xa = xp.empty((G, n, d + 2), dtype=a.dtype)
+        xa[..., :d] = a
+        xa[..., :d] *= -2.0
+        xa[..., d] = 1.0
+        xa[..., d + 1] = xp.sum(a * a, axis=-1)
+        return xp.matmul(xa, k["aug"])
     q = xp.matmul(a * -2.0, k["bT"])
     q += xp.sum(a * a, axis=-1)[:, :, None]
     q += k["b2"]
@@ -369,7 +381,7 @@ def scaled_distances(xp, x, k):
 def matern_values(xp, q, grad):
     """Matern-5/2 rows k / amp2 from ``q = 5 r^2`` (in place); for gradients ``c = -(5/3)(1 + sqrt5 r) e^(-sqrt5 r)``.
     """
-    q = xp.where(q > 0.0, q, 0.0)
+    q = xp.abs(q)  # a rounding-level negative 5 r^2 (see scaled_distances) counts as its size, ~1e-16
     msr = xp.sqrt(q)
     msr *= -1.0  # -sqrt(5) r
     e = xp.exp(msr)
@@ -420,12 +432,30 @@ def rbf_points(xp, m):
     return _points_of(xp, m, "X")
 
 
-def polyharmonic_rows(xp, x, XT, X2, grad):
+def polyharmonic_rows(xp, x, XT, X2, grad, aug=None):
     """r^5 rows (n, N) at rows x from the training points ``XT`` (d, N) and ``X2`` (1, N); with ``grad`` d(r^5)/dx_i.
 
     r^2 = |x|^2 + |X|^2 - 2 x.X by one matrix product (see
     :func:`scaled_distances`; r^5 is flat where the cancellation bites).
+    ``aug`` (d + 2, N), from :func:`rbf_augmented`: the same sum as one
+    product of ``[-2 x, 1, |x|^2]`` by ``[X^T; |X|^2; 1]`` (NumPy, without
+    gradients: two passes less over the (n, N) rows, which set the cost of a
+    batch); the root is then taken of ``|r^2|``, a rounding-level negative r^2
+    giving r^5 ~ 1e-40 instead of 0 (one pass instead of a clip at zero).
     """
+    if aug is not None and not grad and _is_numpy(xp):
+        n, d = x.shape
+        xa = xp.empty((n, d + 2), dtype=x.dtype)
+        xa[:, :d] = x
+        xa[:, :d] *= -2.0
+        xa[:, d] = 1.0
+        xa[:, d + 1] = xp.sum(x * x, axis=-1)
+        q = xp.matmul(xa, aug)
+        r = xp.abs(q)
+        xp.sqrt(r, out=r)
+        q *= q
+        q *= r
+        return q, None
     q = xp.matmul(x * -2.0, XT)
     q += xp.sum(x * x, axis=-1)[:, None]
     q += X2
@@ -438,6 +468,15 @@ def polyharmonic_rows(xp, x, XT, X2, grad):
         c = 5.0 * q * r
         dphi = [c * (x[:, i : i + 1] - XT[i]) for i in range(x.shape[1])]
     return phi, dphi
+
+
+def rbf_augmented(xp, m):
+    """``[X^T; |X|^2; 1]`` (d + 2, N) of the training points (C-ordered) for :func:`polyharmonic_rows`; cached."""
+    def make():
+        XT, X2 = rbf_points(xp, m)
+        return xp.concat([XT, X2, xp.ones_like(X2)], axis=0)
+
+    return _cached(xp, m, "points:augmented", None, make)
 
 
 def _polyharmonic(xp, x, X, grad):
@@ -638,13 +677,16 @@ def _rbf_part(xp, m, x, grad, columns):
 
 
 def _rbf_blocks(m, columns):
-    """Fixed output blocks of an RBF model (the scalars, then each curve) that ``columns`` touch.
+    """Fixed output blocks of an RBF model (each scalar, then each curve) that ``columns`` touch.
 
     A query evaluates whole blocks, each by its own product, so that its bits
-    equal those of a full evaluation (which evaluates every block).
+    equal those of a full evaluation (which evaluates every block).  Each
+    scalar is its own block: a query at a mass reads M_max beside its curve,
+    and one column's product costs a fifth of the scalars' (measured, 16 rows
+    by 4,093 points on one core: 0.42 against 2.2 us per row for 3 columns).
     """
     cs = m["curve_slices"]
-    blocks = [(0, int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
+    blocks = [(i, i + 1) for i in range(int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
     if columns is None:
         return blocks
     return [(a, b) for a, b in blocks if _touches(a, b, columns)]
@@ -652,7 +694,8 @@ def _rbf_blocks(m, columns):
 
 def _rbf_rows(xp, x, m, grad, spans):
     """RBF kernel sums phi @ alpha at rows x (and their x-derivatives), for the output ranges ``spans`` only."""
-    phi, dphi = polyharmonic_rows(xp, x, *rbf_points(xp, m), grad)
+    phi, dphi = polyharmonic_rows(xp, x, *rbf_points(xp, m), grad,
+                                  rbf_augmented(xp, m) if _is_numpy(xp) else None)
     alpha = m["alpha"]
     n_out = alpha.shape[1]
     n, d = phi.shape[0], len(dphi) if dphi is not None else 0
@@ -711,7 +754,22 @@ def standardised_outputs(xp, m, x, grad=False, columns=None):
     return z, dz
 
 
-def gp_local_std(xp, m, x, n_neighbours=48, columns=None, skip_nearest=0):
+#: Training points the sigma of a GP conditions on (:func:`gp_local_std`), for models that record none
+#: (``gp_neighbours``): those trained before it was recorded used 48.
+GP_NEIGHBOURS_BEFORE = 48
+#: ... and for new models: 32.  The sigma's scale is calibrated at training with the same number (the
+#: median of |LOO residual| / sigma), so the calibrated sigma hardly moves (demo GP: see DEVELOPERS.md),
+#: while one theta's sigma costs about half (the (K, K) Matern matrix and its factorisation).
+GP_NEIGHBOURS = 32
+
+
+def gp_neighbours(m) -> int:
+    """The number of nearest training points the GP sigma of model ``m`` conditions on."""
+    k = m.get("gp_neighbours")
+    return GP_NEIGHBOURS_BEFORE if k is None else int(k)
+
+
+def gp_local_std(xp, m, x, n_neighbours=None, columns=None, skip_nearest=0):
     """Predictive standard deviation of the GP part, in output units (n, n_out).
 
     The exact posterior variance needs the n-by-n kernel inverse, too large to
@@ -723,7 +781,8 @@ def gp_local_std(xp, m, x, n_neighbours=48, columns=None, skip_nearest=0):
     (their outputs are NaN).  ``skip_nearest``: leave out that many nearest
     points (1 at a training point: its leave-one-out sigma, for calibration).
     """
-    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, n_neighbours, columns, skip_nearest)[0]
+    k = gp_neighbours(m) if n_neighbours is None else n_neighbours
+    return _chunked(xp, _gp_local_std_rows, x, m["X"].shape[0], m, k, columns, skip_nearest)[0]
 
 
 def nearest(xp, q, K):
@@ -737,34 +796,54 @@ def local_sd(xp, x, X, nn, k, skip=0):
     """The standard deviation of a GP on the training points ``nn`` (G, n, K + skip) at rows x, (G, n).
 
     For each kernel of ``k`` (:func:`kernel_stack`) and row of x (n, d): the
-    chosen points' squared distances in the kernel's metric (summed over the
-    parameters in order) put them nearest first; the ``skip`` nearest are
-    left out (1 at a training point: its leave-one-out sigma); the posterior
-    variance of a GP with the kernel on the K others (its Matern-5/2 matrix
-    with the nugget and a 1e-10 jitter, one solve), clipped at zero.  In the
-    kernel's units (its amplitude included).
+    ``skip`` points nearest in the kernel's metric are left out (1 at a
+    training point: its leave-one-out sigma); the posterior variance of a GP
+    with the kernel on the K others (its Matern-5/2 matrix with the nugget
+    and a 1e-10 jitter), clipped at zero.  In the kernel's units (its
+    amplitude included).
+
+    The variance is the Schur complement ``k(x, x) - k_x^T K^-1 k_x``: the
+    square of the last diagonal element of the Cholesky factor of the
+    kernel matrix of the K points and the query, the query last (Rasmussen &
+    Williams 2006, GPML, Eq. 2.26 and Appendix A.3): one factorisation and
+    no solve.  The jitter sits on the whole diagonal, the query's included,
+    and is taken off afterwards.  Squared distances (5 r^2) come from one
+    matrix product of the points scaled by sqrt5 / l, as in
+    :func:`scaled_distances` (the cancellation costs ~1e-16 where the kernel
+    is flat).  Should rounding leave the matrix not positive definite, the
+    variance is solved for directly.
     """
     G, n, Kt = nn.shape
     d = x.shape[1]
-    Xn = xp.reshape(xp.take(X, xp.reshape(nn, (-1,)), axis=0), (G, n, Kt, d))
-    s = x[None, :, None, :] - Xn
-    d2 = xp.sum((s * s) * k["w"][:, None, None, :], axis=-1)  # a short axis: summed in order
-    nn = xp.take_along_axis(nn, xp.argsort(d2, axis=-1), axis=-1)[..., skip:]
-    d2 = xp.sort(d2, axis=-1)[..., skip:]
+    s = k["s"]  # (G, d): sqrt5 / l
+    B = xp.reshape(xp.take(X, xp.reshape(nn, (-1,)), axis=0), (G, n, Kt, d)) * s[:, None, None, :]
+    a = (x[None, :, :] * s[:, None, :])[:, :, None, :]  # (G, n, 1, d)
+    if skip:  # the nearest first, the skipped ones off
+        diff = B - a
+        order = xp.argsort(xp.sum(diff * diff, axis=-1), axis=-1)[..., skip:]
+        B = xp.take_along_axis(B, order[..., None], axis=-2)
     K = Kt - skip
-    # the chosen points scaled by 1 / l, parameters first (d, G, n, K); their squared distances
-    # summed over the leading axis, parameter by parameter
-    XsT = xp.reshape(xp.take(k["XT"], xp.reshape(nn, (-1,)), axis=1), (d, G, n, K)) * k["invT"]
-    s = XsT[:, :, :, :, None] - XsT[:, :, :, None, :]
-    r2 = xp.sum(s * s, axis=0)
-    amp2 = k["amp2"]  # (G, 1, 1)
-    t = SQRT5 * xp.sqrt(r2)
-    Kmat = (amp2[..., None] * (1.0 + t + (5.0 / 3.0) * r2)) * xp.exp(-t)
-    Kmat = Kmat + k["jitter"] * xp.eye(K, dtype=x.dtype)
-    t = SQRT5 * xp.sqrt(d2)
-    kv = (amp2 * (1.0 + t + (5.0 / 3.0) * d2)) * xp.exp(-t)
-    sol = xp.linalg.solve(Kmat, kv[..., None])[..., 0]
-    var = amp2[..., 0] - xp.sum(kv * sol, axis=-1)
+    P = xp.concat([B, a], axis=-2)  # (G, n, K + 1, d): the query last
+    p2 = xp.sum(P * P, axis=-1)
+    Q = xp.matmul(P * -2.0, xp.permute_dims(P, (0, 1, 3, 2)))
+    Q += p2[..., :, None]
+    Q += p2[..., None, :]
+    amp2 = k["amp2"][..., None]  # (G, 1, 1, 1)
+    jit = k["jitter"]  # (G, 1, 1, 1)
+    C = amp2 * matern_values(xp, Q, False)[0] + jit * xp.eye(K + 1, dtype=x.dtype)
+    var = None
+    if hasattr(xp.linalg, "cholesky"):
+        try:
+            L = xp.linalg.cholesky(C)
+        except Exception:  # noqa: BLE001 -- NumPy, torch and others name the failure differently
+            L = None
+        if L is not None:
+            last = L[..., K, K]
+            if bool(xp.all(last == last)):  # some libraries return NaN instead of raising
+                var = last * last - jit[..., 0, 0]
+    if var is None:
+        kv = C[..., :K, K]
+        var = amp2[..., 0, 0] - xp.sum(kv * xp.linalg.solve(C[..., :K, :K], kv[..., None])[..., 0], axis=-1)
     var = xp.where(var > 0.0, var, 0.0)
     return xp.sqrt(var)
 

@@ -284,3 +284,68 @@ def test_spline_stretch_follows_the_length_scales_and_falls_back_when_degenerate
     with pytest.warns(UserWarning, match="input stretch came out degenerate"):
         flat = train_on(noise, "spline", SplineSettings(warp_inputs=False))
     np.testing.assert_array_equal(flat.arrays["input_scale"], 1.0)
+
+
+def _posterior_sd_by_solve(x, P, length, amp2, noise):
+    """The posterior sd of a Matern-5/2 GP on the points P at x, written out from the textbook formula
+    (Rasmussen & Williams 2006, GPML Eq. 2.26) with a linear solve: the reference of local_sd."""
+    def k(a, b):
+        r = np.sqrt(np.sum(((a[:, None, :] - b[None, :, :]) / length) ** 2, axis=-1))
+        return amp2 * (1.0 + np.sqrt(5.0) * r + 5.0 / 3.0 * r * r) * np.exp(-np.sqrt(5.0) * r)
+
+    K = k(P, P) + (noise + 1e-10 * amp2) * np.eye(len(P))
+    kv = k(x[None, :], P)[0]
+    return np.sqrt(max(amp2 - kv @ np.linalg.solve(K, kv), 0.0))
+
+
+@pytest.mark.parametrize("skip", [0, 1])
+def test_local_sd_equals_the_posterior_variance_by_a_solve(skip, monkeypatch):
+    """local_sd takes the variance as the last pivot of a Cholesky factorisation of the joint matrix (and
+    falls back to a solve if that fails): both equal the textbook posterior variance on the same points."""
+    rng = np.random.default_rng(3)
+    X = rng.random((200, 3))
+    length, amp2, noise = np.array([[0.3, 0.5, 0.8]]), np.array([1.7]), np.array([1e-6])
+    k = {"s": np.sqrt(5.0) / length, "amp2": amp2.reshape(-1, 1, 1),
+         "jitter": (noise + 1e-10 * amp2).reshape(-1, 1, 1, 1)}
+    x = np.vstack([rng.random((4, 3)), X[:2]])
+    K = 24
+    d2 = np.sum(((x[:, None, :] - X[None, :, :]) / length[0]) ** 2, axis=-1)
+    nn = np.argsort(d2, axis=-1)[:, :K + skip][None]
+    got = rt.local_sd(np, x, X, nn, k, skip)[0]
+    want = [_posterior_sd_by_solve(x[i], X[nn[0, i, skip:]], length[0], amp2[0], noise[0]) for i in range(len(x))]
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-7)
+
+    def fail(a):
+        raise np.linalg.LinAlgError("not positive definite")
+
+    monkeypatch.setattr(np.linalg, "cholesky", fail)
+    np.testing.assert_allclose(rt.local_sd(np, x, X, nn, k, skip)[0], want, rtol=1e-6, atol=1e-7)
+
+
+def test_gp_records_its_sigma_neighbours_and_older_models_keep_theirs():
+    """A new GP records how many neighbours its sigma conditions on (its scale was calibrated with that
+    number); a model without the record (trained before) keeps the 48 it was calibrated with."""
+    model = train_on(synthetic(96), "gp", GPSettings(n_subset=64, n_restarts=0, curve_groups=1, n_jobs=1))
+    m = model.arrays
+    assert rt.gp_neighbours(m) == rt.GP_NEIGHBOURS == int(m["gp_neighbours"])
+    older = {key: v for key, v in m.items() if key != "gp_neighbours"}
+    assert rt.gp_neighbours(older) == rt.GP_NEIGHBOURS_BEFORE == 48
+    x = np.random.default_rng(1).random((5, m["X"].shape[1]))
+    assert not np.allclose(rt.gp_local_std(np, m, x), rt.gp_local_std(np, older, x))
+    np.testing.assert_array_equal(rt.gp_local_std(np, older, x), rt.gp_local_std(np, m, x, n_neighbours=48))
+
+
+def test_polyharmonic_rows_by_one_product_equal_the_difference_form():
+    """r^5 rows from the augmented product [-2x, 1, |x|^2] [X^T; |X|^2; 1] (NumPy's fast path) equal r^5 from
+    the explicit differences, also at a query on top of a training point (r^5 = 0 there, to rounding)."""
+    rng = np.random.default_rng(5)
+    X = rng.random((300, 4))
+    x = np.vstack([rng.random((7, 4)), X[10:11]])
+    XT, X2 = np.ascontiguousarray(X.T), np.sum(X * X, axis=-1)[None, :]
+    aug = np.concatenate([XT, X2, np.ones_like(X2)])
+    fast = rt.polyharmonic_rows(np, x, XT, X2, False, aug)[0]
+    slow = rt.polyharmonic_rows(np, x, XT, X2, False)[0]
+    exact = np.sum((x[:, None, :] - X[None, :, :]) ** 2, axis=-1) ** 2.5
+    np.testing.assert_allclose(fast, exact, rtol=1e-12, atol=1e-30)
+    np.testing.assert_allclose(slow, exact, rtol=1e-12, atol=1e-30)
+    assert abs(fast[-1, 10]) < 1e-35
