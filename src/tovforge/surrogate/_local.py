@@ -71,7 +71,6 @@ __all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches",
 logger = logging.getLogger(__name__)
 
 
-
 @dataclass(frozen=True)
 class LocalSettings(Record):
     """Options of the local (partition-of-unity) polyharmonic spline.
