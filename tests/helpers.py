@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+import importlib.util
+import sys
+from pathlib import Path
+
 import numpy as np
 from tovforge import eos
 
@@ -49,3 +53,16 @@ def assert_matches_baseline(E, h_c, rel: dict) -> None:
         ref = baseline_star(E, float(h), rtol=1e-12, atol=1e-16)
         for name, tol in rel.items():
             assert getattr(ours, name)[k] == pytest.approx(getattr(ref, name), rel=tol), (name, h)
+
+
+def import_file(path: Path, name: str | None = None):
+    """Import a generated evaluator from its path under a fresh module name."""
+    name = name or f"exported_{Path(path).stem}_{abs(hash(str(path)))}"
+    spec = importlib.util.spec_from_file_location(name, path)
+    mod = importlib.util.module_from_spec(spec)
+    sys.modules[name] = mod
+    try:
+        spec.loader.exec_module(mod)
+    finally:
+        sys.modules.pop(name, None)
+    return mod

@@ -33,7 +33,7 @@ BOXES = {
 def load_train(box: str, n: int):
     """TrainingData from the first ``n`` rows of the box's (nested Sobol) training grid."""
     from tovforge.grid import read_grid
-    from tovforge.surrogate._dataset import training_data_from_arrays
+    from tovforge.surrogate._data import training_data_from_arrays
 
     path = next(p for p in BOXES[box]["train"] if p.exists())
     g = read_grid(path)
@@ -128,7 +128,7 @@ def make_warp(a, data, Z, index, slices, cols=None):
     warp = proto.Warp(data.bounds[:, 0], data.bounds[:, 1], np.zeros(len(data.bounds)),
                       np.ones(len(data.bounds)), shift)
     if a.warp == "libstretch":  # the library RBF's stretch: l_min / l_i of one GP on 256 points
-        from tovforge.surrogate._fit import SplineSettings, _anisotropy
+        from tovforge.surrogate._rbf import SplineSettings, _anisotropy
         if cols is not None:
             sl = None
             warp.s = _anisotropy(warp(data.theta), Z[:, cols], np.array([[0, len(cols)]]), SplineSettings())[0]
@@ -176,7 +176,7 @@ def select_warp_loo(a, data, Y, cols, index, slices, candidates=(None, 1.0, 0.3,
     residuals on all training points (p95 + p99 in goal units); the stretch of each candidate from one GP."""
     import proto
 
-    from tovforge.surrogate._fit import MIN_STRETCH, SplineSettings, _anisotropy
+    from tovforge.surrogate._rbf import MIN_STRETCH, SplineSettings, _anisotropy
 
     d = data.theta.shape[1]
     lo, hi = data.bounds[:, 0].astype(float), data.bounds[:, 1].astype(float)
@@ -416,14 +416,14 @@ def _show_worst(predict, m, ho, k):
     from tovforge.surrogate import _runtime as rt
 
     y, sd = predict(ho.theta)
-    R, _, sR = rt.curve_at_mass(np, m, y, None, sd, ho.masses, "radius_km")
+    R, _, sR = rt.curve_at_mass(np, m, y, None, sd, ho.masses, "radius")
     sel = (ho.masses[None, :] >= MASS_LOW) & (ho.masses[None, :] <= ho.mass_max[:, None] - GAP) & np.isfinite(ho.radius)
     e = np.where(sel, np.abs(R - ho.radius), -1)
     unit = (ho.theta - ho.box[:, 0]) / (ho.box[:, 1] - ho.box[:, 0])
     flat = np.argsort(e, axis=None)[::-1][:k]
     for f in flat:
         i, j = np.unravel_index(f, e.shape)
-        im = int(m["i_mass_max"])
+        im = m.i_mass_max
         print(f"  unit {np.round(unit[i], 3)} face {bool(ho.is_face[i])} Mmax {ho.mass_max[i]:.3f} (err "
               f"{y[i, im] - ho.mass_max[i]:+.1e}, sd {sd[i, im] if sd is not None else 0:.1e}) M {ho.masses[j]:.1f} "
               f"R {ho.radius[i, j]:.3f} err {1000 * (R[i, j] - ho.radius[i, j]):+.0f} m sd "

@@ -62,13 +62,19 @@ def load_holdout(uniform_path, faces_path=None) -> HeldOut:
                    box=np.asarray(parts[0][0].box, float), names=tuple(parts[0][0].parameter_names))
 
 
-def runtime_view(u_nodes, curve_slices, i_mass_max) -> dict:
-    """The part of a runtime model dict that the queries at masses read."""
-    from tovforge.surrogate._fit import spline_cardinal_coefficients
+def runtime_view(u_nodes, curve_slices=None, i_mass_max=None):
+    """The runtime model the queries at masses read (outputs as a new model emulates them; no arrays
+    beyond the u nodes and their spline).  ``curve_slices`` and ``i_mass_max`` are checked against it."""
+    from tovforge.surrogate._data import emulated_outputs
+    from tovforge.surrogate._meta import new_outputs
+    from tovforge.surrogate._prepare import spline_cardinal_coefficients
 
     u = np.asarray(u_nodes, float)
-    return {"u_nodes": u, "spline_c": spline_cardinal_coefficients(u), "curve_slices": np.asarray(curve_slices),
-            "i_mass_max": int(i_mass_max)}
+    m = rt.Model({"u_nodes": u, "spline_c": spline_cardinal_coefficients(u)}, None,
+                 new_outputs(*emulated_outputs(), u, 0.0).runtime())
+    if i_mass_max is not None and int(i_mass_max) != m.i_mass_max:
+        raise ValueError(f"M_max column {i_mass_max} != {m.i_mass_max} of the library's layout")
+    return m
 
 
 def model_predictor(model, with_std=None):
@@ -76,11 +82,11 @@ def model_predictor(model, with_std=None):
     with_std = (model.kind == "gp") if with_std is None else with_std
 
     def fn(theta):
-        y = rt.outputs(np, model._m, theta)[0]
-        sd = rt.output_std(np, model._m, theta) if with_std else None
+        y = rt.outputs(np, model._model, theta)[0]
+        sd = rt.output_std(np, model._model, theta) if with_std else None
         return y, sd
 
-    return fn, model._m
+    return fn, model._model
 
 
 def percentiles(a) -> dict:
@@ -115,12 +121,12 @@ def evaluate(predict, m, ho: HeldOut, margin_msun=0.02, boot=True) -> dict:
     true one, NaN counts, and where the worst 1 % sit.
     """
     y, sd = predict(ho.theta)
-    im = int(m["i_mass_max"])
+    im = m.i_mass_max
     mm = y[:, im]
     n, q = ho.radius.shape
     sel = (ho.masses[None, :] >= MASS_LOW - 1e-9) & (ho.masses[None, :] <= ho.mass_max[:, None] - GAP)
     sel &= np.isfinite(ho.radius) & np.isfinite(ho.lam)
-    R, _, sR = rt.curve_at_mass(np, m, y, None, sd, ho.masses, "radius_km")
+    R, _, sR = rt.curve_at_mass(np, m, y, None, sd, ho.masses, "radius")
     L, _, sL = rt.curve_at_mass(np, m, y, None, sd, ho.masses, "tidal_deformability")
     nan = sel & ~(np.isfinite(R) & np.isfinite(L))
     ok = sel & ~nan

@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg
 
-from tovforge.surrogate._fit import trend_powers
+from tovforge.surrogate._prepare import trend_powers
 
 __all__ = ["Warp", "rbf_fit", "rbf_eval", "PURBF", "ErrorModel", "SmoothErrorModel", "learn_warp", "loo_objective"]
 
@@ -331,7 +331,7 @@ def learn_warp(theta, Z, bounds, weights, n_sub=1200, seed=0, log_shift=None, le
     """Warp parameters (k, s) minimising the LOO objective of a global RBF on a subset."""
     from scipy.optimize import minimize
 
-    from tovforge.surrogate._fit import _space_filling_subset
+    from tovforge.surrogate._prepare import space_filling_subset as _space_filling_subset
 
     d = theta.shape[1]
     base = Warp(bounds[:, 0].astype(float), bounds[:, 1].astype(float), np.zeros(d), np.ones(d), log_shift)
@@ -371,7 +371,8 @@ def _gp_nlml(x, R, seed=0):
 
     from sklearn.gaussian_process import GaussianProcessRegressor
 
-    from tovforge.surrogate._fit import GPSettings, _matern_kernel
+    from tovforge.surrogate._gp import GPSettings
+    from tovforge.surrogate._prepare import matern_kernel as _matern_kernel
 
     kernel = _matern_kernel(x.shape[1], GPSettings().noise_bounds)
     with warnings.catch_warnings():
@@ -389,7 +390,8 @@ def select_warp(theta, Z, bounds, cols, n_sub=400, seed=0, candidates=LOG_CANDID
     The GP (quadratic trend removed, one ARD Matern-5/2 kernel for the columns ``cols`` of Z)
     runs on a space-filling subset; returns the Warp with stretch l_min / l_i of the best fit.
     """
-    from tovforge.surrogate._fit import MIN_STRETCH, _space_filling_subset, _trend_residuals
+    from tovforge.surrogate._rbf import MIN_STRETCH
+    from tovforge.surrogate._prepare import space_filling_subset as _space_filling_subset, trend_residuals as _trend_residuals
 
     d = theta.shape[1]
     lo, hi = bounds[:, 0].astype(float), bounds[:, 1].astype(float)

@@ -31,8 +31,8 @@ def train_cmd(
                                                    "(faster whole-curve queries, somewhat larger errors).")
     ] = False,
     warp: Annotated[
-        bool, typer.Option("--warp/--no-warp", help="Parameters the family marks (adiabatic indices) enter "
-                                                    "as ln(value - offset).")
+        bool, typer.Option("--warp/--no-warp", help="Parameters the family marks (adiabatic indices, squared "
+                                                    "sound speeds) enter as ln(value - offset).")
     ] = True,
     isotropic: Annotated[
         bool, typer.Option("--isotropic", help="Spline (RBF) and local: no per-parameter stretch of the inputs.")

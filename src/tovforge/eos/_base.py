@@ -42,10 +42,10 @@ class Parameter:
     open_ends : tuple of bool
         Whether ``lo`` and ``hi`` are excluded from the allowed range.
     log_offset : float or None
-        If set, Gaussian-process surrogates take ``ln(value - log_offset)`` as
-        their input instead of the value (e.g. ``ln(Gamma - 1)`` for an
-        adiabatic index, on which the stars depend more evenly).  Must not
-        exceed the lower end of ``allowed``.
+        If set, surrogates take ``ln(value - log_offset)`` as their input
+        instead of the value (e.g. ``ln(Gamma - 1)`` for an adiabatic index,
+        ``ln c_s^2`` for a squared sound speed, on which the stars depend more
+        evenly).  Must not exceed the lower end of ``allowed``.
     """
 
     name: str

@@ -29,7 +29,8 @@ import scipy.linalg
 
 from . import _runtime as rt
 
-__all__ = ["ERROR_TARGET", "rbf_loo_residuals", "gp_inverse_diagonal", "calibrate_error_model"]
+__all__ = ["ERROR_TARGET", "rbf_loo_residuals", "gp_inverse_diagonal", "calibrate_error_model", "score_columns",
+           "loo_score", "choose_by_loo"]
 
 #: Share of the training points' leave-one-out residuals allowed beyond 3 sigma when the factor is chosen.
 #: Measured on the demo box (4,093 points): 0.5 % here gave 0.1 % or less on held-out points, 1 % gave
@@ -88,3 +89,77 @@ def calibrate_error_model(arrays: dict, loo, target: float = ERROR_TARGET) -> tu
                "loo_abs_median": [float(v) for v in np.median(np.abs(loo), axis=0)],
                "loo_abs_p99": [float(v) for v in np.quantile(np.abs(loo), 0.99, axis=0)]}
     return {"loo_residual": loo, "error_scale": scale}, summary
+
+
+#: The outputs a leave-one-out score weighs, by their key in ``_runtime.TRUST_LIMITS`` (the held-out p95
+#: every model must reach, the unit of each): M_max [Msun], the radius nodes [km], the ln Lambda nodes
+#: (an error in ln Lambda is a relative error of Lambda).
+_SCORED = {"mass_max_msun": "mass_max_msun", "radius_km": "radius_km",
+           "tidal_deformability_rel": "log_tidal_deformability"}
+
+
+def score_columns(slices) -> dict:
+    """The output columns ``(a, b)`` of M_max, the radius nodes and the ln Lambda nodes of a new model.
+
+    ``slices`` (n_curves, 2) are the curve columns of ``TrainingData.output_matrix``
+    (M_max is the last column before the curves, :func:`._data.emulated_outputs`).
+    """
+    from ._data import emulated_outputs
+
+    sequence, star = emulated_outputs()
+    names = [q.model_name for q in star]
+    im = [q.model_name for q in sequence].index(_SCORED["mass_max_msun"])
+    out = {"mass_max_msun": (im, im + 1)}
+    for key in ("radius_km", "tidal_deformability_rel"):
+        a, b = slices[names.index(_SCORED[key])]
+        out[key] = (int(a), int(b))
+    return out
+
+
+def loo_score(loo, columns: dict) -> float:
+    """One number for comparing fits of the same data: lower is better.
+
+    The largest, over the outputs of ``columns`` (``{key of _runtime.TRUST_LIMITS:
+    (a, b)}``, see :func:`score_columns`), of the 95th percentile of ``|loo|`` in those
+    columns in units of the limit (the p95 every model must reach).  A p95, not the
+    mean or the maximum, so that a few near-transition points do not decide; the
+    largest over the outputs, so that a fit is judged by the output furthest from its
+    limit (a geometric mean was tried: an output interpolated to rounding, far below its
+    limit, then outweighed another far above it).  ``loo`` (n_train, n_out) in the
+    model's output units.
+    """
+    loo = np.abs(np.asarray(loo, float))
+    return float(max(np.percentile(loo[:, a:b], 95) / rt.TRUST_LIMITS[key] for key, (a, b) in columns.items()))
+
+
+def choose_by_loo(options, fit, loo_of, columns: dict, log=None):
+    """Fit every option and keep the one with the lowest :func:`loo_score`.
+
+    Parameters
+    ----------
+    options : sequence
+        The candidates (one: it is fitted and kept, no score is computed).
+    fit : callable
+        ``fit(option) -> result``.
+    loo_of : callable
+        ``loo_of(result) -> (n_train, n_out)`` leave-one-out residuals in output units.
+    columns : dict
+        The scored columns (:func:`score_columns`).
+    log : callable, optional
+        Called with one line per scored candidate.
+
+    Returns
+    -------
+    (option, result, dict)
+        The kept option, its result and the score of every candidate (empty for one).
+    """
+    best, scores = None, {}
+    for option in options:
+        result = fit(option)
+        if len(options) > 1:
+            scores[option] = loo_score(loo_of(result), columns)
+            if log:
+                log(f"  {option}: leave-one-out score {scores[option]:.3g}")
+        if best is None or (scores and scores[option] < scores[best[0]]):
+            best = (option, result)
+    return best[0], best[1], scores

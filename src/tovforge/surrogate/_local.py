@@ -60,9 +60,9 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
-from ._errors import calibrate_error_model
+from ._errors import calibrate_error_model, choose_by_loo, score_columns
 from ._prepare import FitResult, prepare, trend_powers
-from ._rbf import SplineSettings, _anisotropy
+from ._rbf import STRETCH_OPTIONS, SplineSettings, _anisotropy
 from ._record import Record
 
 __all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "join_groups",
@@ -112,6 +112,19 @@ class LocalSettings(Record):
         consistent, a separately interpolated M_max breaks that.  (The research's
         gain from two groups on the sound-speed box came with learned log warps,
         research/surrogates/LOG.md.)
+    stretch_on : str
+        One group: the outputs whose GP sets the stretch, ``"curves"`` (R, ln Lambda,
+        ln I at the u nodes), ``"mass_max"`` or ``"auto"`` (default): both are fitted and
+        the one with the lower leave-one-out score is kept
+        (:func:`~tovforge.surrogate._errors.loo_score`: the p95 of the closed-form
+        leave-one-out residuals of M_max, R and ln Lambda in units of the limits every
+        model must reach, the largest of the three; the choice and both scores are recorded in
+        the model, :attr:`LocalFit.stretch_on`).  Training costs about twice one fit.
+        Measured (held-out p95, M_max / R / Lambda): sound-speed box (ln cs2 inputs),
+        8,025 points: curves 1.35e-2 Msun / 12.7 m / 1.12 %, M_max 7.6e-3 / 7.7 m /
+        0.78 % (chosen); demo box, 4,093 points: curves 1.1e-3 / 19.4 m / 0.61 %
+        (chosen), M_max 8.7e-4 / 75 m / 1.24 %.  Two groups ignore it (each group's
+        stretch comes from its own outputs).
     """
 
     warp_inputs: bool = True
@@ -124,6 +137,7 @@ class LocalSettings(Record):
     min_points: int = 50
     cells: tuple = ()
     separate_scalars: bool = False
+    stretch_on: str = "auto"
     seed: int = 0
 
 
@@ -151,7 +165,13 @@ class LocalFit(Record):
     loo_rms : float
         Root mean square of the standardised leave-one-out residuals (all outputs).
     seconds_solve : float
-        Time of the cells' solves.
+        Time of the cells' solves (of the kept stretch).
+    stretch_on : str
+        The outputs whose GP set the stretch: ``"curves"``, ``"mass_max"``, or ``"own"``
+        (two groups, or no stretch).
+    stretch_scores : dict
+        The leave-one-out score of each candidate of ``stretch_on="auto"`` (lower is
+        better; empty when there was one candidate).
     error_model : dict
         The error model's calibration
         (:func:`tovforge.surrogate._errors.calibrate_error_model`).
@@ -167,6 +187,8 @@ class LocalFit(Record):
     stored_rows: int = 0
     loo_rms: float = 0.0
     seconds_solve: float = 0.0
+    stretch_on: str = "curves"
+    stretch_scores: dict = field(default_factory=dict)
     error_model: dict = field(default_factory=dict)
 
 
@@ -294,6 +316,8 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         raise InputError(f"margin must be >= overlap ({s.overlap}); got {s.margin}.")
     if s.points_per_cell < 1:
         raise InputError(f"points_per_cell must be >= 1; got {s.points_per_cell}.")
+    if s.stretch_on not in STRETCH_OPTIONS:
+        raise InputError(f"stretch_on must be one of {', '.join(STRETCH_OPTIONS)}; got {s.stretch_on!r}.")
     p = prepare(data, s.warp_inputs)
     arrays, x, Z = dict(p.arrays), p.x, p.Z
     n, d = x.shape
@@ -301,24 +325,29 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         raise InputError(f"cells must give d = {d} counts >= 1; got {tuple(s.cells)}.")
     first_curve, n_out = int(p.slices[0][0]), Z.shape[1]
     groups = [(0, first_curve), (first_curve, n_out)] if s.separate_scalars and first_curve > 0 else [(0, n_out)]
+    scored = score_columns(p.slices)
+    stretch_cols = {"curves": (first_curve, n_out), "mass_max": scored["mass_max_msun"]}
+    if not s.anisotropic:
+        options = ["own"]  # no stretch (two groups: each group's stretch from its own outputs)
+    else:
+        options = list(stretch_cols) if s.stretch_on == "auto" else [s.stretch_on]
     t_solve = 0.0
     parts, fits, scales, lengths = [], [], [], []
     loo = np.zeros(Z.shape)
+    scores = {}
     for a, b in groups:
-        scale, length = np.ones(d), np.zeros(0)
-        if s.anisotropic:  # the curves' stretch for a single group, as the RBF spline
-            cols = (a, b) if len(groups) > 1 else (first_curve, n_out)
-            scale, length = _anisotropy(x, Z, cols, SplineSettings(n_subset=s.n_subset, seed=s.seed))
-        xg = x * scale
-        cells = tuple(int(c) for c in s.cells) or auto_cells(n, scale, s.points_per_cell)
-        part = partition(xg, scale, cells, s.overlap)
-        t0 = time.perf_counter()
-        fitted = fit_patches(xg, Z[:, a:b], part, s.margin, s.degree, s.min_points)
-        t_solve += time.perf_counter() - t0
+        option, (fitted, part, scale, length, seconds), found = choose_by_loo(
+            ["own"] if len(groups) > 1 else options,
+            lambda o: _fit_group(x, Z[:, a:b], (a, b) if o == "own" else stretch_cols[o], Z, s),
+            lambda r: r[0]["loo"] * arrays["out_scale"],  # one group: its columns are all outputs
+            scored, lambda line: logger.info(f"  local r^5, stretch on the {line.strip()}"))
+        scores.update(found)
+        t_solve += seconds
         loo[:, a:b] = fitted.pop("loo")
         sizes = np.diff(fitted["patch_rows"])
-        logger.info(f"  local r^5, outputs {a}:{b}: stretch {np.array2string(scale, precision=3)}, cells {cells}, "
-                    f"points per cell {sizes.min()}/{int(np.median(sizes))}/{sizes.max()}")
+        logger.info(f"  local r^5, outputs {a}:{b}: stretch {np.array2string(scale, precision=3)}, cells "
+                    f"{tuple(int(c) for c in part.counts)}, points per cell {sizes.min()}/{int(np.median(sizes))}/"
+                    f"{sizes.max()}")
         parts.append(part)
         fits.append(_widen(fitted, a, b, n_out))
         scales.append(scale)
@@ -338,8 +367,26 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
                        cells=tuple(tuple(int(c) for c in q.counts) for q in parts),
                        patch_points=(int(sizes.min()), int(np.median(sizes)), int(sizes.max())),
                        stored_rows=int(sizes.sum()), loo_rms=float(np.sqrt(np.mean(loo**2))), seconds_solve=t_solve,
-                       error_model=em_summary)
+                       stretch_on=option, stretch_scores=scores, error_model=em_summary)
     return FitResult(arrays=arrays, settings=s, details=details)
+
+
+def _fit_group(x, Zg, stretch_cols, Z, s: LocalSettings):
+    """One metric group: its stretch (a GP on the columns ``stretch_cols`` of ``Z``), cells and interpolants of ``Zg``.
+
+    Returns the fitted arrays (with ``loo``, standardised), the partition, the stretch, the GP length
+    scales and the seconds of the solves.
+    """
+    n, d = x.shape
+    scale, length = np.ones(d), np.zeros(0)
+    if s.anisotropic:
+        scale, length = _anisotropy(x, Z, stretch_cols, SplineSettings(n_subset=s.n_subset, seed=s.seed))
+    xg = x * scale
+    cells = tuple(int(c) for c in s.cells) or auto_cells(n, scale, s.points_per_cell)
+    part = partition(xg, scale, cells, s.overlap)
+    t0 = time.perf_counter()
+    fitted = fit_patches(xg, Zg, part, s.margin, s.degree, s.min_points)
+    return fitted, part, scale, length, time.perf_counter() - t0
 
 
 def _widen(fitted: dict, a: int, b: int, n_out: int) -> dict:

@@ -14,17 +14,19 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
-from ._errors import calibrate_error_model, rbf_loo_residuals
+from ._errors import calibrate_error_model, choose_by_loo, rbf_loo_residuals, score_columns
 from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, matern_kernel, prepare,
                        space_filling_subset, trend_matrix, trend_powers, trend_residuals)
 from ._record import Record
 
-__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH"]
+__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH", "STRETCH_OPTIONS"]
 
 logger = logging.getLogger(__name__)
 
 #: Smallest stretch of a parameter's unit interval in the anisotropic RBF.
 MIN_STRETCH = 0.05
+#: Values of ``stretch_on`` (:class:`SplineSettings`, :class:`~tovforge.surrogate._local.LocalSettings`).
+STRETCH_OPTIONS = ("auto", "curves", "mass_max")
 
 
 @dataclass(frozen=True)
@@ -47,6 +49,16 @@ class SplineSettings(Record):
         Points of that Gaussian process (space-filling subset).
     degree : int
         Degree of the polynomial (>= 2 for the r^5 kernel).
+    stretch_on : str
+        The outputs of that GP: ``"curves"`` (R, ln Lambda, ln I at the u nodes),
+        ``"mass_max"``, or ``"auto"`` (default): both stretches are fitted and the one
+        with the lower leave-one-out score kept
+        (:func:`~tovforge.surrogate._errors.loo_score`: the p95 of the closed-form
+        leave-one-out residuals of M_max, R and ln Lambda in units of the limits every
+        model must reach, the largest of the three); the choice and both scores are
+        recorded (:attr:`RBFFit.stretch_on`).  Training costs about twice one fit.
+        On the sound-speed box the curves' stretch squeezes cs2_4 and cs2_5, which
+        hardly move the radii but move M_max (research/surrogates/LOG.md).
     seed : int
 
     On the demo box (4,093 points, 500 held-out EOS) the held-out p95 errors
@@ -59,6 +71,7 @@ class SplineSettings(Record):
     anisotropic: bool = True
     n_subset: int = 256
     degree: int = 2
+    stretch_on: str = "auto"
     seed: int = 0
 
 
@@ -77,6 +90,10 @@ class RBFFit(Record):
         The GP length scales the stretch came from (empty: isotropic).
     anisotropy_subset : int
         Points of that GP (0: isotropic).
+    stretch_on : str
+        The outputs that GP was fitted on (``"curves"``, ``"mass_max"``; ``"none"``: isotropic).
+    stretch_scores : dict
+        The leave-one-out score of each candidate of ``stretch_on="auto"`` (empty: one candidate).
     error_model : dict
         The error model made from the leave-one-out residuals
         (:func:`tovforge.surrogate._errors.calibrate_error_model`; empty for models
@@ -88,6 +105,8 @@ class RBFFit(Record):
     input_scale: tuple = ()
     anisotropy_length_scales: tuple = ()
     anisotropy_subset: int = 0
+    stretch_on: str = "curves"
+    stretch_scores: dict = field(default_factory=dict)
     error_model: dict = field(default_factory=dict)
 
 
@@ -126,12 +145,38 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitRe
     degree = settings.degree
     if degree < 2:
         raise InputError(f"the r^5 kernel needs a polynomial of degree >= 2; got degree {degree}.")
+    if settings.stretch_on not in STRETCH_OPTIONS:
+        raise InputError(f"stretch_on must be one of {', '.join(STRETCH_OPTIONS)}; got {settings.stretch_on!r}.")
     p = prepare(data, settings.warp_inputs)
+    scored = score_columns(p.slices)
+    stretch_cols = {"curves": (int(p.slices[0][0]), int(p.slices[-1][1])), "mass_max": scored["mass_max_msun"]}
+    if not settings.anisotropic:
+        options = ["none"]
+    else:
+        options = list(stretch_cols) if settings.stretch_on == "auto" else [settings.stretch_on]
+    option, (arrays, details), scores = choose_by_loo(
+        options, lambda o: _fit_stretched(data, p, settings, stretch_cols.get(o)),
+        lambda r: r[0]["loo_residual"], scored, lambda line: logger.info(f"  RBF, stretch on the {line.strip()}"))
+    t0 = time.perf_counter()
+    em_arrays, summary = calibrate_error_model(arrays, arrays.pop("loo_residual"))
+    arrays.update(em_arrays)
+    details = dataclasses.replace(details, stretch_on=option, stretch_scores=scores, error_model=summary)
+    logger.info(f"  error model: {time.perf_counter() - t0:.1f} s")
+    return FitResult(arrays=arrays, settings=settings, details=details)
+
+
+def _fit_stretched(data: TrainingData, p, settings: SplineSettings, stretch_cols):
+    """The RBF in the stretch from one GP on the output columns ``stretch_cols`` (None: unstretched).
+
+    Returns the arrays (with ``loo_residual`` in output units, before the error model) and the
+    :class:`RBFFit` so far.
+    """
+    degree = settings.degree
     arrays, x, Z = dict(p.arrays), p.x, p.Z
-    details = RBFFit(input_warp=p.input_warp)
-    if settings.anisotropic:
+    details = RBFFit(input_warp=p.input_warp, stretch_on="none")
+    if stretch_cols is not None:
         t0 = time.perf_counter()
-        scale, length = _anisotropy(x, Z, (int(p.slices[0][0]), int(p.slices[-1][1])), settings)
+        scale, length = _anisotropy(x, Z, stretch_cols, settings)
         arrays["input_scale"] = scale
         x = rt.unit_inputs(np, arrays, data.theta)[0]
         details = RBFFit(input_warp=p.input_warp, input_scale=tuple(scale.tolist()),
@@ -154,9 +199,6 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitRe
     logger.info(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")
     arrays.update(trend_powers=powers, trend_coef=sol[n:], X=x, alpha=sol[:n])
     t0 = time.perf_counter()
-    loo = rbf_loo_residuals(A, sol[:n], n) * arrays["out_scale"]  # standardised -> output units
-    em_arrays, summary = calibrate_error_model(arrays, loo)
-    arrays.update(em_arrays)
-    details = dataclasses.replace(details, error_model=summary)
-    logger.info(f"  leave-one-out residuals and error model: {time.perf_counter() - t0:.1f} s")
-    return FitResult(arrays=arrays, settings=settings, details=details)
+    arrays["loo_residual"] = rbf_loo_residuals(A, sol[:n], n) * arrays["out_scale"]  # standardised -> output units
+    logger.info(f"  leave-one-out residuals: {time.perf_counter() - t0:.1f} s")
+    return arrays, details

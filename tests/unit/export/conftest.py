@@ -10,12 +10,11 @@ splines need a regular one).
 from __future__ import annotations
 
 import dataclasses
-import importlib.util
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import import_file  # noqa: F401 - the export tests import it from here
 
 from tovforge.export import export_model
 from tovforge.export._bench import synthetic_training_data
@@ -25,19 +24,6 @@ ROOT = Path(__file__).resolve().parents[3]
 TRAIN_GRID = ROOT / "grids" / "demo-train.h5"
 HOLDOUT_GRID = ROOT / "grids" / "demo-holdout.h5"
 KINDS = ("gp", "gp-shared", "rbf", "tensor", "local")  # gp-shared: curves share kernels per block of u
-
-
-def import_file(path: Path, name: str | None = None):
-    """Import a generated evaluator from its path under a fresh module name."""
-    name = name or f"exported_{path.stem}_{abs(hash(str(path)))}"
-    spec = importlib.util.spec_from_file_location(name, path)
-    mod = importlib.util.module_from_spec(spec)
-    sys.modules[name] = mod
-    try:
-        spec.loader.exec_module(mod)
-    finally:
-        sys.modules.pop(name, None)
-    return mod
 
 
 def _subset(data: TrainingData, n: int) -> TrainingData:

@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import dataclasses
-import importlib.util
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import import_file
 
 from tovforge.errors import InputError
 from tovforge.export import export_model
@@ -104,21 +103,10 @@ def test_blend_zones_are_used(model, demo):
         assert counts.min() >= 1 and (counts > 1).mean() > 0.1
 
 
-def _import(path: Path):
-    spec = importlib.util.spec_from_file_location(f"local_{abs(hash(str(path)))}", path)
-    mod = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = mod
-    try:
-        spec.loader.exec_module(mod)
-    finally:
-        sys.modules.pop(spec.name, None)
-    return mod
-
-
 def test_library_equals_exported_file(model, demo, tmp_path):
     path = tmp_path / "local_small.py"
     export_model(model, path, namespaces=("numpy",))
-    mod = _import(path)
+    mod = import_file(path)
     rng = np.random.default_rng(5)
     lo, hi = demo.bounds[:, 0], demo.bounds[:, 1]
     theta = lo + (hi - lo) * rng.random((64, 4))
