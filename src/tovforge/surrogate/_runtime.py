@@ -75,7 +75,7 @@ LN10 = math.log(10.0)
 MSUN_KM = 1.3271244e26 / 2.99792458e10**2 / 1e5  # GM_sun/c^2 in km (IAU 2015 nominal)
 #: Kernel models evaluate at most this many (query, training point) pairs at a
 #: time: the temporaries then stay in cache and memory stays bounded for any batch.
-PAIRS_PER_CHUNK = 1 << 16
+PAIRS_PER_CHUNK = 1 << 15
 #: The output every model has: the maximum mass (queries at a mass go through it).
 MASS_MAX = "mass_max_msun"
 
