@@ -811,8 +811,9 @@ def local_sd(xp, x, X, nn, k, skip=0):
     and is taken off afterwards.  Squared distances (5 r^2) come from one
     matrix product of the points scaled by sqrt5 / l, as in
     :func:`scaled_distances` (the cancellation costs ~1e-16 where the kernel
-    is flat).  Should rounding leave the matrix not positive definite, the
-    variance is solved for directly.
+    is flat).  Should rounding leave the matrix not positive definite, and
+    under other array libraries than NumPy, the variance is solved for
+    directly.
     """
     G, n, Kt = nn.shape
     d = x.shape[1]
@@ -833,15 +834,16 @@ def local_sd(xp, x, X, nn, k, skip=0):
     jit = k["jitter"]  # (G, 1, 1, 1)
     C = amp2 * matern_values(xp, Q, False)[0] + jit * xp.eye(K + 1, dtype=x.dtype)
     var = None
-    if hasattr(xp.linalg, "cholesky"):
+    if _is_numpy(xp):
+        # NumPy raises where the factorisation fails; other libraries may return NaN or run under a
+        # tracer (jax.jit), where no Python test of the result is possible: they take the solve
         try:
             L = xp.linalg.cholesky(C)
-        except Exception:  # noqa: BLE001 -- NumPy, torch and others name the failure differently
+        except xp.linalg.LinAlgError:
             L = None
         if L is not None:
             last = L[..., K, K]
-            if bool(xp.all(last == last)):  # some libraries return NaN instead of raising
-                var = last * last - jit[..., 0, 0]
+            var = last * last - jit[..., 0, 0]
     if var is None:
         kv = C[..., :K, K]
         var = amp2[..., 0, 0] - xp.sum(kv * xp.linalg.solve(C[..., :K, :K], kv[..., None])[..., 0], axis=-1)
