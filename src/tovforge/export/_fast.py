@@ -34,7 +34,7 @@ import numpy as np
 from ..surrogate._contract import (_TRUST_OF, Curve, Estimate, QueryError, _require_inside, _require_on_branch,
                                    trusted_at_mass, trusted_mass_max)
 from ..surrogate._runtime import (DERIVED, ERROR_NEIGHBOURS, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights,
-                                  _error_points, _inverse_with)
+                                  _inverse_with, augmented_rows, error_points_name, error_squares, rbf_augmented)
 
 # ---- the exported code starts below this line ----
 
@@ -62,7 +62,6 @@ class _Plan:
         self.tct = np.ascontiguousarray(self.tc.T)
         self.i_mmax = local.get(m.i_mass_max)
         self.error_sq = None  # the error model's squared residuals of the plan's columns, made at first use
-        self.error_aug = None  # and its points as the augmented product reads them
         self.curves = {o[4]: (local[o[5]], local[o[5]] + o[6] - o[5], o[3])
                        for o in m.outputs if o[2] == "star" and o[4] and o[5] in local}
 
@@ -223,19 +222,9 @@ def _error_std_one(plan, xr):
         return None
     e2 = plan.error_sq
     if e2 is None:
-        E2 = _GM["loo_residual"] * _GM["error_scale"]
-        e2 = plan.error_sq = np.ascontiguousarray((E2 * E2)[:, plan.idx])
-    aug = plan.error_aug
-    if aug is None:
-        XT, X2 = _error_points(_NUMPY, _GM)
-        aug = plan.error_aug = np.concatenate([XT, X2, np.ones_like(X2)])
-    x = xr[0]
-    xa = np.empty(x.shape[0] + 2)
-    xa[:-2] = x
-    xa[:-2] *= -2.0
-    xa[-2] = 1.0
-    xa[-1] = np.dot(x, x)
-    q = np.dot(xa, aug)  # squared distances to every point, as one product (see polyharmonic_rows)
+        e2 = plan.error_sq = np.ascontiguousarray(error_squares(_NUMPY, _GM)[:, plan.idx])
+    # squared distances to every point as one product (see polyharmonic_rows)
+    q = np.dot(augmented_rows(_NUMPY, xr[0]), rbf_augmented(_NUMPY, _GM, error_points_name(_GM)))
     K = min(ERROR_NEIGHBOURS, q.shape[0])
     nn = np.argpartition(q, K - 1)[:K] if K < q.shape[0] else np.arange(q.shape[0])
     dist = np.sqrt(np.maximum(q[nn], 0.0))

@@ -60,9 +60,9 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
-from ._errors import calibrate_error_model, choose_by_loo, score_columns
+from ._errors import calibrate_error_model, choose_by_loo
 from ._prepare import FitResult, prepare, trend_powers
-from ._rbf import STRETCH_OPTIONS, SplineSettings, _anisotropy
+from ._rbf import SplineSettings, _anisotropy, stretch_candidates
 from ._record import Record
 
 __all__ = ["LocalSettings", "LocalFit", "Partition", "fit_local", "fit_patches", "partition", "join_groups",
@@ -316,8 +316,6 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         raise InputError(f"margin must be >= overlap ({s.overlap}); got {s.margin}.")
     if s.points_per_cell < 1:
         raise InputError(f"points_per_cell must be >= 1; got {s.points_per_cell}.")
-    if s.stretch_on not in STRETCH_OPTIONS:
-        raise InputError(f"stretch_on must be one of {', '.join(STRETCH_OPTIONS)}; got {s.stretch_on!r}.")
     p = prepare(data, s.warp_inputs)
     arrays, x, Z = dict(p.arrays), p.x, p.Z
     n, d = x.shape
@@ -325,12 +323,8 @@ def fit_local(data: TrainingData, settings: LocalSettings | None = None) -> FitR
         raise InputError(f"cells must give d = {d} counts >= 1; got {tuple(s.cells)}.")
     first_curve, n_out = int(p.slices[0][0]), Z.shape[1]
     groups = [(0, first_curve), (first_curve, n_out)] if s.separate_scalars and first_curve > 0 else [(0, n_out)]
-    scored = score_columns(p.slices)
-    stretch_cols = {"curves": (first_curve, n_out), "mass_max": scored["mass_max_msun"]}
-    if not s.anisotropic:
-        options = ["own"]  # no stretch (two groups: each group's stretch from its own outputs)
-    else:
-        options = list(stretch_cols) if s.stretch_on == "auto" else [s.stretch_on]
+    scored, stretch_cols, options = stretch_candidates(s, p.slices)
+    options = options or ["own"]  # no stretch (two groups: each group's stretch from its own outputs)
     t_solve = 0.0
     parts, fits, scales, lengths = [], [], [], []
     loo = np.zeros(Z.shape)

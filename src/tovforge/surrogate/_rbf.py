@@ -19,7 +19,7 @@ from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, mate
                        space_filling_subset, trend_matrix, trend_powers, trend_residuals)
 from ._record import Record
 
-__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH", "STRETCH_OPTIONS"]
+__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH", "STRETCH_OPTIONS", "stretch_candidates"]
 
 logger = logging.getLogger(__name__)
 
@@ -145,17 +145,10 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitRe
     degree = settings.degree
     if degree < 2:
         raise InputError(f"the r^5 kernel needs a polynomial of degree >= 2; got degree {degree}.")
-    if settings.stretch_on not in STRETCH_OPTIONS:
-        raise InputError(f"stretch_on must be one of {', '.join(STRETCH_OPTIONS)}; got {settings.stretch_on!r}.")
     p = prepare(data, settings.warp_inputs)
-    scored = score_columns(p.slices)
-    stretch_cols = {"curves": (int(p.slices[0][0]), int(p.slices[-1][1])), "mass_max": scored["mass_max_msun"]}
-    if not settings.anisotropic:
-        options = ["none"]
-    else:
-        options = list(stretch_cols) if settings.stretch_on == "auto" else [settings.stretch_on]
+    scored, stretch_cols, options = stretch_candidates(settings, p.slices)
     option, (arrays, details), scores = choose_by_loo(
-        options, lambda o: _fit_stretched(data, p, settings, stretch_cols.get(o)),
+        options or ["none"], lambda o: _fit_stretched(data, p, settings, stretch_cols.get(o)),
         lambda r: r[0]["loo_residual"], scored, lambda line: logger.info(f"  RBF, stretch on the {line.strip()}"))
     t0 = time.perf_counter()
     em_arrays, summary = calibrate_error_model(arrays, arrays.pop("loo_residual"))
@@ -163,6 +156,24 @@ def fit_rbf(data: TrainingData, settings: SplineSettings | None = None) -> FitRe
     details = dataclasses.replace(details, stretch_on=option, stretch_scores=scores, error_model=summary)
     logger.info(f"  error model: {time.perf_counter() - t0:.1f} s")
     return FitResult(arrays=arrays, settings=settings, details=details)
+
+
+def stretch_candidates(settings, slices):
+    """The stretches a fit of the RBF or local kind tries, from its ``anisotropic`` and ``stretch_on``.
+
+    Returns the scored columns (:func:`._errors.score_columns`), the output
+    columns ``(a, b)`` of the GP behind each stretch (``"curves"``: every
+    curve node; ``"mass_max"``), and the options to fit: both for ``"auto"``,
+    the one asked for otherwise, none without anisotropy.  An unknown
+    ``stretch_on`` is refused.
+    """
+    if settings.stretch_on not in STRETCH_OPTIONS:
+        raise InputError(f"stretch_on must be one of {', '.join(STRETCH_OPTIONS)}; got {settings.stretch_on!r}.")
+    scored = score_columns(slices)
+    cols = {"curves": (int(slices[0][0]), int(slices[-1][1])), "mass_max": scored["mass_max_msun"]}
+    if not settings.anisotropic:
+        return scored, cols, []
+    return scored, cols, list(cols) if settings.stretch_on == "auto" else [settings.stretch_on]
 
 
 def _fit_stretched(data: TrainingData, p, settings: SplineSettings, stretch_cols):

@@ -342,7 +342,7 @@ def kernel_stack(xp, m, kernels):
         aug = None
         if _is_numpy(xp):
             bT, XT = xp.ascontiguousarray(bT), xp.ascontiguousarray(XT)
-            aug = xp.concat([bT, b2, xp.ones_like(b2)], axis=1)  # (G, d + 2, N), see scaled_distances
+            aug = augmented_points(xp, bT, b2)  # (G, d + 2, N), see scaled_distances
         return {"s": s, "bT": bT, "b2": b2, "aug": aug, "inv2": inv * inv,
                 "w": 1.0 / (length * length), "XT": XT,
                 "invT": xp.reshape(xp.permute_dims(inv, (1, 0)), (inv.shape[1], inv.shape[0], 1, 1)),
@@ -364,14 +364,7 @@ def scaled_distances(xp, x, k):
     """
     a = x[None, :, :] * k["s"][:, None, :]  # (G, n, d)
     if _is_numpy(xp):
-        # one product of [-2 a, 1, |a|^2] by [b^T; |b|^2; 1]: two passes less over the (G, n, N) rows
-        G, n, d = a.shape
-        xa = xp.empty((G, n, d + 2), dtype=a.dtype)
-        xa[..., :d] = a
-        xa[..., :d] *= -2.0
-        xa[..., d] = 1.0
-        xa[..., d + 1] = xp.sum(a * a, axis=-1)
-        return xp.matmul(xa, k["aug"])
+        return xp.matmul(augmented_rows(xp, a), k["aug"])  # (G, n, d + 2) by [b^T; |b|^2; 1]
     q = xp.matmul(a * -2.0, k["bT"])
     q += xp.sum(a * a, axis=-1)[:, :, None]
     q += k["b2"]
@@ -445,13 +438,7 @@ def polyharmonic_rows(xp, x, XT, X2, grad, aug=None):
     giving r^5 ~ 1e-40 instead of 0 (one pass instead of a clip at zero).
     """
     if aug is not None and not grad and _is_numpy(xp):
-        n, d = x.shape
-        xa = xp.empty((n, d + 2), dtype=x.dtype)
-        xa[:, :d] = x
-        xa[:, :d] *= -2.0
-        xa[:, d] = 1.0
-        xa[:, d + 1] = xp.sum(x * x, axis=-1)
-        q = xp.matmul(xa, aug)
+        q = xp.matmul(augmented_rows(xp, x), aug)
         r = xp.abs(q)
         xp.sqrt(r, out=r)
         q *= q
@@ -471,13 +458,30 @@ def polyharmonic_rows(xp, x, XT, X2, grad, aug=None):
     return phi, dphi
 
 
-def rbf_augmented(xp, m):
-    """``[X^T; |X|^2; 1]`` (d + 2, N) of the training points (C-ordered) for :func:`polyharmonic_rows`; cached."""
-    def make():
-        XT, X2 = rbf_points(xp, m)
-        return xp.concat([XT, X2, xp.ones_like(X2)], axis=0)
+def augmented_rows(xp, x):
+    """``[-2 x, 1, |x|^2]`` (..., d + 2) of rows x (..., d); NumPy only (it writes into a new array).
 
-    return _cached(xp, m, "points:augmented", None, make)
+    Times :func:`augmented_points` it gives the squared distances ``|x|^2 +
+    |X|^2 - 2 x.X`` as one matrix product: two passes fewer over the (rows,
+    points) result than adding the norms afterwards.
+    """
+    d = x.shape[-1]
+    xa = xp.empty(x.shape[:-1] + (d + 2,), dtype=x.dtype)
+    xa[..., :d] = x
+    xa[..., :d] *= -2.0
+    xa[..., d] = 1.0
+    xa[..., d + 1] = xp.sum(x * x, axis=-1)
+    return xa
+
+
+def augmented_points(xp, XT, X2):
+    """``[X^T; |X|^2; 1]`` (..., d + 2, N) from points ``XT`` (..., d, N) and their squared norms (..., 1, N)."""
+    return xp.concat([XT, X2, xp.ones_like(X2)], axis=-2)
+
+
+def rbf_augmented(xp, m, name="X"):
+    """:func:`augmented_points` of the points ``m[name]`` (C-ordered; for :func:`polyharmonic_rows`); cached."""
+    return _cached(xp, m, f"points:augmented:{name}", None, lambda: augmented_points(xp, *_points_of(xp, m, name)))
 
 
 def _polyharmonic(xp, x, X, grad):
@@ -945,7 +949,17 @@ def error_model_std(xp, m, x, skip_nearest=0):
 def _error_points(xp, m):
     """The points of the error model: ``error_points`` if the model has them (training points plus points of
     measured errors, see ``Surrogate.with_measured_errors``), else the training points; as :func:`rbf_points`."""
-    return _points_of(xp, m, "X" if m.get("error_points") is None else "error_points")
+    return _points_of(xp, m, error_points_name(m))
+
+
+def error_points_name(m) -> str:
+    """The array of the error model's points: ``error_points`` if the model has it, else ``X``."""
+    return "X" if m.get("error_points") is None else "error_points"
+
+
+def error_squares(xp, m):
+    """The error model's squared calibrated residuals ``(loo_residual error_scale)^2`` (n_points, n_out); cached."""
+    return _cached(xp, m, "error_sq", None, lambda: (m["loo_residual"] * m["error_scale"]) ** 2)
 
 
 def _error_model_rows(xp, x, m, skip):
@@ -962,7 +976,7 @@ def _error_model_rows(xp, x, m, skip):
     dist = xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))
     w = 1.0 / (dist + dist[:, :1] + 1e-12) ** 2
     w = w / xp.sum(w, axis=-1)[:, None]
-    E2 = _cached(xp, m, "error_sq", None, lambda: (m["loo_residual"] * m["error_scale"]) ** 2)
+    E2 = error_squares(xp, m)
     n, k = nn.shape
     Ek = xp.reshape(xp.take(E2, xp.reshape(nn, (-1,)), axis=0), (n, k, E2.shape[1]))
     return (xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1)),)
