@@ -9,6 +9,7 @@ The solver integrates the structure equations in the pseudo-enthalpy
 from __future__ import annotations
 
 from ._love import love_k2, tidal_deformability
+from ._margin import NEAR_DECADES, JumpMargins, jump_margins
 from ._maximum import max_sound_speed_sq
 from ._queries import MassQuery, stars_at_masses
 from ._result import MaximumMass, StarProfile, Stars, StarSequence
@@ -18,6 +19,9 @@ from ._star import central_enthalpy, solve_star
 from ._structure import StepSettings, SurfaceValues, integrate_stars
 
 __all__ = [
+    "JumpMargins",
+    "NEAR_DECADES",
+    "jump_margins",
     "MassQuery",
     "MaximumMass",
     "SequenceBatch",

@@ -7,6 +7,7 @@ fixes the order of the columns of a model.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from dataclasses import dataclass, field
 
@@ -88,6 +89,11 @@ class TrainingData:
             slices.append((start, start + c.shape[1]))
             start += c.shape[1]
         return np.hstack(cols), np.array(slices, dtype=np.int64)
+
+    def rows(self, keep) -> TrainingData:
+        """The data of the rows ``keep`` (a boolean mask or indices); no longer a regular grid."""
+        return dataclasses.replace(self, theta=self.theta[keep], scalars={k: v[keep] for k, v in self.scalars.items()},
+                                   curves={k: v[keep] for k, v in self.curves.items()}, regular_shape=None)
 
 def _read(path, allow_mismatch: bool = False):
     from ..grid import read_grid

@@ -1,9 +1,10 @@
 """The table of surrogate kinds: everything the rest of the package needs to know about each.
 
 A *method* is one way of fitting and evaluating a model (``gp``, ``rbf``,
-``tensor``, ``local``); users ask for a *kind* (``--kind gp``, ``spline`` or ``local``),
-and the first method offered as that kind that applies to the training data
-is used (tensor splines on complete regular grids, the RBF otherwise).
+``tensor``, ``local``, ``sided``); users ask for a *kind* (``--kind gp``, ``spline`` or
+``local``), and the first method offered as that kind that applies to the training
+data is used (for splines: two-sided splines on transition families, tensor splines
+on complete regular grids, the RBF otherwise).
 Models record both: ``kind`` (what users asked for, shown first) and
 ``method`` (the implementation, shown beside it).
 
@@ -29,6 +30,7 @@ from ._data import TrainingData
 from ._gp import GPFit, GPSettings, describe_gp, fit_gp
 from ._local import LocalFit, LocalSettings, describe_local, fit_local, reverse_patches
 from ._rbf import RBFFit, SplineSettings, fit_rbf
+from ._sided import SIDED_ARRAYS, SIDED_STATIC, SidedFit, applies_sided, describe_sided, fit_sided, reverse_sides
 from ._tensor import TensorFit, fit_tensor, is_regular
 
 __all__ = ["Method", "METHODS", "COMMON_ARRAYS", "COMMON_STATIC", "check_kind", "kinds", "method", "resolve"]
@@ -111,6 +113,11 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            arrays=("X", "alpha", "group_bounds", "length", "amp2", "noise", "resid_scale"),
            static_arrays=("group_bounds", "group_kernel"), training_rows=("X", "alpha"), has_std=True,
            describe=describe_gp, template=_gp_code.TEMPLATE),
+    Method("sided", "spline", "two-sided polyharmonic splines for transition families: one r^5 + quadratic spline "
+           "per side of the near/far discontinuity of the first maximum, the side chosen by emulated margins "
+           "(Seidov's and a scanned one; NumPy only)",
+           fit_sided, SplineSettings, SidedFit, arrays=SIDED_ARRAYS, static_arrays=SIDED_STATIC, has_std=True,
+           reverse=reverse_sides, applies=applies_sided, describe=describe_sided),
     Method("tensor", "spline", "tensor-product cubic B-splines on a regular grid",
            fit_tensor, SplineSettings, TensorFit, settings_recorded=False,
            arrays=("knots", "n_knots", "coef", "coef_shape"), static_arrays=("n_knots", "coef_shape", "knots"),

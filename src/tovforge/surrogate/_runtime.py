@@ -1402,5 +1402,114 @@ def _local_rows(xp, x, m, grad, spans, T):
     return out, dout
 
 
+# ---------------------------------------------------------------------------
+# Two-sided models (transition families): one sub-model per side of a discontinuity,
+# chosen per row by the signs of emulated margins
+# ---------------------------------------------------------------------------
+
+#: Prefixes of the arrays of a two-sided model's sub-models (an RBF spline each, with its error model),
+#: in the one arrays file: the side where the first maximum lies at the jump, and the far side.
+SIDE_PREFIXES = ("near__", "far__")
+#: Prefixes of its margin models (r^5 + quadratic RBF of one value, with leave-one-out residuals): Seidov's
+#: margin s, and asinh(g / 10 Msun) of the scanned margin g, learned where s < 0.
+MARGIN_PREFIXES = ("seidov__", "scanned__")
+#: The sigma of every output of a row whose side is uncertain, in the model's output units (1 Msun of M_max,
+#: 1 km of R, a factor e of Lambda, a decade of p_c): far above every default trust limit, so such rows are
+#: never trusted.  A row on the wrong side is off by up to about this much (research/surrogates/LOG.md).
+BAND_SIGMA = 1.0
+
+
+def prefixed(arrays, prefix):
+    """The arrays whose names start with ``prefix``, without it."""
+    return {k[len(prefix):]: v for k, v in arrays.items() if k.startswith(prefix)}
+
+
+def sided_parts(m):
+    """A two-sided model's sub-models and margin models, as runtime :class:`Model` objects (made once)."""
+    def make():
+        subs = {p: Model(prefixed(m.arrays, p), "rbf", m.outputs, m.parameters, m.bounds, m.mass_floor_msun,
+                         m.trust_limits) for p in SIDE_PREFIXES}
+        return subs, {p: Model(prefixed(m.arrays, p)) for p in MARGIN_PREFIXES}
+
+    return m.cache.plain("sided_parts", None, make)
+
+
+def _margin_rows(xp, x, mm):
+    phi, _ = polyharmonic_rows(xp, x, *rbf_points(xp, mm), False, rbf_augmented(xp, mm))
+    return (phi @ mm["alpha"] + _trend(xp, mm, x, False)[0] @ mm["trend_coef"],)
+
+
+def margin_values(xp, mm, x):
+    """A margin model's value (n,) and the sigma of its error model (n,) at unit inputs x (n, d).
+
+    The sigma: the weighted root mean square of the nearest training points'
+    leave-one-out residuals (:func:`error_model_std`; ``error_scale`` 1).
+    """
+    value = _chunked(xp, _margin_rows, x, mm["X"].shape[0], mm)[0]
+    return value[:, 0], error_model_std(xp, mm, x)[:, 0]
+
+
+def sided_choice(xp, m, x):
+    """The side of each row (True: near) and whether it is uncertain, at unit inputs x (n, d).
+
+    Near where the emulated Seidov margin s > 0 or the emulated scanned margin
+    g < 0; uncertain where ``|s| < k sigma_s``, or ``s <= 0`` and ``|g| < k
+    sigma_g`` (k = ``side_band``, each sigma from its margin's error model).
+    """
+    k = float(m["side_band"][0])
+    margins = sided_parts(m)[1]
+    s, ss = margin_values(xp, margins["seidov__"], x)
+    g, gs = margin_values(xp, margins["scanned__"], x)
+    return (s > 0.0) | (g < 0.0), (xp.abs(s) < k * ss) | ((s <= 0.0) & (xp.abs(g) < k * gs))
+
+
+def _by_side(xp, m, x, near, fn):
+    """``fn(sub_model, theta_rows)`` (a tuple of arrays, rows first) on each side's rows, joined over the rows of
+    x (n, d) (NaN-filled).
+
+    The sub-models have their own input maps: each reads the parameters, taken back from x (the two-sided
+    model's plain unit box) and clipped to the box against rounding.
+    """
+    subs = sided_parts(m)[0]
+    lo, hi = m["lo"], m["hi"]
+    theta = xp.clip(lo + x * (hi - lo), lo, hi)
+    out = None
+    for prefix, rows in (("near__", xp.nonzero(near)[0]), ("far__", xp.nonzero(~near)[0])):
+        if rows.shape[0] == 0 and (prefix == "near__" or out is not None):
+            continue  # (no rows at all: the far side's empty answer gives the shapes)
+        values = fn(subs[prefix], xp.take(theta, rows, axis=0))
+        if out is None:
+            out = [xp.full((x.shape[0],) + tuple(v.shape[1:]), float("nan"), dtype=x.dtype) for v in values]
+        for o, v in zip(out, values):
+            o[rows] = v
+    return out
+
+
+def _sided_part(xp, m, x, grad, columns):
+    """Two-sided models: each row's outputs from the sub-model of its emulated side (NumPy only)."""
+    if not _is_numpy(xp):
+        raise TypeError("two-sided models evaluate under NumPy only (rows are grouped by side by index assignment).")
+    near = sided_choice(xp, m, x)[0]
+    span = m["hi"] - m["lo"]
+
+    def side(sub, t):
+        y, _, dy = outputs(xp, sub, t, grad, columns)
+        # d/dx of the plain unit box: d/dtheta times its span (outputs() divides by it again)
+        return (y, dy * span) if grad else (y,)
+
+    out = _by_side(xp, m, x, near, side)
+    return out[0], (out[1] if grad else None)
+
+
+def _sided_std(xp, m, x, columns):
+    """Two-sided models: the sigma of each row's side (its sub-model's error model); ``BAND_SIGMA`` at least
+    where the side is uncertain."""
+    near, unsure = sided_choice(xp, m, x)
+    s = _by_side(xp, m, x, near, lambda sub, t: (output_std(xp, sub, t, columns),))[0]
+    return xp.where(unsure[:, None], xp.maximum(s, BAND_SIGMA), s)
+
+
+STD["sided"] = _sided_std
+
 #: The runtime part of each method (``Model.method``).
-PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part, "local": _local_part}
+PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part, "local": _local_part, "sided": _sided_part}

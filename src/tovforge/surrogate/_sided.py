@@ -1,0 +1,238 @@
+"""Two-sided splines for transition families: one RBF spline per side of the near/far discontinuity.
+
+In the ``<base>-transition`` families the first maximum of ``M(h_c)`` lies at
+the jump or just above it ("near": a cusp above Seidov's limit, or a small hump
+before a twin branch) or far above it (the connected hybrid branch), and M_max,
+R(M) and Lambda(M) jump between the two (research/surrogates/LOG.md, "the
+transition family across its discontinuity": one spline over both sides had
+held-out p95 M_max 0.21 Msun, one per side 8.8e-3).  This method fits the
+spline kind's RBF (:func:`~tovforge.surrogate._rbf.fit_rbf`, with its error
+model) on each side's rows, and two margin models that pick the side of a query
+without solving (:mod:`tovforge.solve._margin`):
+
+- Seidov's margin ``s`` (exact from the parameters) on every training row;
+- ``asinh(g / 10 Msun)`` of the scanned margin ``g`` on the rows with ``s < 0``
+  (where g decides: above Seidov's limit every EOS is near).
+
+Each is an r^5 + quadratic RBF in the plain unit box with Rippa's closed-form
+leave-one-out residuals (Rippa 1999, Adv. Comput. Math. 11, 193) and the shared
+error model on them without a calibration factor (the research's margin
+models).  A query is near where the emulated ``s > 0`` or ``g < 0``; where a
+margin lies within ``SIDE_BAND`` of its own sigma of zero the side is uncertain
+and every output's sigma is raised to at least
+:data:`~tovforge.surrogate._runtime.BAND_SIGMA`, so the query contract's
+``trusted`` flag is False there.
+
+The training rows are split by the grid's solved first maximum (within
+``NEAR_DECADES`` decades of the transition pressure: near), the values each
+side's spline learns; the margins' rule (``s > 0 or g < 0``) is checked against
+it and disagreements are logged and recorded in the model.
+
+Arrays of a model (beside the common ones of :mod:`._kinds`; its own trend is
+zero and its outputs unstandardised, the sub-models carry theirs): ``X`` (n, d)
+every training point in the plain unit box; ``side_band`` (1,); the arrays of
+each sub-model (an ``rbf`` model's) under the prefixes ``near__`` and
+``far__``, and of each margin model (``X``, ``alpha`` (n, 1), ``trend_powers``,
+``trend_coef`` (n_terms, 1), ``loo_residual`` (n, 1), ``error_scale`` (1,))
+under ``seidov__`` and ``scanned__``.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+
+from ..errors import InputError
+from . import _runtime as rt
+from ._data import TrainingData
+from ._errors import rbf_loo_residuals
+from ._prepare import FitResult, prepare, trend_matrix, trend_powers
+from ._rbf import RBFFit, SplineSettings, fit_rbf
+from ._record import Record, nested
+
+__all__ = ["SidedFit", "fit_sided", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND", "SCANNED_SCALE",
+           "SIDED_ARRAYS", "SIDED_STATIC"]
+
+logger = logging.getLogger(__name__)
+
+#: Sigmas of its own error model within which a margin counts as uncertain.  Measured on the
+#: transition family's held-out set (366 EOS, research/surrogates/LOG.md): 1 / 2 / 3 sigma put 2.2 / 4.6 /
+#: 6.6 % of the EOS inside the band and left 2 / 1 / 0 EOS on the wrong side outside it.
+SIDE_BAND = 3.0
+#: The scanned margin is emulated as ``asinh(g / SCANNED_SCALE)`` (Msun per unit z): g spans -8e3 to 40, and
+#: the sign is what matters (LOG.md).
+SCANNED_SCALE = 10.0
+#: The arrays a two-sided model adds to the common ones (a model without them is refused).
+SIDED_ARRAYS = ("X", "side_band") + tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES for k in ("X", "alpha", "out_mean",
+                                                                                         "out_scale", "trend_powers",
+                                                                                         "trend_coef", "loo_residual",
+                                                                                         "error_scale")) + tuple(
+    f"{p}{k}" for p in rt.MARGIN_PREFIXES for k in ("X", "alpha", "trend_powers", "trend_coef", "loo_residual",
+                                                    "error_scale"))
+#: Its arrays that steer loops or index.
+SIDED_STATIC = tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES for k in ("trend_powers", "warp_log", "warp_shift",
+                                                                     "curve_slices")) + tuple(
+    f"{p}trend_powers" for p in rt.MARGIN_PREFIXES)
+
+
+@dataclass(frozen=True)
+class SidedFit(Record):
+    """What a two-sided fit found (recorded in the model).
+
+    Attributes
+    ----------
+    rule : str
+        How a query's side is chosen.
+    near_rows, far_rows : int
+        Training rows of each side (by the grid's solved first maximum).
+    label_disagreements : int
+        Rows where the margins' rule (``s > 0 or g < 0``) and the solved first maximum disagree.
+    scanned_rows : int
+        Rows the scanned margin's model learned (``s < 0`` and a finite scan).
+    margin_loo_p95 : dict
+        The 95th percentile of each margin model's |leave-one-out residual| (``seidov``, ``scanned``).
+    seconds_scan : float
+        Time of the margins' scan (101 stars per EOS).
+    near, far : RBFFit
+        What each side's spline fit found.
+    """
+
+    rule: str = "near if s > 0 or asinh(g / 10) < 0 (emulated); uncertain within 3 sigma of either margin"
+    near_rows: int = 0
+    far_rows: int = 0
+    label_disagreements: int = 0
+    scanned_rows: int = 0
+    margin_loo_p95: dict = field(default_factory=dict)
+    seconds_scan: float = 0.0
+    near: RBFFit = nested(RBFFit, default_factory=RBFFit)
+    far: RBFFit = nested(RBFFit, default_factory=RBFFit)
+
+
+def _transition_family(name: str):
+    """The family ``name`` if it is a ``<base>-transition`` family, else None."""
+    from ..eos import get_family
+    from ..eos._transition import Transition
+
+    try:
+        fam = get_family(name)
+    except (InputError, KeyError):
+        return None
+    return fam if isinstance(fam, Transition) else None
+
+
+def solved_near(data: TrainingData, fam) -> np.ndarray:
+    """Rows whose solved first maximum lies within ``NEAR_DECADES`` decades of pressure above the transition."""
+    from ..solve import NEAR_DECADES
+
+    log_pt = np.asarray(data.theta, float)[:, len(fam.base.parameters)]
+    return data.scalars["log10_central_pressure_at_mass_max"] - log_pt < NEAR_DECADES
+
+
+def _min_side_rows(d: int) -> int:
+    """Rows each side needs: twice the terms of the quadratic polynomial of the RBF."""
+    return (d + 1) * (d + 2)
+
+
+def applies_sided(data: TrainingData) -> bool:
+    """True for a transition family's data with at least :func:`_min_side_rows` rows on each side."""
+    fam = _transition_family(data.family)
+    if fam is None:
+        return False
+    near = solved_near(data, fam)
+    need = _min_side_rows(np.shape(data.theta)[1])
+    if min(int(near.sum()), int((~near).sum())) < need:
+        logger.info(f"  {data.family}: {int(near.sum())} near / {int((~near).sum())} far training rows, fewer than "
+                    f"{need} on a side: one spline over both sides")
+        return False
+    return True
+
+
+def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
+    """An r^5 + quadratic RBF of ``value`` (n,) at unit inputs x (n, d), with its leave-one-out residuals.
+
+    Returns the arrays of a margin model (see the module docstring); ``error_scale`` 1 (no calibration).
+    """
+    powers = trend_powers(x.shape[1], 2)
+    P = trend_matrix(x, powers)
+    phi, _ = rt._polyharmonic(np, x, x, False)
+    n, t = P.shape
+    A = np.zeros((n + t, n + t))
+    A[:n, :n], A[:n, n:], A[n:, :n] = phi, P, P.T
+    sol = scipy.linalg.solve(A, np.concatenate([value, np.zeros(t)])[:, None], assume_a="sym", check_finite=False)
+    return {"X": x, "alpha": sol[:n], "trend_powers": powers, "trend_coef": sol[n:],
+            "loo_residual": rbf_loo_residuals(A, sol[:n], n), "error_scale": np.ones(1)}
+
+
+def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
+    """Fit the two-sided spline of a transition family (see the module docstring).
+
+    Returns
+    -------
+    FitResult
+        The arrays, the spline settings both sides ran with, and a :class:`SidedFit`.
+
+    Raises
+    ------
+    InputError
+        If the family has no transition.
+    """
+    from ..solve import jump_margins
+
+    settings = settings or SplineSettings()
+    fam = _transition_family(data.family)
+    if fam is None:
+        raise InputError(f"the two-sided spline needs a <base>-transition family; got {data.family!r}.")
+    theta = np.asarray(data.theta, float)
+    t0 = time.perf_counter()
+    margins = jump_margins(fam.build(theta))
+    seconds_scan = time.perf_counter() - t0
+    near = solved_near(data, fam)
+    disagree = margins.near != near
+    logger.info(f"  side margins of {len(theta)} EOS: {seconds_scan:.1f} s; {int(near.sum())} near, "
+                f"{int((~near).sum())} far; the margins' rule disagrees with the solved first maximum on "
+                f"{int(disagree.sum())} rows")
+    if disagree.any():
+        logger.warning(f"the side margins disagree with the grid's solved first maximum on {int(disagree.sum())} "
+                       f"training rows (first rows {np.flatnonzero(disagree)[:8].tolist()}); the splines learn the "
+                       "solved sides")
+    p = prepare(data, False)
+    arrays, x = dict(p.arrays), p.x
+    n_out = arrays["out_mean"].shape[0]
+    arrays.update(out_mean=np.zeros(n_out), out_scale=np.ones(n_out), X=x, side_band=np.array([SIDE_BAND]),
+                  trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, n_out)))
+    details = {}
+    for prefix, rows in zip(rt.SIDE_PREFIXES, (near, ~near)):
+        name = prefix.rstrip("_")
+        logger.info(f"  {name} side: RBF spline on {int(rows.sum())} rows")
+        fit = fit_rbf(data.rows(rows), settings)
+        arrays.update({prefix + k: v for k, v in fit.arrays.items()})
+        details[name] = fit.details
+    below = (margins.seidov < 0.0) & np.isfinite(margins.scanned_msun)
+    t0 = time.perf_counter()
+    for prefix, rows, value in ((rt.MARGIN_PREFIXES[0], np.isfinite(margins.seidov), margins.seidov),
+                                (rt.MARGIN_PREFIXES[1], below, np.arcsinh(margins.scanned_msun / SCANNED_SCALE))):
+        arrays.update({prefix + k: v for k, v in fit_margin(x[rows], value[rows]).items()})
+    loo = {p.rstrip("_"): float(np.percentile(np.abs(arrays[p + "loo_residual"]), 95)) for p in rt.MARGIN_PREFIXES}
+    logger.info(f"  margin models: {time.perf_counter() - t0:.1f} s; |LOO| p95 Seidov {loo['seidov']:.2g}, "
+                f"asinh(g / {SCANNED_SCALE:g}) {loo['scanned']:.2g} (on {int(below.sum())} rows with s < 0)")
+    return FitResult(arrays=arrays, settings=settings,
+                     details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()),
+                                      label_disagreements=int(disagree.sum()), scanned_rows=int(below.sum()),
+                                      margin_loo_p95=loo, seconds_scan=seconds_scan, **details))
+
+
+def reverse_sides(arrays: dict) -> dict:
+    """The sub-models' training points and weights in reverse order (their kernel sums in another order).
+
+    The margin models keep theirs: they only choose the side.
+    """
+    return {p + k: np.array(arrays[p + k][::-1]) for p in rt.SIDE_PREFIXES for k in ("X", "alpha")}
+
+
+def describe_sided(arrays: dict) -> str:
+    """A few words on a fitted two-sided model: the rows of each side."""
+    return f"{arrays['near__X'].shape[0]} near + {arrays['far__X'].shape[0]} far training points"
