@@ -39,6 +39,7 @@ under ``seidov__`` and ``scanned__``.
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import time
 from dataclasses import dataclass, field
@@ -49,12 +50,11 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
-from ._errors import rbf_loo_residuals
 from ._prepare import FitResult, prepare, trend_matrix, trend_powers
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
-__all__ = ["SidedFit", "fit_sided", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND", "SCANNED_SCALE",
+__all__ = ["SidedFit", "fit_sided", "fit_sides", "fit_margin", "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND", "SCANNED_SCALE",
            "SIDED_ARRAYS", "SIDED_STATIC"]
 
 logger = logging.getLogger(__name__)
@@ -162,18 +162,20 @@ def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
     n, t = P.shape
     A = np.zeros((n + t, n + t))
     A[:n, :n], A[:n, n:], A[n:, :n] = phi, P, P.T
-    sol = scipy.linalg.solve(A, np.concatenate([value, np.zeros(t)])[:, None], assume_a="sym", check_finite=False)
+    # one inverse gives the weights and Rippa's leave-one-out residuals (the right-hand side is zero below row n)
+    inv = scipy.linalg.inv(A, check_finite=False)
+    sol = inv[:, :n] @ np.asarray(value, float)[:, None]
     return {"X": x, "alpha": sol[:n], "trend_powers": powers, "trend_coef": sol[n:],
-            "loo_residual": rbf_loo_residuals(A, sol[:n], n), "error_scale": np.ones(1)}
+            "loo_residual": sol[:n] / np.diag(inv)[:n, None], "error_scale": np.ones(1)}
 
 
 def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
     """Fit the two-sided spline of a transition family (see the module docstring).
 
-    Returns
-    -------
-    FitResult
-        The arrays, the spline settings both sides ran with, and a :class:`SidedFit`.
+    The margins of every training row come from the family
+    (:func:`tovforge.solve.jump_margins`: Seidov's in closed form, the scanned one
+    from 101 stars per EOS), the sides from the grid's solved first maximum; then
+    :func:`fit_sides`.
 
     Raises
     ------
@@ -182,19 +184,40 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     """
     from ..solve import jump_margins
 
-    settings = settings or SplineSettings()
     fam = _transition_family(data.family)
     if fam is None:
         raise InputError(f"the two-sided spline needs a <base>-transition family; got {data.family!r}.")
-    theta = np.asarray(data.theta, float)
     t0 = time.perf_counter()
-    margins = jump_margins(fam.build(theta))
-    seconds_scan = time.perf_counter() - t0
-    near = solved_near(data, fam)
+    margins = jump_margins(fam.build(np.asarray(data.theta, float)))
+    seconds = time.perf_counter() - t0
+    logger.info(f"  side margins of {len(data.theta)} EOS: {seconds:.1f} s")
+    result = fit_sides(data, settings, margins, solved_near(data, fam))
+    return dataclasses.replace(result, details=dataclasses.replace(result.details, seconds_scan=seconds))
+
+
+def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near: np.ndarray) -> FitResult:
+    """The two-sided spline from given margins and sides of the training rows.
+
+    Parameters
+    ----------
+    data : TrainingData
+    settings : SplineSettings or None
+        Options of both sides' splines.
+    margins : JumpMargins
+        Seidov's and the scanned margin of every row (:func:`tovforge.solve.jump_margins`).
+    near : ndarray of bool (n,)
+        The side each row's outputs belong to (True: near).
+
+    Returns
+    -------
+    FitResult
+        The arrays, the settings, and a :class:`SidedFit`.
+    """
+    settings = settings or SplineSettings()
+    near = np.asarray(near, bool)
     disagree = margins.near != near
-    logger.info(f"  side margins of {len(theta)} EOS: {seconds_scan:.1f} s; {int(near.sum())} near, "
-                f"{int((~near).sum())} far; the margins' rule disagrees with the solved first maximum on "
-                f"{int(disagree.sum())} rows")
+    logger.info(f"  {int(near.sum())} near, {int((~near).sum())} far rows; the margins' rule disagrees with the "
+                f"sides on {int(disagree.sum())}")
     if disagree.any():
         logger.warning(f"the side margins disagree with the grid's solved first maximum on {int(disagree.sum())} "
                        f"training rows (first rows {np.flatnonzero(disagree)[:8].tolist()}); the splines learn the "
@@ -222,7 +245,7 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     return FitResult(arrays=arrays, settings=settings,
                      details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()),
                                       label_disagreements=int(disagree.sum()), scanned_rows=int(below.sum()),
-                                      margin_loo_p95=loo, seconds_scan=seconds_scan, **details))
+                                      margin_loo_p95=loo, **details))
 
 
 def reverse_sides(arrays: dict) -> dict:

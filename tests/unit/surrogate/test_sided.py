@@ -1,0 +1,146 @@
+"""Two-sided splines (method ``sided``): a jump across a known surface, the band, save/load, export, a real grid."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+from helpers import import_file
+from scipy.stats import qmc
+from surrogate_helpers import BOX, synthetic, truth
+
+from tovforge.export import export_model
+from tovforge.grid import parse_spec, run_grid
+from tovforge.solve import JumpMargins
+from tovforge.surrogate import SplineSettings, Surrogate, load, read_training_data, train_on
+from tovforge.surrogate import _runtime as rt
+from tovforge.surrogate._kinds import resolve
+from tovforge.surrogate._sided import fit_sides
+
+SETTINGS = SplineSettings(anisotropic=False)  # no GP for the stretch: fast
+#: The jump the near side adds to the smooth made-up outputs (surrogate_helpers.truth).
+JUMP = {"mass_max_msun": -0.4, "log10_central_pressure_at_mass_max": 0.5, "radius_km": -0.8,
+        "log_tidal_deformability": 0.6}
+
+
+def _surface(theta):
+    """The known smooth surface of the discontinuity, s = 0 (s > 0: near side), in the unit box.
+
+    Not a polynomial of degree 2: the margin model would reproduce it exactly (no leave-one-out residual, no band).
+    """
+    x = (theta - BOX[:, 0]) / (BOX[:, 1] - BOX[:, 0])
+    return x[:, 0] + 0.25 * np.sin(3.0 * x[:, 1]) - 0.6
+
+
+def _jumped(data):
+    """``data`` with the near side's outputs moved by :data:`JUMP`."""
+    near = _surface(data.theta) > 0
+    scalars = {k: v + JUMP.get(k, 0.0) * near for k, v in data.scalars.items()}
+    curves = {k: v + JUMP.get(k, 0.0) * near[:, None] for k, v in data.curves.items()}
+    return dataclasses.replace(data, scalars=scalars, curves=curves)
+
+
+def _sided_model(data, one):
+    """A two-sided model of ``data`` whose margins are the known surface (s) and a far-side scanned margin."""
+    s = _surface(data.theta)
+    result = fit_sides(data, SETTINGS, JumpMargins(seidov=s, scanned_msun=np.full(len(s), 50.0)), s > 0)
+    return Surrogate(one.meta.replace(method="sided", fit=result.details), result.arrays)
+
+
+@pytest.fixture(scope="module")
+def pair():
+    data = _jumped(synthetic(512))
+    one = train_on(data, "spline", SETTINGS)
+    return data, _sided_model(data, one), one
+
+
+def _fresh(n, seed):
+    x = qmc.Sobol(4, seed=seed).random(n)
+    return BOX[:, 0] + x * (BOX[:, 1] - BOX[:, 0])
+
+
+def test_two_sides_beat_one_model_across_a_jump(pair):
+    data, sided, one = pair
+    theta = _fresh(1024, 9)
+    scalars, curves = truth(theta)
+    near = _surface(theta) > 0
+    want = scalars["mass_max_msun"] + JUMP["mass_max_msun"] * near
+    err_one = np.abs(one.mass_max(theta).value - want)
+    err_two = np.abs(sided.mass_max(theta).value - want)
+    assert one.method == "rbf" and sided.method == "sided"
+    # one smooth model smears the 0.4 Msun jump over the points around it; two models keep it sharp
+    assert np.percentile(err_one, 95) > 0.05
+    assert np.percentile(err_two, 95) < 0.1 * np.percentile(err_one, 95)
+    radius = curves["radius_km"][:, 4] + JUMP["radius_km"] * near
+    u4 = float(data.u_nodes[4])
+    mass = want * (1.0 - u4 ** 2)
+    err_r = np.abs(sided.radius(theta, mass[:, None]).value[:, 0] - radius)
+    assert np.nanpercentile(err_r, 95) < 0.05 * np.nanpercentile(
+        np.abs(one.radius(theta, (one.mass_max(theta).value * (1.0 - u4 ** 2))[:, None]).value[:, 0] - radius), 95)
+
+
+def test_queries_on_the_surface_are_not_trusted(pair):
+    _, sided, _ = pair
+    rng = np.random.default_rng(3)
+    x = rng.random((40, 4))
+    x[:, 0] = 0.6 - 0.25 * np.sin(3.0 * x[:, 1])  # on the surface s = 0
+    on = BOX[:, 0] + x * (BOX[:, 1] - BOX[:, 0])
+    est = sided.mass_max(on, return_std=True)
+    assert not est.trusted.any() and np.all(est.std >= rt.BAND_SIGMA)
+    assert not sided.radius(on, 1.0, return_std=True).trusted.any()
+    # away from it the side is certain: the sub-models' own sigma, small on this smooth made-up data
+    far = _fresh(256, 4)
+    far = far[np.abs(_surface(far)) > 0.15]
+    est = sided.mass_max(far, return_std=True)
+    assert np.all(est.std < 0.01) and est.trusted.mean() > 0.9
+    near, band = rt.sided_choice(np, sided._model, rt.unit_inputs(np, sided._model, far)[0])
+    assert not band.any() and np.array_equal(near, _surface(far) > 0)
+
+
+def test_save_load_and_export_equal_the_library(pair, tmp_path):
+    _, sided, _ = pair
+    theta = _fresh(64, 5)
+    x1 = (theta[:8, 1] - BOX[1, 0]) / (BOX[1, 1] - BOX[1, 0])
+    theta[:8, 0] = BOX[0, 0] + (0.6 - 0.25 * np.sin(3.0 * x1)) * (BOX[0, 1] - BOX[0, 0])  # on the surface
+    back = load(sided.save(tmp_path / "m"))
+    a, b = sided.evaluate(theta, grad=True, std=True), back.evaluate(theta, grad=True, std=True)
+    for x, y in ((a.values, b.values), (a.grad, b.grad), (a.std, b.std)):
+        np.testing.assert_array_equal(y, x)
+    path = tmp_path / "sided_small.py"
+    export_model(sided, path, namespaces=("numpy",))
+    mod = import_file(path)
+    masses = np.array([1.0, 1.3])
+    for name, args in (("mass_max", ()), ("radius", (masses,)), ("tidal_deformability", (masses,))):
+        want = getattr(sided, name)(theta, *args, return_grad=True, return_std=True)
+        got = getattr(mod, name)(theta, *args, return_grad=True, return_std=True)
+        for field in ("value", "grad", "std", "trusted"):
+            np.testing.assert_array_equal(getattr(got, field), getattr(want, field), err_msg=f"{name}.{field}")
+        for i in (0, 20):  # one theta: the exported file's own path
+            one_want = getattr(sided, name)(theta[i], *args, return_std=True)
+            one_got = getattr(mod, name)(theta[i], *args, return_std=True)
+            np.testing.assert_array_equal(one_got.value, one_want.value)
+            np.testing.assert_array_equal(one_got.std, one_want.std)
+
+
+@pytest.fixture(scope="module")
+def transition_grid(tmp_path_factory):
+    path = tmp_path_factory.mktemp("sided") / "transition.h5"
+    run_grid(parse_spec({"family": "piecewise-polytrope-transition",
+                         "design": {"method": "sobol", "points": 256, "seed": 11}}), path, workers=1, progress=False)
+    return read_training_data(path)
+
+
+def test_transition_grid_trains_two_sides_by_default(transition_grid):
+    """A transition family's grid gets the two-sided spline from the default kind, and its sides and margins
+    reproduce every training row (each side's spline interpolates its rows, the margins pick their side)."""
+    data = transition_grid
+    assert resolve("spline", data).name == "sided"
+    model = train_on(data)
+    fit = model.meta.fit
+    assert model.kind == "spline" and model.method == "sided" and model.has_std
+    assert fit.label_disagreements == 0 and fit.near_rows + fit.far_rows == len(data.theta)
+    assert min(fit.near_rows, fit.far_rows) > 60
+    np.testing.assert_allclose(model.mass_max(data.theta).value, data.scalars["mass_max_msun"], rtol=0, atol=1e-6)
+    # not a transition family: the plain spline
+    assert resolve("spline", synthetic(64)).name == "rbf"
