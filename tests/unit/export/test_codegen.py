@@ -37,7 +37,7 @@ def _theta_rows(model, n, seed):
 
 
 #: Methods whose exported files run their general runtime part (no template of generated code yet).
-WITHOUT_TEMPLATE = {"local"}
+WITHOUT_TEMPLATE = {"local", "sided"}
 
 
 @pytest.mark.parametrize("kind", KINDS)
