@@ -47,7 +47,9 @@ SCAN_FRACTIONS = np.geomspace(1e-5, 1.0, 100)
 
 @dataclass(frozen=True)
 class JumpMargins:
-    """The two margins of each EOS (see the module docstring).
+    """Seidov's and the scanned margin of each EOS: is its first maximum at the jump (near) or far above it?
+
+    See :mod:`tovforge.solve._margin`.
 
     Attributes
     ----------

@@ -62,6 +62,14 @@ and those of the method:
     ``(x - patch_centre[p]) / patch_scale[p]`` with ``local_powers`` (see
     ``surrogate/_local.py``).  A partition of unity blends the cells a row
     touches (:func:`local_cells`).  NumPy only.
+``"sided"``
+    Two-sided splines of transition families (``surrogate/_sided.py``): its
+    own trend is zero and ``out_mean``/``out_scale`` 0/1; ``X`` (n, d) the
+    training points in the plain unit box (no warp, no stretch),
+    ``side_band`` (1,); an ``"rbf"`` model's arrays for each side under the
+    prefixes :data:`SIDE_PREFIXES`, and margin models under
+    :data:`MARGIN_PREFIXES` (:func:`sided_choice` picks each row's side).
+    NumPy only.
 
 A new method is a function ``part(xp, m, x, grad, columns) -> (z, dz)`` here,
 an entry in :data:`PARTS` (and in :data:`STD` if it has a predictive sigma),

@@ -25,8 +25,11 @@ def train(grid_path, kind: str = "spline", settings=None, allow_mismatch: bool =
         A grid written by ``tovforge grid run``.
     kind : str
         One of :func:`tovforge.surrogate.kinds` (``"spline"``, the default:
-        tensor-product cubic splines on a complete regular grid, polyharmonic
-        radial basis functions otherwise; ``"gp"``: Gaussian process;
+        tensor-product cubic splines on a complete regular grid, one
+        polyharmonic spline per side of the near/far discontinuity on the
+        grids of ``<base>-transition`` families (method ``sided``, see
+        :mod:`tovforge.surrogate._sided`), polyharmonic radial basis
+        functions otherwise; ``"gp"``: Gaussian process;
         ``"local"``: a partition of unity of local polyharmonic splines, for
         large grids).  The default is the kind that reached the p95 every
         model must reach on the demo, sound-speed and spectral boxes (the GP
