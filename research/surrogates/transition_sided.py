@@ -45,9 +45,9 @@ def main():
     R, L = g.at_mass["radius_km"][ok], g.at_mass["tidal_deformability"][ok]
     i_pt = list(model.parameter_names).index("log_p_transition")
     solved = np.log10(g.scalars["central_pressure_at_mass_max_dyn_cm2"][ok]) - theta[:, i_pt] < NEAR_DECADES
-    m = model._model  # research only: the runtime's side choice
+    m = model._model  # research only: the runtime's side choice (a one-sided model: its side is "far")
     x = rt.unit_inputs(np, m, theta)[0]
-    near, band = rt.sided_choice(np, m, x)
+    near, band = rt.sided_choice(np, m, x) if model.method == "sided" else (np.zeros(len(x), bool),) * 2
     wrong = near != solved
     eM = np.abs(model.mass_max(theta).value - mmax)
     r = model.radius(theta, masses, return_std=True)
