@@ -61,7 +61,7 @@ from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
 from ._errors import calibrate_error_model, choose_by_loo
-from ._prepare import FitResult, prepare, trend_powers
+from ._prepare import FitResult, prepare, saddle_matrix, trend_powers
 from ._rbf import SplineSettings, _anisotropy, stretch_candidates
 from ._record import Record
 
@@ -230,14 +230,9 @@ def _solve_patch(x, Z, powers):
     """r^5 + polynomial interpolant of Z at x (centred, scaled): weights, coefficients, centre, scale, LOO residuals."""
     centre = x.mean(axis=0)
     scale = float(np.max(np.abs(x - centre))) or 1.0
-    P = rt.trend_terms(np, powers, rt.trend_plan(powers), (x - centre) / scale, False)[0]
-    phi, _ = rt._polyharmonic(np, x, x, False)
-    n, t = P.shape
-    A = np.zeros((n + t, n + t))
-    A[:n, :n] = phi
-    A[:n, n:] = P
-    A[n:, :n] = P.T
-    rhs = np.vstack([Z, np.zeros((t, Z.shape[1]))])
+    A = saddle_matrix(x, rt.trend_terms(np, powers, rt.trend_plan(powers), (x - centre) / scale, False)[0])
+    n = x.shape[0]
+    rhs = np.vstack([Z, np.zeros((A.shape[0] - n, Z.shape[1]))])
     # the inverse gives the weights and Rippa's leave-one-out residuals in one factorisation
     inv = scipy.linalg.inv(A, check_finite=False)
     sol = inv @ rhs

@@ -13,7 +13,7 @@ from . import _runtime as rt
 from ._data import TrainingData
 
 __all__ = ["FitResult", "Prepared", "prepare", "input_warp", "trend_powers", "trend_matrix", "trend_residuals",
-           "spline_cardinal_coefficients", "space_filling_subset", "matern_kernel", "degenerate_kernels",
+           "spline_cardinal_coefficients", "saddle_matrix", "space_filling_subset", "matern_kernel", "degenerate_kernels",
            "fit_gaussian_process", "LENGTH_BOUNDS", "NOISE_BOUNDS", "MIN_NEIGHBOUR_CORRELATION"]
 
 #: Bounds of the GP length scales, in units of the (warped) parameter box.
@@ -146,6 +146,19 @@ def trend_powers(d: int, degree: int) -> np.ndarray:
                 yield from rec(prefix + [p], left - p, i + 1)
         out += [np.array(p) for p in rec([], deg, 0)]
     return np.array(out, dtype=np.int64)
+
+
+def saddle_matrix(x, P):
+    """The interpolation matrix ``[[Phi, P], [P^T, 0]]`` of an r^5 spline plus a polynomial at points x (n, d).
+
+    ``P`` (n, n_terms): the polynomial's monomials at x; ``Phi`` the r^5 kernel between the points (conditionally
+    positive definite of order 3: the polynomial needs degree >= 2).
+    """
+    phi, _ = rt._polyharmonic(np, x, x, False)
+    n, t = P.shape
+    A = np.zeros((n + t, n + t))
+    A[:n, :n], A[:n, n:], A[n:, :n] = phi, P, P.T
+    return A
 
 
 def trend_matrix(x, powers):

@@ -16,7 +16,7 @@ from . import _runtime as rt
 from ._data import TrainingData
 from ._errors import calibrate_error_model, choose_by_loo, rbf_loo_residuals, score_columns
 from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, matern_kernel, prepare,
-                       space_filling_subset, trend_matrix, trend_powers, trend_residuals)
+                       saddle_matrix, space_filling_subset, trend_matrix, trend_powers, trend_residuals)
 from ._record import Record
 
 __all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH", "STRETCH_OPTIONS", "stretch_candidates"]
@@ -197,14 +197,9 @@ def _fit_stretched(data: TrainingData, p, settings: SplineSettings, stretch_cols
                     f"{np.array2string(length, precision=3)} on {min(settings.n_subset, len(x))} points, "
                     f"{time.perf_counter() - t0:.1f} s)")
     powers = trend_powers(x.shape[1], degree)
-    P = trend_matrix(x, powers)
-    phi, _ = rt._polyharmonic(np, x, x, False)
-    n, t = P.shape
-    A = np.zeros((n + t, n + t))
-    A[:n, :n] = phi
-    A[:n, n:] = P
-    A[n:, :n] = P.T
-    rhs = np.vstack([Z, np.zeros((t, Z.shape[1]))])
+    A = saddle_matrix(x, trend_matrix(x, powers))
+    n = x.shape[0]
+    rhs = np.vstack([Z, np.zeros((A.shape[0] - n, Z.shape[1]))])
     t0 = time.perf_counter()
     sol = scipy.linalg.solve(A, rhs, assume_a="sym", check_finite=False)
     logger.info(f"  RBF r^5 + degree-{degree} polynomial on {n} points: {time.perf_counter() - t0:.1f} s")

@@ -50,7 +50,7 @@ import scipy.linalg
 from ..errors import InputError
 from . import _runtime as rt
 from ._data import TrainingData
-from ._prepare import FitResult, prepare, trend_matrix, trend_powers
+from ._prepare import FitResult, prepare, saddle_matrix, trend_matrix, trend_powers
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
@@ -157,11 +157,8 @@ def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
     Returns the arrays of a margin model (see the module docstring); ``error_scale`` 1 (no calibration).
     """
     powers = trend_powers(x.shape[1], 2)
-    P = trend_matrix(x, powers)
-    phi, _ = rt._polyharmonic(np, x, x, False)
-    n, t = P.shape
-    A = np.zeros((n + t, n + t))
-    A[:n, :n], A[:n, n:], A[n:, :n] = phi, P, P.T
+    A = saddle_matrix(x, trend_matrix(x, powers))
+    n = x.shape[0]
     # one inverse gives the weights and Rippa's leave-one-out residuals (the right-hand side is zero below row n)
     inv = scipy.linalg.inv(A, check_finite=False)
     sol = inv[:, :n] @ np.asarray(value, float)[:, None]
