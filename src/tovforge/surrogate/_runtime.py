@@ -1463,7 +1463,22 @@ def sided_choice(xp, m, x):
     Near where the emulated Seidov margin s > 0 or the emulated scanned margin
     g < 0; uncertain where ``|s| < k sigma_s``, or ``s <= 0`` and ``|g| < k
     sigma_g`` (k = ``side_band``, each sigma from its margin's error model).
+    NumPy only.  Kept for the latest single row (a likelihood asks M_max, then
+    R and Lambda at masses of one theta, each with its sigma): the same
+    operations on the same row, the same numbers.
     """
+    if not _is_numpy(xp):
+        raise TypeError("two-sided models evaluate under NumPy only (rows are grouped by side by index assignment).")
+    if x.shape[0] != 1:
+        return _sided_choice_rows(xp, m, x)
+    slot = m.cache.plain("sided_last", None, dict)
+    key = x.tobytes()
+    if slot.get("key") != key:
+        slot["key"], slot["value"] = key, _sided_choice_rows(xp, m, x)
+    return slot["value"]
+
+
+def _sided_choice_rows(xp, m, x):
     k = float(m["side_band"][0])
     margins = sided_parts(m)[1]
     s, ss = margin_values(xp, margins["seidov__"], x)
@@ -1495,8 +1510,6 @@ def _by_side(xp, m, x, near, fn):
 
 def _sided_part(xp, m, x, grad, columns):
     """Two-sided models: each row's outputs from the sub-model of its emulated side (NumPy only)."""
-    if not _is_numpy(xp):
-        raise TypeError("two-sided models evaluate under NumPy only (rows are grouped by side by index assignment).")
     near = sided_choice(xp, m, x)[0]
     span = m["hi"] - m["lo"]
 
