@@ -7,7 +7,8 @@ outside it, and p50/p95/p99/max of M_max [Msun], R(M) [m], Lambda(M) [%] (1.0 <=
 grid's masses, as ``harness.py``) for all EOS and for those outside the band; and the share of stars and M_max
 not trusted.  Results: research/surrogates/LOG.md.
 
-    python research/surrogates/transition_sided.py --model /work/data/sided/m_sided --holdout /work/data/sided/holdout.h5
+    python research/surrogates/transition_sided.py --model /work/data/sided/m_sided \
+        --holdout /work/data/sided/holdout.h5
 """
 
 from __future__ import annotations
@@ -65,7 +66,8 @@ def main():
            "large_mass_max_errors_trusted": int(((eM > 0.01) & mm.trusted).sum())}
     for name, rows in (("all", np.ones(len(theta), bool)), ("outside_band", ~band), ("band", band)):
         s = sel & rows[:, None]
-        out[name] = {"mass_max": pct(eM[rows]), "radius_m": pct(eR[s]), "lambda_pct": pct(eL[s]), "eos": int(rows.sum())}
+        out[name] = {"mass_max": pct(eM[rows]), "radius_m": pct(eR[s]), "lambda_pct": pct(eL[s]),
+                     "eos": int(rows.sum())}
     out["outside_band_trusted_stars"] = {"radius_m": pct(eR[sel & ~band[:, None] & r.trusted]),
                                          "lambda_pct": pct(eL[sel & ~band[:, None] & lam.trusted])}
     print(json.dumps(out, indent=1))

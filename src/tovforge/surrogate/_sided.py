@@ -42,20 +42,23 @@ from __future__ import annotations
 import dataclasses
 import logging
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg
 
+from ..eos import Transition, get_family
 from ..errors import InputError
+from ..solve import NEAR_DECADES, jump_margins
 from . import _runtime as rt
 from ._data import TrainingData
 from ._prepare import FitResult, prepare, saddle_matrix, trend_matrix, trend_powers
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
-__all__ = ["SidedFit", "fit_sided", "fit_sides", "fit_margin", "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND", "SCANNED_SCALE",
-           "SIDED_ARRAYS", "SIDED_STATIC"]
+__all__ = ["SidedFit", "fit_sided", "fit_sides", "fit_margin", "solved_near", "applies_sided", "reverse_sides",
+           "describe_sided", "SIDE_BAND", "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC"]
 
 logger = logging.getLogger(__name__)
 
@@ -114,9 +117,6 @@ class SidedFit(Record):
 
 def _transition_family(name: str):
     """The family ``name`` if it is a ``<base>-transition`` family, else None."""
-    from ..eos import get_family
-    from ..eos._transition import Transition
-
     try:
         fam = get_family(name)
     except (InputError, KeyError):
@@ -126,8 +126,6 @@ def _transition_family(name: str):
 
 def solved_near(data: TrainingData, fam) -> np.ndarray:
     """Rows whose solved first maximum lies within ``NEAR_DECADES`` decades of pressure above the transition."""
-    from ..solve import NEAR_DECADES
-
     log_pt = np.asarray(data.theta, float)[:, len(fam.base.parameters)]
     return data.scalars["log10_central_pressure_at_mass_max"] - log_pt < NEAR_DECADES
 
@@ -179,8 +177,6 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     InputError
         If the family has no transition.
     """
-    from ..solve import jump_margins
-
     fam = _transition_family(data.family)
     if fam is None:
         raise InputError(f"the two-sided spline needs a <base>-transition family; got {data.family!r}.")
@@ -216,9 +212,10 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
     logger.info(f"  {int(near.sum())} near, {int((~near).sum())} far rows; the margins' rule disagrees with the "
                 f"sides on {int(disagree.sum())}")
     if disagree.any():
-        logger.warning(f"the side margins disagree with the grid's solved first maximum on {int(disagree.sum())} "
-                       f"training rows (first rows {np.flatnonzero(disagree)[:8].tolist()}); the splines learn the "
-                       "solved sides")
+        warnings.warn(f"the side margins (Seidov's, scanned) disagree with the grid's solved first maximum on "
+                      f"{int(disagree.sum())} training rows (first rows {np.flatnonzero(disagree)[:8].tolist()}): "
+                      "queries near them may take the wrong side; the splines learn the solved sides.",
+                      UserWarning, stacklevel=2)
     p = prepare(data, False)
     arrays, x = dict(p.arrays), p.x
     n_out = arrays["out_mean"].shape[0]
@@ -236,7 +233,7 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
     for prefix, rows, value in ((rt.MARGIN_PREFIXES[0], np.isfinite(margins.seidov), margins.seidov),
                                 (rt.MARGIN_PREFIXES[1], below, np.arcsinh(margins.scanned_msun / SCANNED_SCALE))):
         arrays.update({prefix + k: v for k, v in fit_margin(x[rows], value[rows]).items()})
-    loo = {p.rstrip("_"): float(np.percentile(np.abs(arrays[p + "loo_residual"]), 95)) for p in rt.MARGIN_PREFIXES}
+    loo = {q.rstrip("_"): float(np.percentile(np.abs(arrays[q + "loo_residual"]), 95)) for q in rt.MARGIN_PREFIXES}
     logger.info(f"  margin models: {time.perf_counter() - t0:.1f} s; |LOO| p95 Seidov {loo['seidov']:.2g}, "
                 f"asinh(g / {SCANNED_SCALE:g}) {loo['scanned']:.2g} (on {int(below.sum())} rows with s < 0)")
     return FitResult(arrays=arrays, settings=settings,

@@ -144,3 +144,13 @@ def test_transition_grid_trains_two_sides_by_default(transition_grid):
     np.testing.assert_allclose(model.mass_max(data.theta).value, data.scalars["mass_max_msun"], rtol=0, atol=1e-6)
     # not a transition family: the plain spline
     assert resolve("spline", synthetic(64)).name == "rbf"
+
+
+def test_margins_that_disagree_with_the_solved_sides_are_reported(pair):
+    data = pair[0]
+    s = _surface(data.theta)
+    near = s > 0
+    near[[3, 7]] = ~near[[3, 7]]  # two rows whose solved side the margins do not give
+    with pytest.warns(UserWarning, match=r"disagree with the grid's solved first maximum on 2 training rows"):
+        result = fit_sides(data, SETTINGS, JumpMargins(seidov=s, scanned_msun=np.full(len(s), 50.0)), near)
+    assert result.details.label_disagreements == 2 and result.details.near_rows == int(near.sum())
