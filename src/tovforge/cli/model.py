@@ -17,7 +17,8 @@ def train_cmd(
     grid: Annotated[Path, typer.Argument(help="Grid file written by `tovforge grid run`.", dir_okay=False)],
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
     kind: Annotated[Kind, typer.Option("--kind", help="spline (tensor splines on a regular grid, r^5 RBF "
-                                                      "otherwise; the default: it reaches the accuracy every "
+                                                      "otherwise, local r^5 splines above 8,192 points; "
+                                                      "the default: it reaches the accuracy every "
                                                       "model must reach on every family's box measured), "
                                                       "Gaussian process, or local (r^5 interpolants on cells, "
                                                       "for grids of more than about 8,000 points).")] = Kind.spline,

@@ -217,3 +217,24 @@ def test_sigma_from_the_error_model_is_calibrated_on_held_out_stars():
     assert np.mean(np.abs(r.value - r_exact)[sel] > 3.0 * r.std[sel]) <= 0.01
     m = model.mass_max(theta, return_std=True)
     assert np.mean(np.abs(m.value - mmax) > 3.0 * m.std) <= 0.01
+
+
+def test_spline_kind_fits_the_local_method_above_the_dense_limit(demo, monkeypatch):
+    """Above DENSE_LIMIT points the default kind is the local spline (the model records both), with equal numbers."""
+    from tovforge.surrogate import SplineSettings, _kinds
+
+    dense = train_on(demo, "spline")
+    assert (dense.kind, dense.method) == ("spline", "rbf")
+    monkeypatch.setattr(_kinds, "DENSE_LIMIT", len(demo.theta) - 1)
+    big = train_on(demo, "spline")
+    assert (big.kind, big.method) == ("spline", "local")
+    assert isinstance(big.meta.settings, LocalSettings)
+    local = train_on(demo, "local")
+    theta = demo.theta[:7] + 1e-3
+    np.testing.assert_array_equal(big.evaluate(theta).values, local.evaluate(theta).values)
+    # the spline options carry over by name; the local ones keep their defaults
+    carried = train_on(demo, "spline", SplineSettings(n_subset=128, stretch_on="curves"))
+    assert carried.meta.settings == LocalSettings(n_subset=128, stretch_on="curves")
+    from tovforge.surrogate import GPSettings
+    with pytest.raises(InputError, match="spline kind takes LocalSettings, not GPSettings"):
+        train_on(demo, "spline", GPSettings())
