@@ -973,13 +973,18 @@ def _error_model_rows(xp, x, m, skip):
     order = xp.argsort(d2, axis=-1)
     nn = xp.take_along_axis(nn, order, axis=-1)[:, skip:]
     d2 = xp.take_along_axis(d2, order, axis=-1)[:, skip:]
-    dist = xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))
+    return (error_model_from_neighbours(xp, m, nn, xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))),)
+
+
+def error_model_from_neighbours(xp, m, nn, dist):
+    """The error model's sigma (n, n_out) from each query's neighbours ``nn`` (n, k), nearest first, at distances
+    ``dist`` (n, k) (see :func:`error_model_std`; training uses it with the neighbours of a k-d tree)."""
     w = 1.0 / (dist + dist[:, :1] + 1e-12) ** 2
     w = w / xp.sum(w, axis=-1)[:, None]
     E2 = error_squares(xp, m)
     n, k = nn.shape
     Ek = xp.reshape(xp.take(E2, xp.reshape(nn, (-1,)), axis=0), (n, k, E2.shape[1]))
-    return (xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1)),)
+    return xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1))
 
 
 #: Methods with a predictive standard deviation; the others have none (NaN, see :func:`output_std`).
