@@ -22,6 +22,7 @@ SECTIONS: dict[str, str] = {
     "grid": "tovforge.grid._bench:bench_grid",
     "surrogate": "tovforge.surrogate._bench:bench_surrogate",
     "export": "tovforge.export._bench:bench_export",
+    "scaling": "tovforge.export._bench_scaling:bench_scaling",
     "likelihood": "tovforge.workflows.demo._bench:bench_likelihood",
 }
 

@@ -18,9 +18,10 @@ def train_cmd(
     out: Annotated[Path, typer.Option("--out", help="Model folder to write (JSON + .npz).", file_okay=False)],
     kind: Annotated[Kind, typer.Option("--kind", help="spline (tensor splines on a regular grid, one r^5 "
                                                       "RBF per side of the transition on <base>-transition "
-                                                      "families, r^5 RBF otherwise; the default: it reaches "
-                                                      "the accuracy every model must reach on the demo, "
-                                                      "sound-speed and spectral boxes), "
+                                                      "families, r^5 RBF otherwise, local r^5 splines above "
+                                                      "8,192 points; the default: it reaches the accuracy "
+                                                      "every model must reach on the demo, sound-speed and "
+                                                      "spectral boxes), "
                                                       "Gaussian process, or local (r^5 interpolants on cells, "
                                                       "for grids of more than about 8,000 points).")] = Kind.spline,
     subset: Annotated[int, typer.Option("--subset", min=16, help="GP: points used to optimise hyperparameters.")] = 512,

@@ -34,7 +34,7 @@ import numpy as np
 
 from ..surrogate._contract import (QUERY_DOCS, device_of, query_at_mass, query_curve, query_in_domain,
                                    query_mass_max, query_predict, query_predict_at_masses, query_set_trust_limits)
-from ..surrogate._runtime import Model
+from ..surrogate._runtime import Model, rebuilt_arrays
 from ._fast import _fast_at_mass, _fast_curve, _fast_mass_max, _one_theta
 
 _M = _GM = _PLANS = None  # set at the end of every exported file
@@ -99,6 +99,7 @@ def _load_model():
         arrays[name] = np.ascontiguousarray(r.T).view(dtype).reshape(shape, order=order)
     if stream.read(1):
         raise PayloadError(f"{__name__}: the payload holds more data than its {len(_ARRAYS)} arrays.")
+    arrays = rebuilt_arrays(_NUMPY, METHOD, arrays)  # local splines: each cell solved again from its outputs
     return Model(arrays, METHOD, _OUTPUTS, PARAMETERS, BOUNDS, MASS_FLOOR_MSUN)
 
 

@@ -27,6 +27,7 @@ from .._provenance import provenance
 from ..surrogate import CheckReport
 from ..surrogate._check import read_report
 from ..surrogate._kinds import COMMON_STATIC, METHODS
+from ..surrogate._runtime import shipped_arrays
 from ._codegen import generate
 from ._payload import pack, seal
 from ._render import (SELF_CHECK_POINTS, ExportError, constants, header, identifier, is_identifier, plain, render,
@@ -188,7 +189,7 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
     if unknown:
         raise ExportError(f"namespaces: unknown namespace {text(unknown[0])!r}; choose from {', '.join(NAMESPACES)}.")
     check = _report(report, model)
-    payload = pack(model.arrays)
+    payload = pack(shipped_arrays(model.method, model.arrays))  # local models: the weights rebuilt at import
     code = source("tovforge.surrogate", "_runtime.py") + source("tovforge.surrogate", "_contract.py")
     prov = provenance(created_utc=created_utc)
     info = {

@@ -2,9 +2,12 @@
 
 A *method* is one way of fitting and evaluating a model (``gp``, ``rbf``,
 ``tensor``, ``local``, ``sided``); users ask for a *kind* (``--kind gp``, ``spline`` or
-``local``), and the first method offered as that kind that applies to the training
-data is used (for splines: two-sided splines on transition families, tensor splines
-on complete regular grids, the RBF otherwise).
+``local``), and the first method offered as that kind that applies to the training data
+is used (for splines: two-sided splines on transition families, tensor splines on
+complete regular grids, the RBF up to :data:`DENSE_LIMIT` scattered points); if none
+applies, the first method that *serves* the kind (``Method.serves``) and applies: the
+local splines serve the spline kind above :data:`DENSE_LIMIT` points, where a dense
+fit's n^3 cost and n^2 memory are out of reach of a laptop.
 Models record both: ``kind`` (what users asked for, shown first) and
 ``method`` (the implementation, shown beside it).
 
@@ -20,6 +23,7 @@ its runtime part.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -33,7 +37,8 @@ from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._sided import SIDED_ARRAYS, SIDED_STATIC, SidedFit, applies_sided, describe_sided, fit_sided, reverse_sides
 from ._tensor import TensorFit, fit_tensor, is_regular
 
-__all__ = ["Method", "METHODS", "COMMON_ARRAYS", "COMMON_STATIC", "check_kind", "kinds", "method", "resolve"]
+__all__ = ["Method", "METHODS", "COMMON_ARRAYS", "COMMON_STATIC", "DENSE_LIMIT", "check_kind", "kinds", "method",
+           "resolve", "settings_for"]
 
 #: Arrays of every model (see :mod:`tovforge.surrogate._runtime`).
 COMMON_ARRAYS = ("lo", "hi", "out_mean", "out_scale", "trend_powers", "trend_coef", "u_nodes", "spline_c",
@@ -42,8 +47,28 @@ COMMON_ARRAYS = ("lo", "hi", "out_mean", "out_scale", "trend_powers", "trend_coe
 COMMON_STATIC = ("trend_powers", "warp_log", "warp_shift", "curve_slices")
 
 
+#: Most training points of a dense (global) RBF fit for the spline kind.  Above it the spline kind
+#: fits the local method (a partition of unity of the same r^5 splines), whose training is a set of
+#: small solves and whose cost per query does not grow with n.  Measured on this 2-core machine
+#: (DEVELOPERS.md, Surrogates): the dense fit trains in about 15 s at 4,093 points and several
+#: minutes at 8,025 (two stretches fitted and compared), and would need 8.6 GB for one matrix at 32k;
+#: the local method trains 32,751 points in about 5 minutes.  8,192 is the largest design the
+#: sound-speed and spectral targets of issue 13 allow, where the dense fit reaches them.
+DENSE_LIMIT = 8192
+
+
 def _always(data: TrainingData) -> bool:
     return True
+
+
+def _dense_size(data: TrainingData) -> bool:
+    return len(data.theta) <= DENSE_LIMIT
+
+
+def _sided_applies(data: TrainingData) -> bool:
+    """Two-sided splines: a transition family whose sides each hold enough rows for a dense fit, and at most
+    :data:`DENSE_LIMIT` (each side is one dense RBF)."""
+    return applies_sided(data, DENSE_LIMIT)
 
 
 @dataclass(frozen=True)
@@ -86,6 +111,9 @@ class Method:
     template : Template or None
         The generated code of its exported files (:mod:`tovforge.surrogate._codegen`);
         None: exported files evaluate it with its general runtime part.
+    serves : tuple of str
+        Other kinds this method fits when none of their own methods applies
+        (the model then records that kind and this method).
     """
 
     name: str
@@ -103,6 +131,7 @@ class Method:
     applies: Callable[[TrainingData], bool] = _always
     describe: Callable | None = None
     template: Template | None = None
+    serves: tuple = ()
 
 
 #: Every method, by name, in the order in which the methods of a kind are tried.
@@ -117,14 +146,14 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            "per side of the near/far discontinuity of the first maximum, the side chosen by emulated margins "
            "(Seidov's and a scanned one; NumPy only)",
            fit_sided, SplineSettings, SidedFit, arrays=SIDED_ARRAYS, static_arrays=SIDED_STATIC, has_std=True,
-           reverse=reverse_sides, applies=applies_sided, describe=describe_sided),
+           reverse=reverse_sides, applies=_sided_applies, describe=describe_sided),
     Method("tensor", "spline", "tensor-product cubic B-splines on a regular grid",
            fit_tensor, SplineSettings, TensorFit, settings_recorded=False,
            arrays=("knots", "n_knots", "coef", "coef_shape"), static_arrays=("n_knots", "coef_shape", "knots"),
            applies=is_regular, template=_tensor_code.TEMPLATE),
     Method("rbf", "spline", "polyharmonic splines: r^5 radial basis functions plus a quadratic polynomial",
            fit_rbf, SplineSettings, RBFFit, arrays=("X", "alpha"), training_rows=("X", "alpha"),
-           template=_rbf_code.TEMPLATE),
+           applies=_dense_size, template=_rbf_code.TEMPLATE),
     Method("local", "local", "local polyharmonic splines: a partition of unity of r^5 interpolants plus quadratic "
            "polynomials on quantile cells (per-query cost independent of the training size; NumPy only)",
            fit_local, LocalSettings, LocalFit,
@@ -133,7 +162,7 @@ METHODS: dict[str, Method] = {m.name: m for m in (
                    "cell_half", "loo_residual", "error_scale"),
            static_arrays=("group_columns", "group_patches", "patch_index", "patch_rows", "local_powers",
                           "cell_counts"), reverse=reverse_patches,
-           describe=describe_local),
+           describe=describe_local, serves=("spline",)),
 )}
 
 
@@ -175,4 +204,31 @@ def resolve(kind: str, data: TrainingData) -> Method:
     for m in METHODS.values():
         if m.kind == kind and m.applies(data):
             return m
-    raise InputError(f"no {kind} method can fit these training data.")  # pragma: no cover - rbf always applies
+    for m in METHODS.values():
+        if kind in m.serves and m.applies(data):
+            return m
+    raise InputError(f"no {kind} method can fit these training data.")  # pragma: no cover - every kind has a fallback
+
+
+def settings_for(kind: str, m: Method, settings):
+    """The options ``m`` takes, from ``settings`` given for ``kind`` (None: the method's defaults).
+
+    Options of another method of the same kind (e.g. :class:`SplineSettings` for a
+    spline-kind model fitted by the local method above :data:`DENSE_LIMIT` points,
+    or the other way round when a refined model is retrained) carry over by field
+    name; the fields the other method does not have are left at its defaults.
+
+    Raises
+    ------
+    InputError
+        If ``settings`` belongs to no method of ``kind``.
+    """
+    if settings is None:
+        return m.settings()
+    if isinstance(settings, m.settings):
+        return settings
+    same_kind = {x.settings for x in METHODS.values() if x.kind == kind or kind in x.serves}
+    if type(settings) not in same_kind:
+        raise InputError(f"the {kind} kind takes {m.settings.__name__}, not {type(settings).__name__}.")
+    names = {f.name for f in dataclasses.fields(m.settings)}
+    return m.settings(**{f.name: getattr(settings, f.name) for f in dataclasses.fields(settings) if f.name in names})

@@ -981,13 +981,18 @@ def _error_model_rows(xp, x, m, skip):
     order = xp.argsort(d2, axis=-1)
     nn = xp.take_along_axis(nn, order, axis=-1)[:, skip:]
     d2 = xp.take_along_axis(d2, order, axis=-1)[:, skip:]
-    dist = xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))
+    return (error_model_from_neighbours(xp, m, nn, xp.sqrt(xp.where(d2 > 0.0, d2, 0.0))),)
+
+
+def error_model_from_neighbours(xp, m, nn, dist):
+    """The error model's sigma (n, n_out) from each query's neighbours ``nn`` (n, k), nearest first, at distances
+    ``dist`` (n, k) (see :func:`error_model_std`; training uses it with the neighbours of a k-d tree)."""
     w = 1.0 / (dist + dist[:, :1] + 1e-12) ** 2
     w = w / xp.sum(w, axis=-1)[:, None]
     E2 = error_squares(xp, m)
     n, k = nn.shape
     Ek = xp.reshape(xp.take(E2, xp.reshape(nn, (-1,)), axis=0), (n, k, E2.shape[1]))
-    return (xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1)),)
+    return xp.sqrt(xp.sum(w[:, :, None] * Ek, axis=1))
 
 
 #: Methods with a predictive standard deviation; the others have none (NaN, see :func:`output_std`).
@@ -1252,6 +1257,111 @@ def local_weights_1d(xp, t, edges, half, grad):
             dl = xp.where(zone, -ds, dl)
             dh = xp.where(zone, ds, dh)
     return low, wl, wh, dl, dh
+
+
+def local_partition_weights(xp, x, counts, edges, half):
+    """Partition weights (n, P) of every cell of one metric group at stretched inputs x (n, d) (cells in C order)."""
+    n, d = x.shape
+    w = xp.ones((n, 1), dtype=x.dtype)
+    rows = xp.arange(n)
+    for i in range(d):
+        k = int(counts[i])
+        low, wl, wh = local_weights_1d(xp, x[:, i], [float(v) for v in edges[i][: k + 1]],
+                                       [float(v) for v in half[i][: k + 1]], False)[:3]
+        W = xp.zeros((n, k), dtype=x.dtype)
+        W[rows, low] += wl
+        up = xp.minimum(low + 1, k - 1)
+        W[rows, up] += xp.where(low + 1 < k, wh, 0.0)
+        w = xp.reshape(w[:, :, None] * W[:, None, :], (n, -1))  # C order: the last parameter fastest
+    return w
+
+
+def local_solve_cell(xp, x, Z, powers):
+    """One cell's r^5 + polynomial interpolant of Z (n, k) at its points x (n, d); NumPy only.
+
+    The polynomial is in ``(x - centre) / scale`` (the points' mean and largest
+    offset).  Returns the r^5 weights (n, k), the polynomial coefficients (t, k),
+    the centre (d,), the scale, and the leave-one-out residuals (n, k): with the
+    inverse ``B`` of the interpolation matrix, weights ``B z`` and residuals
+    ``c_i / B_ii`` (Rippa 1999) from one factorisation.  Training and the import
+    of an exported file (which rebuilds the weights from the training outputs,
+    :func:`local_rebuild`) call this same function, so their numbers agree bit for bit
+    on one machine; on another BLAS they agree to the rounding of the solve.
+    """
+    centre = xp.mean(x, axis=0)
+    scale = float(xp.max(xp.abs(x - centre))) or 1.0
+    P = trend_terms(xp, powers, trend_plan(powers), (x - centre) / scale, False)[0]
+    phi = _polyharmonic(xp, x, x, False)[0]
+    n, t = P.shape
+    A = xp.zeros((n + t, n + t), dtype=x.dtype)
+    A[:n, :n] = phi
+    A[:n, n:] = P
+    A[n:, :n] = xp.permute_dims(P, (1, 0))
+    inv = xp.linalg.inv(A)
+    sol = inv[:, :n] @ Z  # the right-hand side's polynomial rows are zero
+    return sol[:n], sol[n:], centre, scale, sol[:n] / xp.diagonal(inv)[:n, None]
+
+
+def local_solve_group(xp, x, Z, index, rows, counts, edges, half, powers):
+    """Every cell of one metric group: weights (S, k), coefficients (P, t, k), centres (P, d), scales (P,) and the
+    partition's leave-one-out residuals (n, k), from the stretched inputs x (n, d), the outputs Z (n, k) and each
+    cell's points ``index[rows[p]:rows[p + 1]]``.  Since the margin is >= the overlap a cell's weight vanishes
+    outside the points it learned, so the partition's residual at x_i is the weighted sum of its cells' ones."""
+    weight = local_partition_weights(xp, x, counts, edges, half)
+    loo = xp.zeros(Z.shape, dtype=Z.dtype)
+    alphas, coefs, centres, scales = [], [], [], []
+    for p in range(len(rows) - 1):
+        idx = index[rows[p]:rows[p + 1]]
+        a, c, centre, scale, e = local_solve_cell(xp, xp.take(x, idx, axis=0), xp.take(Z, idx, axis=0), powers)
+        loo[idx] += weight[idx, p][:, None] * e
+        alphas.append(a)
+        coefs.append(c)
+        centres.append(centre)
+        scales.append(scale)
+    return {"alpha": xp.concat(alphas), "patch_coef": xp.stack(coefs), "patch_centre": xp.stack(centres),
+            "patch_scale": xp.asarray(scales, dtype=x.dtype), "loo": loo}
+
+
+#: The arrays :func:`local_rebuild` makes from ``local_targets``: exported files of local models leave them out.
+LOCAL_REBUILT = ("alpha", "patch_coef", "patch_centre", "patch_scale", "loo_residual")
+
+
+def local_rebuild(xp, arrays):
+    """The arrays of :data:`LOCAL_REBUILT` of a local model, solved again from its training outputs.
+
+    ``arrays`` holds ``local_targets`` (n, n_out: the standardised outputs each
+    cell interpolated) and the cells (``X``, ``group_scale``, ``group_columns``,
+    ``group_patches``, ``patch_index``, ``patch_rows``, ``cell_counts``,
+    ``cell_edges``, ``cell_half``, ``local_powers``, ``out_scale``).  The weights
+    are as many numbers as the points times the cells that learn each (3.5 per
+    point at 32k), the outputs one per point: exported files carry the outputs
+    and solve the cells at import (the training's solves again, seconds).
+    """
+    X, Z = arrays["X"], arrays["local_targets"]
+    gc = [int(v) for v in arrays["group_columns"]]
+    gp = [int(v) for v in arrays["group_patches"]]
+    rows_all = [int(v) for v in arrays["patch_rows"]]
+    n_out = Z.shape[1]
+    S, P = rows_all[-1], gp[-1]
+    t = arrays["local_powers"].shape[0]
+    out = {"alpha": xp.zeros((S, n_out), dtype=Z.dtype), "patch_coef": xp.zeros((P, t, n_out), dtype=Z.dtype),
+           "patch_centre": xp.zeros((P, X.shape[1]), dtype=X.dtype), "patch_scale": xp.zeros((P,), dtype=X.dtype)}
+    loo = xp.zeros(Z.shape, dtype=Z.dtype)
+    for g in range(len(gc) - 1):
+        a, b = gc[g], gc[g + 1]
+        p0, p1 = gp[g], gp[g + 1]
+        r0 = rows_all[p0]
+        rows = [r - r0 for r in rows_all[p0:p1 + 1]]
+        fit = local_solve_group(xp, X * arrays["group_scale"][g], Z[:, a:b], arrays["patch_index"][r0:rows_all[p1]],
+                                rows, arrays["cell_counts"][g], arrays["cell_edges"][g], arrays["cell_half"][g],
+                                arrays["local_powers"])
+        out["alpha"][r0:rows_all[p1], a:b] = fit["alpha"]
+        out["patch_coef"][p0:p1, :, a:b] = fit["patch_coef"]
+        out["patch_centre"][p0:p1] = fit["patch_centre"]
+        out["patch_scale"][p0:p1] = fit["patch_scale"]
+        loo[:, a:b] = fit["loo"]
+    out["loo_residual"] = loo * arrays["out_scale"]
+    return out
 
 
 def local_tables(m):
@@ -1534,3 +1644,23 @@ STD["sided"] = _sided_std
 
 #: The runtime part of each method (``Model.method``).
 PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part, "local": _local_part, "sided": _sided_part}
+
+#: Methods whose exported files leave arrays out and rebuild them at import: method -> (the arrays left out,
+#: ``rebuild(xp, arrays) -> dict`` of them).  Used only when the model has what the rebuild reads.
+REBUILT = {"local": (LOCAL_REBUILT, local_rebuild)}
+
+
+def shipped_arrays(method, arrays):
+    """The arrays an exported file carries: without those its import rebuilds (see :data:`REBUILT`)."""
+    left_out, _ = REBUILT.get(method, ((), None))
+    if not left_out or arrays.get("local_targets") is None:
+        return dict(arrays)
+    return {k: v for k, v in arrays.items() if k not in left_out}
+
+
+def rebuilt_arrays(xp, method, arrays):
+    """``arrays`` with what an exported file left out solved again (the arrays as they are if nothing is missing)."""
+    left_out, rebuild = REBUILT.get(method, ((), None))
+    if not left_out or all(k in arrays for k in left_out):
+        return arrays
+    return {**arrays, **rebuild(xp, arrays)}

@@ -135,16 +135,18 @@ def _min_side_rows(d: int) -> int:
     return (d + 1) * (d + 2)
 
 
-def applies_sided(data: TrainingData) -> bool:
-    """True for a transition family's data with at least :func:`_min_side_rows` rows on each side."""
+def applies_sided(data: TrainingData, largest: int | None = None) -> bool:
+    """True for a transition family's data with at least :func:`_min_side_rows` rows on each side (and at most
+    ``largest`` on either, if given: each side is one dense fit)."""
     fam = _transition_family(data.family)
     if fam is None:
         return False
     near = solved_near(data, fam)
+    sizes = (int(near.sum()), int((~near).sum()))
     need = _min_side_rows(np.shape(data.theta)[1])
-    if min(int(near.sum()), int((~near).sum())) < need:
-        logger.info(f"  {data.family}: {int(near.sum())} near / {int((~near).sum())} far training rows, fewer than "
-                    f"{need} on a side: one spline over both sides")
+    if min(sizes) < need or (largest is not None and max(sizes) > largest):
+        logger.info(f"  {data.family}: {sizes[0]} near / {sizes[1]} far training rows, not {need} to "
+                    f"{largest or 'any number'} on each side: one model over both sides")
         return False
     return True
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import time
 
 import numpy as np
@@ -9,11 +10,13 @@ import numpy as np
 from .._provenance import provenance
 from ..errors import InputError
 from ._data import TrainingData, emulated_outputs, read_training_data
-from ._kinds import check_kind, resolve
+from ._kinds import check_kind, resolve, settings_for
 from ._meta import ModelMeta, Training, new_outputs
 from ._model import Surrogate
 
 __all__ = ["train", "train_on"]
+
+logger = logging.getLogger(__name__)
 
 
 def train(grid_path, kind: str = "spline", settings=None, allow_mismatch: bool = False) -> Surrogate:
@@ -29,15 +32,18 @@ def train(grid_path, kind: str = "spline", settings=None, allow_mismatch: bool =
         polyharmonic spline per side of the near/far discontinuity on the
         grids of ``<base>-transition`` families (method ``sided``, see
         :mod:`tovforge.surrogate._sided`), polyharmonic radial basis
-        functions otherwise; ``"gp"``: Gaussian process;
-        ``"local"``: a partition of unity of local polyharmonic splines, for
-        large grids).  The default is the kind that reached the p95 every
+        functions otherwise, and above
+        :data:`~tovforge.surrogate._kinds.DENSE_LIMIT` (8,192) points the local
+        method; ``"gp"``: Gaussian process; ``"local"``: a partition of unity of
+        local polyharmonic splines, for large grids).  The default is the kind that reached the p95 every
         model must reach on the demo, sound-speed and spectral boxes (the GP
         missed two on the sound-speed box: M_max 0.011 Msun, Lambda 3.7 % at
         8,025 points; DEVELOPERS.md, Surrogates), at a fraction of the GP's
         training time, with a calibrated sigma from its error model.
     settings : GPSettings, SplineSettings or LocalSettings, optional
-        Options of the kind (default: its defaults).
+        Options of the kind (default: its defaults); SplineSettings and
+        LocalSettings carry over to each other by field name when the spline
+        kind changes method with the training size.
     allow_mismatch : bool
         Train on a grid whose datasets do not match its content hash (for
         forensics only; the model then records the hash the grid claims).
@@ -58,10 +64,9 @@ def train_on(data: TrainingData, kind: str = "spline", settings=None) -> Surroga
         raise InputError(f"training needs at least {n_min} usable points for {d} parameters (the quadratic "
                          f"trend has {n_min} terms); the grid has {n}: run a grid with more points.")
     m = resolve(kind, data)
-    if settings is None:
-        settings = m.settings()
-    elif not isinstance(settings, m.settings):
-        raise InputError(f"the {kind} kind takes {m.settings.__name__}, not {type(settings).__name__}.")
+    if m.kind != kind:
+        logger.info("%s kind, %d training points: fitted by the %s method (%s)", kind, n, m.name, m.description)
+    settings = settings_for(kind, m, settings)
     t0 = time.perf_counter()
     result = m.fit(data, settings)
     seconds = time.perf_counter() - t0

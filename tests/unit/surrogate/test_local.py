@@ -217,3 +217,62 @@ def test_sigma_from_the_error_model_is_calibrated_on_held_out_stars():
     assert np.mean(np.abs(r.value - r_exact)[sel] > 3.0 * r.std[sel]) <= 0.01
     m = model.mass_max(theta, return_std=True)
     assert np.mean(np.abs(m.value - mmax) > 3.0 * m.std) <= 0.01
+
+
+def test_spline_kind_fits_the_local_method_above_the_dense_limit(demo, monkeypatch):
+    """Above DENSE_LIMIT points the default kind is the local spline (the model records both), with equal numbers."""
+    from tovforge.surrogate import SplineSettings, _kinds
+
+    dense = train_on(demo, "spline")
+    assert (dense.kind, dense.method) == ("spline", "rbf")
+    monkeypatch.setattr(_kinds, "DENSE_LIMIT", len(demo.theta) - 1)
+    big = train_on(demo, "spline")
+    assert (big.kind, big.method) == ("spline", "local")
+    assert isinstance(big.meta.settings, LocalSettings)
+    local = train_on(demo, "local")
+    theta = demo.theta[:7] + 1e-3
+    np.testing.assert_array_equal(big.evaluate(theta).values, local.evaluate(theta).values)
+    # the spline options carry over by name; the local ones keep their defaults
+    carried = train_on(demo, "spline", SplineSettings(n_subset=128, stretch_on="curves"))
+    assert carried.meta.settings == LocalSettings(n_subset=128, stretch_on="curves")
+    from tovforge.surrogate import GPSettings
+    with pytest.raises(InputError, match="spline kind takes LocalSettings, not GPSettings"):
+        train_on(demo, "spline", GPSettings())
+
+
+def test_exported_file_rebuilds_the_weights_from_the_training_outputs(model, demo, tmp_path):
+    """The file carries the outputs, not the weights; its import solves the cells again (two metric groups here)."""
+    path = tmp_path / "local_rebuilt.py"
+    export_model(model, path, namespaces=("numpy",))
+    mod = import_file(path)
+    shipped = {a[0] for a in mod._ARRAYS}
+    assert "local_targets" in shipped and not shipped & set(rt.LOCAL_REBUILT)
+    for name in rt.LOCAL_REBUILT:  # the same solves on this machine: the same numbers, bit for bit
+        np.testing.assert_array_equal(mod._M[name], model.arrays[name], err_msg=name)
+    theta = demo.theta[:16] + 1e-3 * (demo.bounds[:, 1] - demo.bounds[:, 0])
+    a, b = model.radius(theta, 1.4, return_std=True), mod.radius(theta, 1.4, return_std=True)
+    np.testing.assert_array_equal(b.std, a.std)
+    np.testing.assert_array_equal(b.trusted, a.trusted)
+
+
+def test_rebuild_equals_the_fit_and_an_independent_solve(model):
+    """local_rebuild gives back the fitted arrays; one cell's weights solve its system (scipy, no shared code)."""
+    import scipy.linalg
+
+    m = model.arrays
+    got = rt.local_rebuild(np, {k: v for k, v in m.items() if k not in rt.LOCAL_REBUILT})
+    for name in rt.LOCAL_REBUILT:
+        np.testing.assert_array_equal(got[name], m[name], err_msg=name)
+    # cell 0 of group 0: [Phi P; P^T 0] [alpha; c] = [z; 0], P the monomials of (x - centre) / scale
+    a, b = int(m["patch_rows"][0]), int(m["patch_rows"][1])
+    idx = m["patch_index"][a:b]
+    x = m["X"][idx] * m["group_scale"][0]
+    cols = slice(int(m["group_columns"][0]), int(m["group_columns"][1]))
+    u = (x - m["patch_centre"][0]) / m["patch_scale"][0]
+    P = np.prod(u[:, None, :] ** m["local_powers"][None, :, :], axis=-1)
+    r = np.linalg.norm(x[:, None, :] - x[None, :, :], axis=-1)
+    n, t = P.shape
+    A = np.block([[r**5, P], [P.T, np.zeros((t, t))]])
+    sol = scipy.linalg.solve(A, np.vstack([m["local_targets"][idx][:, cols], np.zeros((t, cols.stop - cols.start))]))
+    np.testing.assert_allclose(m["alpha"][a:b, cols], sol[:n], rtol=1e-6, atol=1e-8 * np.abs(sol[:n]).max())
+    np.testing.assert_allclose(m["patch_coef"][0][:, cols], sol[n:], rtol=1e-6, atol=1e-8 * np.abs(sol[n:]).max())
