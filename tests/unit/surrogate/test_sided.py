@@ -10,13 +10,14 @@ from helpers import import_file
 from scipy.stats import qmc
 from surrogate_helpers import BOX, synthetic, truth
 
+from tovforge.eos import get_family
 from tovforge.export import export_model
 from tovforge.grid import parse_spec, run_grid
 from tovforge.solve import JumpMargins
 from tovforge.surrogate import SplineSettings, Surrogate, load, read_training_data, train_on
 from tovforge.surrogate import _runtime as rt
 from tovforge.surrogate._kinds import resolve
-from tovforge.surrogate._sided import fit_sides
+from tovforge.surrogate._sided import applies_sided, fit_sides, solved_near
 
 SETTINGS = SplineSettings(anisotropic=False)  # no GP for the stretch: fast
 #: The jump the near side adds to the smooth made-up outputs (surrogate_helpers.truth).
@@ -142,8 +143,12 @@ def test_transition_grid_trains_two_sides_by_default(transition_grid):
     assert fit.label_disagreements == 0 and fit.near_rows + fit.far_rows == len(data.theta)
     assert min(fit.near_rows, fit.far_rows) > 60
     np.testing.assert_allclose(model.mass_max(data.theta).value, data.scalars["mass_max_msun"], rtol=0, atol=1e-6)
-    # not a transition family: the plain spline
+    # not a transition family, or too few rows on a side for a fit of its own: one model over both sides
     assert resolve("spline", synthetic(64)).name == "rbf"
+    near = solved_near(data, get_family(data.family))
+    keep = near & (np.cumsum(near) <= 40)  # 40 near rows (a side needs (d + 1)(d + 2) = 72) and every far row
+    assert resolve("spline", data.rows(keep | ~near)).name == "rbf"
+    assert applies_sided(data) and not applies_sided(data, largest=max(fit.near_rows, fit.far_rows) - 1)
 
 
 def test_margins_that_disagree_with_the_solved_sides_are_reported(pair):
