@@ -92,8 +92,10 @@ class TrainingData:
 
     def rows(self, keep) -> TrainingData:
         """The data of the rows ``keep`` (a boolean mask or indices); no longer a regular grid."""
-        return dataclasses.replace(self, theta=self.theta[keep], scalars={k: v[keep] for k, v in self.scalars.items()},
+        return dataclasses.replace(self, theta=self.theta[keep],
+                                   scalars={k: v[keep] for k, v in self.scalars.items()},
                                    curves={k: v[keep] for k, v in self.curves.items()}, regular_shape=None)
+
 
 def _read(path, allow_mismatch: bool = False):
     from ..grid import read_grid

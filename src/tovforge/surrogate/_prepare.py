@@ -13,8 +13,8 @@ from . import _runtime as rt
 from ._data import TrainingData
 
 __all__ = ["FitResult", "Prepared", "prepare", "input_warp", "trend_powers", "trend_matrix", "trend_residuals",
-           "spline_cardinal_coefficients", "saddle_matrix", "space_filling_subset", "matern_kernel", "degenerate_kernels",
-           "fit_gaussian_process", "LENGTH_BOUNDS", "NOISE_BOUNDS", "MIN_NEIGHBOUR_CORRELATION"]
+           "spline_cardinal_coefficients", "saddle_matrix", "space_filling_subset", "matern_kernel",
+           "degenerate_kernels", "fit_gaussian_process", "LENGTH_BOUNDS", "NOISE_BOUNDS", "MIN_NEIGHBOUR_CORRELATION"]
 
 #: Bounds of the GP length scales, in units of the (warped) parameter box.
 LENGTH_BOUNDS = (1e-3, 1e3)
