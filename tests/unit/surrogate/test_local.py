@@ -307,3 +307,17 @@ def test_one_row_agrees_with_its_row_of_a_batch(model, demo):
     G = rt.local_tables(model._model)["groups"][0]
     w = rt.local_cells(np, x * model.arrays["group_scale"][0], G, False)[0]
     assert np.bincount(w, minlength=len(theta)).max() > 1  # some rows blend two or more cells
+
+
+def test_one_cell_equals_the_dense_spline(demo):
+    """With one cell the partition of unity is the dense r^5 + quadratic interpolant of the spline kind (the same
+    warp and stretch; the polynomial in the cell's centred, scaled inputs spans the same space)."""
+    dense = train_on(demo, "spline")
+    one = train_on(demo, "local", LocalSettings(cells=(1, 1, 1, 1)))
+    assert (dense.method, one.method) == ("rbf", "local") and one.meta.fit.cells == ((1, 1, 1, 1),)
+    np.testing.assert_array_equal(one.meta.fit.input_scale[0], dense.meta.fit.input_scale)
+    rng = np.random.default_rng(4)
+    lo, hi = demo.bounds[:, 0], demo.bounds[:, 1]
+    theta = lo + (hi - lo) * rng.random((64, 4))
+    a, b = dense.evaluate(theta).values, one.evaluate(theta).values
+    np.testing.assert_allclose(b, a, rtol=1e-8, atol=1e-9 * np.abs(a).max())
