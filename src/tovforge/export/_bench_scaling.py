@@ -65,9 +65,9 @@ def bench_scaling(quick: bool = False, echo=print) -> None:
     singles = lo + (hi - lo) * rng.random((200, len(lo)))
     echo("default kind (`tovforge train`), one model per prefix; errors on the held-out grid (R, Lambda at its "
          "masses from 1.0 Msun to M_max - 0.02); exported file with NumPy: import, R(1.4) at one new theta per "
-         f"call, R(1.4) for {len(many)} theta in one call")
+         f"call (without and with sigma), R(1.4) for {len(many)} theta in one call")
     echo(f"{'points':>7}{'used':>7}{'method':>8}{'train s':>9}{'M_max p95/p99 Msun':>21}{'R p95/p99 m':>14}"
-         f"{'Lambda p95/p99 %':>18}{'file MB':>9}{'import s':>10}{'1 theta us':>12}{'batch /s':>10}")
+         f"{'Lambda p95/p99 %':>18}{'file MB':>9}{'import s':>10}{'1 theta us':>12}{'+sigma us':>11}{'batch /s':>10}")
     p95 = []
     quiet = logging.getLogger("tovforge")
     level = quiet.level
@@ -89,13 +89,15 @@ def bench_scaling(quick: bool = False, echo=print) -> None:
                 t_import = time.perf_counter() - t0
                 it = iter(np.tile(singles, (50, 1)))
                 t_one = timeit_median(lambda: mod.radius(next(it), 1.4), 200)
+                t_std = timeit_median(lambda: mod.radius(next(it), 1.4, return_std=True), 200)
                 t_many = timeit_median(lambda: mod.radius(many, 1.4), 1 if not quick else 2)
                 p95.append((e_m.abs_p95, e_r.abs_p95, e_l.rel_p95))
                 echo(f"{n:>7}{len(sub.theta):>7}{model.method:>8}{seconds:>9.1f}"
                      f"{f'{e_m.abs_p95:.1e} / {e_m.abs_p99:.1e}':>21}"
                      f"{f'{e_r.abs_p95 * 1e3:.1f} / {e_r.abs_p99 * 1e3:.0f}':>14}"
                      f"{f'{e_l.rel_p95 * 100:.2f} / {e_l.rel_p99 * 100:.1f}':>18}"
-                     f"{os.path.getsize(path) / 1e6:>9.1f}{t_import:>10.1f}{t_one * 1e6:>12.0f}{len(many) / t_many:>10.0f}")
+                     f"{os.path.getsize(path) / 1e6:>9.1f}{t_import:>10.1f}{t_one * 1e6:>12.0f}{t_std * 1e6:>11.0f}"
+                     f"{len(many) / t_many:>10.0f}")
                 del mod
     finally:
         quiet.setLevel(level)

@@ -33,8 +33,9 @@ import numpy as np
 
 from ..surrogate._contract import (_TRUST_OF, Curve, Estimate, QueryError, _require_inside, _require_on_branch,
                                    trusted_at_mass, trusted_mass_max)
-from ..surrogate._runtime import (DERIVED, ERROR_NEIGHBOURS, LN10, MASS_MAX, PARTS, STD, Model, _curve_weights,
-                                  _inverse_with, augmented_rows, error_points_name, error_squares, rbf_augmented)
+from ..surrogate._runtime import (BUCKET_MIN_POINTS, DERIVED, ERROR_NEIGHBOURS, LN10, MASS_MAX, PARTS, STD, Model,
+                                  _curve_weights, _inverse_with, augmented_rows, error_neighbours_one,
+                                  error_points_name, error_squares, rbf_augmented)
 
 # ---- the exported code starts below this line ----
 
@@ -223,11 +224,16 @@ def _error_std_one(plan, xr):
     e2 = plan.error_sq
     if e2 is None:
         e2 = plan.error_sq = np.ascontiguousarray(error_squares(_NUMPY, _GM)[:, plan.idx])
-    # squared distances to every point as one product (see polyharmonic_rows)
-    q = np.dot(augmented_rows(_NUMPY, xr[0]), rbf_augmented(_NUMPY, _GM, error_points_name(_GM)))
-    K = min(ERROR_NEIGHBOURS, q.shape[0])
-    nn = np.argpartition(q, K - 1)[:K] if K < q.shape[0] else np.arange(q.shape[0])
-    dist = np.sqrt(np.maximum(q[nn], 0.0))
+    n = e2.shape[0]
+    K = min(ERROR_NEIGHBOURS, n)
+    found = error_neighbours_one(_NUMPY, _GM, xr[0], K) if n >= BUCKET_MIN_POINTS else None
+    if found is not None:  # the points of the buckets around the row: the cost does not grow with n
+        nn, d2 = found
+    else:  # squared distances to every point as one product (see polyharmonic_rows)
+        q = np.dot(augmented_rows(_NUMPY, xr[0]), rbf_augmented(_NUMPY, _GM, error_points_name(_GM)))
+        nn = np.argpartition(q, K - 1)[:K] if K < n else np.arange(n)
+        d2 = q[nn]
+    dist = np.sqrt(np.maximum(d2, 0.0))
     w = 1.0 / (dist + dist.min() + 1e-12) ** 2  # in the order of the selection: the sum is the same to rounding
     return np.sqrt(np.dot(w, e2[nn]) / np.sum(w))
 

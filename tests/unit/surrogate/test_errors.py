@@ -1,6 +1,7 @@
 """Leave-one-out residuals in closed form and the error model made from them."""
 
 import numpy as np
+import pytest
 import scipy.linalg
 from scipy.stats import qmc
 
@@ -93,3 +94,34 @@ def test_error_model_is_calibrated_on_held_out_points_and_grows_at_the_kink():
 
 def test_a_model_without_residuals_has_no_error_model():
     assert rt.error_model_std(np, {"X": np.zeros((3, 2))}, np.zeros((1, 2))) is None
+
+
+@pytest.mark.parametrize("layout", ["uniform", "clustered"])
+def test_bucket_search_finds_the_nearest_points_of_the_full_search(layout, monkeypatch):
+    """One-row error-model queries (buckets around the row) equal the search over every point, also off the data."""
+    rng = np.random.default_rng(7)
+    n, d = 6000, 4
+    top = np.array([1.0, 0.4, 0.7, 0.25])  # a stretched box, as the models' metric
+    X = rng.random((n, d)) * top
+    if layout == "clustered":  # most points in one corner, a few spread out
+        X[: n - 500] = X[: n - 500] ** 3
+    loo = rng.normal(size=(n, 3)) * (1.0 + X[:, :1])
+    m = rt.Model({"X": X, "loo_residual": loo, "error_scale": np.array([1.0, 2.0, 0.5])})
+    monkeypatch.setattr(rt, "BUCKET_MIN_POINTS", n)  # used from 16,384 points; the answers do not depend on it
+    queries = np.vstack([rng.random((300, d)) * top, rng.random((50, d)) * top * 1.3 - 0.15 * top, X[:20]])
+    used = 0
+    for x in queries:
+        one = rt.error_model_std(np, m, x[None])[0]  # the bucket search (or the full one where it cannot tell)
+        full = rt.error_model_std(np, m, np.vstack([x, x]))[0]  # two rows: every point
+        # the same neighbours; the squared distances |x|^2 + |X|^2 - 2 x.X as one product instead of three
+        # sums: their rounding (1e-16 of |X|^2) is relatively large where the points crowd (clustered: d^2 ~ 1e-8)
+        np.testing.assert_allclose(one, full, rtol=1e-8, atol=0)
+        found = rt.error_neighbours_one(np, m, x, rt.ERROR_NEIGHBOURS)
+        if found is not None:
+            used += 1
+            exact = np.argsort(np.sum((X - x) ** 2, axis=1))[: rt.ERROR_NEIGHBOURS]
+            assert set(found[0].tolist()) == set(exact.tolist())
+    if layout == "uniform":  # space-filling designs (the models' own): the buckets answer most rows themselves
+        assert used > 0.8 * len(queries)
+    else:  # crowded points: most rows fall back to the full search, with the same answers
+        assert used < len(queries)

@@ -276,3 +276,48 @@ def test_rebuild_equals_the_fit_and_an_independent_solve(model):
     sol = scipy.linalg.solve(A, np.vstack([m["local_targets"][idx][:, cols], np.zeros((t, cols.stop - cols.start))]))
     np.testing.assert_allclose(m["alpha"][a:b, cols], sol[:n], rtol=1e-6, atol=1e-8 * np.abs(sol[:n]).max())
     np.testing.assert_allclose(m["patch_coef"][0][:, cols], sol[n:], rtol=1e-6, atol=1e-8 * np.abs(sol[n:]).max())
+
+
+def test_one_row_weights_equal_the_array_weights():
+    """One row's partition weights (Python floats, no array call per edge) have the bits of the array code's."""
+    rng = np.random.default_rng(0)
+    edges, half = [0.0, 0.31, 0.55, 0.8, 1.0], [0.0, 0.04, 0.03, 0.05, 0.0]
+    t = np.concatenate([rng.random(5000), [0.27, 0.31, 0.35, 0.55, 0.8, 0.85, 0.0, 1.0]])  # zone edges too
+    many = rt.local_weights_1d(np, t, edges, half, True)
+    for i, ti in enumerate(t):
+        one = rt.local_weights_1d(np, np.array([ti]), edges, half, True)
+        for a, b in zip(one, many):
+            assert a.dtype == b.dtype and a.shape == (1,)
+            np.testing.assert_array_equal(a, b[i : i + 1])
+
+
+def test_one_row_agrees_with_its_row_of_a_batch(model, demo):
+    """One theta gives its row of a batch to rounding (one-row products take other BLAS kernels), blends included."""
+    rng = np.random.default_rng(9)
+    lo, hi = demo.bounds[:, 0], demo.bounds[:, 1]
+    theta = lo + (hi - lo) * rng.random((40, 4))
+    batch = model.evaluate(theta, grad=True)
+    # rounding of sums of cancelling r^5 terms: relative to each output's size over the batch
+    size = np.abs(batch.values).max(axis=0)
+    for i in range(len(theta)):
+        one = model.evaluate(theta[i][None], grad=True)
+        np.testing.assert_allclose(one.values[0], batch.values[i], rtol=1e-12, atol=1e-10 * size.max())
+        np.testing.assert_allclose(one.grad[0], batch.grad[i], rtol=1e-9, atol=1e-9 * np.abs(batch.grad).max())
+    x = rt.unit_inputs(np, model._model, theta)[0]
+    G = rt.local_tables(model._model)["groups"][0]
+    w = rt.local_cells(np, x * model.arrays["group_scale"][0], G, False)[0]
+    assert np.bincount(w, minlength=len(theta)).max() > 1  # some rows blend two or more cells
+
+
+def test_one_cell_equals_the_dense_spline(demo):
+    """With one cell the partition of unity is the dense r^5 + quadratic interpolant of the spline kind (the same
+    warp and stretch; the polynomial in the cell's centred, scaled inputs spans the same space)."""
+    dense = train_on(demo, "spline")
+    one = train_on(demo, "local", LocalSettings(cells=(1, 1, 1, 1)))
+    assert (dense.method, one.method) == ("rbf", "local") and one.meta.fit.cells == ((1, 1, 1, 1),)
+    np.testing.assert_array_equal(one.meta.fit.input_scale[0], dense.meta.fit.input_scale)
+    rng = np.random.default_rng(4)
+    lo, hi = demo.bounds[:, 0], demo.bounds[:, 1]
+    theta = lo + (hi - lo) * rng.random((64, 4))
+    a, b = dense.evaluate(theta).values, one.evaluate(theta).values
+    np.testing.assert_allclose(b, a, rtol=1e-8, atol=1e-9 * np.abs(a).max())
