@@ -156,13 +156,18 @@ def export_cmd(
                                                "file under before keeping it (numpy always; the others when "
                                                "installed).")
     ] = "numpy,torch,jax",
+    store_weights: Annotated[
+        bool, typer.Option("--store-weights", help="Local splines: store the cells' weights (the library's own "
+                                                   "weights, no solves at import, about 4 times larger) instead "
+                                                   "of solving the cells again at import.")
+    ] = False,
     overwrite: OverwriteOpt = False,
 ):
     """Write MODEL as one Python file that needs NumPy only, with its provenance and error table."""
     from ..export import export_model
 
-    res = run(lambda: export_model(model, out, report, namespaces=_namespaces(namespaces), overwrite=overwrite),
-              ("--overwrite",))
+    res = run(lambda: export_model(model, out, report, namespaces=_namespaces(namespaces), overwrite=overwrite,
+                                   store_weights=store_weights), ("--overwrite",))
     typer.echo(f"wrote {res.path} ({res.size_bytes / 1e6:.2f} MB, payload sha256 {res.payload_sha256[:16]}...)")
     for ns, verdict in res.namespaces.items():
         typer.echo(f"  {ns}: {verdict}")

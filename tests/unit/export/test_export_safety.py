@@ -5,6 +5,7 @@ from __future__ import annotations
 import ast
 import dataclasses
 import json
+import os
 import re
 import subprocess
 import sys
@@ -66,11 +67,33 @@ def test_runs_with_scipy_sklearn_joblib_and_tovforge_blocked(kind, exported, mod
     assert out["foreign_modules"] == []
     lo, hi = models[kind].bounds.T
     theta = lo + (hi - lo) * np.linspace(0.2, 0.8, 5)[:, None]
-    np.testing.assert_allclose(out["mass_max"], models[kind].mass_max(theta).value, rtol=1e-12)
-    np.testing.assert_allclose(out["radius"], models[kind].radius(theta, 1.3).value, rtol=1e-12)
+    # local splines solve their cells at import: LAPACK's rounding depends on its thread count, which this
+    # subprocess need not share with the test (measured 3e-12 relative); the other files carry their weights
+    rtol = 1e-10 if kind == "local" else 1e-12
+    np.testing.assert_allclose(out["mass_max"], models[kind].mass_max(theta).value, rtol=rtol)
+    np.testing.assert_allclose(out["radius"], models[kind].radius(theta, 1.3).value, rtol=rtol)
     assert np.isfinite(out["curve"]).all()
     if models[kind].has_std:
         assert np.all(np.asarray(out["sigma"]) > 0)
+
+
+def test_stored_weights_give_the_library_bits_in_another_process(models, tmp_path):
+    """``store_weights``: a local model's file carries the library's weights; a subprocess with one BLAS thread
+    gives the library's bits on these small cells (a rebuilt file need not; see above)."""
+    from tovforge.export import export_model
+
+    model = models["local"]
+    path = tmp_path / "local_stored.py"
+    export_model(model, path, namespaces=("numpy",), store_weights=True)
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+    r = subprocess.run([sys.executable, "-c", BLOCKING_RUN, str(path)], capture_output=True, text=True, env=env)
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    lo, hi = model.bounds.T
+    theta = lo + (hi - lo) * np.linspace(0.2, 0.8, 5)[:, None]
+    np.testing.assert_array_equal(out["mass_max"], model.mass_max(theta).value)
+    np.testing.assert_array_equal(out["radius"], model.radius(theta, 1.3).value)
+    assert "alpha" in path.read_text()  # the weights are in the payload's index
 
 
 def _payload_lines(src: str) -> tuple[int, int]:
