@@ -149,16 +149,9 @@ def trend_powers(d: int, degree: int) -> np.ndarray:
 
 
 def saddle_matrix(x, P):
-    """The interpolation matrix ``[[Phi, P], [P^T, 0]]`` of an r^5 spline plus a polynomial at points x (n, d).
-
-    ``P`` (n, n_terms): the polynomial's monomials at x; ``Phi`` the r^5 kernel between the points (conditionally
-    positive definite of order 3: the polynomial needs degree >= 2).
-    """
-    phi, _ = rt._polyharmonic(np, x, x, False)
-    n, t = P.shape
-    A = np.zeros((n + t, n + t))
-    A[:n, :n], A[:n, n:], A[n:, :n] = phi, P, P.T
-    return A
+    """The interpolation matrix ``[[Phi, P], [P^T, 0]]`` of an r^5 spline plus a polynomial at points x (n, d)
+    (:func:`tovforge.surrogate._runtime.saddle_matrix`, which exported files use to solve local splines' cells)."""
+    return rt.saddle_matrix(np, np.asarray(x, float), P)
 
 
 def trend_matrix(x, powers):

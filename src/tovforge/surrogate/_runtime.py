@@ -1387,6 +1387,21 @@ def local_partition_weights(xp, x, counts, edges, half):
     return w
 
 
+def saddle_matrix(xp, x, P):
+    """The interpolation matrix ``[[Phi, P], [P^T, 0]]`` of an r^5 spline plus a polynomial at points x (n, d).
+
+    ``P`` (n, n_terms): the polynomial's monomials at x; ``Phi`` the r^5 kernel between the points
+    (conditionally positive definite of order 3: the polynomial needs degree >= 2).  NumPy only.
+    """
+    phi = _polyharmonic(xp, x, x, False)[0]
+    n, t = P.shape
+    A = xp.zeros((n + t, n + t), dtype=x.dtype)
+    A[:n, :n] = phi
+    A[:n, n:] = P
+    A[n:, :n] = xp.permute_dims(P, (1, 0))
+    return A
+
+
 def local_solve_cell(xp, x, Z, powers):
     """One cell's r^5 + polynomial interpolant of Z (n, k) at its points x (n, d); NumPy only.
 
@@ -1402,13 +1417,8 @@ def local_solve_cell(xp, x, Z, powers):
     centre = xp.mean(x, axis=0)
     scale = float(xp.max(xp.abs(x - centre))) or 1.0
     P = trend_terms(xp, powers, trend_plan(powers), (x - centre) / scale, False)[0]
-    phi = _polyharmonic(xp, x, x, False)[0]
-    n, t = P.shape
-    A = xp.zeros((n + t, n + t), dtype=x.dtype)
-    A[:n, :n] = phi
-    A[:n, n:] = P
-    A[n:, :n] = xp.permute_dims(P, (1, 0))
-    inv = xp.linalg.inv(A)
+    n = P.shape[0]
+    inv = xp.linalg.inv(saddle_matrix(xp, x, P))
     sol = inv[:, :n] @ Z  # the right-hand side's polynomial rows are zero
     return sol[:n], sol[n:], centre, scale, sol[:n] / xp.diagonal(inv)[:n, None]
 
