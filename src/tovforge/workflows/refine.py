@@ -211,7 +211,8 @@ def refine(model: Surrogate, budget: int, out, *, holdout=None, errors_from=None
         scorer = model.with_measured_errors(read_training_data(errors_from, family=model.family, min_points=0,
                                                                allow_mismatch=allow_mismatch))
     added = select_points(scorer, budget, n_candidates, seed)
-    what = "error-model" if model.has_error_model else "GP"
+    # a two-sided model's sigma is its sides' error models, raised where the side is uncertain
+    what = "error-model" if model.has_error_model else ("GP" if model.method == "gp" else f"{model.method} model's")
     if errors_from is not None:
         what += f" (with the measured errors of {errors_from})"
     logger.info(f"solving {len(added)} points of largest {what} sigma (from {n_candidates} Sobol candidates)")
