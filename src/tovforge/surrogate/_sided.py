@@ -57,7 +57,7 @@ from ._prepare import FitResult, prepare, saddle_matrix, trend_matrix, trend_pow
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
-__all__ = ["SidedFit", "fit_sided", "fit_sides", "fit_margin", "solved_near", "applies_sided", "reverse_sides",
+__all__ = ["SidedFit", "fit_sided", "has_transition", "fit_sides", "fit_margin", "solved_near", "applies_sided", "reverse_sides",
            "describe_sided", "SIDE_BAND", "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC"]
 
 logger = logging.getLogger(__name__)
@@ -122,6 +122,11 @@ def _transition_family(name: str):
     except (InputError, KeyError):
         return None
     return fam if isinstance(fam, Transition) else None
+
+
+def has_transition(family: str) -> bool:
+    """True for a ``<base>-transition`` family (M_max and the curves jump across a surface in its box)."""
+    return _transition_family(family) is not None
 
 
 def solved_near(data: TrainingData, fam) -> np.ndarray:

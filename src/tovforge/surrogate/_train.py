@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 import time
+import warnings
 
 import numpy as np
 
@@ -13,6 +14,7 @@ from ._data import TrainingData, emulated_outputs, read_training_data
 from ._kinds import check_kind, resolve, settings_for
 from ._meta import ModelMeta, Training, new_outputs
 from ._model import Surrogate
+from ._sided import has_transition
 
 __all__ = ["train", "train_on"]
 
@@ -64,6 +66,12 @@ def train_on(data: TrainingData, kind: str = "spline", settings=None) -> Surroga
         raise InputError(f"training needs at least {n_min} usable points for {d} parameters (the quadratic "
                          f"trend has {n_min} terms); the grid has {n}: run a grid with more points.")
     m = resolve(kind, data)
+    if m.name != "sided" and has_transition(data.family):
+        warnings.warn(f"{data.family}: the {kind} kind fits one {m.name} model over both sides of the jump of "
+                      "M_max at the transition; measured on the family's default box it misses every accuracy "
+                      "target (held-out M_max p95 0.21 Msun) and flags most stars untrusted. Two-sided splines "
+                      "need the spline kind and 72 to 8,192 training rows on each side (DEVELOPERS.md, "
+                      "Surrogates).", UserWarning, stacklevel=2)
     if m.kind != kind:
         logger.info("%s kind, %d training points: fitted by the %s method (%s)", kind, n, m.name, m.description)
     settings = settings_for(kind, m, settings)

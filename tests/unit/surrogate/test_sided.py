@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import dataclasses
 
+import warnings
+
 import numpy as np
 import pytest
 from helpers import import_file
@@ -149,6 +151,12 @@ def test_transition_grid_trains_two_sides_by_default(transition_grid):
     keep = near & (np.cumsum(near) <= 40)  # 40 near rows (a side needs (d + 1)(d + 2) = 72) and every far row
     assert resolve("spline", data.rows(keep | ~near)).name == "rbf"
     assert applies_sided(data) and not applies_sided(data, largest=max(fit.near_rows, fit.far_rows) - 1)
+    # one model over both sides of a transition family's jump is said loudly; the two-sided one is not
+    with pytest.warns(UserWarning, match=r"one rbf model over both sides of the jump"):
+        train_on(data.rows(keep | ~near))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        train_on(data)
 
 
 def test_margins_that_disagree_with_the_solved_sides_are_reported(pair):
