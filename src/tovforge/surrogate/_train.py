@@ -11,7 +11,7 @@ import numpy as np
 from .._provenance import provenance
 from ..errors import InputError
 from ._data import TrainingData, emulated_outputs, read_training_data
-from ._kinds import check_kind, resolve, settings_for
+from ._kinds import DENSE_LIMIT, check_kind, resolve, settings_for
 from ._meta import ModelMeta, Training, new_outputs
 from ._model import Surrogate
 from ._sided import has_transition
@@ -70,8 +70,8 @@ def train_on(data: TrainingData, kind: str = "spline", settings=None) -> Surroga
         warnings.warn(f"{data.family}: the {kind} kind fits one {m.name} model over both sides of the jump of "
                       "M_max at the transition; measured on the family's default box it misses every accuracy "
                       "target (held-out M_max p95 0.21 Msun) and flags most stars untrusted. Two-sided splines "
-                      "need the spline kind and 72 to 8,192 training rows on each side (DEVELOPERS.md, "
-                      "Surrogates).", UserWarning, stacklevel=2)
+                      f"need the spline kind and {(d + 1) * (d + 2)} to {DENSE_LIMIT} training rows on each side "
+                      "(DEVELOPERS.md, Surrogates).", UserWarning, stacklevel=2)
     if m.kind != kind:
         logger.info("%s kind, %d training points: fitted by the %s method (%s)", kind, n, m.name, m.description)
     settings = settings_for(kind, m, settings)
