@@ -170,7 +170,7 @@ def export_model(model, out, report=None, *, namespaces=NAMESPACES, created_utc:
         routine), so a file with stored weights reproduces the library's numbers
         as closely as the files of the other methods do (the same weights; only
         the sums' order can differ), at about 4 times the size (92 against 22.9 MB
-        at 32,751 points) and without the import's solves (20-25 s at 32k).
+        at 32,751 points) and without the import's solves (15 s at 32k on a quiet machine).
         Other methods always store their weights.
 
     Returns

@@ -38,8 +38,8 @@ is zero, the cells carry their own polynomials):
     Exported files carry these instead of ``alpha``, the cells' polynomials and
     ``loo_residual``, and solve the cells again at import
     (:func:`~tovforge.surrogate._runtime.local_rebuild`, the training's own
-    function): at 32,751 points 22.9 MB instead of 92 MB, about 15-20 s of
-    import; on another LAPACK the rebuilt weights differ by rounding (measured
+    function): at 32,751 points 22.9 MB instead of 92 MB, 15 s of import on a
+    quiet machine; on another LAPACK the rebuilt weights differ by rounding (measured
     with SciPy's inverse instead of NumPy's: M_max 1.6e-7 Msun, R(1.4) 1.7e-6 km,
     Lambda(1.4) 1e-6 relative at most over 2,000 random theta).  Models saved
     before it existed export their weights as they are.
