@@ -184,8 +184,10 @@ def header(model, check, info: dict, namespaces: dict) -> str:
         "Both guard against accidental edits, not against someone who changes a check along with the file.",
         "NumPy queries run code generated for this model",
         f"({info['generated']});",
-        "other array libraries run the general runtime, the reference the generated code reproduces",
-        "(checked at export, below).",
+        *(("other array libraries are refused: this method evaluates under NumPy only (rows are grouped",
+           "by index assignment).") if model.method_info.numpy_only else
+          ("other array libraries run the general runtime, the reference the generated code reproduces",
+           "(checked at export, below).")),
         "",
         "Model",
         "-----",

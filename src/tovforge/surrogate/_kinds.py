@@ -114,6 +114,8 @@ class Method:
     serves : tuple of str
         Other kinds this method fits when none of their own methods applies
         (the model then records that kind and this method).
+    numpy_only : bool
+        Its runtime part runs under NumPy only (other array namespaces are refused).
     """
 
     name: str
@@ -132,6 +134,7 @@ class Method:
     describe: Callable | None = None
     template: Template | None = None
     serves: tuple = ()
+    numpy_only: bool = False
 
 
 #: Every method, by name, in the order in which the methods of a kind are tried.
@@ -146,7 +149,7 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            "per side of the near/far discontinuity of the first maximum, the side chosen by emulated margins "
            "(Seidov's and a scanned one; NumPy only)",
            fit_sided, SplineSettings, SidedFit, arrays=SIDED_ARRAYS, static_arrays=SIDED_STATIC, has_std=True,
-           reverse=reverse_sides, applies=_sided_applies, describe=describe_sided),
+           reverse=reverse_sides, applies=_sided_applies, describe=describe_sided, numpy_only=True),
     Method("tensor", "spline", "tensor-product cubic B-splines on a regular grid",
            fit_tensor, SplineSettings, TensorFit, settings_recorded=False,
            arrays=("knots", "n_knots", "coef", "coef_shape"), static_arrays=("n_knots", "coef_shape", "knots"),
@@ -162,7 +165,7 @@ METHODS: dict[str, Method] = {m.name: m for m in (
                    "cell_half", "loo_residual", "error_scale"),
            static_arrays=("group_columns", "group_patches", "patch_index", "patch_rows", "local_powers",
                           "cell_counts"), reverse=reverse_patches,
-           describe=describe_local, serves=("spline",)),
+           describe=describe_local, serves=("spline",), numpy_only=True),
 )}
 
 

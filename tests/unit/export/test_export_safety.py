@@ -287,3 +287,13 @@ def test_a_huge_batch_is_evaluated_in_blocks_of_bounded_memory(models, tmp_path)
     assert excess[200_000] < 48e6, excess
     np.testing.assert_array_equal(res.value[:100], small.value)  # blocks change no bits
     np.testing.assert_array_equal(res.grad[:100], small.grad)
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_header_says_which_array_libraries_run_the_file(kind, exported, models):
+    """Methods whose runtime part is NumPy only (local, two-sided) say so instead of promising other libraries."""
+    head = exported[kind][1].read_text().split('"""', 2)[1]
+    numpy_only = models[kind].method_info.numpy_only
+    assert numpy_only == (models[kind].method == "local")  # among the small models of the fixtures
+    assert ("other array libraries are refused" in head) == numpy_only
+    assert ("other array libraries run the general runtime" in head) == (not numpy_only)
