@@ -50,9 +50,9 @@ COMMON_STATIC = ("trend_powers", "warp_log", "warp_shift", "curve_slices")
 #: Most training points of a dense (global) RBF fit for the spline kind.  Above it the spline kind
 #: fits the local method (a partition of unity of the same r^5 splines), whose training is a set of
 #: small solves and whose cost per query does not grow with n.  Measured on this 2-core machine
-#: (DEVELOPERS.md, Surrogates): the dense fit trains in about 15 s at 4,093 points and several
-#: minutes at 8,025 (two stretches fitted and compared), and would need 8.6 GB for one matrix at 32k;
-#: the local method trains 32,751 points in about 5 minutes.  8,192 is the largest design the
+#: (`tovforge bench --only scaling`, quiet): the dense fit trains 4,093 points in 18.5 s and 8,188 in
+#: 102 s (two stretches fitted and compared), and would need 8.6 GB for one matrix at 32k; the local
+#: method trains 32,751 points in 27.8 s.  8,192 is the largest design the
 #: sound-speed and spectral targets of issue 13 allow, where the dense fit reaches them.
 DENSE_LIMIT = 8192
 

@@ -1052,21 +1052,19 @@ def error_neighbours_one(xp, m, xr, K):
 
 
 def _error_model_rows(xp, x, m, skip):
+    found = None
     if (_is_numpy(xp) and x.shape[0] == 1 and skip == 0
             and m[error_points_name(m)].shape[0] >= BUCKET_MIN_POINTS):
         found = error_neighbours_one(xp, m, x[0], ERROR_NEIGHBOURS)
-        if found is not None:
-            nn, d2 = found
-            order = xp.argsort(d2)
-            dist = xp.sqrt(xp.where(d2[order] > 0.0, d2[order], 0.0))
-            return (error_model_from_neighbours(xp, m, nn[order][None, :], dist[None, :]),)
-    XT, X2 = _error_points(xp, m)
-    q = xp.matmul(x * -2.0, XT)
-    q += xp.sum(x * x, axis=-1)[:, None]
-    q += X2
-    K = min(ERROR_NEIGHBOURS + skip, X2.shape[1])
-    nn = nearest(xp, q, K)
-    d2 = xp.take_along_axis(q, nn, axis=-1)
+    if found is not None:  # the buckets around the one row
+        nn, d2 = found[0][None, :], found[1][None, :]
+    else:  # every point
+        XT, X2 = _error_points(xp, m)
+        q = xp.matmul(x * -2.0, XT)
+        q += xp.sum(x * x, axis=-1)[:, None]
+        q += X2
+        nn = nearest(xp, q, min(ERROR_NEIGHBOURS + skip, X2.shape[1]))
+        d2 = xp.take_along_axis(q, nn, axis=-1)
     order = xp.argsort(d2, axis=-1)
     nn = xp.take_along_axis(nn, order, axis=-1)[:, skip:]
     d2 = xp.take_along_axis(d2, order, axis=-1)[:, skip:]
@@ -1767,21 +1765,22 @@ STD["sided"] = _sided_std
 PARTS = {"gp": _gp_part, "rbf": _rbf_part, "tensor": _tensor_part, "local": _local_part, "sided": _sided_part}
 
 #: Methods whose exported files leave arrays out and rebuild them at import: method -> (the arrays left out,
-#: ``rebuild(xp, arrays) -> dict`` of them).  Used only when the model has what the rebuild reads.
-REBUILT = {"local": (LOCAL_REBUILT, local_rebuild)}
+#: the array the rebuild reads, ``rebuild(xp, arrays) -> dict`` of them).  Used only when the model has the
+#: array the rebuild reads (models saved before it existed export their arrays as they are).
+REBUILT = {"local": (LOCAL_REBUILT, "local_targets", local_rebuild)}
 
 
 def shipped_arrays(method, arrays):
     """The arrays an exported file carries: without those its import rebuilds (see :data:`REBUILT`)."""
-    left_out, _ = REBUILT.get(method, ((), None))
-    if not left_out or arrays.get("local_targets") is None:
+    left_out, source, _ = REBUILT.get(method, ((), None, None))
+    if not left_out or arrays.get(source) is None:
         return dict(arrays)
     return {k: v for k, v in arrays.items() if k not in left_out}
 
 
 def rebuilt_arrays(xp, method, arrays):
     """``arrays`` with what an exported file left out solved again (the arrays as they are if nothing is missing)."""
-    left_out, rebuild = REBUILT.get(method, ((), None))
+    left_out, _, rebuild = REBUILT.get(method, ((), None, None))
     if not left_out or all(k in arrays for k in left_out):
         return arrays
     return {**arrays, **rebuild(xp, arrays)}
