@@ -12,13 +12,13 @@ BOX = np.array([[34.0, 35.0], [2.0, 4.0], [1.5, 4.0], [1.5, 4.0]])
 U = chebyshev_lobatto_nodes(12, 0.85)
 
 
-def truth(theta):
-    """Smooth made-up outputs: scalars (n,) and curves (n, n_u)."""
+def truth(theta, u=None):
+    """Smooth made-up outputs: scalars (n,) and curves (n, n_u) (at ``u`` (n, k) instead of the nodes U if given)."""
     x = (theta - BOX[:, 0]) / (BOX[:, 1] - BOX[:, 0])
     mmax = 1.6 + 0.8 * x[:, 0] + 0.3 * np.sin(2.0 * x[:, 1]) + 0.1 * x[:, 2] * x[:, 3]
     lp = 35.5 + 0.4 * x[:, 1] - 0.2 * x[:, 0] ** 2
     cs2 = 0.5 + 0.3 * np.cos(1.5 * x[:, 2]) * x[:, 0]
-    u = U[None, :]
+    u = U[None, :] if u is None else u
     radius = 11.0 + 2.0 * x[:, :1] + 1.5 * u**2 + 0.3 * np.sin(3.0 * u + x[:, 1:2])
     lnlam = 2.0 + 6.0 * u + 0.5 * x[:, 3:4] - 0.4 * u * x[:, 0:1]
     lni = 0.5 + 0.4 * x[:, 2:3] - 1.2 * u**2

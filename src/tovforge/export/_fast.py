@@ -355,7 +355,7 @@ def _row(a):
 def _fast_at_mass(query, t, lead, mass, grad, std, strict):
     """A query at masses for one theta, as the contract's ``query_at_mass``; None for mass forms it leaves to it."""
     parsed = _one_masses(mass, lead)
-    if parsed is None:
+    if parsed is None or _M.method == "sided":  # (two-sided: a far row's curves sit at nodes of t)
         return None
     masses, tail = parsed
     plan = _PLANS[query]
@@ -390,7 +390,7 @@ def _fast_at_mass(query, t, lead, mass, grad, std, strict):
 
 def _fast_curve(t, lead, n, strict):
     """The stable branch at n points for one theta, as the contract's ``query_curve``; None for an unusual n."""
-    if type(n) is not int or n < 1:
+    if type(n) is not int or n < 1 or _M.method == "sided":
         return None
     plan = _PLANS["curve"]
     out = _outputs_one(plan, t, False, False)

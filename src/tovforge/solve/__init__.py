@@ -9,7 +9,7 @@ The solver integrates the structure equations in the pseudo-enthalpy
 from __future__ import annotations
 
 from ._love import love_k2, tidal_deformability
-from ._margin import NEAR_DECADES, JumpMargins, jump_margins
+from ._margin import NEAR_DECADES, JumpMargins, jump_margins, jump_stars
 from ._maximum import max_sound_speed_sq
 from ._queries import MassQuery, stars_at_masses
 from ._result import MaximumMass, StarProfile, Stars, StarSequence
@@ -22,6 +22,7 @@ __all__ = [
     "JumpMargins",
     "NEAR_DECADES",
     "jump_margins",
+    "jump_stars",
     "MassQuery",
     "MaximumMass",
     "SequenceBatch",

@@ -33,9 +33,10 @@ import numpy as np
 from ..eos._transition import seidov_limit
 from ..units import MSUN_KM
 from ._structure import StepSettings
-from ._surface import integrate
+from ._result import Stars
+from ._surface import integrate, surface_fields, to_stars
 
-__all__ = ["JumpMargins", "jump_margins", "NEAR_DECADES", "SCAN_FRACTIONS"]
+__all__ = ["JumpMargins", "jump_margins", "jump_stars", "NEAR_DECADES", "SCAN_FRACTIONS", "BELOW_JUMP"]
 
 #: Decades of pressure above the transition within which a first maximum counts as "near" (no solved first
 #: maximum of the training and held-out sets of LOG.md lies between 0.05 and 0.5 decades above p_t).
@@ -43,6 +44,9 @@ NEAR_DECADES = 0.3
 #: Where the scan puts its stars: ``h_c - h_t`` as fractions of the near window (geometric, 100 stars; the
 #: research's scan, which agreed with fine scans of 2,000 stars on every EOS it was compared on).
 SCAN_FRACTIONS = np.geomspace(1e-5, 1.0, 100)
+#: A star "at the jump" is centred at ``h_t (1 - BELOW_JUMP)``: the lighter phase's side, whose mass is the
+#: transition mass M_t (M(h_c) is continuous there, its slope is not).
+BELOW_JUMP = 1e-9
 
 
 @dataclass(frozen=True)
@@ -108,9 +112,28 @@ def jump_margins(batch, steps: StepSettings | None = None, chunk: int = 64) -> J
         n = b.n_eos
         dh = near_window(b)[:, None] * SCAN_FRACTIONS[None, :]
         # the star centred just below the jump first: a fall right at the jump (a cusp) counts
-        h_c = np.concatenate([b.h_t[:, None] * (1.0 - 1e-9), b.h_t[:, None] + dh], axis=1)
+        h_c = np.concatenate([b.h_t[:, None] * (1.0 - BELOW_JUMP), b.h_t[:, None] + dh], axis=1)
         values, _ = integrate(b, np.repeat(np.arange(n), k), h_c.ravel(), steps)
         mass = values["mass"].reshape(n, k) / MSUN_KM
         z = np.concatenate([np.zeros((n, 1)), dh**1.5], axis=1)
         scanned.append(np.min(np.diff(mass, axis=1) / np.diff(z, axis=1), axis=1))  # NaN if a star failed
     return JumpMargins(seidov=np.asarray(seidov, float), scanned_msun=np.concatenate(scanned))
+
+
+def jump_stars(batch, steps: StepSettings | None = None) -> Stars:
+    """The star centred just below the jump of every EOS of a transition batch (``h_t (1 - BELOW_JUMP)``).
+
+    Its mass is the transition mass M_t, where the mass-radius curve of a
+    connected hybrid branch kinks (the far side's curves of a two-sided
+    surrogate have a node there).  One star per EOS; failures NaN.
+
+    Returns
+    -------
+    Stars
+        Fields of shape (n_eos,).
+    """
+    steps = steps or StepSettings()
+    idx = np.arange(batch.n_eos)
+    h_c = np.asarray(batch.h_t, float) * (1.0 - BELOW_JUMP)
+    values, _ = integrate(batch, idx, h_c, steps)
+    return to_stars(batch, idx, h_c, surface_fields(values))

@@ -28,7 +28,7 @@ namespace ``xp``.
 import dataclasses
 
 from ._runtime import (MASS_MAX, TRUST_LIMITS, branch_curve, curve_at_mass, named_outputs, named_std,
-                       needed_columns, output_std, outputs, star_queries, unit_inputs)
+                       needed_columns, nodes_at_u, output_std, outputs, star_queries, unit_inputs)
 
 __all__ = ["QueryError", "Estimate", "Curve", "Prediction", "MassPrediction", "AT_MASS_FIELDS", "QUERY_DOCS",
            "device_of", "query_in_domain", "query_mass_max", "query_at_mass", "query_curve", "query_predict",
@@ -394,6 +394,7 @@ def query_curve(xp, m, theta, n=100, strict=False):
 
 
 def _prediction(xp, m, y, inside, sd, batch):
+    y, sd = nodes_at_u(xp, m, y, sd)
     f = named_outputs(xp, m, y)
     f["mass_max_margin_msun"] = f[MASS_MAX] - m.mass_floor_msun
     f["causality_margin"] = 1.0 - f["max_sound_speed_sq"]

@@ -63,6 +63,9 @@ class TrainingData:
     regular_shape : tuple or None
         Points per axis when the design is a complete regular grid (rows in C order).
     provenance : dict
+    trailing : tuple of str
+        Names of ``scalars`` a model learns after the curves (the far side of a
+        two-sided model: the transition mass); empty for grids' data.
     """
 
     family: str
@@ -76,9 +79,11 @@ class TrainingData:
     mass_floor_msun: float = 0.5
     regular_shape: tuple | None = None
     provenance: dict = field(default_factory=dict)
+    trailing: tuple = ()
 
     def output_matrix(self) -> tuple[np.ndarray, np.ndarray]:
-        """Outputs as one matrix (n, n_out) in the order of :func:`emulated_outputs`, and the curve slices."""
+        """Outputs as one matrix (n, n_out) in the order of :func:`emulated_outputs` (then ``trailing``), and the
+        curve slices."""
         sequence, star = emulated_outputs()
         cols = [self.scalars[q.model_name][:, None] for q in sequence]
         slices = []
@@ -88,6 +93,7 @@ class TrainingData:
             cols.append(c)
             slices.append((start, start + c.shape[1]))
             start += c.shape[1]
+        cols += [self.scalars[name][:, None] for name in self.trailing]
         return np.hstack(cols), np.array(slices, dtype=np.int64)
 
     def rows(self, keep) -> TrainingData:

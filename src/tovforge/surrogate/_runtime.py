@@ -700,6 +700,9 @@ def _rbf_blocks(m, columns):
     """
     cs = m["curve_slices"]
     blocks = [(i, i + 1) for i in range(int(cs[0, 0]))] + [(int(a), int(b)) for a, b in cs]
+    # scalars after the curves (the far side of a two-sided model: the transition mass)
+    width = m.get("out_mean")
+    blocks += [(i, i + 1) for i in range(int(cs[-1, 1]), int(cs[-1, 1]) if width is None else width.shape[0])]
     if columns is None:
         return blocks
     return [(a, b) for a, b in blocks if _touches(a, b, columns)]
@@ -894,8 +897,11 @@ def spline_in_u(xp, m, values, u, weights=True):
     values (for gradients and error propagation; None otherwise).  Outside
     [0, u_max] gives NaN.
     """
-    un = m["u_nodes"]
-    C = m["spline_c"]  # (4, n_u - 1, n_u)
+    return spline_on(xp, m["u_nodes"], m["spline_c"], values, u, weights)
+
+
+def spline_on(xp, un, C, values, u, weights=True):
+    """:func:`spline_in_u` on any nodes ``un`` (k,) with their cardinal coefficients ``C`` (4, k - 1, k)."""
     n_int = un.shape[0] - 1
     flat = xp.reshape(u, (-1,))
     safe = xp.where(flat == flat, flat, 0.0)  # NaN-safe lookup
@@ -1248,11 +1254,15 @@ def branch_curve(xp, m, y, s):
     ``y`` (n, n_out) from :func:`outputs`; ``s`` (q,) in [0, 1] (1: the
     lightest emulated star, 0: M_max).  The points sit at the same ``u`` for
     every row, so one matrix of spline weights (n_u, q) serves all rows:
-    the same values as :func:`curve_at_mass` at these masses, to rounding.
+    the same values as :func:`curve_at_mass` at these masses, to rounding
+    (two-sided models, whose far rows' curves sit at nodes of t: through it).
     """
     un = m["u_nodes"]
     u = un[-1] * s
     masses = y[:, m.i_mass_max][:, None] * (1.0 - u * u)[None, :]
+    if m.method == "sided":
+        return (masses,) + tuple(curve_at_mass(xp, m, y, None, None, masses, q)[0]
+                                 for q in ("radius", "tidal_deformability"))
     W = _curve_weights(xp, m, u)
     out = [masses]
     for query in ("radius", "tidal_deformability"):
@@ -1269,6 +1279,8 @@ def curve_at_mass(xp, m, y, dy, sd, mass, query):
     to (n, q) in Msun; ``query`` one of :func:`star_queries`.  Returns
     ``(value, grad, std)``: value (n, q), NaN above M_max, below the emulated
     range or outside the box; grad (n, q, d) and std (n, q), or None.
+    Two-sided models interpolate their far rows' curves in t instead
+    (:func:`_t_curve`).
     """
     grad, std = dy is not None, sd is not None
     n = y.shape[0]
@@ -1277,12 +1289,30 @@ def curve_at_mass(xp, m, y, dy, sd, mass, query):
     if query in DERIVED:
         needs, rule = DERIVED[query]
         return rule(xp, mass, [curve_at_mass(xp, m, y, dy, sd, mass, q) for q in needs], grad, std)
+    o = _star_output(m, query)
+    if m.method == "sided":
+        far = _far_rows(xp, m, y)
+        if not bool(xp.any(far)):
+            out = _u_curve(xp, m, y, dy, sd, mass, o)
+        elif bool(xp.all(far)):
+            out = _t_curve(xp, m, y, dy, sd, mass, o)
+        else:  # each row from its own side's curve
+            pairs = zip(_t_curve(xp, m, y, dy, sd, mass, o), _u_curve(xp, m, y, dy, sd, mass, o))
+            out = tuple(None if t is None else xp.where(far[:, None, None] if t.ndim == 3 else far[:, None], t, u)
+                        for t, u in pairs)
+    else:
+        out = _u_curve(xp, m, y, dy, sd, mass, o)
+    return _inverse_with(xp, o[3], *out)
+
+
+def _u_curve(xp, m, y, dy, sd, mass, o):
+    """The output ``o``'s node curve at masses (n, q) through u, in the modelled units: (value, grad, std)."""
+    grad, std = dy is not None, sd is not None
     im = m.i_mass_max
     mmax = y[:, im][:, None]
     ratio = mass / mmax
     ok = (mass > 0.0) & (ratio <= 1.0)
     u = xp.sqrt(xp.where(ok, 1.0 - ratio, float("nan")))
-    o = _star_output(m, query)
     a, b = o[5], o[6]
     val, der, w = spline_in_u(xp, m, y[:, a:b], u, weights=grad or std)
     g = None
@@ -1297,7 +1327,124 @@ def curve_at_mass(xp, m, y, dy, sd, mass, query):
         dudm = mass / (2.0 * u * mmax * mmax)
         s_nodes = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
         s = xp.sqrt(s_nodes**2 + (der * dudm * sd[:, im][:, None]) ** 2)
-    return _inverse_with(xp, o[3], val, g, s)
+    return val, g, s
+
+
+# ---------------------------------------------------------------------------
+# The far side of a two-sided model: curves at nodes of t, with the transition mass at t = 1/2
+# ---------------------------------------------------------------------------
+
+#: Where a far row's curve begins: at the u range's lightest star ``M_max (1 - u_max^2)``, or at this fraction
+#: of the transition mass M_t if that is lighter (the segment below M_t then keeps some length).
+FAR_LOW_FRACTION = 0.9
+
+
+def transition_column(m):
+    """The output column of the transition mass M_t in a two-sided model (its last; NaN on near rows)."""
+    return m["out_mean"].shape[0] - 1
+
+
+def _far_rows(xp, m, y):
+    """Rows of a two-sided model's outputs y (n, n_out) that its far side answered (their M_t is a number)."""
+    mt = y[:, transition_column(m)]
+    return mt == mt
+
+
+def far_low_mass(xp, umax, mmax, mt):
+    """The lightest mass [Msun] of a far row's curve (see :data:`FAR_LOW_FRACTION`), and where it is set by M_max."""
+    a = mmax * (1.0 - umax * umax)
+    b = FAR_LOW_FRACTION * mt
+    return xp.where(a < b, a, b), a < b
+
+
+def t_node_masses(xp, t_nodes, umax, mmax, mt):
+    """Masses (n, k) [Msun] of the nodes ``t_nodes`` (k,) for maximum and transition masses (n,) in Msun.
+
+    ``t`` in [0, 1/2]: ``M = M_lo + 2 t (M_t - M_lo)`` (the stars below the jump;
+    ``M_lo`` from :func:`far_low_mass`); ``t`` in [1/2, 1]: ``M = M_max - (M_max -
+    M_t) (2 - 2 t)^2`` (the hybrid stars, crowded towards M_max as ``u`` crowds them).
+    """
+    mlo = far_low_mass(xp, umax, mmax, mt)[0][:, None]
+    t = t_nodes[None, :]
+    h = 2.0 - 2.0 * t
+    low = mlo + 2.0 * t * (mt[:, None] - mlo)
+    high = mmax[:, None] - (mmax - mt)[:, None] * h * h
+    return xp.where(t <= 0.5, low, high)
+
+
+def _t_curve(xp, m, y, dy, sd, mass, o, positions=True):
+    """:func:`_u_curve` for far rows of a two-sided model: one cubic spline per segment of t (see
+    :func:`t_node_masses`), the node at t = 1/2 shared.  The gradient and sigma carry the moves of t with
+    M_max and M_t (``positions``; without: the node values' alone)."""
+    grad, std = dy is not None, sd is not None
+    im, it = m.i_mass_max, transition_column(m)
+    mmax, mt = y[:, im][:, None], y[:, it][:, None]
+    nan = float("nan")
+    umax = m["u_nodes"][-1]
+    mlo, by_max = far_low_mass(xp, umax, mmax, mt)
+    low = (mass >= mlo) & (mass <= mt)
+    high = (mass > mt) & (mass <= mmax)
+    width = mt - mlo
+    tl = xp.where(low, (mass - mlo) / (2.0 * width), nan)
+    sr = xp.sqrt(xp.where(high, (mmax - mass) / (mmax - mt), nan))
+    th = 1.0 - 0.5 * sr
+    tn, Cl, Ch = m["t_nodes"], m["t_low_c"], m["t_high_c"]
+    nl, a, b = Cl.shape[-1], o[5], o[6]
+    want = grad or std
+    vl, derl, wl = spline_on(xp, tn[:nl], Cl, y[:, a : a + nl], tl, want)
+    vh, derh, wh = spline_on(xp, tn[nl - 1 :], Ch, y[:, a + nl - 1 : b], th, want)
+    val = xp.where(low, vl, vh)
+    if not want:
+        return val, None, None
+    w = xp.where(low[:, :, None], xp.concat([wl, xp.zeros(wl.shape[:2] + (b - a - nl,), dtype=wl.dtype)], axis=-1),
+                 xp.concat([xp.zeros(wh.shape[:2] + (nl - 1,), dtype=wh.dtype), wh], axis=-1))
+    g = xp.matmul(w, dy[:, a:b, :]) if grad else None
+    s = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1) if std else None  # correlated nodes: a safe bound
+    if not positions:
+        return val, g, s
+    # dv/dM_max and dv/dM_t at a fixed mass, dv/dt times: below M_t through M_lo (which follows M_max or M_t),
+    # above through r = (M_max - M) / (M_max - M_t), t = 1 - sqrt(r) / 2 (infinite at M_max, as du/dM_max)
+    der = xp.where(low, derl, derh)
+    w2 = 2.0 * width * width
+    dl_dlo = (mass - mt) / w2
+    dl_dmax = dl_dlo * xp.where(by_max, 1.0 - umax * umax, 0.0)
+    dl_dt = -(mass - mlo) / w2 + dl_dlo * xp.where(by_max, 0.0, FAR_LOW_FRACTION)
+    span2 = (mmax - mt) * (mmax - mt)
+    dh_dr = -0.25 / sr
+    dv_dmax = xp.where(low, dl_dmax, dh_dr * (mass - mt) / span2) * der
+    dv_dmt = xp.where(low, dl_dt, dh_dr * (mmax - mass) / span2) * der
+    if grad:
+        g = g + dv_dmax[:, :, None] * dy[:, im, :][:, None, :] + dv_dmt[:, :, None] * dy[:, it, :][:, None, :]
+    if std:
+        s = xp.sqrt(s * s + (dv_dmax * sd[:, im][:, None]) ** 2 + (dv_dmt * sd[:, it][:, None]) ** 2)
+    return val, g, s
+
+
+def nodes_at_u(xp, m, y, sd):
+    """Outputs y (n, n_out) and sigmas sd (or None) with every curve at the u nodes.
+
+    Two-sided models' far rows hold their curves at nodes of t: their values at
+    the u nodes' masses ``M_max (1 - u^2)`` replace them (sigmas of the node
+    values alone: the u nodes move with M_max).  Other rows and models as they are.
+    """
+    if m.method != "sided":
+        return y, sd
+    far = _far_rows(xp, m, y)
+    if not bool(xp.any(far)):
+        return y, sd
+    rows = xp.nonzero(far)[0]
+    yf = xp.take(y, rows, axis=0)
+    sf = None if sd is None else xp.take(sd, rows, axis=0)
+    mass = yf[:, m.i_mass_max][:, None] * (1.0 - m["u_nodes"] ** 2)[None, :]
+    y = xp.asarray(y, copy=True)
+    sd = None if sd is None else xp.asarray(sd, copy=True)
+    for o in m.outputs:
+        if o[2] == "star":
+            val, _, s = _t_curve(xp, m, yf, None, sf, mass, o, positions=False)
+            y[rows, o[5] : o[6]] = val
+            if sd is not None:
+                sd[rows, o[5] : o[6]] = s
+    return y, sd
 
 
 # ---------------------------------------------------------------------------
@@ -1737,15 +1884,34 @@ def _by_side(xp, m, x, near, fn):
     return out
 
 
+def _sided_columns(m, columns):
+    """The output ranges a two-sided model's sides evaluate: ``columns`` and the transition mass's (the far
+    side's curves are placed by it)."""
+    if columns is None:
+        return None
+    it = transition_column(m)
+    return list(columns) + [(it, it + 1)]
+
+
+def _padded(xp, a, width):
+    """``a`` (n, k, ...) with NaN columns up to ``width`` (the near side has no transition mass)."""
+    if a.shape[1] == width:
+        return a
+    return xp.concat([a, _nan_block(xp, a.shape[0], width - a.shape[1], a, a.shape[2] if a.ndim == 3 else None)],
+                     axis=1)
+
+
 def _sided_part(xp, m, x, grad, columns):
     """Two-sided models: each row's outputs from the sub-model of its emulated side (NumPy only)."""
     near = sided_choice(xp, m, x)[0]
     span = m["hi"] - m["lo"]
+    width = m["out_mean"].shape[0]
+    cols = _sided_columns(m, columns)
 
     def side(sub, t):
-        y, _, dy = outputs(xp, sub, t, grad, columns)
+        y, _, dy = outputs(xp, sub, t, grad, cols)
         # d/dx of the plain unit box: d/dtheta times its span (outputs() divides by it again)
-        return (y, dy * span) if grad else (y,)
+        return (_padded(xp, y, width), _padded(xp, dy * span, width)) if grad else (_padded(xp, y, width),)
 
     out = _by_side(xp, m, x, near, side)
     return out[0], (out[1] if grad else None)
@@ -1755,7 +1921,8 @@ def _sided_std(xp, m, x, columns):
     """Two-sided models: the sigma of each row's side (its sub-model's error model); ``BAND_SIGMA`` at least
     where the side is uncertain."""
     near, unsure = sided_choice(xp, m, x)
-    s = _by_side(xp, m, x, near, lambda sub, t: (output_std(xp, sub, t, columns),))[0]
+    width, cols = m["out_mean"].shape[0], _sided_columns(m, columns)
+    s = _by_side(xp, m, x, near, lambda sub, t: (_padded(xp, output_std(xp, sub, t, cols), width),))[0]
     return xp.where(unsure[:, None], xp.maximum(s, BAND_SIGMA), s)
 
 

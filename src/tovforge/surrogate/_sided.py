@@ -28,10 +28,20 @@ The training rows are split by the grid's solved first maximum (within
 side's spline learns; the margins' rule (``s > 0 or g < 0``) is checked against
 it and disagreements are logged and recorded in the model.
 
+On the far side R(M) and Lambda(M) kink at the transition mass M_t (the star
+centred at the jump), which moves along the grid's ``u`` nodes with the
+parameters, so node values there are not smooth in the parameters (held-out R
+p95 146 m from the grid's nodes, LOG.md).  The far side's spline therefore
+learns M_t (a scalar after the curves) and each curve at nodes of a coordinate
+``t`` with M_t at t = 1/2 (:func:`far_t_nodes`,
+:func:`~tovforge.surrogate._runtime.t_node_masses`), solved exactly at training
+(:func:`far_curves`); queries interpolate one cubic spline per segment of t.
+
 Arrays of a model (beside the common ones of :mod:`._kinds`; its own trend is
 zero and its outputs unstandardised, the sub-models carry theirs): ``X`` (n, d)
-every training point in the plain unit box; ``side_band`` (1,); the arrays of
-each sub-model (an ``rbf`` model's) under the prefixes ``near__`` and
+every training point in the plain unit box; ``side_band`` (1,); the far side's
+nodes ``t_nodes`` (n_u,) and the cardinal cubic-spline coefficients of its two
+segments ``t_low_c``, ``t_high_c``; the arrays of each sub-model (an ``rbf`` model's) under the prefixes ``near__`` and
 ``far__``, and of each margin model (``X``, ``alpha`` (n, 1), ``trend_powers``,
 ``trend_coef`` (n_terms, 1), ``loo_residual`` (n, 1), ``error_scale`` (1,))
 under ``seidov__`` and ``scanned__``.
@@ -48,17 +58,19 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg
 
+from .. import quantities
 from ..eos import Transition, get_family
 from ..errors import InputError
-from ..solve import NEAR_DECADES, jump_margins
+from ..solve import NEAR_DECADES, jump_margins, jump_stars, solve_sequences
 from . import _runtime as rt
-from ._data import TrainingData
-from ._prepare import FitResult, prepare, saddle_matrix, trend_matrix, trend_powers
+from ._data import TrainingData, emulated_outputs
+from ._prepare import FitResult, prepare, saddle_matrix, spline_cardinal_coefficients, trend_matrix, trend_powers
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
-__all__ = ["SidedFit", "fit_sided", "has_transition", "fit_sides", "fit_margin", "solved_near", "applies_sided", "reverse_sides",
-           "describe_sided", "SIDE_BAND", "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC"]
+__all__ = ["SidedFit", "FarCurves", "fit_sided", "has_transition", "fit_sides", "fit_margin", "far_t_nodes", "far_curves",
+           "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND", "SCANNED_SCALE",
+           "SIDED_ARRAYS", "SIDED_STATIC", "TRANSITION_MASS", "HIGH_CROWDING", "MIN_CURVE_NODES"]
 
 logger = logging.getLogger(__name__)
 
@@ -69,8 +81,15 @@ SIDE_BAND = 3.0
 #: The scanned margin is emulated as ``asinh(g / SCANNED_SCALE)`` (Msun per unit z): g spans -8e3 to 40, and
 #: the sign is what matters (LOG.md).
 SCANNED_SCALE = 10.0
+#: The far side's nodes above M_t crowd towards it as ``s^HIGH_CROWDING`` (s uniform in (0, 1]): 16 such nodes
+#: gave held-out R p95 43.9 m against 47 m uniform (LOG.md, far side).
+HIGH_CROWDING = 1.7
+#: Nodes per curve a grid needs for the far side's t nodes (at least 3 on each segment).
+MIN_CURVE_NODES = 8
+#: The name of the far side's scalar after the curves: the transition mass [Msun].
+TRANSITION_MASS = "transition_mass_msun"
 #: The arrays a two-sided model adds to the common ones (a model without them is refused).
-SIDED_ARRAYS = ("X", "side_band") + tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES for k in ("X", "alpha", "out_mean",
+SIDED_ARRAYS = ("X", "side_band", "t_nodes", "t_low_c", "t_high_c") + tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES for k in ("X", "alpha", "out_mean",
                                                                                          "out_scale", "trend_powers",
                                                                                          "trend_coef", "loo_residual",
                                                                                          "error_scale")) + tuple(
@@ -92,6 +111,10 @@ class SidedFit(Record):
         How a query's side is chosen.
     near_rows, far_rows : int
         Training rows of each side (by the grid's solved first maximum).
+    far_rows_unsolved : int
+        Far rows left out of the far side's spline: a star at one of their t nodes failed.
+    seconds_far_curves : float
+        Time of the far side's exact stars at the t nodes.
     label_disagreements : int
         Rows where the margins' rule (``s > 0 or g < 0``) and the solved first maximum disagree.
     scanned_rows : int
@@ -107,6 +130,8 @@ class SidedFit(Record):
     rule: str = "near if s > 0 or asinh(g / 10) < 0 (emulated); uncertain within 3 sigma of either margin"
     near_rows: int = 0
     far_rows: int = 0
+    far_rows_unsolved: int = 0
+    seconds_far_curves: float = 0.0
     label_disagreements: int = 0
     scanned_rows: int = 0
     margin_loo_p95: dict = field(default_factory=dict)
@@ -142,9 +167,14 @@ def _min_side_rows(d: int) -> int:
 
 def applies_sided(data: TrainingData, largest: int | None = None) -> bool:
     """True for a transition family's data with at least :func:`_min_side_rows` rows on each side (and at most
-    ``largest`` on either, if given: each side is one dense fit)."""
+    ``largest`` on either, if given: each side is one dense fit) and curves at :data:`MIN_CURVE_NODES` nodes
+    or more."""
     fam = _transition_family(data.family)
     if fam is None:
+        return False
+    if len(data.u_nodes) < MIN_CURVE_NODES:
+        logger.info(f"  {data.family}: curves at {len(data.u_nodes)} nodes, not {MIN_CURVE_NODES}: one model over "
+                    "both sides")
         return False
     near = solved_near(data, fam)
     sizes = (int(near.sum()), int((~near).sum()))
@@ -171,6 +201,84 @@ def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
             "loo_residual": sol[:n] / np.diag(inv)[:n, None], "error_scale": np.ones(1)}
 
 
+def far_t_nodes(n: int) -> np.ndarray:
+    """The far side's ``n`` curve nodes of t: 3/8 of them uniform on [0, 1/2] (below M_t, t = 1/2 included),
+    the others on (1/2, 1] crowded towards 1/2 (:data:`HIGH_CROWDING`); t = 1 is M_max."""
+    n_low = max(3, (3 * n) // 8)
+    s = np.linspace(0.0, 1.0, n - n_low + 1)[1:]
+    return np.concatenate([np.linspace(0.0, 0.5, n_low), 0.5 + 0.5 * s**HIGH_CROWDING])
+
+
+def _t_arrays(t_nodes: np.ndarray) -> dict:
+    """The far side's node arrays of a model: the nodes and each segment's cardinal spline coefficients."""
+    n_low = int(np.sum(t_nodes <= 0.5))
+    return {"t_nodes": t_nodes, "t_low_c": spline_cardinal_coefficients(t_nodes[:n_low]),
+            "t_high_c": spline_cardinal_coefficients(t_nodes[n_low - 1:])}
+
+
+@dataclass(frozen=True)
+class FarCurves:
+    """The far side's training curves: the transition mass and each curve at nodes of t.
+
+    Attributes
+    ----------
+    t_nodes : ndarray (k,)
+        The nodes (:func:`far_t_nodes`).
+    transition_mass_msun : ndarray (n,)
+        M_t of every training row [Msun]; NaN where not solved (near rows, failures).
+    curves : dict of ndarray (n, k)
+        The curves at the nodes' masses (:func:`~tovforge.surrogate._runtime.t_node_masses`), in the
+        modelled units, by model name (as :attr:`TrainingData.curves`); NaN where not solved.
+    """
+
+    t_nodes: np.ndarray
+    transition_mass_msun: np.ndarray
+    curves: dict
+
+
+def far_curves(data: TrainingData, rows: np.ndarray, chunk: int = 64) -> FarCurves:
+    """Exact stars at the far side's t nodes for the training ``rows`` (a mask) of a transition family.
+
+    M_t is the star centred just below the jump (:func:`tovforge.solve.jump_stars`, node t = 1/2), the node
+    t = 1 the maximum-mass star, the others the stars of the stable branch at the nodes' masses
+    (:func:`tovforge.solve.solve_sequences`), for the grid's M_max.
+    """
+    fam = _transition_family(data.family)
+    theta = np.asarray(data.theta, float)
+    idx = np.flatnonzero(rows)
+    t_nodes = far_t_nodes(len(data.u_nodes))
+    umax = float(np.asarray(data.u_nodes, float)[-1])
+    star = emulated_outputs()[1]
+    n, k = len(theta), t_nodes.size
+    m_t = np.full(n, np.nan)
+    curves = {q.model_name: np.full((n, k), np.nan) for q in star}
+    mid, top = t_nodes == 0.5, t_nodes == 1.0
+    inner = ~(mid | top)
+
+    def solve(r):
+        batch = fam.build(theta[r])
+        at_jump = jump_stars(batch)
+        m_t[r] = at_jump.mass_msun
+        masses = rt.t_node_masses(np, t_nodes, umax, data.scalars["mass_max_msun"][r], m_t[r])
+        seq = solve_sequences(batch, n_stars=0, masses=np.where(np.isfinite(masses), masses, 1.0)[:, inner])
+        for q in star:
+            c = curves[q.model_name]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                c[np.ix_(r, np.flatnonzero(inner))] = quantities.forward(q, np.asarray(getattr(seq.at_mass, q.name)))
+                c[r[:, None], np.flatnonzero(mid)] = quantities.forward(q, np.asarray(getattr(at_jump, q.name)))[:, None]
+                c[r[:, None], np.flatnonzero(top)] = quantities.forward(
+                    q, np.asarray(getattr(seq.mass_max, q.name)))[:, None]
+
+    for start in range(0, idx.size, chunk):
+        solve(idx[start : start + chunk])
+    # a search that ends short of its tolerance in a batch (the stars just above the jump, where M(h_c) kinks)
+    # may succeed alone; masses below the branch's lightest star (a transition mass within a few per cent of
+    # it) stay NaN
+    for i in idx[~np.all(np.isfinite(curves["radius_km"][idx]), axis=1)]:
+        solve(np.array([i]))
+    return FarCurves(t_nodes=t_nodes, transition_mass_msun=m_t, curves=curves)
+
+
 def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
     """Fit the two-sided spline of a transition family (see the module docstring).
 
@@ -191,11 +299,19 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     margins = jump_margins(fam.build(np.asarray(data.theta, float)))
     seconds = time.perf_counter() - t0
     logger.info(f"  side margins of {len(data.theta)} EOS: {seconds:.1f} s")
-    result = fit_sides(data, settings, margins, solved_near(data, fam))
-    return dataclasses.replace(result, details=dataclasses.replace(result.details, seconds_scan=seconds))
+    near = solved_near(data, fam)
+    t0 = time.perf_counter()
+    far = far_curves(data, ~near)
+    seconds_far = time.perf_counter() - t0
+    logger.info(f"  far side: exact stars at {far.t_nodes.size} nodes of t for {int((~near).sum())} EOS: "
+                f"{seconds_far:.1f} s")
+    result = fit_sides(data, settings, margins, near, far)
+    return dataclasses.replace(result, details=dataclasses.replace(result.details, seconds_scan=seconds,
+                                                                   seconds_far_curves=seconds_far))
 
 
-def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near: np.ndarray) -> FitResult:
+def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near: np.ndarray,
+              far: FarCurves) -> FitResult:
     """The two-sided spline from given margins and sides of the training rows.
 
     Parameters
@@ -207,6 +323,9 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
         Seidov's and the scanned margin of every row (:func:`tovforge.solve.jump_margins`).
     near : ndarray of bool (n,)
         The side each row's outputs belong to (True: near).
+    far : FarCurves
+        The far rows' transition masses and curves at the t nodes (:func:`far_curves`); the far side's spline
+        learns these instead of the grid's curves (rows with a NaN among them are left out).
 
     Returns
     -------
@@ -225,14 +344,26 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
                       UserWarning, stacklevel=2)
     p = prepare(data, False)
     arrays, x = dict(p.arrays), p.x
-    n_out = arrays["out_mean"].shape[0]
+    n_out = arrays["out_mean"].shape[0] + 1  # the transition mass after the curves
     arrays.update(out_mean=np.zeros(n_out), out_scale=np.ones(n_out), X=x, side_band=np.array([SIDE_BAND]),
-                  trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, n_out)))
+                  trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, n_out)),
+                  **_t_arrays(np.asarray(far.t_nodes, float)))
+    solved = np.isfinite(far.transition_mass_msun)
+    for c in far.curves.values():
+        solved &= np.all(np.isfinite(c), axis=1)
+    unsolved = int(np.sum(~near & ~solved))
+    if unsolved:
+        logger.info(f"  far side: {unsolved} rows without every star at the t nodes, left out of its spline")
+    far_rows = ~near & solved
+    far_data = dataclasses.replace(
+        data.rows(far_rows), curves={k: v[far_rows] for k, v in far.curves.items()},
+        scalars={**{k: v[far_rows] for k, v in data.scalars.items()},
+                 TRANSITION_MASS: far.transition_mass_msun[far_rows]}, trailing=(TRANSITION_MASS,))
     details = {}
-    for prefix, rows in zip(rt.SIDE_PREFIXES, (near, ~near)):
+    for prefix, side_data in zip(rt.SIDE_PREFIXES, (data.rows(near), far_data)):
         name = prefix.rstrip("_")
-        logger.info(f"  {name} side: RBF spline on {int(rows.sum())} rows")
-        fit = fit_rbf(data.rows(rows), settings)
+        logger.info(f"  {name} side: RBF spline on {len(side_data.theta)} rows")
+        fit = fit_rbf(side_data, settings)
         arrays.update({prefix + k: v for k, v in fit.arrays.items()})
         details[name] = fit.details
     below = (margins.seidov < 0.0) & np.isfinite(margins.scanned_msun)
@@ -244,7 +375,7 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
     logger.info(f"  margin models: {time.perf_counter() - t0:.1f} s; |LOO| p95 Seidov {loo['seidov']:.2g}, "
                 f"asinh(g / {SCANNED_SCALE:g}) {loo['scanned']:.2g} (on {int(below.sum())} rows with s < 0)")
     return FitResult(arrays=arrays, settings=settings,
-                     details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()),
+                     details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()), far_rows_unsolved=unsolved,
                                       label_disagreements=int(disagree.sum()), scanned_rows=int(below.sum()),
                                       margin_loo_p95=loo, **details))
 
