@@ -1290,23 +1290,14 @@ def curve_at_mass(xp, m, y, dy, sd, mass, query):
         needs, rule = DERIVED[query]
         return rule(xp, mass, [curve_at_mass(xp, m, y, dy, sd, mass, q) for q in needs], grad, std)
     o = _star_output(m, query)
-    if m.method == "sided":
-        far = _far_rows(xp, m, y)
-        if not bool(xp.any(far)):
-            out = _u_curve(xp, m, y, dy, sd, mass, o)
-        elif bool(xp.all(far)):
-            out = _t_curve(xp, m, y, dy, sd, mass, o)
-        else:  # each row from its own side's curve
-            pairs = zip(_t_curve(xp, m, y, dy, sd, mass, o), _u_curve(xp, m, y, dy, sd, mass, o))
-            out = tuple(None if t is None else xp.where(far[:, None, None] if t.ndim == 3 else far[:, None], t, u)
-                        for t, u in pairs)
-    else:
-        out = _u_curve(xp, m, y, dy, sd, mass, o)
+    out = _sided_curve(xp, m, y, dy, sd, mass, o) if m.method == "sided" else _u_curve(xp, m, y, dy, sd, mass, o)
     return _inverse_with(xp, o[3], *out)
 
 
-def _u_curve(xp, m, y, dy, sd, mass, o):
-    """The output ``o``'s node curve at masses (n, q) through u, in the modelled units: (value, grad, std)."""
+def _u_curve(xp, m, y, dy, sd, mass, o, positions=True):
+    """The output ``o``'s node curve at masses (n, q) through u, in the modelled units: (value, grad, std).
+
+    ``positions``: the sigma carries the move of u with M_max (without: the node values' alone)."""
     grad, std = dy is not None, sd is not None
     im = m.i_mass_max
     mmax = y[:, im][:, None]
@@ -1324,95 +1315,59 @@ def _u_curve(xp, m, y, dy, sd, mass, o):
         g = dnodes + (der * dudm)[:, :, None] * dy[:, im, :][:, None, :]
     s = None
     if std:
-        dudm = mass / (2.0 * u * mmax * mmax)
-        s_nodes = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
-        s = xp.sqrt(s_nodes**2 + (der * dudm * sd[:, im][:, None]) ** 2)
+        s = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1)  # correlated nodes: a safe bound
+        if positions:
+            dudm = mass / (2.0 * u * mmax * mmax)
+            s = xp.sqrt(s * s + (der * dudm * sd[:, im][:, None]) ** 2)
     return val, g, s
 
 
 # ---------------------------------------------------------------------------
-# The far side of a two-sided model: curves at nodes of t, with the transition mass at t = 1/2
+# Curves of a two-sided model: the base family's below the transition mass, each side's above it
 # ---------------------------------------------------------------------------
 
-#: Where a far row's curve begins: at the u range's lightest star ``M_max (1 - u_max^2)``, or at this fraction
-#: of the transition mass M_t if that is lighter (the segment below M_t then keeps some length).
-FAR_LOW_FRACTION = 0.9
+#: The far side's nodes of ``t`` crowd towards the transition mass as ``s^T_CROWDING`` (s uniform in [0, 1]).
+T_CROWDING = 1.7
 
 
 def transition_column(m):
-    """The output column of the transition mass M_t in a two-sided model (its last; NaN on near rows)."""
-    return m["out_mean"].shape[0] - 1
+    """The output column of the transition mass M_t in a two-sided model (after its sides' curves)."""
+    return m["curve_slices"][-1, 1]
 
 
-def _far_rows(xp, m, y):
-    """Rows of a two-sided model's outputs y (n, n_out) that its far side answered (their M_t is a number)."""
-    mt = y[:, transition_column(m)]
-    return mt == mt
+def base_offset(m):
+    """The first output column of a two-sided model's base block (the base family's outputs, after M_t)."""
+    return m["curve_slices"][-1, 1] + 1
 
 
-def far_low_mass(xp, umax, mmax, mt):
-    """The lightest mass [Msun] of a far row's curve (see :data:`FAR_LOW_FRACTION`), and where it is set by M_max."""
-    a = mmax * (1.0 - umax * umax)
-    b = FAR_LOW_FRACTION * mt
-    return xp.where(a < b, a, b), a < b
-
-
-def t_node_masses(xp, t_nodes, umax, mmax, mt):
-    """Masses (n, k) [Msun] of the nodes ``t_nodes`` (k,) for maximum and transition masses (n,) in Msun.
-
-    ``t`` in [0, 1/2]: ``M = M_lo + 2 t (M_t - M_lo)`` (the stars below the jump;
-    ``M_lo`` from :func:`far_low_mass`); ``t`` in [1/2, 1]: ``M = M_max - (M_max -
-    M_t) (2 - 2 t)^2`` (the hybrid stars, crowded towards M_max as ``u`` crowds them).
-    """
-    mlo = far_low_mass(xp, umax, mmax, mt)[0][:, None]
-    t = t_nodes[None, :]
-    h = 2.0 - 2.0 * t
-    low = mlo + 2.0 * t * (mt[:, None] - mlo)
-    high = mmax[:, None] - (mmax - mt)[:, None] * h * h
-    return xp.where(t <= 0.5, low, high)
+def t_node_masses(xp, t_nodes, mmax, mt):
+    """Masses (n, k) [Msun] of the far side's nodes ``t_nodes`` (k,) in [0, 1], for M_max and M_t (n,) in Msun:
+    ``M = M_max - (M_max - M_t) (1 - t)^2`` (M_t at t = 0; crowded towards M_max as ``u`` crowds them)."""
+    h = 1.0 - t_nodes[None, :]
+    return mmax[:, None] - (mmax - mt)[:, None] * h * h
 
 
 def _t_curve(xp, m, y, dy, sd, mass, o, positions=True):
-    """:func:`_u_curve` for far rows of a two-sided model: one cubic spline per segment of t (see
-    :func:`t_node_masses`), the node at t = 1/2 shared.  The gradient and sigma carry the moves of t with
-    M_max and M_t (``positions``; without: the node values' alone)."""
+    """:func:`_u_curve` for the far side's hybrid stars: a cubic spline in ``t`` (see :func:`t_node_masses`),
+    for masses in [M_t, M_max] (NaN elsewhere).  The gradient and sigma carry the moves of t with M_max and M_t
+    (``positions``; without: the node values' alone)."""
     grad, std = dy is not None, sd is not None
     im, it = m.i_mass_max, transition_column(m)
     mmax, mt = y[:, im][:, None], y[:, it][:, None]
-    nan = float("nan")
-    umax = m["u_nodes"][-1]
-    mlo, by_max = far_low_mass(xp, umax, mmax, mt)
-    low = (mass >= mlo) & (mass <= mt)
-    high = (mass > mt) & (mass <= mmax)
-    width = mt - mlo
-    tl = xp.where(low, (mass - mlo) / (2.0 * width), nan)
-    sr = xp.sqrt(xp.where(high, (mmax - mass) / (mmax - mt), nan))
-    th = 1.0 - 0.5 * sr
-    tn, Cl, Ch = m["t_nodes"], m["t_low_c"], m["t_high_c"]
-    nl, a, b = Cl.shape[-1], o[5], o[6]
-    want = grad or std
-    vl, derl, wl = spline_on(xp, tn[:nl], Cl, y[:, a : a + nl], tl, want)
-    vh, derh, wh = spline_on(xp, tn[nl - 1 :], Ch, y[:, a + nl - 1 : b], th, want)
-    val = xp.where(low, vl, vh)
-    if not want:
-        return val, None, None
-    w = xp.where(low[:, :, None], xp.concat([wl, xp.zeros(wl.shape[:2] + (b - a - nl,), dtype=wl.dtype)], axis=-1),
-                 xp.concat([xp.zeros(wh.shape[:2] + (nl - 1,), dtype=wh.dtype), wh], axis=-1))
+    on = (mass >= mt) & (mass <= mmax)
+    sr = xp.sqrt(xp.where(on, (mmax - mass) / (mmax - mt), float("nan")))
+    a, b = o[5], o[6]
+    val, der, w = spline_on(xp, m["t_nodes"], m["t_c"], y[:, a:b], 1.0 - sr, grad or std)
     g = xp.matmul(w, dy[:, a:b, :]) if grad else None
     s = xp.sum(xp.abs(w) * sd[:, None, a:b], axis=-1) if std else None  # correlated nodes: a safe bound
-    if not positions:
+    if not positions or not (grad or std):
         return val, g, s
-    # dv/dM_max and dv/dM_t at a fixed mass, dv/dt times: below M_t through M_lo (which follows M_max or M_t),
-    # above through r = (M_max - M) / (M_max - M_t), t = 1 - sqrt(r) / 2 (infinite at M_max, as du/dM_max)
-    der = xp.where(low, derl, derh)
-    w2 = 2.0 * width * width
-    dl_dlo = (mass - mt) / w2
-    dl_dmax = dl_dlo * xp.where(by_max, 1.0 - umax * umax, 0.0)
-    dl_dt = -(mass - mlo) / w2 + dl_dlo * xp.where(by_max, 0.0, FAR_LOW_FRACTION)
+    # t = 1 - sqrt(r), r = (M_max - M) / (M_max - M_t): dv/dM_max and dv/dM_t at a fixed mass (infinite at
+    # M = M_max, as du/dM_max)
     span2 = (mmax - mt) * (mmax - mt)
-    dh_dr = -0.25 / sr
-    dv_dmax = xp.where(low, dl_dmax, dh_dr * (mass - mt) / span2) * der
-    dv_dmt = xp.where(low, dl_dt, dh_dr * (mmax - mass) / span2) * der
+    dv_dr = -0.5 * der / sr
+    dv_dmax = dv_dr * (mass - mt) / span2
+    dv_dmt = dv_dr * (mmax - mass) / span2
     if grad:
         g = g + dv_dmax[:, :, None] * dy[:, im, :][:, None, :] + dv_dmt[:, :, None] * dy[:, it, :][:, None, :]
     if std:
@@ -1420,30 +1375,65 @@ def _t_curve(xp, m, y, dy, sd, mass, o, positions=True):
     return val, g, s
 
 
+def _block(a, lo, hi):
+    return None if a is None else a[:, lo:hi]
+
+
+def _sided_curve(xp, m, y, dy, sd, mass, o, positions=True):
+    """A two-sided model's curve ``o`` at masses (n, q): up to the emulated transition mass M_t the base
+    family's star (the base block's u spline: such a star holds none of the dense phase), above it the row's
+    side: the near side's u spline, or the far side's t spline (its rows have their curves at nodes of t).
+    ``positions`` as in :func:`_t_curve`."""
+    n_side = transition_column(m)
+    off = base_offset(m)
+    mt = y[:, n_side][:, None]
+    below = mass <= mt
+    base = _u_curve(xp, m, _block(y, off, off + n_side), _block(dy, off, off + n_side),
+                    _block(sd, off, off + n_side), mass, o, positions)
+    far = _far_mask(xp, m, y)
+    parts = []
+    if bool(xp.any(far)):
+        parts.append((far, _t_curve(xp, m, y, dy, sd, mass, o, positions)))
+    if not bool(xp.all(far)):
+        parts.append((~far, _u_curve(xp, m, y, dy, sd, mass, o, positions)))
+    out = list(parts[0][1])
+    if len(parts) == 2:
+        for k in range(3):
+            if out[k] is not None:
+                pick = parts[0][0][:, None, None] if out[k].ndim == 3 else parts[0][0][:, None]
+                out[k] = xp.where(pick, out[k], parts[1][1][k])
+    for k in range(3):
+        if out[k] is not None:
+            pick = below[:, :, None] if out[k].ndim == 3 else below
+            out[k] = xp.where(pick, base[k], out[k])
+    return tuple(out)
+
+
+def _far_mask(xp, m, y):
+    """Rows of a two-sided model's outputs y that its far side answered (the side block's last column flags it:
+    see :func:`_sided_part`)."""
+    return y[:, base_offset(m) + transition_column(m)] > 0.5
+
+
 def nodes_at_u(xp, m, y, sd):
     """Outputs y (n, n_out) and sigmas sd (or None) with every curve at the u nodes.
 
-    Two-sided models' far rows hold their curves at nodes of t: their values at
-    the u nodes' masses ``M_max (1 - u^2)`` replace them (sigmas of the node
-    values alone: the u nodes move with M_max).  Other rows and models as they are.
+    A two-sided model's curves at the u nodes' masses ``M_max (1 - u^2)`` come
+    from its base block below M_t and its side above (:func:`_sided_curve`;
+    sigmas of the node values alone: the u nodes move with M_max).  Other
+    models' outputs as they are.
     """
     if m.method != "sided":
         return y, sd
-    far = _far_rows(xp, m, y)
-    if not bool(xp.any(far)):
-        return y, sd
-    rows = xp.nonzero(far)[0]
-    yf = xp.take(y, rows, axis=0)
-    sf = None if sd is None else xp.take(sd, rows, axis=0)
-    mass = yf[:, m.i_mass_max][:, None] * (1.0 - m["u_nodes"] ** 2)[None, :]
+    mass = y[:, m.i_mass_max][:, None] * (1.0 - m["u_nodes"] ** 2)[None, :]
     y = xp.asarray(y, copy=True)
     sd = None if sd is None else xp.asarray(sd, copy=True)
     for o in m.outputs:
         if o[2] == "star":
-            val, _, s = _t_curve(xp, m, yf, None, sf, mass, o, positions=False)
-            y[rows, o[5] : o[6]] = val
+            val, _, s = _sided_curve(xp, m, y, None, sd, mass, o, positions=False)
+            y[:, o[5] : o[6]] = val
             if sd is not None:
-                sd[rows, o[5] : o[6]] = s
+                sd[:, o[5] : o[6]] = s
     return y, sd
 
 
@@ -1794,6 +1784,9 @@ def _local_rows(xp, x, m, grad, spans, T):
 #: Prefixes of the arrays of a two-sided model's sub-models (an RBF spline each, with its error model),
 #: in the one arrays file: the side where the first maximum lies at the jump, and the far side.
 SIDE_PREFIXES = ("near__", "far__")
+#: Prefix of its base model: the spline of the base family (the parameters before the transition's) on the
+#: same rows, which answers every star up to the transition mass.
+BASE_PREFIX = "base__"
 #: Prefixes of its margin models (r^5 + quadratic RBF of one value, with leave-one-out residuals): Seidov's
 #: margin s, and asinh(g / 10 Msun) of the scanned margin g, learned where s < 0.
 MARGIN_PREFIXES = ("seidov__", "scanned__")
@@ -1813,6 +1806,9 @@ def sided_parts(m):
     def make():
         subs = {p: Model(prefixed(m.arrays, p), "rbf", m.outputs, m.parameters, m.bounds, m.mass_floor_msun,
                          m.trust_limits) for p in SIDE_PREFIXES}
+        nb = m[BASE_PREFIX + "lo"].shape[0]
+        subs[BASE_PREFIX] = Model(prefixed(m.arrays, BASE_PREFIX), "rbf", m.outputs, m.parameters[:nb],
+                                  m.bounds[:nb], m.mass_floor_msun, m.trust_limits)
         return subs, {p: Model(prefixed(m.arrays, p)) for p in MARGIN_PREFIXES}
 
     return m.cache.plain("sided_parts", None, make)
@@ -1885,45 +1881,68 @@ def _by_side(xp, m, x, near, fn):
 
 
 def _sided_columns(m, columns):
-    """The output ranges a two-sided model's sides evaluate: ``columns`` and the transition mass's (the far
-    side's curves are placed by it)."""
+    """The output ranges a two-sided model's sides evaluate: ``columns`` and the transition mass's (the curves
+    switch from the base block to the side there)."""
     if columns is None:
         return None
     it = transition_column(m)
-    return list(columns) + [(it, it + 1)]
+    return [c for c in columns if c[0] < it] + [(it, it + 1)]
 
 
-def _padded(xp, a, width):
-    """``a`` (n, k, ...) with NaN columns up to ``width`` (the near side has no transition mass)."""
-    if a.shape[1] == width:
-        return a
-    return xp.concat([a, _nan_block(xp, a.shape[0], width - a.shape[1], a, a.shape[2] if a.ndim == 3 else None)],
-                     axis=1)
+def _base_rows(xp, m, x, fn):
+    """``fn(base_model, theta_base)`` at every row of x (n, d): the base model reads the base parameters."""
+    base = sided_parts(m)[0][BASE_PREFIX]
+    nb = base["lo"].shape[0]
+    lo, hi = m["lo"], m["hi"]
+    theta = xp.clip(lo + x * (hi - lo), lo, hi)
+    return fn(base, theta[:, :nb])
 
 
 def _sided_part(xp, m, x, grad, columns):
-    """Two-sided models: each row's outputs from the sub-model of its emulated side (NumPy only)."""
+    """Two-sided models: each row's outputs from the sub-model of its emulated side, M_t, the base model's
+    block and the side flag (1: far), see :func:`_sided_curve` (NumPy only)."""
     near = sided_choice(xp, m, x)[0]
     span = m["hi"] - m["lo"]
-    width = m["out_mean"].shape[0]
+    n_side = transition_column(m)
     cols = _sided_columns(m, columns)
+    base_cols = None if columns is None else [c for c in columns if c[0] < n_side]
 
     def side(sub, t):
         y, _, dy = outputs(xp, sub, t, grad, cols)
         # d/dx of the plain unit box: d/dtheta times its span (outputs() divides by it again)
-        return (_padded(xp, y, width), _padded(xp, dy * span, width)) if grad else (_padded(xp, y, width),)
+        return (y, dy * span) if grad else (y,)
+
+    def base(sub, t):
+        y, _, dy = outputs(xp, sub, t, grad, base_cols)
+        if not grad:
+            return y, None
+        nb = t.shape[1]
+        dy = dy * span[:nb]
+        # the base block does not depend on the transition's parameters
+        return y, xp.concat([dy, xp.zeros(dy.shape[:2] + (x.shape[1] - nb,), dtype=dy.dtype)], axis=-1)
 
     out = _by_side(xp, m, x, near, side)
-    return out[0], (out[1] if grad else None)
+    yb, dyb = _base_rows(xp, m, x, base)
+    flag = xp.reshape(xp.where(near, 0.0, 1.0), (-1, 1))
+    y = xp.concat([out[0], yb, flag], axis=1)
+    dy = None
+    if grad:
+        dy = xp.concat([out[1], dyb, xp.zeros((x.shape[0], 1, x.shape[1]), dtype=x.dtype)], axis=1)
+    return y, dy
 
 
 def _sided_std(xp, m, x, columns):
-    """Two-sided models: the sigma of each row's side (its sub-model's error model); ``BAND_SIGMA`` at least
-    where the side is uncertain."""
+    """Two-sided models: the sigma of each row's side (its sub-model's error model; ``BAND_SIGMA`` at least
+    where the side is uncertain), then the base model's (whatever the side: its stars hold none of the dense
+    phase), and 0 for the side flag."""
     near, unsure = sided_choice(xp, m, x)
-    width, cols = m["out_mean"].shape[0], _sided_columns(m, columns)
-    s = _by_side(xp, m, x, near, lambda sub, t: (_padded(xp, output_std(xp, sub, t, cols), width),))[0]
-    return xp.where(unsure[:, None], xp.maximum(s, BAND_SIGMA), s)
+    n_side = transition_column(m)
+    cols = _sided_columns(m, columns)
+    base_cols = None if columns is None else [c for c in columns if c[0] < n_side]
+    s = _by_side(xp, m, x, near, lambda sub, t: (output_std(xp, sub, t, cols),))[0]
+    s = xp.where(unsure[:, None], xp.maximum(s, BAND_SIGMA), s)
+    sb = _base_rows(xp, m, x, lambda sub, t: output_std(xp, sub, t, base_cols))
+    return xp.concat([s, sb, xp.zeros((x.shape[0], 1), dtype=x.dtype)], axis=1)
 
 
 STD["sided"] = _sided_std

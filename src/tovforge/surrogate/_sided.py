@@ -28,21 +28,25 @@ The training rows are split by the grid's solved first maximum (within
 side's spline learns; the margins' rule (``s > 0 or g < 0``) is checked against
 it and disagreements are logged and recorded in the model.
 
-On the far side R(M) and Lambda(M) kink at the transition mass M_t (the star
-centred at the jump), which moves along the grid's ``u`` nodes with the
-parameters, so node values there are not smooth in the parameters (held-out R
-p95 146 m from the grid's nodes, LOG.md).  The far side's spline therefore
-learns M_t (a scalar after the curves) and each curve at nodes of a coordinate
-``t`` with M_t at t = 1/2 (:func:`far_t_nodes`,
+Below the transition mass M_t (the star centred at the jump) every star holds
+none of the dense phase: it is the base family's star of the same mass, a
+function of the base parameters alone.  A third spline, of the base family on
+the training rows' base parameters (solved at training, :func:`base_data`),
+answers every query below the emulated M_t (held-out R p95 of far stars below
+M_t: 156 m from the far side's spline, 18 m from the base's; LOG.md).  Both
+sides learn M_t after their curves.  Above M_t the far side's R(M) starts with a
+kink that moves along the grid's ``u`` nodes with the parameters, so its spline
+learns the hybrid stars at nodes of ``t`` instead (M_t at t = 0, M_max at t = 1;
 :func:`~tovforge.surrogate._runtime.t_node_masses`), solved exactly at training
-(:func:`far_curves`); queries interpolate one cubic spline per segment of t.
+(:func:`far_curves`).
 
 Arrays of a model (beside the common ones of :mod:`._kinds`; its own trend is
 zero and its outputs unstandardised, the sub-models carry theirs): ``X`` (n, d)
 every training point in the plain unit box; ``side_band`` (1,); the far side's
-nodes ``t_nodes`` (n_u,) and the cardinal cubic-spline coefficients of its two
-segments ``t_low_c``, ``t_high_c``; the arrays of each sub-model (an ``rbf`` model's) under the prefixes ``near__`` and
-``far__``, and of each margin model (``X``, ``alpha`` (n, 1), ``trend_powers``,
+nodes ``t_nodes`` (n_u,) and their cardinal cubic-spline coefficients ``t_c``;
+the arrays of each sub-model (an ``rbf`` model's; the sides' with M_t as one more output)
+under the prefixes ``near__``, ``far__`` and ``base__`` (its box the base
+parameters'), and of each margin model (``X``, ``alpha`` (n, 1), ``trend_powers``,
 ``trend_coef`` (n_terms, 1), ``loo_residual`` (n, 1), ``error_scale`` (1,))
 under ``seidov__`` and ``scanned__``.
 """
@@ -69,8 +73,8 @@ from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
 __all__ = ["SidedFit", "FarCurves", "fit_sided", "has_transition", "fit_sides", "fit_margin", "far_t_nodes", "far_curves",
-           "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND", "SCANNED_SCALE",
-           "SIDED_ARRAYS", "SIDED_STATIC", "TRANSITION_MASS", "HIGH_CROWDING", "MIN_CURVE_NODES"]
+           "base_data", "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND",
+           "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC", "TRANSITION_MASS", "MIN_CURVE_NODES"]
 
 logger = logging.getLogger(__name__)
 
@@ -81,22 +85,21 @@ SIDE_BAND = 3.0
 #: The scanned margin is emulated as ``asinh(g / SCANNED_SCALE)`` (Msun per unit z): g spans -8e3 to 40, and
 #: the sign is what matters (LOG.md).
 SCANNED_SCALE = 10.0
-#: The far side's nodes above M_t crowd towards it as ``s^HIGH_CROWDING`` (s uniform in (0, 1]): 16 such nodes
-#: gave held-out R p95 43.9 m against 47 m uniform (LOG.md, far side).
-HIGH_CROWDING = 1.7
-#: Nodes per curve a grid needs for the far side's t nodes (at least 3 on each segment).
-MIN_CURVE_NODES = 8
+#: Nodes per curve a grid needs for the two-sided spline (the far side's t nodes are as many).
+MIN_CURVE_NODES = 4
 #: The name of the far side's scalar after the curves: the transition mass [Msun].
 TRANSITION_MASS = "transition_mass_msun"
 #: The arrays a two-sided model adds to the common ones (a model without them is refused).
-SIDED_ARRAYS = ("X", "side_band", "t_nodes", "t_low_c", "t_high_c") + tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES for k in ("X", "alpha", "out_mean",
+SIDED_ARRAYS = ("X", "side_band", "t_nodes", "t_c") + tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES + (rt.BASE_PREFIX,)
+                                                            for k in ("X", "alpha", "out_mean",
                                                                                          "out_scale", "trend_powers",
                                                                                          "trend_coef", "loo_residual",
                                                                                          "error_scale")) + tuple(
     f"{p}{k}" for p in rt.MARGIN_PREFIXES for k in ("X", "alpha", "trend_powers", "trend_coef", "loo_residual",
                                                     "error_scale"))
 #: Its arrays that steer loops or index.
-SIDED_STATIC = tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES for k in ("trend_powers", "warp_log", "warp_shift",
+SIDED_STATIC = tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES + (rt.BASE_PREFIX,) for k in ("trend_powers", "warp_log",
+                                                                                         "warp_shift",
                                                                      "curve_slices")) + tuple(
     f"{p}trend_powers" for p in rt.MARGIN_PREFIXES)
 
@@ -112,9 +115,11 @@ class SidedFit(Record):
     near_rows, far_rows : int
         Training rows of each side (by the grid's solved first maximum).
     far_rows_unsolved : int
-        Far rows left out of the far side's spline: a star at one of their t nodes failed.
+        Rows left out of their side's spline: their transition star or (far) a star at a t node failed.
+    base_rows : int
+        Rows the base family's spline learned.
     seconds_far_curves : float
-        Time of the far side's exact stars at the t nodes.
+        Time of the exact stars at the transition, at the far side's t nodes and of the base family.
     label_disagreements : int
         Rows where the margins' rule (``s > 0 or g < 0``) and the solved first maximum disagree.
     scanned_rows : int
@@ -123,14 +128,15 @@ class SidedFit(Record):
         The 95th percentile of each margin model's |leave-one-out residual| (``seidov``, ``scanned``).
     seconds_scan : float
         Time of the margins' scan (101 stars per EOS).
-    near, far : RBFFit
-        What each side's spline fit found.
+    near, far, base : RBFFit
+        What each side's spline and the base family's fit found.
     """
 
     rule: str = "near if s > 0 or asinh(g / 10) < 0 (emulated); uncertain within 3 sigma of either margin"
     near_rows: int = 0
     far_rows: int = 0
     far_rows_unsolved: int = 0
+    base_rows: int = 0
     seconds_far_curves: float = 0.0
     label_disagreements: int = 0
     scanned_rows: int = 0
@@ -138,6 +144,7 @@ class SidedFit(Record):
     seconds_scan: float = 0.0
     near: RBFFit = nested(RBFFit, default_factory=RBFFit)
     far: RBFFit = nested(RBFFit, default_factory=RBFFit)
+    base: RBFFit = nested(RBFFit, default_factory=RBFFit)
 
 
 def _transition_family(name: str):
@@ -202,33 +209,24 @@ def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
 
 
 def far_t_nodes(n: int) -> np.ndarray:
-    """The far side's ``n`` curve nodes of t: 3/8 of them uniform on [0, 1/2] (below M_t, t = 1/2 included),
-    the others on (1/2, 1] crowded towards 1/2 (:data:`HIGH_CROWDING`); t = 1 is M_max."""
-    n_low = max(3, (3 * n) // 8)
-    s = np.linspace(0.0, 1.0, n - n_low + 1)[1:]
-    return np.concatenate([np.linspace(0.0, 0.5, n_low), 0.5 + 0.5 * s**HIGH_CROWDING])
-
-
-def _t_arrays(t_nodes: np.ndarray) -> dict:
-    """The far side's node arrays of a model: the nodes and each segment's cardinal spline coefficients."""
-    n_low = int(np.sum(t_nodes <= 0.5))
-    return {"t_nodes": t_nodes, "t_low_c": spline_cardinal_coefficients(t_nodes[:n_low]),
-            "t_high_c": spline_cardinal_coefficients(t_nodes[n_low - 1:])}
+    """The far side's ``n`` curve nodes of t in [0, 1] (M_t at 0, M_max at 1), crowded towards M_t as
+    ``s^1.7`` (s uniform): 16 such nodes above M_t gave held-out R p95 43.9 m against 47 m uniform (LOG.md)."""
+    return np.linspace(0.0, 1.0, n) ** 1.7
 
 
 @dataclass(frozen=True)
 class FarCurves:
-    """The far side's training curves: the transition mass and each curve at nodes of t.
+    """The transition mass of every training row and the far rows' hybrid stars at nodes of t.
 
     Attributes
     ----------
     t_nodes : ndarray (k,)
         The nodes (:func:`far_t_nodes`).
     transition_mass_msun : ndarray (n,)
-        M_t of every training row [Msun]; NaN where not solved (near rows, failures).
+        M_t of every training row [Msun] (NaN where the star failed).
     curves : dict of ndarray (n, k)
         The curves at the nodes' masses (:func:`~tovforge.surrogate._runtime.t_node_masses`), in the
-        modelled units, by model name (as :attr:`TrainingData.curves`); NaN where not solved.
+        modelled units, by model name (as :attr:`TrainingData.curves`); NaN on near rows and where not solved.
     """
 
     t_nodes: np.ndarray
@@ -236,47 +234,72 @@ class FarCurves:
     curves: dict
 
 
-def far_curves(data: TrainingData, rows: np.ndarray, chunk: int = 64) -> FarCurves:
-    """Exact stars at the far side's t nodes for the training ``rows`` (a mask) of a transition family.
+def far_curves(data: TrainingData, far: np.ndarray, chunk: int = 64) -> FarCurves:
+    """M_t of every training row, and exact hybrid stars at the far side's t nodes for the rows ``far`` (a mask).
 
-    M_t is the star centred just below the jump (:func:`tovforge.solve.jump_stars`, node t = 1/2), the node
+    M_t is the star centred just below the jump (:func:`tovforge.solve.jump_stars`, the node t = 0), the node
     t = 1 the maximum-mass star, the others the stars of the stable branch at the nodes' masses
     (:func:`tovforge.solve.solve_sequences`), for the grid's M_max.
     """
     fam = _transition_family(data.family)
     theta = np.asarray(data.theta, float)
-    idx = np.flatnonzero(rows)
     t_nodes = far_t_nodes(len(data.u_nodes))
-    umax = float(np.asarray(data.u_nodes, float)[-1])
     star = emulated_outputs()[1]
     n, k = len(theta), t_nodes.size
     m_t = np.full(n, np.nan)
+    for start in range(0, n, 512):
+        m_t[start : start + 512] = jump_stars(fam.build(theta[start : start + 512])).mass_msun
     curves = {q.model_name: np.full((n, k), np.nan) for q in star}
-    mid, top = t_nodes == 0.5, t_nodes == 1.0
-    inner = ~(mid | top)
+    inner = np.arange(1, k - 1)
 
     def solve(r):
         batch = fam.build(theta[r])
         at_jump = jump_stars(batch)
-        m_t[r] = at_jump.mass_msun
-        masses = rt.t_node_masses(np, t_nodes, umax, data.scalars["mass_max_msun"][r], m_t[r])
+        masses = rt.t_node_masses(np, t_nodes, data.scalars["mass_max_msun"][r], m_t[r])
         seq = solve_sequences(batch, n_stars=0, masses=np.where(np.isfinite(masses), masses, 1.0)[:, inner])
         for q in star:
             c = curves[q.model_name]
             with np.errstate(divide="ignore", invalid="ignore"):
-                c[np.ix_(r, np.flatnonzero(inner))] = quantities.forward(q, np.asarray(getattr(seq.at_mass, q.name)))
-                c[r[:, None], np.flatnonzero(mid)] = quantities.forward(q, np.asarray(getattr(at_jump, q.name)))[:, None]
-                c[r[:, None], np.flatnonzero(top)] = quantities.forward(
-                    q, np.asarray(getattr(seq.mass_max, q.name)))[:, None]
+                c[np.ix_(r, inner)] = quantities.forward(q, np.asarray(getattr(seq.at_mass, q.name)))
+                c[r, 0] = quantities.forward(q, np.asarray(getattr(at_jump, q.name)))
+                c[r, -1] = quantities.forward(q, np.asarray(getattr(seq.mass_max, q.name)))
 
+    idx = np.flatnonzero(far)
     for start in range(0, idx.size, chunk):
         solve(idx[start : start + chunk])
     # a search that ends short of its tolerance in a batch (the stars just above the jump, where M(h_c) kinks)
-    # may succeed alone; masses below the branch's lightest star (a transition mass within a few per cent of
-    # it) stay NaN
+    # may succeed alone
     for i in idx[~np.all(np.isfinite(curves["radius_km"][idx]), axis=1)]:
         solve(np.array([i]))
     return FarCurves(t_nodes=t_nodes, transition_mass_msun=m_t, curves=curves)
+
+
+def base_data(data: TrainingData) -> TrainingData:
+    """The base family's exact sequences at the training rows' base parameters, as training data.
+
+    Solved as a grid solves its points (:func:`tovforge.grid.solve_chunk`, the same u nodes); rows whose base
+    parameters repeat are kept once, failed rows dropped.
+    """
+    from ..grid import parse_spec
+    from ..grid._solve import solve_chunk
+    from ._data import training_data_from_arrays
+
+    fam = _transition_family(data.family)
+    nb = len(fam.base.parameters)
+    names = tuple(data.parameter_names[:nb])
+    box = np.asarray(data.bounds, float)[:nb]
+    theta = np.unique(np.asarray(data.theta, float)[:, :nb], axis=0)
+    spec = parse_spec({"family": fam.base.name, "box": {k: [float(a), float(b)] for k, (a, b) in zip(names, box)},
+                       "mass_max_floor_msun": 0.0, "design": {"method": "sobol", "points": 16, "seed": 1},
+                       "outputs": {"u_nodes": [float(u) for u in data.u_nodes]}})
+    parts = [solve_chunk(spec, theta[i : i + 256]) for i in range(0, len(theta), 256)]
+    join = lambda field: {k: np.concatenate([getattr(p, field)[k] for p in parts])  # noqa: E731
+                          for k in getattr(parts[0], field)}
+    return training_data_from_arrays(
+        path=f"{fam.base.name} at the base parameters of {data.provenance.get('grid_path', 'the training grid')}",
+        family_name=fam.base.name, parameter_names=names, parameter_units=tuple(data.parameter_units[:nb]), box=box,
+        theta=theta, status=np.concatenate([p.status for p in parts]), scalars=join("scalars"),
+        curves=join("curves"), u_nodes=data.u_nodes, attrs={}, min_points=0)
 
 
 def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
@@ -302,16 +325,20 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     near = solved_near(data, fam)
     t0 = time.perf_counter()
     far = far_curves(data, ~near)
+    logger.info(f"  transition masses, far side's exact stars at {far.t_nodes.size} nodes of t for "
+                f"{int((~near).sum())} EOS: {time.perf_counter() - t0:.1f} s")
+    t1 = time.perf_counter()
+    base = base_data(data)
+    logger.info(f"  base family ({fam.base.name}) at {len(base.theta)} training rows' base parameters: "
+                f"{time.perf_counter() - t1:.1f} s")
     seconds_far = time.perf_counter() - t0
-    logger.info(f"  far side: exact stars at {far.t_nodes.size} nodes of t for {int((~near).sum())} EOS: "
-                f"{seconds_far:.1f} s")
-    result = fit_sides(data, settings, margins, near, far)
+    result = fit_sides(data, settings, margins, near, far, base)
     return dataclasses.replace(result, details=dataclasses.replace(result.details, seconds_scan=seconds,
                                                                    seconds_far_curves=seconds_far))
 
 
 def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near: np.ndarray,
-              far: FarCurves) -> FitResult:
+              far: FarCurves, base: TrainingData) -> FitResult:
     """The two-sided spline from given margins and sides of the training rows.
 
     Parameters
@@ -324,8 +351,10 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
     near : ndarray of bool (n,)
         The side each row's outputs belong to (True: near).
     far : FarCurves
-        The far rows' transition masses and curves at the t nodes (:func:`far_curves`); the far side's spline
-        learns these instead of the grid's curves (rows with a NaN among them are left out).
+        Every row's transition mass and the far rows' curves at the t nodes (:func:`far_curves`); the far
+        side's spline learns these instead of the grid's curves (rows with a NaN among them are left out).
+    base : TrainingData
+        The base family's sequences (:func:`base_data`), whose parameters are the first of ``data``'s.
 
     Returns
     -------
@@ -344,25 +373,29 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
                       UserWarning, stacklevel=2)
     p = prepare(data, False)
     arrays, x = dict(p.arrays), p.x
-    n_out = arrays["out_mean"].shape[0] + 1  # the transition mass after the curves
+    n_side = arrays["out_mean"].shape[0]
+    n_out = 2 * n_side + 2  # the side's outputs, M_t, the base's outputs, the side flag
     arrays.update(out_mean=np.zeros(n_out), out_scale=np.ones(n_out), X=x, side_band=np.array([SIDE_BAND]),
                   trend_powers=np.zeros((1, x.shape[1]), dtype=np.int64), trend_coef=np.zeros((1, n_out)),
-                  **_t_arrays(np.asarray(far.t_nodes, float)))
-    solved = np.isfinite(far.transition_mass_msun)
+                  t_nodes=np.asarray(far.t_nodes, float),
+                  t_c=spline_cardinal_coefficients(np.asarray(far.t_nodes, float)))
+    m_t = far.transition_mass_msun
+    solved = np.isfinite(m_t)
     for c in far.curves.values():
-        solved &= np.all(np.isfinite(c), axis=1)
-    unsolved = int(np.sum(~near & ~solved))
+        solved &= np.all(np.isfinite(c), axis=1) | near
+    unsolved = int(np.sum(~solved))
     if unsolved:
-        logger.info(f"  far side: {unsolved} rows without every star at the t nodes, left out of its spline")
-    far_rows = ~near & solved
-    far_data = dataclasses.replace(
-        data.rows(far_rows), curves={k: v[far_rows] for k, v in far.curves.items()},
-        scalars={**{k: v[far_rows] for k, v in data.scalars.items()},
-                 TRANSITION_MASS: far.transition_mass_msun[far_rows]}, trailing=(TRANSITION_MASS,))
+        logger.info(f"  {unsolved} rows without their transition mass or every star at the t nodes, left out of "
+                    "their side's spline")
+    with_mt = lambda rows, curves: dataclasses.replace(  # noqa: E731
+        data.rows(rows), curves={k: v[rows] for k, v in curves.items()},
+        scalars={**{k: v[rows] for k, v in data.scalars.items()}, TRANSITION_MASS: m_t[rows]},
+        trailing=(TRANSITION_MASS,))
     details = {}
-    for prefix, side_data in zip(rt.SIDE_PREFIXES, (data.rows(near), far_data)):
+    for prefix, side_data in ((rt.SIDE_PREFIXES[0], with_mt(near & solved, data.curves)),
+                              (rt.SIDE_PREFIXES[1], with_mt(~near & solved, far.curves)), (rt.BASE_PREFIX, base)):
         name = prefix.rstrip("_")
-        logger.info(f"  {name} side: RBF spline on {len(side_data.theta)} rows")
+        logger.info(f"  {name}: RBF spline on {len(side_data.theta)} rows")
         fit = fit_rbf(side_data, settings)
         arrays.update({prefix + k: v for k, v in fit.arrays.items()})
         details[name] = fit.details
@@ -376,6 +409,7 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
                 f"asinh(g / {SCANNED_SCALE:g}) {loo['scanned']:.2g} (on {int(below.sum())} rows with s < 0)")
     return FitResult(arrays=arrays, settings=settings,
                      details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()), far_rows_unsolved=unsolved,
+                                      base_rows=len(base.theta),
                                       label_disagreements=int(disagree.sum()), scanned_rows=int(below.sum()),
                                       margin_loo_p95=loo, **details))
 
@@ -385,9 +419,10 @@ def reverse_sides(arrays: dict) -> dict:
 
     The margin models keep theirs: they only choose the side.
     """
-    return {p + k: np.array(arrays[p + k][::-1]) for p in rt.SIDE_PREFIXES for k in ("X", "alpha")}
+    return {p + k: np.array(arrays[p + k][::-1]) for p in rt.SIDE_PREFIXES + (rt.BASE_PREFIX,) for k in ("X", "alpha")}
 
 
 def describe_sided(arrays: dict) -> str:
-    """A few words on a fitted two-sided model: the rows of each side."""
-    return f"{arrays['near__X'].shape[0]} near + {arrays['far__X'].shape[0]} far training points"
+    """A few words on a fitted two-sided model: the rows of each side and of the base family."""
+    return (f"{arrays['near__X'].shape[0]} near + {arrays['far__X'].shape[0]} far training points, base family "
+            f"on {arrays['base__X'].shape[0]}")

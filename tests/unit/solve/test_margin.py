@@ -14,6 +14,8 @@ import pytest
 from helpers import READ2009
 from tovforge import eos, solve
 from tovforge.eos import seidov_limit
+from tovforge.solve._surface import integrate
+from tovforge.units import MSUN_KM
 
 
 def _hybrid(ratios, log_p_t):
@@ -57,3 +59,22 @@ def test_scanned_margin_gives_the_solved_side_below_seidovs_limit(ratio, near):
                                         jump_ratio=r, cs2_above=1.0))
     decades = np.log10(seq.mass_max.central_pressure_dyn_cm2) - log_p_t
     assert (decades < solve.NEAR_DECADES) == near
+
+
+@pytest.mark.parametrize("log_p_t", [34.46, 34.8])
+def test_the_star_at_the_jump_is_the_base_star_at_the_transition_pressure(log_p_t):
+    """``jump_stars``: the star centred just below the jump holds none of the dense phase, so it is the base EOS's
+    (SLy's) star at central pressure p_t, solved here on its own through the single-star path; and M(p_c) is
+    continuous across the jump (the dense core's volume vanishes), so the star just above it has the same mass
+    while R(M) changes slope there (common practice: the kink the far side's t nodes sit on)."""
+    ratio = 0.2
+    b = _hybrid([ratio], log_p_t)
+    star = solve.jump_stars(b)
+    assert star.central_pressure_dyn_cm2[0] == pytest.approx(10.0**log_p_t, rel=1e-8)
+    base = solve.solve_star(eos.make("piecewise-polytrope", **{k: READ2009["SLy"][k] for k in
+                                                               ("log_p1", "gamma1", "gamma2", "gamma3")}),
+                            pressure_dyn_cm2=10.0**log_p_t).star
+    for field in ("mass_msun", "radius_km", "tidal_deformability"):
+        assert getattr(star, field)[0] == pytest.approx(float(np.ravel(getattr(base, field))[0]), rel=1e-7), field
+    above, _ = integrate(b, np.zeros(1, int), b.h_t * (1.0 + 1e-7), solve.StepSettings())
+    assert above["mass"][0] / MSUN_KM == pytest.approx(star.mass_msun[0], rel=1e-6)

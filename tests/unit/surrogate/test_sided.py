@@ -45,22 +45,35 @@ def _jumped(data):
 
 
 def _far(data, near):
-    """Made-up far-side curves at the t nodes: the smooth truth at their masses, M_t = 0.6 M_max (NaN on near
-    rows, as :func:`far_curves` leaves them)."""
+    """Made-up transition masses M_t = 0.6 M_max and far-side curves at the t nodes: the smooth truth at their
+    masses (NaN on near rows, as :func:`far_curves` leaves them)."""
     t_nodes = far_t_nodes(len(data.u_nodes))
     mmax = data.scalars["mass_max_msun"]
-    m_t = np.where(near, np.nan, 0.6 * mmax)
-    masses = rt.t_node_masses(np, t_nodes, float(data.u_nodes[-1]), mmax, np.where(near, 0.6 * mmax, m_t))
+    masses = rt.t_node_masses(np, t_nodes, mmax, 0.6 * mmax)
     curves = truth(data.theta, np.sqrt(1.0 - masses / mmax[:, None]))[1]
-    return FarCurves(t_nodes=t_nodes, transition_mass_msun=m_t,
+    return FarCurves(t_nodes=t_nodes, transition_mass_msun=0.6 * mmax,
                      curves={k: np.where(near[:, None], np.nan, v) for k, v in curves.items()})
+
+
+def _base_truth(theta):
+    """The made-up base family: the truth with the last two parameters at the box's centre (its stars, below
+    M_t, depend on the first two alone)."""
+    full = np.concatenate([theta[:, :2], np.broadcast_to(BOX[2:].mean(axis=1), (len(theta), 2))], axis=1)
+    return truth(full)
+
+
+def _base(data):
+    """Made-up base-family data on the first two parameters of ``data``."""
+    scalars, curves = _base_truth(data.theta)
+    return dataclasses.replace(data, theta=data.theta[:, :2], bounds=BOX[:2], parameter_names=data.parameter_names[:2],
+                               parameter_units=data.parameter_units[:2], scalars=scalars, curves=curves)
 
 
 def _sided_model(data, one):
     """A two-sided model of ``data`` whose margins are the known surface (s) and a far-side scanned margin."""
     s = _surface(data.theta)
     result = fit_sides(data, SETTINGS, JumpMargins(seidov=s, scanned_msun=np.full(len(s), 50.0)), s > 0,
-                       _far(data, s > 0))
+                       _far(data, s > 0), _base(data))
     return Surrogate(one.meta.replace(method="sided", fit=result.details), result.arrays)
 
 
@@ -72,7 +85,7 @@ def pair():
 
 
 def _fresh(n, seed):
-    x = qmc.Sobol(4, seed=seed).random(n)
+    x = qmc.Sobol(4, seed=seed).random(int(2 ** np.ceil(np.log2(n))))[:n]
     return BOX[:, 0] + x * (BOX[:, 1] - BOX[:, 0])
 
 
@@ -182,5 +195,67 @@ def test_margins_that_disagree_with_the_solved_sides_are_reported(pair):
     near[[3, 7]] = ~near[[3, 7]]  # two rows whose solved side the margins do not give
     with pytest.warns(UserWarning, match=r"disagree with the grid's solved first maximum on 2 training rows"):
         result = fit_sides(data, SETTINGS, JumpMargins(seidov=s, scanned_msun=np.full(len(s), 50.0)), near,
-                           _far(data, near))
+                           _far(data, near), _base(data))
     assert result.details.label_disagreements == 2 and result.details.near_rows == int(near.sum())
+
+
+def _far_thetas(n, seed):
+    """Parameters well on the far side of the made-up surface (s < -0.15)."""
+    theta = _fresh(4 * n, seed)
+    return theta[_surface(theta) < -0.15][:n]
+
+
+def test_far_rows_interpolate_their_t_nodes_and_the_base_below_the_transition(pair):
+    """Above its emulated M_t a far row's curve passes through its node values at the nodes' masses; at and
+    below M_t it is the base family's (the made-up base truth, to the base spline's accuracy), for near rows
+    too; no answer above M_max."""
+    _, sided, _ = pair
+    m = sided._model
+    theta = np.concatenate([_far_thetas(16, 21), _fresh(64, 23)[_surface(_fresh(64, 23)) > 0.15][:8]])
+    y = rt.outputs(np, m, theta)[0]
+    it = rt.transition_column(m)
+    m_t, m_max = y[:, it], y[:, m.i_mass_max]
+    assert np.all(np.isfinite(m_t)) and np.all(m_t < m_max)
+    masses = rt.t_node_masses(np, m["t_nodes"], m_max, m_t)
+    far = rt._far_mask(np, m, y)
+    assert far[:16].all() and not far[16:].any()
+    for query in ("radius", "tidal_deformability"):
+        o = rt._star_output(m, query)
+        got = rt.curve_at_mass(np, m, y[:16], None, None, masses[:16, 1:], query)[0]
+        np.testing.assert_allclose(got, rt.inverse(np, o[3], y[:16, o[5] + 1:o[6]]), rtol=1e-12, atol=0)
+        assert np.all(np.isnan(rt.curve_at_mass(np, m, y, None, None, m_max[:, None] * 1.001, query)[0]))
+    below = np.stack([0.8 * m_t, m_t], axis=1)
+    want = _base_truth(theta)
+    mb = want[0]["mass_max_msun"]
+    radius = sided.radius(theta, below).value
+    u = np.sqrt(1.0 - below / mb[:, None])
+    exact = truth(np.concatenate([theta[:, :2], np.broadcast_to(BOX[2:].mean(axis=1), (len(theta), 2))], axis=1),
+                  u)[1]["radius_km"]
+    np.testing.assert_allclose(radius, exact, atol=2e-3)
+    # the prediction's curves at the u nodes are the curve's values at the u nodes' masses
+    pred = sided.predict(theta)
+    want = rt.curve_at_mass(np, m, y, None, None, m_max[:, None] * (1.0 - m["u_nodes"] ** 2)[None, :], "radius")[0]
+    np.testing.assert_allclose(pred.radius_km, want, rtol=1e-12)
+
+
+@pytest.mark.parametrize("fraction", [0.8, 1.1, 1.4])
+def test_far_row_gradients_match_finite_differences(pair, fraction):
+    """d/dtheta of far rows' R and Lambda at a mass below M_t (the base spline's; zero along the transition's
+    parameters) and above it (the t spline's: the t of a fixed mass moves with M_max and M_t) against central
+    differences."""
+    _, sided, _ = pair
+    theta = _far_thetas(6, 22)
+    m = sided._model
+    mass = fraction * rt.outputs(np, m, theta)[0][:, rt.transition_column(m)][:, None]
+    for fn in ("radius", "tidal_deformability"):
+        e = getattr(sided, fn)(theta, mass, return_grad=True)
+        assert np.all(np.isfinite(e.value))
+        for i in range(4):
+            step = 1e-5 * (BOX[i, 1] - BOX[i, 0])
+            tp, tm = theta.copy(), theta.copy()
+            tp[:, i] += step
+            tm[:, i] -= step
+            fd = (getattr(sided, fn)(tp, mass).value - getattr(sided, fn)(tm, mass).value) / (2 * step)
+            np.testing.assert_allclose(e.grad[:, 0, i], fd[:, 0], rtol=2e-4, atol=1e-6 * np.max(np.abs(e.value)))
+            if fraction < 1.0 and i >= 2:
+                assert np.all(e.grad[:, 0, i] == 0.0)
