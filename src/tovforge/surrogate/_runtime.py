@@ -1889,9 +1889,14 @@ def _sided_columns(m, columns):
     return [c for c in columns if c[0] < it] + [(it, it + 1)]
 
 
-def _base_rows(xp, m, x, fn):
-    """``fn(base_model, theta_base)`` at every row of x (n, d): the base model reads the base parameters."""
+def _base_rows(xp, m, x, fn, columns):
+    """``fn(base_model, theta_base)`` at every row of x (n, d): the base model reads the base parameters.  NaN
+    (the base model not evaluated) when the ``columns`` asked hold no curve: only curves read the base block."""
     base = sided_parts(m)[0][BASE_PREFIX]
+    if columns is not None and all(b - a == 1 for a, b in columns):
+        n_side = transition_column(m)
+        return _nan_block(xp, x.shape[0], n_side, x), None
+
     nb = base["lo"].shape[0]
     lo, hi = m["lo"], m["hi"]
     theta = xp.clip(lo + x * (hi - lo), lo, hi)
@@ -1922,11 +1927,12 @@ def _sided_part(xp, m, x, grad, columns):
         return y, xp.concat([dy, xp.zeros(dy.shape[:2] + (x.shape[1] - nb,), dtype=dy.dtype)], axis=-1)
 
     out = _by_side(xp, m, x, near, side)
-    yb, dyb = _base_rows(xp, m, x, base)
+    yb, dyb = _base_rows(xp, m, x, base, base_cols)
     flag = xp.reshape(xp.where(near, 0.0, 1.0), (-1, 1))
     y = xp.concat([out[0], yb, flag], axis=1)
     dy = None
     if grad:
+        dyb = _nan_block(xp, x.shape[0], yb.shape[1], x, x.shape[1]) if dyb is None else dyb
         dy = xp.concat([out[1], dyb, xp.zeros((x.shape[0], 1, x.shape[1]), dtype=x.dtype)], axis=1)
     return y, dy
 
@@ -1941,7 +1947,7 @@ def _sided_std(xp, m, x, columns):
     base_cols = None if columns is None else [c for c in columns if c[0] < n_side]
     s = _by_side(xp, m, x, near, lambda sub, t: (output_std(xp, sub, t, cols),))[0]
     s = xp.where(unsure[:, None], xp.maximum(s, BAND_SIGMA), s)
-    sb = _base_rows(xp, m, x, lambda sub, t: output_std(xp, sub, t, base_cols))
+    sb = _base_rows(xp, m, x, lambda sub, t: (output_std(xp, sub, t, base_cols), None), base_cols)[0]
     return xp.concat([s, sb, xp.zeros((x.shape[0], 1), dtype=x.dtype)], axis=1)
 
 
