@@ -33,7 +33,7 @@ from ._codegen import Template
 from ._data import TrainingData
 from ._gp import GPFit, GPSettings, describe_gp, fit_gp
 from ._local import LocalFit, LocalSettings, describe_local, fit_local, reverse_patches
-from ._rbf import RBFFit, SplineSettings, fit_rbf
+from ._rbf import DENSE_LIMIT, RBFFit, SplineSettings, fit_rbf
 from ._sided import SIDED_ARRAYS, SIDED_STATIC, SidedFit, applies_sided, describe_sided, fit_sided, reverse_sides
 from ._tensor import TensorFit, fit_tensor, is_regular
 
@@ -47,14 +47,6 @@ COMMON_ARRAYS = ("lo", "hi", "out_mean", "out_scale", "trend_powers", "trend_coe
 COMMON_STATIC = ("trend_powers", "warp_log", "warp_shift", "curve_slices")
 
 
-#: Most training points of a dense (global) RBF fit for the spline kind.  Above it the spline kind
-#: fits the local method (a partition of unity of the same r^5 splines), whose training is a set of
-#: small solves and whose cost per query does not grow with n.  Measured on this 2-core machine
-#: (`tovforge bench --only scaling`, quiet): the dense fit trains 4,093 points in 18.5 s and 8,188 in
-#: 102 s (two stretches fitted and compared), and would need 8.6 GB for one matrix at 32k; the local
-#: method trains 32,751 points in 27.8 s.  8,192 is the largest design the
-#: sound-speed and spectral targets of issue 13 allow, where the dense fit reaches them.
-DENSE_LIMIT = 8192
 
 
 def _always(data: TrainingData) -> bool:
@@ -66,9 +58,9 @@ def _dense_size(data: TrainingData) -> bool:
 
 
 def _sided_applies(data: TrainingData) -> bool:
-    """Two-sided splines: a transition family whose sides each hold enough rows for a dense fit, and at most
-    :data:`DENSE_LIMIT` (each side is one dense RBF)."""
-    return applies_sided(data, DENSE_LIMIT)
+    """Two-sided splines: a transition family whose sides each hold enough rows for a dense fit (a side with
+    more than :data:`DENSE_LIMIT` rows learns that many of them)."""
+    return applies_sided(data)
 
 
 @dataclass(frozen=True)

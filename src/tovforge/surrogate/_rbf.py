@@ -19,10 +19,18 @@ from ._prepare import (FitResult, degenerate_kernels, fit_gaussian_process, mate
                        saddle_matrix, space_filling_subset, trend_matrix, trend_powers, trend_residuals)
 from ._record import Record
 
-__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "MIN_STRETCH", "STRETCH_OPTIONS", "stretch_candidates"]
+__all__ = ["SplineSettings", "RBFFit", "fit_rbf", "DENSE_LIMIT", "MIN_STRETCH", "STRETCH_OPTIONS", "stretch_candidates"]
 
 logger = logging.getLogger(__name__)
 
+#: Most training points of a dense (global) RBF fit (the spline kind; each spline of a two-sided model).  Above it the spline kind
+#: fits the local method (a partition of unity of the same r^5 splines), whose training is a set of
+#: small solves and whose cost per query does not grow with n.  Measured on this 2-core machine
+#: (`tovforge bench --only scaling`, quiet): the dense fit trains 4,093 points in 18.5 s and 8,188 in
+#: 102 s (two stretches fitted and compared), and would need 8.6 GB for one matrix at 32k; the local
+#: method trains 32,751 points in 27.8 s.  8,192 is the largest design the
+#: sound-speed and spectral targets of issue 13 allow, where the dense fit reaches them.
+DENSE_LIMIT = 8192
 #: Smallest stretch of a parameter's unit interval in the anisotropic RBF.
 MIN_STRETCH = 0.05
 #: Values of ``stretch_on`` (:class:`SplineSettings`, :class:`~tovforge.surrogate._local.LocalSettings`).

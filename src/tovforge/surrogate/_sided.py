@@ -69,11 +69,12 @@ from ..solve import NEAR_DECADES, jump_margins, jump_stars, solve_sequences
 from . import _runtime as rt
 from ._data import TrainingData, emulated_outputs
 from ._prepare import FitResult, prepare, saddle_matrix, spline_cardinal_coefficients, trend_matrix, trend_powers
+from . import _rbf
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
 __all__ = ["SidedFit", "FarCurves", "fit_sided", "has_transition", "fit_sides", "fit_margin", "far_t_nodes", "far_curves",
-           "base_data", "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND",
+           "base_data", "first_rows", "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND",
            "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC", "TRANSITION_MASS", "MIN_CURVE_NODES"]
 
 logger = logging.getLogger(__name__)
@@ -118,6 +119,9 @@ class SidedFit(Record):
         Rows left out of their side's spline: their transition star or (far) a star at a t node failed.
     base_rows : int
         Rows the base family's spline learned.
+    rows_left_out : int
+        Training rows beyond the first :data:`~._rbf.DENSE_LIMIT` of a side (each spline is one dense fit;
+        the margin models and the base spline learn at most as many rows too).
     seconds_far_curves : float
         Time of the exact stars at the transition, at the far side's t nodes and of the base family.
     label_disagreements : int
@@ -137,6 +141,7 @@ class SidedFit(Record):
     far_rows: int = 0
     far_rows_unsolved: int = 0
     base_rows: int = 0
+    rows_left_out: int = 0
     seconds_far_curves: float = 0.0
     label_disagreements: int = 0
     scanned_rows: int = 0
@@ -172,10 +177,9 @@ def _min_side_rows(d: int) -> int:
     return (d + 1) * (d + 2)
 
 
-def applies_sided(data: TrainingData, largest: int | None = None) -> bool:
-    """True for a transition family's data with at least :func:`_min_side_rows` rows on each side (and at most
-    ``largest`` on either, if given: each side is one dense fit) and curves at :data:`MIN_CURVE_NODES` nodes
-    or more."""
+def applies_sided(data: TrainingData) -> bool:
+    """True for a transition family's data with at least :func:`_min_side_rows` rows on each side and curves
+    at :data:`MIN_CURVE_NODES` nodes or more."""
     fam = _transition_family(data.family)
     if fam is None:
         return False
@@ -186,11 +190,21 @@ def applies_sided(data: TrainingData, largest: int | None = None) -> bool:
     near = solved_near(data, fam)
     sizes = (int(near.sum()), int((~near).sum()))
     need = _min_side_rows(np.shape(data.theta)[1])
-    if min(sizes) < need or (largest is not None and max(sizes) > largest):
-        logger.info(f"  {data.family}: {sizes[0]} near / {sizes[1]} far training rows, not {need} to "
-                    f"{largest or 'any number'} on each side: one model over both sides")
+    if min(sizes) < need:
+        logger.info(f"  {data.family}: {sizes[0]} near / {sizes[1]} far training rows, not {need} on each side: "
+                    "one model over both sides")
         return False
     return True
+
+
+def first_rows(rows: np.ndarray, limit: int) -> np.ndarray:
+    """The first ``limit`` rows (in the grid's order) of the mask ``rows``: all of them if there are no more.
+
+    Each spline of a two-sided model is one dense fit (at most :data:`~._rbf.DENSE_LIMIT` rows); a Sobol
+    design's first rows on a side are the prefix of the sequence there, still spread over the box.
+    """
+    rows = np.asarray(rows, bool)
+    return rows & (np.cumsum(rows) <= limit)
 
 
 def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
@@ -318,11 +332,17 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     fam = _transition_family(data.family)
     if fam is None:
         raise InputError(f"the two-sided spline needs a <base>-transition family; got {data.family!r}.")
+    limit = _rbf.DENSE_LIMIT
+    near = solved_near(data, fam)
+    keep = first_rows(near, limit) | first_rows(~near, limit)
+    if not keep.all():
+        logger.info(f"  {int(near.sum())} near and {int((~near).sum())} far rows: each side learns its first "
+                    f"{limit} (one dense spline each); {int((~keep).sum())} rows left out")
+        data, near = data.rows(keep), near[keep]
     t0 = time.perf_counter()
     margins = jump_margins(fam.build(np.asarray(data.theta, float)))
     seconds = time.perf_counter() - t0
     logger.info(f"  side margins of {len(data.theta)} EOS: {seconds:.1f} s")
-    near = solved_near(data, fam)
     t0 = time.perf_counter()
     far = far_curves(data, ~near)
     logger.info(f"  transition masses, far side's exact stars at {far.t_nodes.size} nodes of t for "
@@ -334,7 +354,8 @@ def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> Fit
     seconds_far = time.perf_counter() - t0
     result = fit_sides(data, settings, margins, near, far, base)
     return dataclasses.replace(result, details=dataclasses.replace(result.details, seconds_scan=seconds,
-                                                                   seconds_far_curves=seconds_far))
+                                                                   seconds_far_curves=seconds_far,
+                                                                   rows_left_out=int((~keep).sum())))
 
 
 def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near: np.ndarray,
@@ -392,6 +413,7 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
         scalars={**{k: v[rows] for k, v in data.scalars.items()}, TRANSITION_MASS: m_t[rows]},
         trailing=(TRANSITION_MASS,))
     details = {}
+    base = base.rows(first_rows(np.ones(len(base.theta), bool), _rbf.DENSE_LIMIT))
     for prefix, side_data in ((rt.SIDE_PREFIXES[0], with_mt(near & solved, data.curves)),
                               (rt.SIDE_PREFIXES[1], with_mt(~near & solved, far.curves)), (rt.BASE_PREFIX, base)):
         name = prefix.rstrip("_")
@@ -399,9 +421,11 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
         fit = fit_rbf(side_data, settings)
         arrays.update({prefix + k: v for k, v in fit.arrays.items()})
         details[name] = fit.details
-    below = (margins.seidov < 0.0) & np.isfinite(margins.scanned_msun)
+    limit = _rbf.DENSE_LIMIT
+    below = first_rows((margins.seidov < 0.0) & np.isfinite(margins.scanned_msun), limit)
     t0 = time.perf_counter()
-    for prefix, rows, value in ((rt.MARGIN_PREFIXES[0], np.isfinite(margins.seidov), margins.seidov),
+    for prefix, rows, value in ((rt.MARGIN_PREFIXES[0], first_rows(np.isfinite(margins.seidov), limit),
+                                 margins.seidov),
                                 (rt.MARGIN_PREFIXES[1], below, np.arcsinh(margins.scanned_msun / SCANNED_SCALE))):
         arrays.update({prefix + k: v for k, v in fit_margin(x[rows], value[rows]).items()})
     loo = {q.rstrip("_"): float(np.percentile(np.abs(arrays[q + "loo_residual"]), 95)) for q in rt.MARGIN_PREFIXES}

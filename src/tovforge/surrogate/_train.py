@@ -70,7 +70,7 @@ def train_on(data: TrainingData, kind: str = "spline", settings=None) -> Surroga
         warnings.warn(f"{data.family}: the {kind} kind fits one {m.name} model over both sides of the jump of "
                       "M_max at the transition; measured on the family's default box it misses every accuracy "
                       "target (held-out M_max p95 0.21 Msun) and flags most stars untrusted. Two-sided splines "
-                      f"need the spline kind and {(d + 1) * (d + 2)} to {DENSE_LIMIT} training rows on each side "
+                      f"need the spline kind and at least {(d + 1) * (d + 2)} training rows on each side "
                       "(DEVELOPERS.md, Surrogates).", UserWarning, stacklevel=2)
     if m.kind != kind:
         logger.info("%s kind, %d training points: fitted by the %s method (%s)", kind, n, m.name, m.description)

@@ -19,7 +19,8 @@ from tovforge.solve import JumpMargins
 from tovforge.surrogate import SplineSettings, Surrogate, load, read_training_data, train_on
 from tovforge.surrogate import _runtime as rt
 from tovforge.surrogate._kinds import resolve
-from tovforge.surrogate._sided import FarCurves, applies_sided, far_t_nodes, fit_sides, solved_near
+from tovforge.surrogate import _rbf
+from tovforge.surrogate._sided import FarCurves, applies_sided, far_t_nodes, first_rows, fit_sides, solved_near
 
 SETTINGS = SplineSettings(anisotropic=False)  # no GP for the stretch: fast
 #: The jump the near side adds to the smooth made-up outputs (surrogate_helpers.truth).
@@ -179,13 +180,34 @@ def test_transition_grid_trains_two_sides_by_default(transition_grid):
     near = solved_near(data, get_family(data.family))
     keep = near & (np.cumsum(near) <= 40)  # 40 near rows (a side needs (d + 1)(d + 2) = 72) and every far row
     assert resolve("spline", data.rows(keep | ~near)).name == "rbf"
-    assert applies_sided(data) and not applies_sided(data, largest=max(fit.near_rows, fit.far_rows) - 1)
+    assert applies_sided(data)
     # one model over both sides of a transition family's jump is said loudly; the two-sided one is not
     with pytest.warns(UserWarning, match=r"one rbf model over both sides of the jump"):
         train_on(data.rows(keep | ~near))
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         train_on(data)
+
+
+def test_sides_above_the_dense_limit_learn_their_first_rows(transition_grid, monkeypatch):
+    """A side with more rows than one dense spline takes learns the first DENSE_LIMIT of them (so do the margin
+    models and the base spline): still two sides, recorded, and every row it learned reproduced."""
+    data = transition_grid
+    near = solved_near(data, get_family(data.family))
+    limit = int(min(near.sum(), (~near).sum())) - 10
+    monkeypatch.setattr(_rbf, "DENSE_LIMIT", limit)
+    model = train_on(data)
+    fit = model.meta.fit
+    assert model.method == "sided" and fit.rows_left_out == len(data.theta) - 2 * limit
+    assert fit.near_rows == fit.far_rows == limit and model.arrays["base__X"].shape[0] <= limit
+    assert model.arrays["seidov__X"].shape[0] <= limit
+    kept = first_rows(near, limit) | first_rows(~near, limit)
+    np.testing.assert_array_equal(kept.sum(), 2 * limit)
+    off = np.abs(model.mass_max(data.theta[kept]).value - data.scalars["mass_max_msun"][kept]) > 1e-6
+    # (the margin models learned fewer rows than the sides: a row may take the other side, M_max of the other)
+    side = rt.sided_choice(np, model._model, rt.unit_inputs(np, model._model, data.theta[kept])[0])[0]
+    assert (side != near[kept]).mean() < 0.05
+    assert (off & (side == near[kept])).sum() <= fit.far_rows_unsolved
 
 
 def test_margins_that_disagree_with_the_solved_sides_are_reported(pair):
