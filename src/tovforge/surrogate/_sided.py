@@ -65,7 +65,7 @@ import scipy.linalg
 from .. import quantities
 from ..eos import Transition, get_family
 from ..errors import InputError
-from ..solve import NEAR_DECADES, jump_margins, jump_stars, solve_sequences
+from ..solve import NEAR_DECADES, SequenceSettings, jump_margins, jump_stars, solve_sequences
 from . import _runtime as rt
 from ._data import TrainingData, emulated_outputs
 from ._prepare import FitResult, prepare, saddle_matrix, spline_cardinal_coefficients, trend_matrix, trend_powers
@@ -88,6 +88,9 @@ SIDE_BAND = 3.0
 SCANNED_SCALE = 10.0
 #: Nodes per curve a grid needs for the two-sided spline (the far side's t nodes are as many).
 MIN_CURVE_NODES = 4
+#: Where the branch of the far side's exact stars starts [Msun] (the solver's default is 0.3 Msun; transition
+#: masses of 0.1-0.3 Msun occur in the sound-speed-transition box, whose nodes just above M_t then failed).
+LOWEST_BRANCH_MSUN = 0.05
 #: The name of the far side's scalar after the curves: the transition mass [Msun].
 TRANSITION_MASS = "transition_mass_msun"
 #: The arrays a two-sided model adds to the common ones (a model without them is refused).
@@ -270,7 +273,9 @@ def far_curves(data: TrainingData, far: np.ndarray, chunk: int = 64) -> FarCurve
         batch = fam.build(theta[r])
         at_jump = jump_stars(batch)
         masses = rt.t_node_masses(np, t_nodes, data.scalars["mass_max_msun"][r], m_t[r])
-        seq = solve_sequences(batch, n_stars=0, masses=np.where(np.isfinite(masses), masses, 1.0)[:, inner])
+        # the branch from the lightest scanned star (not from 0.3 Msun): a transition mass can be lighter
+        seq = solve_sequences(batch, n_stars=0, masses=np.where(np.isfinite(masses), masses, 1.0)[:, inner],
+                              settings=SequenceSettings(low_mass_msun=LOWEST_BRANCH_MSUN))
         for q in star:
             c = curves[q.model_name]
             with np.errstate(divide="ignore", invalid="ignore"):
