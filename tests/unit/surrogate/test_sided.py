@@ -15,12 +15,13 @@ from surrogate_helpers import BOX, synthetic, truth
 from tovforge.eos import get_family
 from tovforge.export import export_model
 from tovforge.grid import parse_spec, run_grid
-from tovforge.solve import JumpMargins
+from tovforge.solve import JumpMargins, SequenceSettings, jump_stars, solve_sequences
 from tovforge.surrogate import SplineSettings, Surrogate, load, read_training_data, train_on
 from tovforge.surrogate import _runtime as rt
 from tovforge.surrogate._kinds import resolve
 from tovforge.surrogate import _rbf
-from tovforge.surrogate._sided import FarCurves, applies_sided, far_t_nodes, first_rows, fit_sides, solved_near
+from tovforge.surrogate._sided import (FarCurves, applies_sided, far_curves, far_t_nodes, first_rows, fit_sides,
+                                      solved_near)
 
 SETTINGS = SplineSettings(anisotropic=False)  # no GP for the stretch: fast
 #: The jump the near side adds to the smooth made-up outputs (surrogate_helpers.truth).
@@ -281,3 +282,27 @@ def test_far_row_gradients_match_finite_differences(pair, fraction):
             np.testing.assert_allclose(e.grad[:, 0, i], fd[:, 0], rtol=2e-4, atol=1e-6 * np.max(np.abs(e.value)))
             if fraction < 1.0 and i >= 2:
                 assert np.all(e.grad[:, 0, i] == 0.0)
+
+
+def test_far_curves_solve_every_node_of_light_transition_masses():
+    """``far_curves`` of two sound-speed-transition EOS of the family's default box whose transition star is
+    lighter than the solver's default branch start (0.3 Msun): every node is solved, at its mass (the nodes'
+    masses from the solved M_t and M_max), the first node is the star at the jump and the last the heaviest."""
+    fam = get_family("sound-speed-transition")
+    theta = np.array([[0.026149, 0.832592, 0.572065, 0.932063, 0.739488, 34.468391, 0.025979, 0.695629],
+                      [0.056019, 0.613569, 0.280116, 0.595642, 0.051627, 34.335354, 0.391983, 0.52735]])
+    seq = solve_sequences(fam.build(theta), n_stars=0, masses=[1.0])
+    mmax = np.asarray(seq.mass_max.mass_msun, float)
+    data = dataclasses.replace(synthetic(8), family=fam.name, parameter_names=tuple(p.name for p in fam.parameters),
+                               theta=theta, scalars={"mass_max_msun": mmax}, curves={}, regular_shape=None)
+    far = far_curves(data, np.ones(2, bool))
+    m_t = far.transition_mass_msun
+    assert np.all(m_t < 0.3) and np.all(m_t > 0.05)
+    for c in far.curves.values():
+        assert np.all(np.isfinite(c))
+    masses = rt.t_node_masses(np, far.t_nodes, mmax, m_t)
+    radius = solve_sequences(fam.build(theta), n_stars=0, masses=masses[:, 1:-1],
+                             settings=SequenceSettings(low_mass_msun=0.05)).at_mass.radius_km
+    np.testing.assert_allclose(far.curves["radius_km"][:, 1:-1], radius, rtol=1e-9)
+    np.testing.assert_allclose(far.curves["radius_km"][:, 0], jump_stars(fam.build(theta)).radius_km, rtol=1e-12)
+    np.testing.assert_allclose(far.curves["radius_km"][:, -1], seq.mass_max.radius_km, rtol=1e-7)
