@@ -67,9 +67,13 @@ and those of the method:
     own trend is zero and ``out_mean``/``out_scale`` 0/1; ``X`` (n, d) the
     training points in the plain unit box (no warp, no stretch),
     ``side_band`` (1,); an ``"rbf"`` model's arrays for each side under the
-    prefixes :data:`SIDE_PREFIXES`, and margin models under
-    :data:`MARGIN_PREFIXES` (:func:`sided_choice` picks each row's side).
-    NumPy only.
+    prefixes :data:`SIDE_PREFIXES` (with the transition mass as one more
+    output), for the base family under :data:`BASE_PREFIX` (its box the base
+    parameters'), and margin models under :data:`MARGIN_PREFIXES`
+    (:func:`sided_choice` picks each row's side); the far side's nodes of t
+    ``t_nodes`` (n_u,) and their spline coefficients ``t_c``.  Its outputs:
+    the side's (the usual layout), M_t, the base model's (the usual layout)
+    and a side flag (:func:`_sided_curve` reads them).  NumPy only.
 
 A new method is a function ``part(xp, m, x, grad, columns) -> (z, dz)`` here,
 an entry in :data:`PARTS` (and in :data:`STD` if it has a predictive sigma),
@@ -1326,10 +1330,6 @@ def _u_curve(xp, m, y, dy, sd, mass, o, positions=True):
 # Curves of a two-sided model: the base family's below the transition mass, each side's above it
 # ---------------------------------------------------------------------------
 
-#: The far side's nodes of ``t`` crowd towards the transition mass as ``s^T_CROWDING`` (s uniform in [0, 1]).
-T_CROWDING = 1.7
-
-
 def transition_column(m):
     """The output column of the transition mass M_t in a two-sided model (after its sides' curves)."""
     return m["curve_slices"][-1, 1]
@@ -1410,8 +1410,8 @@ def _sided_curve(xp, m, y, dy, sd, mass, o, positions=True):
 
 
 def _far_mask(xp, m, y):
-    """Rows of a two-sided model's outputs y that its far side answered (the side block's last column flags it:
-    see :func:`_sided_part`)."""
+    """Rows of a two-sided model's outputs y that its far side answered (flagged by the column after the base
+    block: see :func:`_sided_part`)."""
     return y[:, base_offset(m) + transition_column(m)] > 0.5
 
 
@@ -1889,14 +1889,17 @@ def _sided_columns(m, columns):
     return [c for c in columns if c[0] < it] + [(it, it + 1)]
 
 
+def _base_columns(m, columns):
+    """The output ranges of a two-sided model's base block a query reads (``columns`` below M_t's)."""
+    return None if columns is None else [c for c in columns if c[0] < transition_column(m)]
+
+
 def _base_rows(xp, m, x, fn, columns):
     """``fn(base_model, theta_base)`` at every row of x (n, d): the base model reads the base parameters.  NaN
     (the base model not evaluated) when the ``columns`` asked hold no curve: only curves read the base block."""
     base = sided_parts(m)[0][BASE_PREFIX]
     if columns is not None and all(b - a == 1 for a, b in columns):
-        n_side = transition_column(m)
-        return _nan_block(xp, x.shape[0], n_side, x), None
-
+        return _nan_block(xp, x.shape[0], transition_column(m), x), None
     nb = base["lo"].shape[0]
     lo, hi = m["lo"], m["hi"]
     theta = xp.clip(lo + x * (hi - lo), lo, hi)
@@ -1908,9 +1911,7 @@ def _sided_part(xp, m, x, grad, columns):
     block and the side flag (1: far), see :func:`_sided_curve` (NumPy only)."""
     near = sided_choice(xp, m, x)[0]
     span = m["hi"] - m["lo"]
-    n_side = transition_column(m)
-    cols = _sided_columns(m, columns)
-    base_cols = None if columns is None else [c for c in columns if c[0] < n_side]
+    cols, base_cols = _sided_columns(m, columns), _base_columns(m, columns)
 
     def side(sub, t):
         y, _, dy = outputs(xp, sub, t, grad, cols)
@@ -1942,9 +1943,7 @@ def _sided_std(xp, m, x, columns):
     where the side is uncertain), then the base model's (whatever the side: its stars hold none of the dense
     phase), and 0 for the side flag."""
     near, unsure = sided_choice(xp, m, x)
-    n_side = transition_column(m)
-    cols = _sided_columns(m, columns)
-    base_cols = None if columns is None else [c for c in columns if c[0] < n_side]
+    cols, base_cols = _sided_columns(m, columns), _base_columns(m, columns)
     s = _by_side(xp, m, x, near, lambda sub, t: (output_std(xp, sub, t, cols),))[0]
     s = xp.where(unsure[:, None], xp.maximum(s, BAND_SIGMA), s)
     sb = _base_rows(xp, m, x, lambda sub, t: (output_std(xp, sub, t, base_cols), None), base_cols)[0]

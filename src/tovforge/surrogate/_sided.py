@@ -88,6 +88,9 @@ SIDE_BAND = 3.0
 SCANNED_SCALE = 10.0
 #: Nodes per curve a grid needs for the two-sided spline (the far side's t nodes are as many).
 MIN_CURVE_NODES = 4
+#: The far side's t nodes crowd towards M_t as ``s^T_CROWDING``: 16 such nodes above M_t gave held-out R p95
+#: 43.9 m against 47 m uniform (LOG.md, far side).
+T_CROWDING = 1.7
 #: Where the branch of the far side's exact stars starts [Msun] (the solver's default is 0.3 Msun; transition
 #: masses of 0.1-0.3 Msun occur in the sound-speed-transition box, whose nodes just above M_t then failed).
 LOWEST_BRANCH_MSUN = 0.05
@@ -227,8 +230,8 @@ def fit_margin(x: np.ndarray, value: np.ndarray) -> dict:
 
 def far_t_nodes(n: int) -> np.ndarray:
     """The far side's ``n`` curve nodes of t in [0, 1] (M_t at 0, M_max at 1), crowded towards M_t as
-    ``s^1.7`` (s uniform): 16 such nodes above M_t gave held-out R p95 43.9 m against 47 m uniform (LOG.md)."""
-    return np.linspace(0.0, 1.0, n) ** 1.7
+    ``s^T_CROWDING`` (s uniform)."""
+    return np.linspace(0.0, 1.0, n) ** T_CROWDING
 
 
 @dataclass(frozen=True)
