@@ -410,7 +410,8 @@ def load(folder, allow_mismatch: bool = False) -> Surrogate:
     needed = COMMON_ARRAYS + method(meta.method).arrays
     missing = [k for k in needed if k not in arrays]
     if missing:
-        raise ModelFormatError(f"{arr_path}: missing array {missing[0]!r} for a {meta.method} model.")
+        raise ModelFormatError(f"{arr_path}: missing array {missing[0]!r} for a {meta.method} model (damaged, or "
+                               f"written by a tovforge whose {meta.method} models had other arrays: train it again).")
     want_slices = [[c.start, c.stop] for c in list(meta.outputs.columns().values())[len(meta.outputs.scalars):]]
     if np.asarray(arrays["curve_slices"]).tolist() != want_slices:
         raise ModelFormatError(f"{arr_path}: curve_slices {np.asarray(arrays['curve_slices']).tolist()} do not match "
