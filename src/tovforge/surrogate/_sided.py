@@ -327,10 +327,12 @@ def base_data(data: TrainingData) -> TrainingData:
 def fit_sided(data: TrainingData, settings: SplineSettings | None = None) -> FitResult:
     """Fit the two-sided spline of a transition family (see the module docstring).
 
-    The margins of every training row come from the family
-    (:func:`tovforge.solve.jump_margins`: Seidov's in closed form, the scanned one
-    from 101 stars per EOS), the sides from the grid's solved first maximum; then
-    :func:`fit_sides`.
+    The sides come from the grid's solved first maximum (a side with more than
+    :data:`~._rbf.DENSE_LIMIT` rows keeps its first ones, :func:`first_rows`); the
+    family gives every kept row its margins (:func:`tovforge.solve.jump_margins`:
+    Seidov's in closed form, the scanned one from 101 stars per EOS), its transition
+    mass and the far rows' stars at the t nodes (:func:`far_curves`), and the base
+    family's sequences (:func:`base_data`); then :func:`fit_sides`.
 
     Raises
     ------
