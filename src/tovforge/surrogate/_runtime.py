@@ -1387,7 +1387,8 @@ def _sided_curve(xp, m, y, dy, sd, mass, o, positions=True):
     n_side = transition_column(m)
     off = base_offset(m)
     mt = y[:, n_side][:, None]
-    below = mass <= mt
+    # (the emulated M_t of a cusp may exceed its emulated M_max by a little: no answer above M_max all the same)
+    below = (mass <= mt) & (mass <= y[:, m.i_mass_max][:, None])
     base = _u_curve(xp, m, _block(y, off, off + n_side), _block(dy, off, off + n_side),
                     _block(sd, off, off + n_side), mass, o, positions)
     far = _far_mask(xp, m, y)

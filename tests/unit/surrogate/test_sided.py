@@ -255,6 +255,12 @@ def test_far_rows_interpolate_their_t_nodes_and_the_base_below_the_transition(pa
     exact = truth(np.concatenate([theta[:, :2], np.broadcast_to(BOX[2:].mean(axis=1), (len(theta), 2))], axis=1),
                   u)[1]["radius_km"]
     np.testing.assert_allclose(radius, exact, atol=2e-3)
+    # no answer above the emulated M_max, even below an emulated M_t that lies above it (a cusp's M_t and
+    # M_max are one star; their two emulations differ by a little)
+    y_cusp = y[16:].copy()  # the near rows
+    y_cusp[:, it] = m_max[16:] + 0.05
+    for dm, want in ((0.01, np.isnan), (-0.01, np.isfinite)):
+        assert np.all(want(rt.curve_at_mass(np, m, y_cusp, None, None, m_max[16:, None] + dm, "radius")[0]))
     # the prediction's curves at the u nodes are the curve's values at the u nodes' masses
     pred = sided.predict(theta)
     want = rt.curve_at_mass(np, m, y, None, None, m_max[:, None] * (1.0 - m["u_nodes"] ** 2)[None, :], "radius")[0]
