@@ -266,15 +266,20 @@ def far_curves(data: TrainingData, far: np.ndarray, chunk: int = 64) -> FarCurve
     t_nodes = far_t_nodes(len(data.u_nodes))
     star = emulated_outputs()[1]
     n, k = len(theta), t_nodes.size
+    far = np.asarray(far, bool)
     m_t = np.full(n, np.nan)
-    for start in range(0, n, 512):
-        m_t[start : start + 512] = jump_stars(fam.build(theta[start : start + 512])).mass_msun
     curves = {q.model_name: np.full((n, k), np.nan) for q in star}
+    for start in range(0, n, 512):  # the star at the jump of every row: M_t, and the far rows' node t = 0
+        r = np.arange(start, min(start + 512, n))
+        at_jump = jump_stars(fam.build(theta[r]))
+        m_t[r] = at_jump.mass_msun
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for q in star:
+                curves[q.model_name][r[far[r]], 0] = quantities.forward(q, np.asarray(getattr(at_jump, q.name)))[far[r]]
     inner = np.arange(1, k - 1)
 
     def solve(r):
         batch = fam.build(theta[r])
-        at_jump = jump_stars(batch)
         masses = rt.t_node_masses(np, t_nodes, data.scalars["mass_max_msun"][r], m_t[r])
         # the branch from the lightest scanned star (not from 0.3 Msun): a transition mass can be lighter
         seq = solve_sequences(batch, n_stars=0, masses=np.where(np.isfinite(masses), masses, 1.0)[:, inner],
@@ -283,7 +288,6 @@ def far_curves(data: TrainingData, far: np.ndarray, chunk: int = 64) -> FarCurve
             c = curves[q.model_name]
             with np.errstate(divide="ignore", invalid="ignore"):
                 c[np.ix_(r, inner)] = quantities.forward(q, np.asarray(getattr(seq.at_mass, q.name)))
-                c[r, 0] = quantities.forward(q, np.asarray(getattr(at_jump, q.name)))
                 c[r, -1] = quantities.forward(q, np.asarray(getattr(seq.mass_max, q.name)))
 
     idx = np.flatnonzero(far)
