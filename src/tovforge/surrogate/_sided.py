@@ -304,7 +304,8 @@ def base_data(data: TrainingData) -> TrainingData:
     """The base family's exact sequences at the training rows' base parameters, as training data.
 
     Solved as a grid solves its points (:func:`tovforge.grid.solve_chunk`, the same u nodes); rows whose base
-    parameters repeat are kept once, failed rows dropped.
+    parameters repeat are kept once, in the grid's order, and at most :data:`~._rbf.DENSE_LIMIT` of them (the
+    first: the base spline is one dense fit); failed rows dropped.
     """
     from ..grid import parse_spec
     from ..grid._solve import solve_chunk
@@ -314,7 +315,9 @@ def base_data(data: TrainingData) -> TrainingData:
     nb = len(fam.base.parameters)
     names = tuple(data.parameter_names[:nb])
     box = np.asarray(data.bounds, float)[:nb]
-    theta = np.unique(np.asarray(data.theta, float)[:, :nb], axis=0)
+    base = np.asarray(data.theta, float)[:, :nb]
+    # (np.unique sorts: its first rows would all sit at the low end of the first parameter)
+    theta = base[np.sort(np.unique(base, axis=0, return_index=True)[1])][: _rbf.DENSE_LIMIT]
     spec = parse_spec({"family": fam.base.name, "box": {k: [float(a), float(b)] for k, (a, b) in zip(names, box)},
                        "mass_max_floor_msun": 0.0, "design": {"method": "sobol", "points": 16, "seed": 1},
                        "outputs": {"u_nodes": [float(u) for u in data.u_nodes]}})
@@ -389,7 +392,8 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
         Every row's transition mass and the far rows' curves at the t nodes (:func:`far_curves`); the far
         side's spline learns these instead of the grid's curves (rows with a NaN among them are left out).
     base : TrainingData
-        The base family's sequences (:func:`base_data`), whose parameters are the first of ``data``'s.
+        The base family's sequences (:func:`base_data`), whose parameters are the first of ``data``'s; at most
+        :data:`~._rbf.DENSE_LIMIT` rows (one dense fit).
 
     Returns
     -------
@@ -427,7 +431,6 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
         scalars={**{k: v[rows] for k, v in data.scalars.items()}, TRANSITION_MASS: m_t[rows]},
         trailing=(TRANSITION_MASS,))
     details = {}
-    base = base.rows(first_rows(np.ones(len(base.theta), bool), _rbf.DENSE_LIMIT))
     for prefix, side_data in ((rt.SIDE_PREFIXES[0], with_mt(near & solved, data.curves)),
                               (rt.SIDE_PREFIXES[1], with_mt(~near & solved, far.curves)), (rt.BASE_PREFIX, base)):
         name = prefix.rstrip("_")

@@ -20,7 +20,7 @@ from tovforge.surrogate import SplineSettings, Surrogate, load, read_training_da
 from tovforge.surrogate import _runtime as rt
 from tovforge.surrogate._kinds import resolve
 from tovforge.surrogate import _rbf
-from tovforge.surrogate._sided import (FarCurves, applies_sided, far_curves, far_t_nodes, first_rows, fit_sides,
+from tovforge.surrogate._sided import (FarCurves, applies_sided, base_data, far_curves, far_t_nodes, first_rows, fit_sides,
                                       solved_near)
 
 SETTINGS = SplineSettings(anisotropic=False)  # no GP for the stretch: fast
@@ -202,6 +202,9 @@ def test_sides_above_the_dense_limit_learn_their_first_rows(transition_grid, mon
     assert model.method == "sided" and fit.rows_left_out == len(data.theta) - 2 * limit
     assert fit.near_rows == fit.far_rows == limit and model.arrays["base__X"].shape[0] <= limit
     assert model.arrays["seidov__X"].shape[0] <= limit
+    # the base spline's rows: the first in the grid's order (not the lowest of a sorted copy)
+    base = base_data(data).theta
+    assert len(base) > 0.8 * limit and (base[:, None, :] == data.theta[None, :limit, :4]).all(-1).any(-1).all()
     kept = first_rows(near, limit) | first_rows(~near, limit)
     np.testing.assert_array_equal(kept.sum(), 2 * limit)
     off = np.abs(model.mass_max(data.theta[kept]).value - data.scalars["mass_max_msun"][kept]) > 1e-6
