@@ -34,7 +34,7 @@ import numpy as np
 from ..surrogate._contract import (_TRUST_OF, Curve, Estimate, QueryError, _require_inside, _require_on_branch,
                                    trusted_at_mass, trusted_mass_max)
 from ..surrogate._runtime import (BUCKET_MIN_POINTS, DERIVED, ERROR_NEIGHBOURS, LN10, MASS_MAX, PARTS, STD, Model,
-                                  _curve_weights, _inverse_with, augmented_rows, error_neighbours_one,
+                                  _curve_weights, _inverse_with, augmented_rows, curves_in_u, error_neighbours_one,
                                   error_points_name, error_squares, rbf_augmented)
 
 # ---- the exported code starts below this line ----
@@ -355,7 +355,7 @@ def _row(a):
 def _fast_at_mass(query, t, lead, mass, grad, std, strict):
     """A query at masses for one theta, as the contract's ``query_at_mass``; None for mass forms it leaves to it."""
     parsed = _one_masses(mass, lead)
-    if parsed is None or _M.method == "sided":  # (two-sided: a far row's curves sit at nodes of t)
+    if parsed is None or not curves_in_u(_M):  # (the one-theta spline reads u nodes)
         return None
     masses, tail = parsed
     plan = _PLANS[query]
@@ -390,7 +390,7 @@ def _fast_at_mass(query, t, lead, mass, grad, std, strict):
 
 def _fast_curve(t, lead, n, strict):
     """The stable branch at n points for one theta, as the contract's ``query_curve``; None for an unusual n."""
-    if type(n) is not int or n < 1 or _M.method == "sided":
+    if type(n) is not int or n < 1 or not curves_in_u(_M):
         return None
     plan = _PLANS["curve"]
     out = _outputs_one(plan, t, False, False)

@@ -47,20 +47,12 @@ COMMON_ARRAYS = ("lo", "hi", "out_mean", "out_scale", "trend_powers", "trend_coe
 COMMON_STATIC = ("trend_powers", "warp_log", "warp_shift", "curve_slices")
 
 
-
-
 def _always(data: TrainingData) -> bool:
     return True
 
 
 def _dense_size(data: TrainingData) -> bool:
     return len(data.theta) <= DENSE_LIMIT
-
-
-def _sided_applies(data: TrainingData) -> bool:
-    """Two-sided splines: a transition family whose sides each hold enough rows for a dense fit (a side with
-    more than :data:`DENSE_LIMIT` rows learns that many of them)."""
-    return applies_sided(data)
 
 
 @dataclass(frozen=True)
@@ -141,7 +133,7 @@ METHODS: dict[str, Method] = {m.name: m for m in (
            "per side of the near/far discontinuity of the first maximum, the side chosen by emulated margins "
            "(Seidov's and a scanned one; NumPy only)",
            fit_sided, SplineSettings, SidedFit, arrays=SIDED_ARRAYS, static_arrays=SIDED_STATIC, has_std=True,
-           reverse=reverse_sides, applies=_sided_applies, describe=describe_sided, numpy_only=True),
+           reverse=reverse_sides, applies=applies_sided, describe=describe_sided, numpy_only=True),
     Method("tensor", "spline", "tensor-product cubic B-splines on a regular grid",
            fit_tensor, SplineSettings, TensorFit, settings_recorded=False,
            arrays=("knots", "n_knots", "coef", "coef_shape"), static_arrays=("n_knots", "coef_shape", "knots"),

@@ -1264,7 +1264,7 @@ def branch_curve(xp, m, y, s):
     un = m["u_nodes"]
     u = un[-1] * s
     masses = y[:, m.i_mass_max][:, None] * (1.0 - u * u)[None, :]
-    if m.method == "sided":
+    if not curves_in_u(m):
         return (masses,) + tuple(curve_at_mass(xp, m, y, None, None, masses, q)[0]
                                  for q in ("radius", "tidal_deformability"))
     W = _curve_weights(xp, m, u)
@@ -1294,7 +1294,7 @@ def curve_at_mass(xp, m, y, dy, sd, mass, query):
         needs, rule = DERIVED[query]
         return rule(xp, mass, [curve_at_mass(xp, m, y, dy, sd, mass, q) for q in needs], grad, std)
     o = _star_output(m, query)
-    out = _sided_curve(xp, m, y, dy, sd, mass, o) if m.method == "sided" else _u_curve(xp, m, y, dy, sd, mass, o)
+    out = _u_curve(xp, m, y, dy, sd, mass, o) if curves_in_u(m) else _sided_curve(xp, m, y, dy, sd, mass, o)
     return _inverse_with(xp, o[3], *out)
 
 
@@ -1329,6 +1329,12 @@ def _u_curve(xp, m, y, dy, sd, mass, o, positions=True):
 # ---------------------------------------------------------------------------
 # Curves of a two-sided model: the base family's below the transition mass, each side's above it
 # ---------------------------------------------------------------------------
+
+def curves_in_u(m):
+    """True where a model's curve outputs are node values in u for every row, read by :func:`_u_curve` (False
+    for two-sided models: the base block below M_t, the far side's nodes of t, see :func:`_sided_curve`)."""
+    return m.method != "sided"
+
 
 def transition_column(m):
     """The output column of the transition mass M_t in a two-sided model (after its sides' curves)."""
@@ -1392,22 +1398,21 @@ def _sided_curve(xp, m, y, dy, sd, mass, o, positions=True):
     base = _u_curve(xp, m, _block(y, off, off + n_side), _block(dy, off, off + n_side),
                     _block(sd, off, off + n_side), mass, o, positions)
     far = _far_mask(xp, m, y)
-    parts = []
-    if bool(xp.any(far)):
-        parts.append((far, _t_curve(xp, m, y, dy, sd, mass, o, positions)))
-    if not bool(xp.all(far)):
-        parts.append((~far, _u_curve(xp, m, y, dy, sd, mass, o, positions)))
-    out = list(parts[0][1])
-    if len(parts) == 2:
-        for k in range(3):
-            if out[k] is not None:
-                pick = parts[0][0][:, None, None] if out[k].ndim == 3 else parts[0][0][:, None]
-                out[k] = xp.where(pick, out[k], parts[1][1][k])
-    for k in range(3):
-        if out[k] is not None:
-            pick = below[:, :, None] if out[k].ndim == 3 else below
-            out[k] = xp.where(pick, base[k], out[k])
-    return tuple(out)
+    if bool(xp.all(far)):
+        side = _t_curve(xp, m, y, dy, sd, mass, o, positions)
+    elif not bool(xp.any(far)):
+        side = _u_curve(xp, m, y, dy, sd, mass, o, positions)
+    else:  # each row from its own side's curve
+        side = _pick(xp, far[:, None], _t_curve(xp, m, y, dy, sd, mass, o, positions),
+                     _u_curve(xp, m, y, dy, sd, mass, o, positions))
+    return _pick(xp, below, base, side)
+
+
+def _pick(xp, where, a, b):
+    """``a`` where ``where`` (rows, masses) holds, else ``b``: each of (value, grad, std) (grad with one more
+    axis; None stays None)."""
+    return tuple(None if u is None else xp.where(where if u.ndim == 2 else where[..., None], u, v)
+                 for u, v in zip(a, b))
 
 
 def _far_mask(xp, m, y):
@@ -1424,7 +1429,7 @@ def nodes_at_u(xp, m, y, sd):
     sigmas of the node values alone: the u nodes move with M_max).  Other
     models' outputs as they are.
     """
-    if m.method != "sided":
+    if curves_in_u(m):
         return y, sd
     mass = y[:, m.i_mass_max][:, None] * (1.0 - m["u_nodes"] ** 2)[None, :]
     y = xp.asarray(y, copy=True)
@@ -1859,16 +1864,21 @@ def _sided_choice_rows(xp, m, x):
     return (s > 0.0) | (g < 0.0), (xp.abs(s) < k * ss) | ((s <= 0.0) & (xp.abs(g) < k * gs))
 
 
+def _sided_theta(xp, m, x):
+    """The parameters of rows x (n, d) of a two-sided model's plain unit box (clipped to the box against
+    rounding): its sub-models have their own input maps and read these."""
+    lo, hi = m["lo"], m["hi"]
+    return xp.clip(lo + x * (hi - lo), lo, hi)
+
+
 def _by_side(xp, m, x, near, fn):
     """``fn(sub_model, theta_rows)`` (a tuple of arrays, rows first) on each side's rows, joined over the rows of
     x (n, d) (NaN-filled).
 
-    The sub-models have their own input maps: each reads the parameters, taken back from x (the two-sided
-    model's plain unit box) and clipped to the box against rounding.
+    Each sub-model reads the parameters (:func:`_sided_theta`).
     """
     subs = sided_parts(m)[0]
-    lo, hi = m["lo"], m["hi"]
-    theta = xp.clip(lo + x * (hi - lo), lo, hi)
+    theta = _sided_theta(xp, m, x)
     out = None
     for prefix, rows in (("near__", xp.nonzero(near)[0]), ("far__", xp.nonzero(~near)[0])):
         if rows.shape[0] == 0 and (prefix == "near__" or out is not None):
@@ -1901,10 +1911,7 @@ def _base_rows(xp, m, x, fn, columns):
     base = sided_parts(m)[0][BASE_PREFIX]
     if columns is not None and all(b - a == 1 for a, b in columns):
         return _nan_block(xp, x.shape[0], transition_column(m), x), None
-    nb = base["lo"].shape[0]
-    lo, hi = m["lo"], m["hi"]
-    theta = xp.clip(lo + x * (hi - lo), lo, hi)
-    return fn(base, theta[:, :nb])
+    return fn(base, _sided_theta(xp, m, x)[:, : base["lo"].shape[0]])
 
 
 def _sided_part(xp, m, x, grad, columns):

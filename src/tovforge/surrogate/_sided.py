@@ -66,16 +66,16 @@ from .. import quantities
 from ..eos import Transition, get_family
 from ..errors import InputError
 from ..solve import NEAR_DECADES, SequenceSettings, jump_margins, jump_stars, solve_sequences
+from . import _rbf
 from . import _runtime as rt
 from ._data import TrainingData, emulated_outputs
 from ._prepare import FitResult, prepare, saddle_matrix, spline_cardinal_coefficients, trend_matrix, trend_powers
-from . import _rbf
 from ._rbf import RBFFit, SplineSettings, fit_rbf
 from ._record import Record, nested
 
-__all__ = ["SidedFit", "FarCurves", "fit_sided", "has_transition", "fit_sides", "fit_margin", "far_t_nodes", "far_curves",
-           "base_data", "first_rows", "solved_near", "applies_sided", "reverse_sides", "describe_sided", "SIDE_BAND",
-           "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC", "TRANSITION_MASS", "MIN_CURVE_NODES"]
+__all__ = ["SidedFit", "FarCurves", "fit_sided", "has_transition", "fit_sides", "fit_margin", "far_t_nodes",
+           "far_curves", "base_data", "first_rows", "solved_near", "applies_sided", "reverse_sides", "describe_sided",
+           "SIDE_BAND", "SCANNED_SCALE", "SIDED_ARRAYS", "SIDED_STATIC", "TRANSITION_MASS", "MIN_CURVE_NODES"]
 
 logger = logging.getLogger(__name__)
 
@@ -97,18 +97,15 @@ LOWEST_BRANCH_MSUN = 0.05
 #: The name of the far side's scalar after the curves: the transition mass [Msun].
 TRANSITION_MASS = "transition_mass_msun"
 #: The arrays a two-sided model adds to the common ones (a model without them is refused).
-SIDED_ARRAYS = ("X", "side_band", "t_nodes", "t_c") + tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES + (rt.BASE_PREFIX,)
-                                                            for k in ("X", "alpha", "out_mean",
-                                                                                         "out_scale", "trend_powers",
-                                                                                         "trend_coef", "loo_residual",
-                                                                                         "error_scale")) + tuple(
-    f"{p}{k}" for p in rt.MARGIN_PREFIXES for k in ("X", "alpha", "trend_powers", "trend_coef", "loo_residual",
-                                                    "error_scale"))
+_SUBS = rt.SIDE_PREFIXES + (rt.BASE_PREFIX,)
+SIDED_ARRAYS = (("X", "side_band", "t_nodes", "t_c")
+                + tuple(f"{p}{k}" for p in _SUBS for k in ("X", "alpha", "out_mean", "out_scale", "trend_powers",
+                                                           "trend_coef", "loo_residual", "error_scale"))
+                + tuple(f"{p}{k}" for p in rt.MARGIN_PREFIXES for k in ("X", "alpha", "trend_powers", "trend_coef",
+                                                                        "loo_residual", "error_scale")))
 #: Its arrays that steer loops or index.
-SIDED_STATIC = tuple(f"{p}{k}" for p in rt.SIDE_PREFIXES + (rt.BASE_PREFIX,) for k in ("trend_powers", "warp_log",
-                                                                                         "warp_shift",
-                                                                     "curve_slices")) + tuple(
-    f"{p}trend_powers" for p in rt.MARGIN_PREFIXES)
+SIDED_STATIC = (tuple(f"{p}{k}" for p in _SUBS for k in ("trend_powers", "warp_log", "warp_shift", "curve_slices"))
+                + tuple(f"{p}trend_powers" for p in rt.MARGIN_PREFIXES))
 
 
 @dataclass(frozen=True)
@@ -449,8 +446,8 @@ def fit_sides(data: TrainingData, settings: SplineSettings | None, margins, near
     logger.info(f"  margin models: {time.perf_counter() - t0:.1f} s; |LOO| p95 Seidov {loo['seidov']:.2g}, "
                 f"asinh(g / {SCANNED_SCALE:g}) {loo['scanned']:.2g} (on {int(below.sum())} rows with s < 0)")
     return FitResult(arrays=arrays, settings=settings,
-                     details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()), far_rows_unsolved=unsolved,
-                                      base_rows=len(base.theta),
+                     details=SidedFit(near_rows=int(near.sum()), far_rows=int((~near).sum()),
+                                      far_rows_unsolved=unsolved, base_rows=len(base.theta),
                                       label_disagreements=int(disagree.sum()), scanned_rows=int(below.sum()),
                                       margin_loo_p95=loo, **details))
 
@@ -460,7 +457,7 @@ def reverse_sides(arrays: dict) -> dict:
 
     The margin models keep theirs: they only choose the side.
     """
-    return {p + k: np.array(arrays[p + k][::-1]) for p in rt.SIDE_PREFIXES + (rt.BASE_PREFIX,) for k in ("X", "alpha")}
+    return {p + k: np.array(arrays[p + k][::-1]) for p in _SUBS for k in ("X", "alpha")}
 
 
 def describe_sided(arrays: dict) -> str:
